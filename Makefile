@@ -1,0 +1,31 @@
+# tankside: `make demo` and `make test` each set up .venv on first use.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed
+
+.PHONY: demo test bench lint clean setup
+
+$(STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+setup: $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/tankside demo
+
+test: $(STAMP)
+	$(BIN)/ruff check monitor drivers simulators tests
+	$(BIN)/python -m pytest -q
+
+bench: $(STAMP)
+	$(BIN)/python -m pytest -q -s tests/bench -o addopts=""
+
+lint: $(STAMP)
+	$(BIN)/ruff check monitor drivers simulators tests
+
+clean:
+	rm -rf $(VENV) build *.egg-info

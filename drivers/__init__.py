@@ -1,0 +1,1 @@
+"""tankside.drivers: instrument I/O only (SCPI over pyvisa, serial over pyserial); no physics."""

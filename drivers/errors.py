@@ -1,0 +1,63 @@
+"""Typed instrument errors, chained from pyvisa's (``raise ... from err``)."""
+
+
+class InstrumentError(Exception):
+    """Base class of every instrument I/O failure.
+
+    Parameters
+    ----------
+    message : str
+        What went wrong, in words for the operator.
+    resource : str, optional
+        The VISA resource string of the instrument, when known.
+    """
+
+    def __init__(self, message: str, *, resource: str | None = None):
+        self.resource = resource
+        self.message = message
+        super().__init__(f"{resource}: {message}" if resource else message)
+
+
+class InstrumentTimeout(InstrumentError):
+    """No (complete) reply within the timeout; the stream may be out of step."""
+
+
+class ConnectionLost(InstrumentError):
+    """The transport closed or could not be opened."""
+
+
+class ProtocolError(InstrumentError):
+    """A reply that does not parse: bad block header, short block, garbled number."""
+
+
+class InstrumentReportedError(InstrumentError):
+    """An error the instrument put in its SCPI error queue.
+
+    Attributes
+    ----------
+    code : int
+        The SCPI error number (e.g. -113 undefined header).
+    description : str
+        The instrument's text for it.
+    command : str or None
+        The command after which the error was read, when known.
+    """
+
+    def __init__(self, code: int, description: str, *, command: str | None = None,
+                 resource: str | None = None):
+        self.code = code
+        self.description = description
+        self.command = command
+        after = f" after {command!r}" if command else ""
+        super().__init__(f"instrument error {code}, {description!r}{after}", resource=resource)
+
+
+class NoTrigger(InstrumentTimeout):
+    """The digitiser was armed but did not trigger within the allowed time."""
+
+
+class ProfileError(InstrumentError):
+    """An instrument profile (TOML) that is missing a key or has a bad value.
+
+    The message names the file and the key.
+    """

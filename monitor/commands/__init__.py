@@ -1,0 +1,1 @@
+"""One module per `tankside` sub-command; each defines ``add_parser(subparsers)`` and ``run(args)``."""

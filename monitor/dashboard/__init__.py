@@ -1,0 +1,1 @@
+"""The Textual dashboard shown by ``tankside watch`` (one file per widget)."""

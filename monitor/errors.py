@@ -1,0 +1,52 @@
+"""Typed errors for expected failures.
+
+Every failure a user can cause or meet in normal work (a bad file, a full disk, a
+lost instrument) is one of these or a :class:`tankside.drivers.errors.InstrumentError`.
+The CLI turns them into a one-line message and an exit code; nothing else reaches a
+user as a traceback.
+"""
+
+
+class TanksideError(Exception):
+    """Base class of tankside's expected failures (not instrument I/O)."""
+
+
+class CalibrationError(TanksideError):
+    """A hydrophone calibration file that cannot be used.
+
+    Parameters
+    ----------
+    source : str
+        The file name (or a label for in-memory text).
+    line : int or None
+        1-based line number in the file, or None when the problem is not on one line.
+    problem : str
+        What is wrong, in words that say what was expected.
+    """
+
+    def __init__(self, source: str, line: int | None, problem: str):
+        self.source = source
+        self.line = line
+        self.problem = problem
+        where = f"{source}, line {line}" if line is not None else source
+        super().__init__(f"{where}: {problem}")
+
+
+class TraceFileError(TanksideError):
+    """A voltage trace file (CSV ``time_s,voltage_v``) that cannot be used."""
+
+
+class OutOfBandError(TanksideError):
+    """The acoustic working frequency lies outside the calibrated band."""
+
+
+class ConfigError(TanksideError):
+    """A bench file, profile choice or command-line setting that cannot be used."""
+
+
+class StoreError(TanksideError):
+    """The session store cannot be written or read."""
+
+
+class DiskFullError(StoreError):
+    """The session store ran out of space; data committed before this is intact."""

@@ -1,0 +1,108 @@
+"""What the live pipeline publishes for displays: the contract between pipeline and dashboard.
+
+The pipeline replaces its latest :class:`Snapshot` after each processed trace (a
+single reference assignment, so a reader never sees a half-built one). The dashboard
+and the headless status line read it at their own rate; the pipeline never waits for
+them. Everything here is plain data (numpy arrays are copies owned by the snapshot).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+# Names of the running figures, in display order, with units (SI).
+FIGURES = (
+    ("peak_compressional_pa", "p_c", "Pa"),
+    ("peak_rarefactional_pa", "p_r", "Pa"),
+    ("acoustic_working_frequency_hz", "f_awf", "Hz"),
+    ("pulse_intensity_integral_j_per_m2", "PII", "J/m^2"),
+    ("pulse_average_intensity_w_per_m2", "I_pa", "W/m^2"),
+    ("mechanical_index", "MI", ""),
+)
+
+
+@dataclass
+class RunningFigure:
+    """Running statistics of one parameter over the session.
+
+    ``trend`` holds recent values (oldest first), at most a few hundred.
+    """
+
+    last: float = float("nan")
+    minimum: float = float("nan")
+    maximum: float = float("nan")
+    mean: float = float("nan")
+    count: int = 0
+    trend: np.ndarray = field(default_factory=lambda: np.zeros(0))
+
+
+@dataclass
+class AlertView:
+    """One alert as a display shows it."""
+
+    alert_id: int
+    time_s: float
+    rule: str
+    severity: str          # "info" | "warning" | "critical"
+    message: str
+    actions: tuple[str, ...]
+    seq: int | None = None
+    acknowledged: bool = False
+
+
+@dataclass
+class InstrumentView:
+    name: str              # "digitiser" | "generator"
+    resource: str
+    identity: str
+    connected: bool
+    detail: str = ""       # e.g. "output on, 120 mVpp"
+
+
+@dataclass
+class Snapshot:
+    """The latest state of a live session.
+
+    Waveform and spectrum arrays belong to the most recent converted trace.
+    ``spectrum_db`` is the pressure spectrum magnitude in dB re its maximum;
+    ``sensitivity_db`` is |M_L| on the same frequency grid in dB re its value at
+    f_awf (NaN outside the calibrated band).
+    """
+
+    seq: int = -1
+    time_s: float = float("nan")
+    elapsed_s: float = 0.0
+    # latest pressure waveform
+    times_s: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    pressure_pa: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    # latest spectrum
+    freqs_hz: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    spectrum_db: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    sensitivity_db: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    # latest result as a flat dict, keys as in `tankside convert --json`
+    result: dict = field(default_factory=dict)
+    method: str = ""
+    narrowband_ok: bool | None = None
+    narrowband_band_hz: tuple[float, float] = (float("nan"), float("nan"))
+    narrowband_max_deviation_db: float = float("nan")
+    # running figures, keyed by the names in FIGURES
+    figures: dict[str, RunningFigure] = field(default_factory=dict)
+    # alerts, newest last (at most a few hundred kept)
+    alerts: list[AlertView] = field(default_factory=list)
+    # instruments and session
+    instruments: list[InstrumentView] = field(default_factory=list)
+    traces_per_s: float = 0.0
+    range_v: float = float("nan")
+    range_fraction_used: float = float("nan")
+    clipped_traces: int = 0
+    queue_depth: int = 0
+    queue_capacity: int = 0
+    acquired: int = 0
+    converted: int = 0
+    stored: int = 0
+    session_path: str = ""
+    session_bytes: int = 0
+    state: str = "starting"  # "starting" | "running" | "reconnecting" | "stopping" | "stopped"
+    stop_reason: str = ""
