@@ -76,6 +76,7 @@ class Snapshot:
     elapsed_s: float = 0.0
     # latest pressure waveform
     times_s: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    voltage_v: np.ndarray = field(default_factory=lambda: np.zeros(0))
     pressure_pa: np.ndarray = field(default_factory=lambda: np.zeros(0))
     # latest spectrum
     freqs_hz: np.ndarray = field(default_factory=lambda: np.zeros(0))
