@@ -22,7 +22,7 @@ test: $(STAMP)
 	$(BIN)/python -m pytest -q
 
 bench: $(STAMP)
-	$(BIN)/python -m pytest -q -s tests/bench -o addopts=""
+	for f in tests/bench/bench_*.py; do $(BIN)/python $$f || exit 1; done
 
 lint: $(STAMP)
 	$(BIN)/ruff check monitor drivers simulators tests
