@@ -1,0 +1,508 @@
+"""Alert rules: from per-trace and once-a-second observations to firings with actions.
+
+Pure logic: no threads, no I/O, no clocks. Time arrives in the observations
+(``TraceObservation.time_s``, ``TickObservation.now_s``); the live pipeline builds
+the observations, calls :meth:`RuleEngine.on_trace` and :meth:`RuleEngine.on_tick`,
+and carries out the actions of each :class:`Firing`.
+
+Rules
+-----
+Every threshold is inclusive: a rule fires when its value *reaches* the threshold.
+
+============================  ==========================================================  ========  ===============================
+rule                          fires when                                                  severity  default actions
+============================  ==========================================================  ========  ===============================
+clipping                      samples at the ADC rails >= min_samples                     warning   record, bell, auto-range
+over_pressure                 max(p_c, |p_r|) >= the lower of rated_max_pa and limit_pa   critical  record, bell, safe-off
+range_under_use               fraction of full scale <= below_fraction for                info      record, auto-range
+                              consecutive_traces traces in a row on one range
+no_trigger                    seconds since the last trigger >= after_s                   warning   record, bell
+pr_drift                      p_r moves by >= max_change_percent between the first and    warning   record, bell
+                              last half of a window_traces window at one position
+narrowband_fail               narrowband check fails while the narrowband method is used  warning   record
+conversion_failed             a trace could not be converted to pressure                  warning   record
+disk_space_low                free bytes on the session disk <= min_free_bytes            warning   record, bell
+falling_behind                queue depth / queue capacity >= queue_fraction              warning   record, bell
+store_lag                     oldest trace not yet committed is >= max_lag_s old          warning   record
+============================  ==========================================================  ========  ===============================
+
+Thresholds
+----------
+================  ==================  =======  =============  ============================================
+rule              key                 units    default        meaning
+================  ==================  =======  =============  ============================================
+clipping          min_samples         samples  1              samples at either rail in one trace
+over_pressure     rated_max_pa        Pa       1.0e7          hydrophone's rated maximum pressure
+over_pressure     limit_pa            Pa       unset          optional user limit (the lower one applies)
+range_under_use   below_fraction      1        0.3            fraction of half the full-scale span
+range_under_use   consecutive_traces  traces   10             under-used traces in a row before firing
+no_trigger        after_s             s        5.0            time without a trigger
+pr_drift          max_change_percent  %        10.0           change of p_r relative to the first half
+pr_drift          window_traces       traces   20             traces in the window (at one position)
+disk_space_low    min_free_bytes      bytes    1000000000     free space left on the session disk
+falling_behind    queue_fraction      1        0.8            share of the processing queue in use
+store_lag         max_lag_s           s        5.0            age of the oldest uncommitted trace
+================  ==================  =======  =============  ============================================
+
+The default ``rated_max_pa`` is a placeholder of the order of a needle hydrophone's
+rating (common practice); set it from the hydrophone's data sheet.
+
+Every rule also takes ``enabled`` (default true), ``severity`` ("info", "warning",
+"critical"), ``actions`` (a list of "record", "bell", "auto-range", "safe-off",
+"stop"; "auto-range" only on clipping and range_under_use) and ``repeat_after_s``
+(default 0: fire once per episode; above 0: fire again every so many seconds while
+the condition stands).
+
+Bench file layout (every table and key optional)::
+
+    [alerts.over_pressure]
+    rated_max_pa = 5.0e6
+    limit_pa = 2.0e6
+    actions = ["record", "bell", "safe-off", "stop"]
+
+    [alerts.range_under_use]
+    below_fraction = 0.25
+    consecutive_traces = 20
+
+    [alerts.store_lag]
+    enabled = false
+
+Latching
+--------
+A rule fires when its condition starts, then stays quiet while the condition
+stands, and re-arms when it clears (or fires again after ``repeat_after_s``). A
+change of vertical range re-arms clipping and range_under_use (the condition on a
+new range is a new one, so auto-range can take the next step); a change of
+position restarts the p_r drift window. A rule that cannot be evaluated on a trace
+(for example no result because the conversion failed) keeps its state.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import deque
+from dataclasses import dataclass, field
+
+from tankside.monitor.alert_rules import (
+    AUTO_RANGE_RULES,
+    RULES,
+    SEVERITIES,
+    AlertConfig,
+    RuleConfig,
+)
+
+__all__ = [
+    "AUTO_RANGE_RULES",
+    "RULES",
+    "SEVERITIES",
+    "AlertConfig",
+    "Firing",
+    "RuleConfig",
+    "RuleEngine",
+    "TickObservation",
+    "TraceObservation",
+    "observation_from_trace",
+]
+
+_SEVERITY_ORDER = {"critical": 0, "warning": 1, "info": 2}
+
+
+@dataclass(frozen=True)
+class TraceObservation:
+    """What the rules see of one trace.
+
+    Attributes
+    ----------
+    seq : int
+        Sequence number of the trace.
+    time_s : float
+        Acquisition time, s (any fixed origin; the pipeline uses the Unix epoch).
+    clipped_low, clipped_high : int
+        Samples at the lower and upper ADC rail.
+    range_v : float
+        Vertical range in use (full-scale span, peak to peak), V.
+    fraction_of_full_scale : float
+        ``max |volts| / (range_v / 2)``: 1 means the signal reaches a rail.
+    result : dict or None
+        ``TraceResult.flat()``, or None when the conversion failed.
+    error : str or None
+        Why the conversion failed.
+    method_in_use : str
+        Conversion method configured: "auto", "deconvolve" or "narrowband".
+    position : tuple or None
+        Stage position, or None without a stage (treated as one fixed position).
+    """
+
+    seq: int
+    time_s: float
+    clipped_low: int
+    clipped_high: int
+    range_v: float
+    fraction_of_full_scale: float
+    result: dict | None = None
+    error: str | None = None
+    method_in_use: str = "auto"
+    position: tuple | None = None
+
+
+@dataclass(frozen=True)
+class TickObservation:
+    """What the rules see once a second.
+
+    Attributes
+    ----------
+    now_s : float
+        Current time, s (same origin as ``TraceObservation.time_s``).
+    since_trigger_s : float or None
+        Seconds since the last trigger (or since the start before the first one);
+        None when unknown.
+    queue_depth, queue_capacity : int
+        Traces waiting for processing, and the bound of that queue (0: unbounded).
+    disk_free_bytes : int or None
+        Free space on the disk holding the session file; None when unknown.
+    store_lag_s : float
+        Age of the oldest trace not yet committed to the store, s (0 when none).
+    """
+
+    now_s: float
+    since_trigger_s: float | None = None
+    queue_depth: int = 0
+    queue_capacity: int = 0
+    disk_free_bytes: int | None = None
+    store_lag_s: float = 0.0
+
+
+@dataclass(frozen=True)
+class Firing:
+    """One alert raised by a rule.
+
+    Attributes
+    ----------
+    rule : str
+        Rule name (a key of :data:`RULES`).
+    severity : str
+        "info", "warning" or "critical".
+    message : str
+        Operator wording, with values and units.
+    actions : tuple of str
+        What the pipeline should do, in order.
+    seq : int or None
+        The trace that raised it (None for rules checked on the tick).
+    detail : dict
+        JSON-able values behind the message.
+    time_s : float
+        Time of the observation that raised it, s.
+    """
+
+    rule: str
+    severity: str
+    message: str
+    actions: tuple[str, ...]
+    seq: int | None
+    detail: dict = field(default_factory=dict)
+    time_s: float = float("nan")
+
+
+def observation_from_trace(raw, result: dict | None = None, error: str | None = None, *,
+                           method_in_use: str = "auto", position: tuple | None = None,
+                           volts_v=None) -> TraceObservation:
+    """Build a :class:`TraceObservation` from a ``RawTrace`` and its conversion outcome.
+
+    ``volts_v`` (the trace in volts) saves converting the codes again when the
+    caller already has it.
+    """
+    volts = raw.volts() if volts_v is None else volts_v
+    peak_v = float(abs(volts).max()) if len(volts) else 0.0
+    half_span_v = raw.range_v / 2.0
+    fraction = peak_v / half_span_v if half_span_v > 0 else float("nan")
+    return TraceObservation(seq=raw.seq, time_s=raw.time_s, clipped_low=raw.clipped_low,
+                            clipped_high=raw.clipped_high, range_v=raw.range_v,
+                            fraction_of_full_scale=fraction, result=result, error=error,
+                            method_in_use=method_in_use, position=position)
+
+
+def _fmt_pa(value_pa: float) -> str:
+    size = abs(value_pa)
+    if size >= 1e6:
+        return f"{value_pa / 1e6:.4g} MPa"
+    if size >= 1e3:
+        return f"{value_pa / 1e3:.4g} kPa"
+    return f"{value_pa:.4g} Pa"
+
+
+def _fmt_bytes(value: float) -> str:
+    for unit, size in (("TB", 1e12), ("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if abs(value) >= size:
+            return f"{value / size:.3g} {unit}"
+    return f"{int(value)} bytes"
+
+
+def _fmt_v(value_v: float) -> str:
+    return f"{value_v:g} V"
+
+
+def _number(result: dict, key: str) -> float:
+    value = result.get(key)
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        return float("nan")
+    return float(value)
+
+
+class _Latch:
+    """Fires on the rising edge of a condition, then again only after repeat_after_s."""
+
+    def __init__(self, repeat_after_s: float):
+        self.repeat_after_s = repeat_after_s
+        self.active = False
+        self.last_fired_s = float("nan")
+
+    def step(self, condition: bool, now_s: float) -> bool:
+        if not condition:
+            self.active = False
+            return False
+        if not self.active:
+            self.active = True
+            self.last_fired_s = now_s
+            return True
+        if self.repeat_after_s > 0 and now_s - self.last_fired_s >= self.repeat_after_s:
+            self.last_fired_s = now_s
+            return True
+        return False
+
+    def reset(self) -> None:
+        self.active = False
+
+
+# An evaluator returns None when the rule cannot be judged on this observation
+# (its state is kept), else (condition, message, detail).
+_Verdict = tuple[bool, str, dict] | None
+
+
+class RuleEngine:
+    """Applies an :class:`AlertConfig` to a stream of observations.
+
+    All state (latches, counters, the drift window) lives in the engine; one
+    engine per session, fed from one thread.
+    """
+
+    def __init__(self, config: AlertConfig | None = None):
+        self.config = config if config is not None else AlertConfig.defaults()
+        self._latches = {name: _Latch(rule.repeat_after_s)
+                         for name, rule in self.config.rules.items()}
+        self._range_v: float | None = None
+        self._under_used = 0
+        self._position: object = _UNSET
+        window = self.config.rules["pr_drift"].params["window_traces"]
+        self._pr_window: deque[float] = deque(maxlen=window)
+
+    # -- public -----------------------------------------------------------------
+    @property
+    def active(self) -> frozenset[str]:
+        """Names of the rules whose condition currently stands."""
+        return frozenset(name for name, latch in self._latches.items() if latch.active)
+
+    @property
+    def under_used_traces(self) -> int:
+        """Consecutive under-used traces on the current range."""
+        return self._under_used
+
+    def reset(self, rule: str | None = None) -> None:
+        """Re-arm one rule (or all), e.g. after the operator cleared a fault."""
+        for name, latch in self._latches.items():
+            if rule is None or name == rule:
+                latch.reset()
+
+    def on_trace(self, obs: TraceObservation) -> list[Firing]:
+        """Judge one trace; returns the firings, critical ones first."""
+        if self._range_v is not None and obs.range_v != self._range_v:
+            self._under_used = 0
+            self._latches["clipping"].reset()
+            self._latches["range_under_use"].reset()
+        self._range_v = obs.range_v
+        if obs.position != self._position:
+            self._pr_window.clear()
+            self._latches["pr_drift"].reset()
+            self._position = obs.position
+        if obs.fraction_of_full_scale <= self.config.rules["range_under_use"].params[
+                "below_fraction"] and obs.clipped_low + obs.clipped_high == 0:
+            self._under_used += 1
+        else:
+            self._under_used = 0
+        if obs.result is not None:
+            pr = abs(_number(obs.result, "peak_rarefactional_pa"))
+            if math.isfinite(pr):
+                self._pr_window.append(pr)
+
+        verdicts = {
+            "clipping": self._clipping(obs),
+            "over_pressure": self._over_pressure(obs),
+            "range_under_use": self._range_under_use(obs),
+            "pr_drift": self._pr_drift(obs),
+            "narrowband_fail": self._narrowband_fail(obs),
+            "conversion_failed": self._conversion_failed(obs),
+        }
+        return self._fire(verdicts, obs.time_s, obs.seq)
+
+    def on_tick(self, tick: TickObservation) -> list[Firing]:
+        """Judge the once-a-second state of the session."""
+        verdicts = {
+            "no_trigger": self._no_trigger(tick),
+            "disk_space_low": self._disk_space_low(tick),
+            "falling_behind": self._falling_behind(tick),
+            "store_lag": self._store_lag(tick),
+        }
+        return self._fire(verdicts, tick.now_s, None)
+
+    # -- machinery ----------------------------------------------------------------
+    def _fire(self, verdicts: dict[str, _Verdict], now_s: float, seq: int | None):
+        firings = []
+        for name, verdict in verdicts.items():
+            rule = self.config.rules[name]
+            if not rule.enabled or verdict is None:
+                continue
+            condition, message, detail = verdict
+            if self._latches[name].step(condition, now_s):
+                firings.append(Firing(rule=name, severity=rule.severity, message=message,
+                                      actions=rule.actions, seq=seq, detail=detail,
+                                      time_s=now_s))
+        firings.sort(key=lambda f: _SEVERITY_ORDER[f.severity])
+        return firings
+
+    def _p(self, rule: str, key: str):
+        return self.config.rules[rule].params[key]
+
+    # -- trace rules ----------------------------------------------------------------
+    def _clipping(self, obs: TraceObservation) -> _Verdict:
+        count = obs.clipped_low + obs.clipped_high
+        minimum = self._p("clipping", "min_samples")
+        message = (f"Digitiser clipping: {count} samples at the ADC rails "
+                   f"({obs.clipped_low} low, {obs.clipped_high} high) on the "
+                   f"{_fmt_v(obs.range_v)} range, trace {obs.seq}.")
+        detail = {"clipped_low": obs.clipped_low, "clipped_high": obs.clipped_high,
+                  "min_samples": minimum, "range_v": obs.range_v, "clipped": True,
+                  "fraction_of_full_scale": obs.fraction_of_full_scale}
+        return count >= minimum, message, detail
+
+    def _over_pressure(self, obs: TraceObservation) -> _Verdict:
+        if obs.result is None:
+            return None
+        p_c = _number(obs.result, "peak_compressional_pa")
+        p_r = abs(_number(obs.result, "peak_rarefactional_pa"))
+        finite = [p for p in (p_c, p_r) if math.isfinite(p)]
+        if not finite:
+            return None
+        peak = max(finite)
+        rated = self._p("over_pressure", "rated_max_pa")
+        user = self._p("over_pressure", "limit_pa")
+        if user is not None and user < rated:
+            limit, source = user, "user limit"
+        else:
+            limit, source = rated, "hydrophone rated maximum"
+        which = "p_c" if peak == p_c else "p_r"
+        message = (f"Over-pressure: {which} = {_fmt_pa(peak)} is at or above the {source} of "
+                   f"{_fmt_pa(limit)} (p_c {_fmt_pa(p_c)}, p_r {_fmt_pa(p_r)}), trace {obs.seq}.")
+        detail = {"peak_pa": peak, "peak_compressional_pa": p_c,
+                  "peak_rarefactional_pa": p_r, "limit_pa": limit, "limit_source": source}
+        return peak >= limit, message, detail
+
+    def _range_under_use(self, obs: TraceObservation) -> _Verdict:
+        fraction = self._p("range_under_use", "below_fraction")
+        needed = self._p("range_under_use", "consecutive_traces")
+        used = obs.fraction_of_full_scale
+        message = (f"Vertical range under-used: the signal spans {100 * used:.3g} % of the "
+                   f"{_fmt_v(obs.range_v)} range for {self._under_used} traces in a row "
+                   f"(limit {100 * fraction:.3g} %), trace {obs.seq}.")
+        detail = {"fraction_of_full_scale": used, "below_fraction": fraction,
+                  "under_used_traces": self._under_used, "consecutive_traces": needed,
+                  "range_v": obs.range_v, "clipped": False}
+        return self._under_used >= needed, message, detail
+
+    def _pr_drift(self, obs: TraceObservation) -> _Verdict:
+        window = self._pr_window
+        if obs.result is None or len(window) < window.maxlen:
+            return None
+        half = len(window) // 2
+        values = list(window)
+        first = sum(values[:half]) / half
+        last = sum(values[-half:]) / half
+        if first <= 0:
+            return None
+        change_percent = 100.0 * abs(last - first) / first
+        limit = self._p("pr_drift", "max_change_percent")
+        message = (f"p_r drift at a fixed position: {_fmt_pa(first)} -> {_fmt_pa(last)} "
+                   f"({change_percent:.3g} %, limit {limit:.3g} %) over the last "
+                   f"{len(window)} traces, trace {obs.seq}.")
+        detail = {"first_half_mean_pa": first, "last_half_mean_pa": last,
+                  "change_percent": change_percent, "max_change_percent": limit,
+                  "window_traces": len(window),
+                  "position": list(obs.position) if obs.position is not None else None}
+        return change_percent >= limit, message, detail
+
+    def _narrowband_fail(self, obs: TraceObservation) -> _Verdict:
+        if obs.result is None:
+            return None
+        in_use = obs.method_in_use == "narrowband" or obs.result.get("method") == "narrowband"
+        ok = obs.result.get("narrowband_ok")
+        if not isinstance(ok, bool):
+            return None
+        low = _number(obs.result, "narrowband_band_low_hz")
+        high = _number(obs.result, "narrowband_band_high_hz")
+        deviation = _number(obs.result, "narrowband_max_deviation_db")
+        message = (f"Narrowband check failed while the narrowband method is in use: the "
+                   f"sensitivity varies by {deviation:.3g} dB over {low / 1e6:.4g} to "
+                   f"{high / 1e6:.4g} MHz, trace {obs.seq}; pressure may be wrong.")
+        detail = {"narrowband_ok": ok, "band_low_hz": low, "band_high_hz": high,
+                  "max_deviation_db": deviation, "method_in_use": obs.method_in_use}
+        return in_use and not ok, message, detail
+
+    def _conversion_failed(self, obs: TraceObservation) -> _Verdict:
+        failed = obs.result is None or obs.error is not None
+        text = obs.error if obs.error is not None else "no result"
+        message = f"Conversion to pressure failed on trace {obs.seq}: {text}"
+        return failed, message, {"error": text}
+
+    # -- tick rules ---------------------------------------------------------------------
+    def _no_trigger(self, tick: TickObservation) -> _Verdict:
+        if tick.since_trigger_s is None:
+            return None
+        limit = self._p("no_trigger", "after_s")
+        message = (f"No trigger for {tick.since_trigger_s:.1f} s (limit {limit:g} s): "
+                   f"check the trigger cable, level and the generator output.")
+        detail = {"since_trigger_s": tick.since_trigger_s, "after_s": limit}
+        return tick.since_trigger_s >= limit, message, detail
+
+    def _disk_space_low(self, tick: TickObservation) -> _Verdict:
+        if tick.disk_free_bytes is None:
+            return None
+        limit = self._p("disk_space_low", "min_free_bytes")
+        message = (f"Disk space low: {_fmt_bytes(tick.disk_free_bytes)} free on the "
+                   f"session disk (limit {_fmt_bytes(limit)}).")
+        detail = {"disk_free_bytes": tick.disk_free_bytes, "min_free_bytes": limit}
+        return tick.disk_free_bytes <= limit, message, detail
+
+    def _falling_behind(self, tick: TickObservation) -> _Verdict:
+        if tick.queue_capacity <= 0:
+            return None
+        used = tick.queue_depth / tick.queue_capacity
+        limit = self._p("falling_behind", "queue_fraction")
+        message = (f"Processing falling behind: {tick.queue_depth} of {tick.queue_capacity} "
+                   f"queue places in use ({100 * used:.3g} %, limit {100 * limit:.3g} %); "
+                   f"acquisition is being throttled.")
+        detail = {"queue_depth": tick.queue_depth, "queue_capacity": tick.queue_capacity,
+                  "queue_fraction": used, "limit_fraction": limit}
+        return used >= limit, message, detail
+
+    def _store_lag(self, tick: TickObservation) -> _Verdict:
+        limit = self._p("store_lag", "max_lag_s")
+        message = (f"Session store lagging: the oldest uncommitted trace is "
+                   f"{tick.store_lag_s:.1f} s old (limit {limit:g} s).")
+        detail = {"store_lag_s": tick.store_lag_s, "max_lag_s": limit}
+        return tick.store_lag_s >= limit, message, detail
+
+
+class _Unset:
+    def __repr__(self) -> str:
+        return "<unset>"
+
+
+_UNSET = _Unset()
