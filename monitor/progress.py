@@ -1,0 +1,80 @@
+"""A small text progress bar on stderr for long replays and exports.
+
+Drawn only when the stream is a terminal (or when forced), redrawn at most ten times
+a second, and erased at the end, so logs and pipes stay clean.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+
+
+class Progress:
+    """Progress of ``total`` steps, shown as ``label [#####.....]  512/1000  12 s``.
+
+    Parameters
+    ----------
+    total : int
+        Number of steps (0 or less: the count is shown without a bar).
+    label : str
+        Word shown before the bar.
+    stream : file, optional
+        Where to draw; ``sys.stderr`` by default.
+    enabled : bool or None
+        True forces drawing, False suppresses it, None draws only on a terminal.
+    """
+
+    WIDTH = 30
+    _MIN_INTERVAL_S = 0.1
+
+    def __init__(self, total: int, label: str = "", *, stream=None, enabled: bool | None = None,
+                 clock=time.monotonic):
+        self.total = int(total)
+        self.label = label
+        self.stream = sys.stderr if stream is None else stream
+        if enabled is None:
+            isatty = getattr(self.stream, "isatty", None)
+            enabled = bool(isatty and isatty())
+        self.enabled = enabled
+        self.done = 0
+        self._clock = clock
+        self._t0 = clock()
+        self._last_draw = -float("inf")
+        self._drawn = False
+
+    def line(self) -> str:
+        """The text of the bar for the current count."""
+        elapsed = self._clock() - self._t0
+        if self.total > 0:
+            frac = min(self.done / self.total, 1.0)
+            filled = int(round(frac * self.WIDTH))
+            bar = "[" + "#" * filled + "." * (self.WIDTH - filled) + "]"
+            count = f"{self.done}/{self.total}"
+        else:
+            bar, count = "", str(self.done)
+        return " ".join(p for p in (self.label, bar, count, f"{elapsed:.0f} s") if p)
+
+    def update(self, steps: int = 1) -> None:
+        self.done += steps
+        if not self.enabled:
+            return
+        now = self._clock()
+        if now - self._last_draw >= self._MIN_INTERVAL_S or self.done >= self.total > 0:
+            self._last_draw = now
+            self.stream.write("\r" + self.line())
+            self.stream.flush()
+            self._drawn = True
+
+    def close(self) -> None:
+        """Erase the bar (the caller prints its own summary)."""
+        if self.enabled and self._drawn:
+            self.stream.write("\r" + " " * len(self.line()) + "\r")
+            self.stream.flush()
+            self._drawn = False
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()

@@ -1,0 +1,651 @@
+"""The session store: one SQLite file per session, written by one thread, read by anyone.
+
+:class:`SessionStore` records a live session (or a replay) as it happens;
+:class:`SessionReader` reads one back, also while another process is still writing
+it. The file layout and the metadata keys are in :mod:`tankside.monitor.store_schema`.
+
+Durability
+----------
+The file is in WAL mode with ``synchronous=FULL``: every commit fsyncs the WAL, so
+a committed batch survives both a crash of the process and a loss of power. Commits
+are batched (:meth:`SessionStore.maybe_commit`, every ``commit_interval_s``), so at
+most about that much data is at risk. ``synchronous=NORMAL`` would be as safe against
+a crash, but in WAL mode it fsyncs only at checkpoints, so a power loss could roll
+back every batch since the last checkpoint (several seconds at 50 traces/s of 10,000
+samples); one fsync per second is cheap, so FULL it is.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import sqlite3
+import time
+import uuid
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from tankside.drivers.trace import RawTrace
+from tankside.monitor import __version__
+from tankside.monitor.errors import DiskFullError, StoreError
+from tankside.monitor.store_schema import (
+    DDL,
+    FLAG_COLUMNS,
+    FORMAT_TAG,
+    LAYOUT_VERSION,
+    META_CALIBRATION_SHA256,
+    META_CALIBRATION_SOURCE,
+    META_CALIBRATION_TEXT,
+    META_CONFIGURATION,
+    META_INSTRUMENTS,
+    META_LOADING,
+    META_SETTINGS,
+    META_START_TIME_S,
+    META_TEMPERATURE_C,
+    META_TOOL_VERSION,
+    RESULT_COLUMNS,
+    RESULT_NAMES,
+    STATIC_DESCRIPTORS,
+    units_of,
+)
+
+__all__ = [
+    "SessionStore",
+    "SessionReader",
+    "StoredTrace",
+    "session_metadata",
+]
+
+_DISK_CODES = {sqlite3.SQLITE_FULL, sqlite3.SQLITE_IOERR}
+_TRACE_COLS = ("seq", "time_s", "data_format", "dtype", "n", "codes", "volts_per_code",
+               "offset_v", "dt_s", "t0_s", "range_v", "code_min", "code_max",
+               "clipped_low", "clipped_high", "state_json")
+_RESULT_COLS = ("seq", "converted", "error", *RESULT_NAMES, *FLAG_COLUMNS,
+                "flags_json", "extra_json")
+_BOOL_RESULTS = {name for name, kind in RESULT_COLUMNS if kind == "BOOL"}
+_REAL_RESULTS = {name for name, kind in RESULT_COLUMNS if kind == "REAL"}
+
+
+def _dumps(value) -> str:
+    # allow_nan: Loading's input_resistance_ohm defaults to inf; Python's json reads it back.
+    return json.dumps(value, sort_keys=True, default=_json_default)
+
+
+def _json_default(obj):
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, (tuple, set, frozenset)):
+        return list(obj)
+    if isinstance(obj, Path):
+        return str(obj)
+    if hasattr(obj, "as_dict"):
+        return obj.as_dict()
+    raise TypeError(f"cannot record a {type(obj).__name__} in session metadata")
+
+
+def _as_dict(obj) -> dict | None:
+    if obj is None or isinstance(obj, dict):
+        return obj
+    return obj.as_dict()
+
+
+def session_metadata(*, configuration: dict, instruments: dict, calibration=None,
+                     calibration_text: str | None = None, calibration_source: str = "",
+                     loading=None, settings=None, temperature_c: float = 20.0,
+                     start_time_s: float | None = None, extra: dict | None = None) -> dict:
+    """The metadata dict of a session, under the ``META_*`` keys of the store.
+
+    Parameters
+    ----------
+    configuration : dict
+        The full bench configuration in force (after command-line overrides).
+    instruments : dict
+        Name (``"digitiser"``, ``"generator"``) -> dict with at least ``resource`` and
+        ``identity`` (the ``*IDN?`` reply).
+    calibration : Calibration, optional
+        The loaded hydrophone calibration; its ``text``, ``sha256`` and ``source`` are
+        recorded. Alternatively pass ``calibration_text`` (and ``calibration_source``).
+    loading, settings : Loading / ConversionSettings or their ``as_dict()``, optional
+    temperature_c : float
+        Water temperature used for the conversion, degC.
+    start_time_s : float, optional
+        Seconds since the Unix epoch; the store's create time when omitted.
+    extra : dict, optional
+        Further keys (must not collide with the ``META_*`` keys).
+
+    Returns
+    -------
+    dict
+        JSON-able (``SessionStore.create`` raises StoreError on anything that is not).
+    """
+    if calibration is not None:
+        calibration_text = calibration.text
+        calibration_source = str(calibration.source)
+        sha = calibration.sha256
+    elif calibration_text is not None:
+        sha = hashlib.sha256(calibration_text.encode("utf-8")).hexdigest()
+    else:
+        sha = None
+    meta = {
+        META_TOOL_VERSION: __version__,
+        META_CONFIGURATION: configuration,
+        META_INSTRUMENTS: instruments,
+        META_CALIBRATION_TEXT: calibration_text,
+        META_CALIBRATION_SHA256: sha,
+        META_CALIBRATION_SOURCE: calibration_source,
+        META_LOADING: _as_dict(loading),
+        META_SETTINGS: _as_dict(settings),
+        META_TEMPERATURE_C: float(temperature_c),
+    }
+    if start_time_s is not None:
+        meta[META_START_TIME_S] = float(start_time_s)
+    for key, value in (extra or {}).items():
+        if key in meta:
+            raise StoreError(f"extra metadata key {key!r} collides with a standard key")
+        meta[key] = value
+    return meta
+
+
+def _map_error(err: sqlite3.Error, doing: str, path: Path) -> StoreError:
+    code = getattr(err, "sqlite_errorcode", None)
+    if code is not None and (code & 0xFF) in _DISK_CODES:
+        return DiskFullError(f"{path}: disk full or write failed while {doing} ({err})")
+    return StoreError(f"{path}: {doing} failed ({err})")
+
+
+class SessionStore:
+    """Writes one session file. Single-thread use: one writer owns it.
+
+    Create with :meth:`create`. Rows become durable at :meth:`commit`, which
+    :meth:`maybe_commit` calls once ``commit_interval_s`` has passed since the last
+    commit; the writer should call ``maybe_commit()`` after each row and about once a
+    second when idle. After a disk or database error the store refuses further writes
+    (:class:`StoreError`); everything committed before stays readable.
+    """
+
+    def __init__(self, conn: sqlite3.Connection, path: Path, commit_interval_s: float,
+                 clock: Callable[[], float], wall_clock: Callable[[], float]):
+        self._conn = conn
+        self.path = path
+        self.commit_interval_s = float(commit_interval_s)
+        self._clock = clock
+        self._wall_clock = wall_clock
+        self._last_commit = clock()
+        self._pending = 0
+        self._failed: str | None = None
+        self._closed = False
+        self._codes_described = False
+        self.traces_written = 0
+
+    # -- creation -----------------------------------------------------------------------
+    @classmethod
+    def create(cls, path, metadata: dict, *, commit_interval_s: float = 1.0,
+               clock: Callable[[], float] = time.monotonic,
+               wall_clock: Callable[[], float] = time.time) -> SessionStore:
+        """Create a new session file and write its start record.
+
+        Parameters
+        ----------
+        path : str or Path
+            The new file; it must not exist.
+        metadata : dict
+            From :func:`session_metadata` (any JSON-able dict is accepted).
+        commit_interval_s : float
+            Longest time between commits in :meth:`maybe_commit`, s.
+        clock : callable
+            Monotonic seconds, for the commit interval (tests inject their own).
+        wall_clock : callable
+            Seconds since the Unix epoch, for the start and stop records.
+        """
+        path = Path(path)
+        if path.exists():
+            raise StoreError(f"{path}: session file already exists")
+        try:
+            meta_rows = [(key, _dumps(value)) for key, value in metadata.items()]
+        except (TypeError, ValueError) as err:
+            raise StoreError(f"{path}: session metadata is not recordable: {err}") from err
+        start_time_s = float(metadata.get(META_START_TIME_S, wall_clock()))
+        tool_version = str(metadata.get(META_TOOL_VERSION, __version__))
+        try:
+            conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
+        except sqlite3.Error as err:
+            raise _map_error(err, "creating the session file", path) from err
+        try:
+            conn.execute("PRAGMA journal_mode=WAL")
+            conn.execute("PRAGMA synchronous=FULL")  # why: see the module docstring
+            conn.execute("BEGIN")
+            for ddl in DDL:
+                conn.execute(ddl)
+            conn.execute("INSERT INTO session_start VALUES (1, ?, ?, ?, ?, ?)",
+                         (FORMAT_TAG, LAYOUT_VERSION, uuid.uuid4().hex, start_time_s,
+                          tool_version))
+            conn.executemany("INSERT INTO metadata VALUES (?, ?)", meta_rows)
+            conn.executemany(
+                "INSERT INTO descriptors VALUES (?, ?, ?, ?, '[]', ?)",
+                [(name, tbl, units_of(name), dtype, "digitiser" if tbl == "traces"
+                  else "conversion") for name, tbl, dtype in STATIC_DESCRIPTORS])
+            conn.execute("COMMIT")
+        except sqlite3.Error as err:
+            conn.close()
+            raise _map_error(err, "writing the start record", path) from err
+        return cls(conn, path, commit_interval_s, clock, wall_clock)
+
+    # -- writing ------------------------------------------------------------------------
+    def _write(self, doing: str, fn):
+        if self._closed:
+            raise StoreError(f"{self.path}: session store is closed")
+        if self._failed is not None:
+            raise StoreError(f"{self.path}: session store no longer accepts data after an "
+                             f"earlier error ({self._failed}); committed data is intact")
+        try:
+            if not self._conn.in_transaction:
+                self._conn.execute("BEGIN")
+            out = fn()
+        except sqlite3.Error as err:
+            self._fail(err, doing)
+        self._pending += 1
+        return out
+
+    def _fail(self, err: sqlite3.Error, doing: str):
+        mapped = _map_error(err, doing, self.path)
+        self._failed = str(mapped)
+        try:
+            if self._conn.in_transaction:
+                self._conn.execute("ROLLBACK")
+        except sqlite3.Error as rollback_err:
+            # The uncommitted batch is lost either way; report both.
+            mapped = type(mapped)(f"{mapped}; rollback also failed ({rollback_err})")
+        raise mapped from err
+
+    def add_trace(self, raw: RawTrace, result: dict | None, flags: dict | None = None,
+                  error: str | None = None) -> None:
+        """Record one trace as sent, and its result (``TraceResult.flat()``) or error.
+
+        ``flags`` may hold ``clipped`` (default: any sample at a rail),
+        ``range_changed`` (default False) and any other JSON-able flags.
+        """
+        codes = np.ascontiguousarray(raw.codes)
+        flags = dict(flags or {})
+        clipped = bool(flags.pop("clipped", raw.clipped > 0))
+        range_changed = bool(flags.pop("range_changed", False))
+        try:
+            trace_row = (int(raw.seq), float(raw.time_s), str(raw.data_format),
+                         codes.dtype.str, int(codes.shape[0]), codes.tobytes(),
+                         float(raw.volts_per_code), float(raw.offset_v), float(raw.dt_s),
+                         float(raw.t0_s), float(raw.range_v), float(raw.code_min),
+                         float(raw.code_max), int(raw.clipped_low), int(raw.clipped_high),
+                         _dumps(raw.state))
+            values, extra = self._result_values(result)
+            result_row = (int(raw.seq), result is not None, error, *values, clipped,
+                          range_changed, _dumps(flags), _dumps(extra))
+        except (TypeError, ValueError) as err:
+            raise StoreError(f"{self.path}: trace {raw.seq} is not recordable: {err}") from err
+
+        def insert():
+            self._conn.execute(
+                f"INSERT INTO traces VALUES ({','.join('?' * len(_TRACE_COLS))})", trace_row)
+            self._conn.execute(
+                f"INSERT INTO results VALUES ({','.join('?' * len(_RESULT_COLS))})", result_row)
+            if not self._codes_described:
+                self._conn.execute(
+                    "INSERT OR REPLACE INTO descriptors VALUES ('codes', 'traces', 'code', ?, ?, ?)",
+                    (codes.dtype.str, _dumps([int(codes.shape[0])]), "digitiser"))
+        self._write(f"recording trace {raw.seq}", insert)
+        self._codes_described = True
+        self.traces_written += 1
+
+    @staticmethod
+    def _result_values(result: dict | None):
+        if result is None:
+            return [None] * len(RESULT_NAMES), {}
+        values = []
+        for name in RESULT_NAMES:
+            v = result.get(name)
+            if name in _BOOL_RESULTS:
+                v = None if v is None else bool(v)
+            elif name in _REAL_RESULTS:
+                v = None if v is None else float(v)
+            else:
+                v = None if v is None else str(v)
+            values.append(v)
+        extra = {k: v for k, v in result.items() if k not in RESULT_NAMES}
+        return values, extra
+
+    def add_alert(self, time_s: float, rule: str, severity: str, message: str,
+                  actions, seq: int | None = None) -> int:
+        """Record an alert; returns its id (for :meth:`acknowledge_alert`)."""
+        row = (float(time_s), str(rule), str(severity), str(message), _dumps(list(actions)),
+               None if seq is None else int(seq))
+        cur = self._write(f"recording alert {rule!r}", lambda: self._conn.execute(
+            "INSERT INTO alerts (time_s, rule, severity, message, actions_json, seq) "
+            "VALUES (?, ?, ?, ?, ?, ?)", row))
+        return int(cur.lastrowid)
+
+    def acknowledge_alert(self, alert_id: int, time_s: float) -> None:
+        """Record the time an operator acknowledged an alert (s since the epoch)."""
+        cur = self._write(f"acknowledging alert {alert_id}", lambda: self._conn.execute(
+            "UPDATE alerts SET acknowledged_time_s = ? WHERE alert_id = ?",
+            (float(time_s), int(alert_id))))
+        if cur.rowcount != 1:
+            raise StoreError(f"{self.path}: no alert {alert_id} to acknowledge")
+
+    def add_event(self, time_s: float, kind: str, detail: dict, seq: int | None = None) -> None:
+        """Record an event (kinds: the ``EVENT_*`` names of store_schema, or free text)."""
+        try:
+            detail_json = _dumps(detail)
+        except (TypeError, ValueError) as err:
+            raise StoreError(f"{self.path}: event {kind!r} is not recordable: {err}") from err
+        self._write(f"recording event {kind!r}", lambda: self._conn.execute(
+            "INSERT INTO events (time_s, kind, seq, detail_json) VALUES (?, ?, ?, ?)",
+            (float(time_s), str(kind), None if seq is None else int(seq), detail_json)))
+
+    # -- commits ------------------------------------------------------------------------
+    def maybe_commit(self) -> bool:
+        """Commit if ``commit_interval_s`` has passed since the last commit; True if it did."""
+        if self._clock() - self._last_commit >= self.commit_interval_s:
+            self.commit()
+            return True
+        return False
+
+    def commit(self) -> None:
+        """Make every row written so far durable."""
+        if self._failed is not None or self._closed:
+            self._write("committing", lambda: None)  # raises the refusal
+        if self._conn.in_transaction:
+            try:
+                self._conn.execute("COMMIT")
+            except sqlite3.Error as err:
+                self._fail(err, "committing")
+        self._pending = 0
+        self._last_commit = self._clock()
+
+    @property
+    def pending(self) -> int:
+        """Rows written since the last commit (at risk until it)."""
+        return self._pending
+
+    @property
+    def failed(self) -> str | None:
+        """The error that stopped the store, or None."""
+        return self._failed
+
+    def size_bytes(self) -> int:
+        """Bytes on disk: the database file and its WAL."""
+        total = 0
+        for suffix in ("", "-wal"):
+            try:
+                total += os.path.getsize(f"{self.path}{suffix}")
+            except FileNotFoundError:
+                pass
+        return total
+
+    def close(self, exit_status: str, reason: str, counts: dict) -> None:
+        """Commit, write the stop record and close the file.
+
+        After an earlier error the stop record is still attempted (a few hundred
+        bytes may fit where a trace did not); if it cannot be written the file is
+        closed anyway, stays readable and is marked as not stopped cleanly, and the
+        error is raised.
+        """
+        if self._closed:
+            return
+        row = (float(self._wall_clock()), str(exit_status), str(reason), _dumps(counts))
+        try:
+            if self._conn.in_transaction and self._failed is None:
+                self._conn.execute("COMMIT")
+            self._conn.execute("INSERT INTO session_stop VALUES (1, ?, ?, ?, ?)", row)
+        except sqlite3.Error as err:
+            mapped = _map_error(err, "writing the stop record", self.path)
+            self._closed = True
+            self._conn.close()
+            raise mapped from err
+        self._closed = True
+        self._conn.close()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, exc_type, exc, tb):
+        if not self._closed:
+            status = "ok" if exc_type is None else "error"
+            reason = "finished" if exc_type is None else f"{exc_type.__name__}: {exc}"
+            self.close(status, reason, {"traces": self.traces_written})
+
+
+@dataclass
+class StoredTrace:
+    """One trace read back: the raw trace as sent, its result (None if conversion
+    failed), its flags and the conversion error text."""
+
+    raw: RawTrace
+    result: dict | None
+    flags: dict = field(default_factory=dict)
+    error: str | None = None
+
+
+def _nan_if_none(v):
+    return math.nan if v is None else v
+
+
+class SessionReader:
+    """Reads a session file, read-only; safe while another process writes it.
+
+    Parameters
+    ----------
+    path : str or Path
+        A session file written by :class:`SessionStore`.
+
+    Raises
+    ------
+    StoreError
+        Missing file, not an SQLite file, or not a tankside session.
+    """
+
+    _CHUNK = 64
+
+    def __init__(self, path):
+        self.path = Path(path)
+        if not self.path.is_file():
+            raise StoreError(f"{self.path}: no such session file")
+        uri = f"{self.path.resolve().as_uri()}?mode=ro"
+        try:
+            self._conn = sqlite3.connect(uri, uri=True, check_same_thread=False)
+            row = self._conn.execute(
+                "SELECT format, layout_version, session_uid, start_time_s, tool_version "
+                "FROM session_start").fetchone()
+        except sqlite3.Error as err:
+            if hasattr(self, "_conn"):
+                self._conn.close()
+            raise StoreError(f"{self.path}: not a tankside session file ({err})") from err
+        if row is None or row[0] != FORMAT_TAG:
+            self._conn.close()
+            raise StoreError(f"{self.path}: not a tankside session file")
+        if row[1] > LAYOUT_VERSION:
+            self._conn.close()
+            raise StoreError(f"{self.path}: session layout {row[1]} is newer than this "
+                             f"tankside reads ({LAYOUT_VERSION})")
+        self.start = {"format": row[0], "layout_version": row[1], "session_uid": row[2],
+                      "start_time_s": row[3], "tool_version": row[4]}
+        self._result_cols = [r[1] for r in self._query("PRAGMA table_info(results)")]
+
+    def _query(self, sql: str, params=()):
+        try:
+            return self._conn.execute(sql, params).fetchall()
+        except sqlite3.Error as err:
+            raise StoreError(f"{self.path}: reading the session failed ({err})") from err
+
+    def close(self) -> None:
+        self._conn.close()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+    # -- run record ---------------------------------------------------------------------
+    @property
+    def metadata(self) -> dict:
+        """The metadata dict as recorded (``META_*`` keys)."""
+        return {k: json.loads(v) for k, v in self._query("SELECT key, value_json FROM metadata")}
+
+    @property
+    def descriptors(self) -> dict:
+        rows = self._query("SELECT name, tbl, units, dtype, shape_json, source FROM descriptors")
+        return {r[0]: {"table": r[1], "units": r[2], "dtype": r[3],
+                       "shape": json.loads(r[4]), "source": r[5]} for r in rows}
+
+    @property
+    def stop(self) -> dict | None:
+        """The stop record, or None when the session was not stopped cleanly."""
+        rows = self._query("SELECT stop_time_s, exit_status, reason, counts_json "
+                           "FROM session_stop")
+        if not rows:
+            return None
+        t, status, reason, counts = rows[0]
+        return {"stop_time_s": t, "exit_status": status, "reason": reason,
+                "counts": json.loads(counts)}
+
+    @property
+    def stopped_cleanly(self) -> bool:
+        return self.stop is not None
+
+    @property
+    def calibration_text(self) -> str:
+        text = self.metadata.get(META_CALIBRATION_TEXT)
+        if text is None:
+            raise StoreError(f"{self.path}: the session holds no calibration file")
+        return text
+
+    # -- traces -------------------------------------------------------------------------
+    def trace_count(self) -> int:
+        return int(self._query("SELECT COUNT(*) FROM traces")[0][0])
+
+    def __len__(self) -> int:
+        return self.trace_count()
+
+    def seqs(self) -> list[int]:
+        return [r[0] for r in self._query("SELECT seq FROM traces ORDER BY seq")]
+
+    def _stored(self, trow, rrow) -> StoredTrace:
+        t = dict(zip(_TRACE_COLS, trow, strict=True))
+        codes = np.frombuffer(t["codes"], dtype=np.dtype(t["dtype"]), count=t["n"])
+        raw = RawTrace(codes=codes, volts_per_code=t["volts_per_code"], offset_v=t["offset_v"],
+                       dt_s=t["dt_s"], t0_s=t["t0_s"], seq=t["seq"], time_s=t["time_s"],
+                       range_v=t["range_v"], code_min=t["code_min"], code_max=t["code_max"],
+                       clipped_low=t["clipped_low"], clipped_high=t["clipped_high"],
+                       data_format=t["data_format"], state=json.loads(t["state_json"]))
+        if rrow is None:  # trace written without a results row (older layouts)
+            return StoredTrace(raw, None, {}, None)
+        result, flags, error = self._result_from_row(dict(zip(self._result_cols, rrow,
+                                                              strict=True)))
+        return StoredTrace(raw, result, flags, error)
+
+    def _result_from_row(self, r: dict):
+        flags = {"clipped": bool(r["clipped"]), "range_changed": bool(r["range_changed"])}
+        flags.update(json.loads(r["flags_json"]))
+        if not r["converted"]:
+            return None, flags, r["error"]
+        result = {}
+        for name in RESULT_NAMES:
+            v = r.get(name)
+            if name in _BOOL_RESULTS:
+                v = None if v is None else bool(v)
+            elif name in _REAL_RESULTS:
+                v = float(_nan_if_none(v))
+            result[name] = v
+        result.update(json.loads(r["extra_json"]))
+        return result, flags, r["error"]
+
+    def _trace_rows(self, where: str, params):
+        cols = ", ".join(f"t.{c}" for c in _TRACE_COLS)
+        rcols = ", ".join(f"r.{c}" for c in self._result_cols)
+        return self._query(f"SELECT {cols}, {rcols} FROM traces t LEFT JOIN results r "
+                           f"ON r.seq = t.seq {where}", params)
+
+    def _split(self, row) -> StoredTrace:
+        nt = len(_TRACE_COLS)
+        rrow = row[nt:]
+        return self._stored(row[:nt], None if rrow[0] is None else rrow)
+
+    def trace(self, seq: int) -> StoredTrace:
+        """The trace with sequence number ``seq``; StoreError if there is none."""
+        rows = self._trace_rows("WHERE t.seq = ?", (int(seq),))
+        if not rows:
+            raise StoreError(f"{self.path}: no trace with seq {seq}")
+        return self._split(rows[0])
+
+    def iter_traces(self, start_seq: int | None = None,
+                    stop_seq: int | None = None) -> Iterator[StoredTrace]:
+        """Traces in seq order, read in small chunks (no long read transaction, so a
+        live writer can checkpoint; traces committed meanwhile are included)."""
+        last = -1 if start_seq is None else int(start_seq) - 1
+        while True:
+            rows = self._trace_rows("WHERE t.seq > ? ORDER BY t.seq LIMIT ?",
+                                    (last, self._CHUNK))
+            for row in rows:
+                if stop_seq is not None and row[0] >= stop_seq:
+                    return
+                yield self._split(row)
+            if len(rows) < self._CHUNK:
+                return
+            last = rows[-1][0]
+
+    def __iter__(self):
+        return self.iter_traces()
+
+    # -- results, alerts, events --------------------------------------------------------
+    def iter_results(self) -> Iterator[dict]:
+        """One dict per trace: seq, time_s, converted, error, the RESULT_FIELDS (NaN /
+        None when conversion failed) and the flags."""
+        last = -1
+        cols = ", ".join(f"r.{c}" for c in self._result_cols)
+        while True:
+            rows = self._query(f"SELECT t.seq, t.time_s, {cols} FROM traces t JOIN results r "
+                               "ON r.seq = t.seq WHERE t.seq > ? ORDER BY t.seq LIMIT 1000",
+                               (last,))
+            for row in rows:
+                r = dict(zip(self._result_cols, row[2:], strict=True))
+                result, flags, error = self._result_from_row(r)
+                out = {"seq": row[0], "time_s": row[1], "converted": result is not None,
+                       "error": error}
+                for name in RESULT_NAMES:
+                    out[name] = (result or {}).get(
+                        name, math.nan if name in _REAL_RESULTS else None)
+                out.update(flags)
+                yield out
+            if len(rows) < 1000:
+                return
+            last = rows[-1][0]
+
+    def alerts(self) -> list[dict]:
+        rows = self._query("SELECT alert_id, time_s, rule, severity, message, actions_json, "
+                           "seq, acknowledged_time_s FROM alerts ORDER BY alert_id")
+        return [{"alert_id": a, "time_s": t, "rule": rule, "severity": sev, "message": msg,
+                 "actions": tuple(json.loads(act)), "seq": seq, "acknowledged_time_s": ack}
+                for a, t, rule, sev, msg, act, seq, ack in rows]
+
+    def events(self) -> list[dict]:
+        rows = self._query("SELECT event_id, time_s, kind, seq, detail_json FROM events "
+                           "ORDER BY event_id")
+        return [{"event_id": e, "time_s": t, "kind": k, "seq": s, "detail": json.loads(d)}
+                for e, t, k, s, d in rows]
+
+    def size_bytes(self) -> int:
+        total = 0
+        for suffix in ("", "-wal"):
+            try:
+                total += os.path.getsize(f"{self.path}{suffix}")
+            except FileNotFoundError:
+                pass
+        return total
+
+    def integrity_check(self) -> str:
+        """SQLite's ``PRAGMA integrity_check`` verdict (``"ok"`` when sound)."""
+        return "; ".join(r[0] for r in self._query("PRAGMA integrity_check"))
