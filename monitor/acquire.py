@@ -1,0 +1,336 @@
+"""The acquisition thread: blocking instrument I/O, instrument actions, reconnects.
+
+It owns the digitiser and the generator. It never waits on the display or the disk:
+each trace goes into a bounded queue, and a full queue blocks it (throttling
+acquisition; nothing is dropped). Before each acquisition it carries out the actions
+the processing stage asked for (safe-off first, then a range change), and when
+``gate`` is set it first waits until the rules have seen the previous trace, so that a
+safe-off decided on trace N takes effect before trace N+1 is acquired.
+"""
+
+from __future__ import annotations
+
+import queue
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+from tankside.drivers.errors import (
+    ConnectionLost,
+    InstrumentError,
+    InstrumentTimeout,
+    NoTrigger,
+    ProtocolError,
+)
+
+BACKOFF_S = (0.1, 0.2, 0.5, 1.0, 2.0, 5.0)
+
+
+@dataclass
+class Link:
+    """A connected instrument: the driver object and its SCPI session (resync, close)."""
+
+    device: Any
+    session: Any
+    identity: str = ""
+
+
+@dataclass
+class Acquired:
+    """One trace from the acquisition thread, with flags set there (e.g. range change)."""
+
+    raw: Any
+    flags: dict = field(default_factory=dict)
+
+
+@dataclass
+class AcqEvent:
+    """Something that happened at the instruments, in order with the traces.
+
+    ``alert`` is (rule, severity, message) when the event should also raise an alert.
+    """
+
+    time_s: float
+    kind: str
+    detail: dict
+    seq: int | None = None
+    alert: tuple[str, str, str] | None = None
+
+
+class Fatal(Exception):
+    """The acquisition cannot go on (instrument lost for good)."""
+
+
+class AcquisitionLoop:
+    """Runs in its own thread; see the module docstring.
+
+    Parameters
+    ----------
+    open_digitiser : callable () -> Link
+        Opens, identifies and configures the digitiser (settings applied).
+    open_generator : callable () -> Link, or None
+    out : queue.Queue
+        Bounded queue of :class:`Acquired` and :class:`AcqEvent` items.
+    stop : threading.Event
+        Set to end the loop after the current acquisition.
+    trigger_timeout_s : float
+    give_up_s : float
+        How long to keep trying to reconnect a lost instrument.
+    max_traces : int or None
+    first_seq : int
+    """
+
+    def __init__(self, *, open_digitiser: Callable[[], Link],
+                 open_generator: Callable[[], Link] | None, out: queue.Queue,
+                 stop: threading.Event, trigger_timeout_s: float, give_up_s: float = 60.0,
+                 max_traces: int | None = None, first_seq: int = 0, gate: bool = True,
+                 clock: Callable[[], float] = time.time):
+        self.open_digitiser = open_digitiser
+        self.open_generator = open_generator
+        self.out = out
+        self.stop = stop
+        self.trigger_timeout_s = trigger_timeout_s
+        self.give_up_s = give_up_s
+        self.max_traces = max_traces
+        self.seq = first_seq
+        self.gate = gate
+        self.clock = clock
+        self.digitiser: Link | None = None
+        self.generator: Link | None = None
+        self.commands: queue.Queue = queue.Queue()
+        # Set only when nothing downstream reads the queue any more (a fatal error there).
+        self.abandon = threading.Event()
+        self.connected = False
+        self.reconnecting = False
+        self.last_trigger_mono = time.monotonic()
+        self.blocked_s = 0.0          # total time spent waiting on a full queue
+        self.blocked_now = False
+        self.gate_wait_s = 0.0        # total time spent waiting for the previous verdict
+        self.fatal: str | None = None
+        self._verdict = threading.Condition()
+        self._verdict_seq = first_seq - 1
+        self._next_flags: dict = {}
+
+    # -- connection, called from the starting thread before run() --------------
+    def connect(self) -> None:
+        self.digitiser = self.open_digitiser()
+        self.connected = True
+        if self.open_generator is not None:
+            self.generator = self.open_generator()
+
+    @property
+    def ranges_v(self) -> tuple[float, ...]:
+        return tuple(self.digitiser.device.ranges_v) if self.digitiser else ()
+
+    def current_range_v(self) -> float:
+        return float(self.digitiser.device.settings.range_v)
+
+    # -- handshake with the processing stage -------------------------------------
+    def verdict(self, seq: int) -> None:
+        """The rules have seen trace ``seq`` and its actions are queued."""
+        with self._verdict:
+            if seq > self._verdict_seq:
+                self._verdict_seq = seq
+            self._verdict.notify_all()
+
+    def _wait_verdict(self) -> None:
+        with self._verdict:
+            if self._verdict_seq >= self.seq - 1:
+                return
+            t0 = time.monotonic()
+            while self._verdict_seq < self.seq - 1 and not self.stop.is_set():
+                self._verdict.wait(0.1)
+            self.gate_wait_s += time.monotonic() - t0
+
+    # -- the loop ----------------------------------------------------------------
+    def run(self) -> None:
+        try:
+            while not self.stop.is_set():
+                if self.max_traces is not None and self.seq >= self.max_traces:
+                    break
+                if self.gate:
+                    self._wait_verdict()
+                self._apply_commands()
+                if self.stop.is_set():
+                    break
+                self._acquire_one()
+        except Fatal as err:
+            self.fatal = str(err)
+        finally:
+            self._apply_commands()      # a safe-off asked for at the very end still happens
+            self.close_links()
+
+    def close_links(self) -> None:
+        for link in (self.digitiser, self.generator):
+            _close(link)
+        self.connected = False
+
+    def _emit(self, item) -> None:
+        # Blocks while the queue is full: acquisition is throttled, never lossy.
+        try:
+            self.out.put_nowait(item)
+            return
+        except queue.Full:
+            pass
+        self.blocked_now = True
+        t0 = time.monotonic()
+        try:
+            while True:
+                try:
+                    self.out.put(item, timeout=0.1)
+                    return
+                except queue.Full:
+                    if self.abandon.is_set():
+                        return
+        finally:
+            self.blocked_s += time.monotonic() - t0
+            self.blocked_now = False
+
+    def _event(self, kind: str, detail: dict, alert=None, seq=None) -> None:
+        self._emit(AcqEvent(self.clock(), kind, detail, seq=seq, alert=alert))
+
+    def _acquire_one(self) -> None:
+        dev = self.digitiser.device
+        try:
+            raw = dev.acquire(self.seq, trigger_timeout_s=self.trigger_timeout_s)
+        except NoTrigger as err:
+            self._event("no-trigger", {"message": str(err),
+                                       "timeout_s": self.trigger_timeout_s})
+            return
+        except (ProtocolError, InstrumentTimeout) as err:
+            kind = "malformed-reply" if isinstance(err, ProtocolError) else "stalled"
+            self._event("fault", {"kind": kind, "message": str(err), "at_seq": self.seq},
+                        alert=("instrument-fault", "warning", f"digitiser {kind}: {err}"))
+            self._recover(err)
+            return
+        except ConnectionLost as err:
+            self._event("fault", {"kind": "connection-lost", "message": str(err),
+                                  "at_seq": self.seq},
+                        alert=("instrument-fault", "warning", f"digitiser lost: {err}"))
+            self._reconnect(err)
+            return
+        except InstrumentError as err:
+            self._event("fault", {"kind": "instrument-error", "message": str(err),
+                                  "at_seq": self.seq},
+                        alert=("instrument-fault", "warning", f"digitiser: {err}"))
+            return
+        self.last_trigger_mono = time.monotonic()
+        flags, self._next_flags = self._next_flags, {}
+        self.seq += 1
+        self._emit(Acquired(raw, flags))
+
+    def _recover(self, err: Exception) -> None:
+        try:
+            self.digitiser.session.resync()
+        except InstrumentError:
+            self._reconnect(err)
+            return
+        self._event("resync", {"after": type(err).__name__})
+
+    def _reconnect(self, err: Exception) -> None:
+        _close(self.digitiser)
+        self.connected = False
+        self.reconnecting = True
+        settings = getattr(self.digitiser.device, "settings", None)
+        started = time.monotonic()
+        attempt = 0
+        last_error = err
+        try:
+            while not self.stop.is_set():
+                delay = BACKOFF_S[min(attempt, len(BACKOFF_S) - 1)]
+                if time.monotonic() - started + delay > self.give_up_s:
+                    raise Fatal(f"digitiser not reachable for {self.give_up_s:g} s: "
+                                f"{last_error}")
+                if self.stop.wait(delay):
+                    return
+                attempt += 1
+                try:
+                    link = self.open_digitiser()
+                    if settings is not None:
+                        # The instrument may have reset: put back the range in force.
+                        link.device.configure(settings)
+                except InstrumentError as again:
+                    last_error = again
+                    continue
+                self.digitiser = link
+                self.connected = True
+                self._event("reconnect", {"attempts": attempt,
+                                          "after_s": round(time.monotonic() - started, 3),
+                                          "cause": str(err), "identity": link.identity,
+                                          "next_seq": self.seq},
+                            alert=("instrument-reconnected", "info",
+                                   f"digitiser reconnected after {attempt} attempt(s)"))
+                return
+        finally:
+            self.reconnecting = False
+
+    # -- actions -----------------------------------------------------------------
+    def _apply_commands(self) -> None:
+        pending = []
+        while True:
+            try:
+                pending.append(self.commands.get_nowait())
+            except queue.Empty:
+                break
+        if not pending:
+            return
+        # Safe-off before anything else, however the requests arrived.
+        for cmd in pending:
+            if cmd[0] == "safe-off":
+                self._safe_off(cmd[1])
+        ranges = [cmd for cmd in pending if cmd[0] == "range"]
+        if ranges:
+            self._set_range(*ranges[-1][1:])
+
+    def _safe_off(self, cause: dict) -> None:
+        if self.generator is None:
+            self._event("safe-off", {"done": False, "why": "no generator configured", **cause},
+                        alert=("safe-off-failed", "critical",
+                               "safe-off asked for but no generator is configured"))
+            return
+        try:
+            self.generator.device.set_output(False)
+            still_on = self.generator.device.output_is_on()
+        except InstrumentError as err:
+            try:
+                _close(self.generator)
+                self.generator = self.open_generator()
+                self.generator.device.set_output(False)
+                still_on = self.generator.device.output_is_on()
+            except InstrumentError as again:
+                self._event("safe-off", {"done": False, "error": str(again), **cause},
+                            alert=("safe-off-failed", "critical",
+                                   f"generator output could not be switched off: {err}"))
+                return
+        if still_on:
+            self._event("safe-off", {"done": False, "error": "output still on", **cause},
+                        alert=("safe-off-failed", "critical",
+                               "generator reports output still on after safe-off"))
+            return
+        self._event("safe-off", {"done": True, "before_seq": self.seq, **cause})
+
+    def _set_range(self, new_v: float, cause: dict) -> None:
+        old_v = self.current_range_v()
+        if new_v == old_v:
+            return
+        try:
+            self.digitiser.device.set_range(new_v)
+        except InstrumentError as err:
+            self._event("range-change", {"done": False, "from_v": old_v, "to_v": new_v,
+                                         "error": str(err), **cause},
+                        alert=("auto-range-failed", "warning", f"range change failed: {err}"))
+            return
+        self._next_flags = {"range_changed": True, "previous_range_v": old_v}
+        self._event("range-change", {"done": True, "from_v": old_v, "to_v": new_v,
+                                     "before_seq": self.seq, **cause})
+
+
+def _close(link: Link | None) -> None:
+    if link is None:
+        return
+    try:
+        link.session.close()
+    except InstrumentError:
+        pass  # closing a transport that is already gone: nothing left to release

@@ -1,0 +1,374 @@
+"""The bench file: a TOML description of the instruments, calibration and limits of one set-up.
+
+Layout (every section except ``[digitiser]`` and ``[calibration]`` is optional)::
+
+    [digitiser]
+    resource = "TCPIP0::127.0.0.1::5025::SOCKET"   # VISA resource string
+    profile = "sim-digitiser.toml"                  # built-in name or path
+    visa_library = "@py"                            # pyvisa backend
+    timeout_s = 5.0                                 # I/O timeout
+    trigger_timeout_s = 2.0                         # wait for one trigger
+    record_length = 10000                           # any DigitiserSettings field
+    sample_rate_hz = 250e6
+    range_v = 0.5
+    trigger_source = "EXT"
+    trigger_level_v = 0.5
+
+    [generator]
+    resource = "..."
+    profile = "..."
+
+    [calibration]
+    file = "cal.csv"
+
+    [loading]              # Loading fields
+    hydrophone_capacitance_f = 100e-12
+
+    [conversion]           # ConversionSettings fields
+    method = "auto"
+
+    [water]
+    temperature_c = 20.0
+
+    [alerts]               # rule thresholds and actions (tankside.monitor.alerts)
+
+    [session]
+    folder = "sessions"
+    commit_interval_s = 1.0
+    queue_capacity = 64
+    reconnect_give_up_s = 60.0
+
+Relative paths (profile, calibration file, session folder) are resolved against the
+folder that holds the bench file, so a bench folder can be moved as a whole.
+"""
+
+from __future__ import annotations
+
+import copy
+import dataclasses
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from tankside.monitor.errors import ConfigError
+
+# Keys of [digitiser] and [generator] that are about the connection, not instrument settings.
+_CONNECTION_KEYS = {"resource": str, "profile": str, "visa_library": str, "timeout_s": float}
+_DIGITISER_EXTRA = {"trigger_timeout_s": float}
+_GENERATOR_KEYS = {
+    "amplitude_vpp": float,
+    "frequency_hz": float,
+    "burst_cycles": int,
+    "burst_period_s": float,
+    "output": bool,
+}
+_SESSION_KEYS = {
+    "folder": str,
+    "commit_interval_s": float,
+    "queue_capacity": int,
+    "reconnect_give_up_s": float,
+}
+_SECTIONS = ("digitiser", "generator", "calibration", "loading", "conversion", "water",
+             "alerts", "session")
+
+
+@dataclass(frozen=True)
+class InstrumentConfig:
+    """How to reach one instrument: resource, profile (name or absolute path), backend."""
+
+    resource: str
+    profile: str
+    visa_library: str = "@py"
+    timeout_s: float = 5.0
+
+
+@dataclass(frozen=True)
+class GeneratorConfig(InstrumentConfig):
+    """The generator connection, and settings applied at start (None = leave as found)."""
+
+    amplitude_vpp: float | None = None
+    frequency_hz: float | None = None
+    burst_cycles: int | None = None
+    burst_period_s: float | None = None
+    output: bool | None = None
+
+
+@dataclass(frozen=True)
+class BenchConfig:
+    """A validated bench file (after command-line overrides).
+
+    ``tables`` keeps the full configuration as merged (JSON-able) for the session metadata.
+    The ``*_settings``/``calibration``/... methods build the objects of the other pieces.
+    """
+
+    source: str
+    digitiser: InstrumentConfig
+    digitiser_table: dict
+    trigger_timeout_s: float
+    generator: GeneratorConfig | None
+    calibration_path: Path
+    loading_table: dict
+    conversion_table: dict
+    temperature_c: float
+    alerts_table: dict
+    session_folder: Path
+    commit_interval_s: float = 1.0
+    queue_capacity: int = 64
+    reconnect_give_up_s: float = 60.0
+    tables: dict = field(default_factory=dict)
+
+    def digitiser_settings(self):
+        """The :class:`tankside.drivers.digitiser.DigitiserSettings` of ``[digitiser]``."""
+        from tankside.drivers.digitiser import DigitiserSettings
+
+        return _build(DigitiserSettings, self.digitiser_table, self.source, "digitiser")
+
+    def calibration(self):
+        """Load the calibration file (raises CalibrationError naming file and line)."""
+        from tankside.monitor.calibration import load_calibration
+
+        if not self.calibration_path.is_file():
+            raise ConfigError(f"{self.source}: [calibration] file: no such file "
+                              f"{str(self.calibration_path)!r}")
+        return load_calibration(self.calibration_path)
+
+    def loading(self):
+        from tankside.monitor.loading import Loading
+
+        return _build(Loading, self.loading_table, self.source, "loading")
+
+    def conversion_settings(self):
+        from tankside.monitor.settings import ConversionSettings
+
+        return _build(ConversionSettings, self.conversion_table, self.source, "conversion")
+
+    def alert_config(self):
+        from tankside.monitor.alerts import AlertConfig
+
+        try:
+            return AlertConfig.from_table(copy.deepcopy(self.alerts_table))
+        except ConfigError as err:
+            raise ConfigError(f"{self.source}: [alerts] {err}") from err
+
+    def converter(self):
+        """A :class:`tankside.monitor.chain.Converter` for this bench."""
+        from tankside.monitor.chain import Converter
+
+        return Converter(self.calibration(), loading=self.loading(),
+                         settings=self.conversion_settings(), temperature_c=self.temperature_c)
+
+
+def _build(cls, table: dict, source: str, section: str):
+    names = {f.name for f in dataclasses.fields(cls)}
+    for key in table:
+        if key not in names:
+            raise ConfigError(f"{source}: [{section}] {key}: unknown key "
+                              f"(expected one of {', '.join(sorted(names))})")
+    try:
+        return cls(**table)
+    except (TypeError, ValueError) as err:
+        raise ConfigError(f"{source}: [{section}]: {err}") from err
+
+
+def _typed(value: Any, kind: type, source: str, where: str):
+    if kind is float:
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise ConfigError(f"{source}: {where}: expected a number, got {value!r}")
+        if not math.isfinite(value):
+            raise ConfigError(f"{source}: {where}: expected a finite number, got {value!r}")
+        return float(value)
+    if kind is int:
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise ConfigError(f"{source}: {where}: expected a whole number, got {value!r}")
+        return value
+    if kind is bool:
+        if not isinstance(value, bool):
+            raise ConfigError(f"{source}: {where}: expected true or false, got {value!r}")
+        return value
+    if not isinstance(value, str) or not value:
+        raise ConfigError(f"{source}: {where}: expected a non-empty string, got {value!r}")
+    return value
+
+
+def _resolve(path_text: str, base: Path) -> Path:
+    p = Path(path_text).expanduser()
+    return p if p.is_absolute() else (base / p).resolve()
+
+
+def _resolve_profile(name: str, base: Path) -> str:
+    # A bare name ("sim-digitiser" or "acme.toml") may be a built-in profile; anything
+    # that names an existing file beside the bench file, or has a folder part, is a path.
+    candidate = _resolve(name, base)
+    if candidate.exists() or "/" in name or "\\" in name:
+        return str(candidate)
+    return name
+
+
+def _section(data: dict, name: str, source: str, required: bool) -> dict:
+    table = data.get(name)
+    if table is None:
+        if required:
+            raise ConfigError(f"{source}: missing section [{name}]")
+        return {}
+    if not isinstance(table, dict):
+        raise ConfigError(f"{source}: [{name}] must be a table")
+    return table
+
+
+def _instrument(table: dict, name: str, source: str, base: Path, extra: dict):
+    conn: dict[str, Any] = {}
+    rest: dict[str, Any] = {}
+    for key, value in table.items():
+        if key in _CONNECTION_KEYS:
+            conn[key] = _typed(value, _CONNECTION_KEYS[key], source, f"[{name}] {key}")
+        elif key in extra:
+            rest[key] = _typed(value, extra[key], source, f"[{name}] {key}")
+        else:
+            rest[key] = value
+    for key in ("resource", "profile"):
+        if key not in conn:
+            raise ConfigError(f"{source}: [{name}] {key}: missing")
+    conn["profile"] = _resolve_profile(conn["profile"], base)
+    if conn.get("timeout_s", 1.0) <= 0:
+        raise ConfigError(f"{source}: [{name}] timeout_s: must be above 0")
+    return conn, rest
+
+
+def merge_overrides(data: dict, overrides: dict | None) -> dict:
+    """Return a copy of the bench tables with ``overrides`` applied.
+
+    ``overrides`` maps ``"section.key"`` (or ``"section.sub.key"`` for nested tables
+    such as alert rules) to a value; a value of None removes the key, and the
+    special key ``"generator"`` set to None removes the whole generator section.
+    """
+    merged = copy.deepcopy(data)
+    for dotted, value in (overrides or {}).items():
+        parts = dotted.split(".")
+        if len(parts) == 1:
+            if value is None:
+                merged.pop(parts[0], None)
+            else:
+                merged[parts[0]] = value
+            continue
+        node = merged
+        for part in parts[:-1]:
+            node = node.setdefault(part, {})
+            if not isinstance(node, dict):
+                raise ConfigError(f"override {dotted}: {part} is not a table")
+        if value is None:
+            node.pop(parts[-1], None)
+        else:
+            node[parts[-1]] = value
+    return merged
+
+
+def load_bench(path: str | Path, overrides: dict | None = None) -> BenchConfig:
+    """Read, merge and validate a bench file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The bench TOML file.
+    overrides : dict, optional
+        Command-line settings, see :func:`merge_overrides`.
+
+    Raises
+    ------
+    ConfigError
+        Unreadable file, bad TOML, or a missing or bad value; the message names the
+        file and the key.
+    """
+    path = Path(path)
+    source = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError as err:
+        raise ConfigError(f"{source}: no such bench file") from err
+    except (OSError, UnicodeDecodeError) as err:
+        raise ConfigError(f"{source}: cannot read bench file: {err}") from err
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise ConfigError(f"{source}: not valid TOML: {err}") from err
+    return parse_bench(data, source=source, base_dir=path.resolve().parent, overrides=overrides)
+
+
+def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = None,
+                overrides: dict | None = None) -> BenchConfig:
+    """Validate bench tables already parsed from TOML (see :func:`load_bench`)."""
+    base = Path(base_dir) if base_dir is not None else Path.cwd()
+    data = merge_overrides(data, overrides)
+    for key in data:
+        if key not in _SECTIONS:
+            raise ConfigError(f"{source}: unknown section [{key}] "
+                              f"(expected {', '.join(_SECTIONS)})")
+
+    dig_conn, dig_rest = _instrument(_section(data, "digitiser", source, True), "digitiser",
+                                     source, base, _DIGITISER_EXTRA)
+    trigger_timeout_s = dig_rest.pop("trigger_timeout_s", 2.0)
+    if trigger_timeout_s <= 0:
+        raise ConfigError(f"{source}: [digitiser] trigger_timeout_s: must be above 0")
+
+    gen = None
+    gen_table = _section(data, "generator", source, False)
+    if gen_table:
+        gen_conn, gen_rest = _instrument(gen_table, "generator", source, base, _GENERATOR_KEYS)
+        for key in gen_rest:
+            if key not in _GENERATOR_KEYS:
+                raise ConfigError(f"{source}: [generator] {key}: unknown key")
+        gen = GeneratorConfig(**gen_conn, **gen_rest)
+
+    cal = _section(data, "calibration", source, True)
+    if "file" not in cal:
+        raise ConfigError(f"{source}: [calibration] file: missing")
+    for key in cal:
+        if key != "file":
+            raise ConfigError(f"{source}: [calibration] {key}: unknown key")
+    cal_path = _resolve(_typed(cal["file"], str, source, "[calibration] file"), base)
+
+    water = _section(data, "water", source, False)
+    for key in water:
+        if key != "temperature_c":
+            raise ConfigError(f"{source}: [water] {key}: unknown key")
+    temperature_c = _typed(water.get("temperature_c", 20.0), float, source,
+                           "[water] temperature_c")
+    if not 0.0 <= temperature_c <= 60.0:
+        raise ConfigError(f"{source}: [water] temperature_c: {temperature_c} outside 0 to 60 C")
+
+    sess = _section(data, "session", source, False)
+    sess_values: dict[str, Any] = {}
+    for key, value in sess.items():
+        if key not in _SESSION_KEYS:
+            raise ConfigError(f"{source}: [session] {key}: unknown key")
+        sess_values[key] = _typed(value, _SESSION_KEYS[key], source, f"[session] {key}")
+    folder = _resolve(sess_values.pop("folder", "sessions"), base)
+    for key in ("commit_interval_s", "reconnect_give_up_s"):
+        if sess_values.get(key, 1.0) <= 0:
+            raise ConfigError(f"{source}: [session] {key}: must be above 0")
+    if sess_values.get("queue_capacity", 1) < 1:
+        raise ConfigError(f"{source}: [session] queue_capacity: must be at least 1")
+
+    tables = copy.deepcopy(data)
+    tables.setdefault("digitiser", {})["profile"] = dig_conn["profile"]
+    if gen is not None:
+        tables["generator"]["profile"] = gen.profile
+    tables["calibration"] = {"file": str(cal_path)}
+    tables.setdefault("session", {})["folder"] = str(folder)
+
+    return BenchConfig(
+        source=source,
+        digitiser=InstrumentConfig(**dig_conn),
+        digitiser_table=dig_rest,
+        trigger_timeout_s=trigger_timeout_s,
+        generator=gen,
+        calibration_path=cal_path,
+        loading_table=dict(_section(data, "loading", source, False)),
+        conversion_table=dict(_section(data, "conversion", source, False)),
+        temperature_c=temperature_c,
+        alerts_table=copy.deepcopy(_section(data, "alerts", source, False)),
+        session_folder=folder,
+        tables=tables,
+        **sess_values,
+    )

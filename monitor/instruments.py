@@ -1,0 +1,88 @@
+"""Opening the bench's instruments: resource -> SCPI session -> profile-driven driver.
+
+Each opener is a function of no arguments, so the acquisition thread can call it
+again to reconnect after a lost instrument. The profile is loaded once, up front,
+so that a bad profile is reported before anything is opened.
+"""
+
+from __future__ import annotations
+
+from tankside.drivers.digitiser import Digitiser
+from tankside.drivers.errors import InstrumentError
+from tankside.drivers.generator import Generator
+from tankside.drivers.profile import load_profile
+from tankside.drivers.scpi import ScpiSession
+from tankside.monitor.acquire import Link
+
+
+def _session(config, profile, name: str) -> ScpiSession:
+    timeout_s = config.timeout_s if config.timeout_s else profile.timeout_s
+    return ScpiSession.open(config.resource, visa_library=config.visa_library,
+                            timeout_s=timeout_s, read_termination=profile.read_termination,
+                            write_termination=profile.write_termination,
+                            name=f"{name} {config.resource}",
+                            resync_timeout_s=timeout_s + 2.0)
+
+
+def digitiser_opener(config, settings):
+    """Returns ``open() -> Link``: connect, identify and configure the digitiser.
+
+    Parameters
+    ----------
+    config : tankside.monitor.benchfile.InstrumentConfig
+    settings : tankside.drivers.digitiser.DigitiserSettings
+    """
+    profile = load_profile(config.profile)
+
+    def open_digitiser() -> Link:
+        session = _session(config, profile, "digitiser")
+        try:
+            device = Digitiser(session, profile)
+            identity = device.identity
+            device.configure(settings)
+        except InstrumentError:
+            _close_quietly(session)
+            raise
+        return Link(device=device, session=session, identity=identity)
+
+    return open_digitiser
+
+
+def generator_opener(config):
+    """Returns ``open() -> Link`` for the generator, applying the bench's settings once.
+
+    Settings given in the bench file (amplitude, frequency, burst, output) are applied
+    at the first opening only: a reconnect during a session must not switch a drive
+    back on that safe-off switched off.
+    """
+    profile = load_profile(config.profile)
+    first = [True]
+
+    def open_generator() -> Link:
+        session = _session(config, profile, "generator")
+        try:
+            device = Generator(session, profile)
+            identity = device.identity
+            if first[0]:
+                if config.frequency_hz is not None:
+                    device.set_frequency(config.frequency_hz)
+                if config.amplitude_vpp is not None:
+                    device.set_amplitude(config.amplitude_vpp)
+                if config.burst_cycles is not None or config.burst_period_s is not None:
+                    device.set_burst(config.burst_cycles, config.burst_period_s)
+                if config.output is not None:
+                    device.set_output(config.output)
+        except InstrumentError:
+            _close_quietly(session)
+            raise
+        first[0] = False
+        return Link(device=device, session=session, identity=identity)
+
+    return open_generator
+
+
+def _close_quietly(session: ScpiSession) -> None:
+    try:
+        session.close()
+    except InstrumentError:
+        pass  # the error that made us give up is the one raised

@@ -1,0 +1,399 @@
+"""LiveSession with fake instruments and a fake converter: fast and deterministic.
+
+The fakes record every instrument operation in one ordered log, so the tests can
+check the order of acquisitions and actions (safe-off before the next trace, range
+changes between traces). The store and the rules are the real ones.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+
+import numpy as np
+import pytest
+
+from tankside.drivers.digitiser import DigitiserSettings
+from tankside.drivers.errors import ConnectionLost, InstrumentTimeout, NoTrigger
+from tankside.drivers.trace import RawTrace, count_at_rails
+from tankside.monitor.acquire import Link
+from tankside.monitor.alerts import AlertConfig, RuleEngine
+from tankside.monitor.cli import EXIT_INSTRUMENT, EXIT_OK, EXIT_STOPPED_BY_RULE, EXIT_STORE
+from tankside.monitor.errors import DiskFullError, OutOfBandError
+from tankside.monitor.pipeline import LiveSession
+from tankside.monitor.store import SessionReader, SessionStore
+from tankside.monitor.store_schema import RESULT_NAMES
+
+SENSITIVITY_V_PER_PA = 1e-7      # fake hydrophone: 0.1 V per MPa
+RANGES_V = (0.1, 0.2, 0.5, 1.0, 2.0)
+N = 256
+DT_S = 1e-8
+
+
+class Scene:
+    """Shared state of the fake bench; ``amplitude(seq)`` gives the pulse amplitude, V."""
+
+    def __init__(self, amplitude=lambda seq: 0.05):
+        self.amplitude = amplitude
+        self.output_on = True
+        self.log: list[tuple] = []
+        self.faults: dict[int, list[Exception]] = {}
+        self.lock = threading.Lock()
+        self.acquire_delay_s = 0.0
+
+    def note(self, *entry) -> None:
+        with self.lock:
+            self.log.append(entry)
+
+
+class FakeSession:
+    def __init__(self, scene, resync_ok=True):
+        self.scene = scene
+        self.resync_ok = resync_ok
+        self.closed = False
+
+    def resync(self):
+        self.scene.note("resync")
+        if not self.resync_ok:
+            raise InstrumentTimeout("no marker reply")
+
+    def close(self):
+        self.closed = True
+
+
+class FakeDigitiser:
+    ranges_v = RANGES_V
+
+    def __init__(self, scene, settings):
+        self.scene = scene
+        self.settings = settings
+
+    def configure(self, settings):
+        self.settings = settings
+        self.scene.note("configure", settings.range_v)
+
+    def set_range(self, range_v):
+        self.settings = self.settings.replace(range_v=range_v)
+        self.scene.note("range", range_v)
+
+    def acquire(self, seq, *, trigger_timeout_s):
+        faults = self.scene.faults.get(seq)
+        if faults:
+            fault = faults.pop(0)
+            if isinstance(fault, NoTrigger):
+                time.sleep(trigger_timeout_s)
+            raise fault
+        if self.scene.acquire_delay_s:
+            time.sleep(self.scene.acquire_delay_s)
+        self.scene.note("acquire", seq, self.scene.output_on)
+        amp = self.scene.amplitude(seq) if self.scene.output_on else 0.001
+        t = np.arange(N) * DT_S
+        volts = amp * np.sin(2 * np.pi * 2e6 * t) * np.hanning(N)
+        vpc = self.settings.range_v / 65536
+        codes = np.clip(np.round(volts / vpc), -32768, 32767).astype(np.int16)
+        low, high = count_at_rails(codes, -32768, 32767)
+        return RawTrace(codes=codes, volts_per_code=vpc, offset_v=0.0, dt_s=DT_S, t0_s=0.0,
+                        seq=seq, time_s=time.time(), range_v=self.settings.range_v,
+                        code_min=-32768, code_max=32767, clipped_low=low, clipped_high=high,
+                        data_format="int16", state={"range_v": self.settings.range_v})
+
+
+class FakeGenerator:
+    def __init__(self, scene):
+        self.scene = scene
+
+    def set_output(self, on):
+        self.scene.output_on = bool(on)
+        self.scene.note("output", bool(on))
+
+    def output_is_on(self):
+        return self.scene.output_on
+
+
+class FakeResult:
+    def __init__(self, volts, dt_s, method):
+        self.pressure_pa = volts / SENSITIVITY_V_PER_PA
+        self.freqs_hz = np.fft.rfftfreq(len(volts), dt_s)
+        self.spectrum_pa = np.abs(np.fft.rfft(self.pressure_pa))
+        self.sensitivity_v_per_pa = np.full(self.freqs_hz.shape, SENSITIVITY_V_PER_PA)
+        self._flat = {name: float("nan") for name in RESULT_NAMES}
+        self._flat.update(method=method, phase_source="measured", narrowband_ok=True,
+                          peak_compressional_pa=float(self.pressure_pa.max()),
+                          peak_rarefactional_pa=float(-self.pressure_pa.min()),
+                          acoustic_working_frequency_hz=2e6)
+
+    def flat(self):
+        return dict(self._flat)
+
+
+class FakeConverter:
+    """Divides by a flat sensitivity; refuses a trace without signal (like f_awf unknown)."""
+
+    def __init__(self, method="deconvolve"):
+        self.method = method
+
+    def process(self, voltage_v, dt_s):
+        if np.max(np.abs(voltage_v)) < 1e-4:
+            raise OutOfBandError("no signal: acoustic working frequency undefined")
+        return FakeResult(voltage_v, dt_s, self.method)
+
+    def with_method(self, method):
+        return FakeConverter(method)
+
+
+class SlowStore:
+    """A real store whose trace writes take ``delay_s`` (a slow disk)."""
+
+    def __init__(self, store, delay_s=0.0, full_after=None):
+        self._store = store
+        self.delay_s = delay_s
+        self.full_after = full_after
+        self.written = 0
+
+    def add_trace(self, *args, **kw):
+        if self.full_after is not None and self.written >= self.full_after:
+            raise DiskFullError(f"{self._store.path}: database or disk is full")
+        time.sleep(self.delay_s)
+        self._store.add_trace(*args, **kw)
+        self.written += 1
+
+    def __getattr__(self, name):
+        return getattr(self._store, name)
+
+
+def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, store_delay_s=0.0,
+                 full_after=None, queue_capacity=16, opener_failures=None, resync_ok=True,
+                 give_up_s=5.0, generator=True, commit_interval_s=0.05, duration_s=None):
+    settings = DigitiserSettings(record_length=N, sample_rate_hz=1 / DT_S, range_v=range_v)
+    opens = {"digitiser": 0}
+
+    def open_digitiser():
+        opens["digitiser"] += 1
+        if opener_failures is not None and opener_failures():
+            raise ConnectionLost("connection refused")
+        dev = FakeDigitiser(scene, settings)
+        dev.configure(settings)
+        return Link(dev, FakeSession(scene, resync_ok), identity="FAKE,DIGITISER,0,1")
+
+    def open_generator():
+        return Link(FakeGenerator(scene), FakeSession(scene), identity="FAKE,GENERATOR,0,1")
+
+    def open_store(path, meta):
+        store = SessionStore.create(path, meta, commit_interval_s=commit_interval_s)
+        return SlowStore(store, store_delay_s, full_after)
+
+    session = LiveSession(
+        open_digitiser=open_digitiser, open_generator=open_generator if generator else None,
+        converter=FakeConverter(), rules=RuleEngine(AlertConfig.from_table(alerts or {})),
+        open_store=open_store, metadata=lambda ids: {"instruments": ids, "test": True},
+        session_path=tmp_path / "s.db", trigger_timeout_s=0.05, queue_capacity=queue_capacity,
+        max_traces=max_traces, give_up_s=give_up_s, duration_s=duration_s)
+    session.opens = opens
+    return session
+
+
+def run(session, timeout_s=30.0):
+    session.start()
+    assert session.wait(timeout_s), "session did not finish"
+    return session
+
+
+def acquires(scene):
+    return [e for e in scene.log if e[0] == "acquire"]
+
+
+class TestLiveSessionBasics:
+    def test_every_trace_converted_and_stored(self, tmp_path):
+        scene = Scene()
+        s = run(make_session(tmp_path, scene, max_traces=40))
+        assert s.exit_code == EXIT_OK
+        snap = s.snapshot()
+        assert (snap.acquired, snap.converted, snap.stored) == (40, 40, 40)
+        assert snap.state == "stopped"
+        with SessionReader(tmp_path / "s.db") as r:
+            assert r.seqs() == list(range(40))
+            assert r.stop["exit_status"] == "completed"
+            assert r.stop["counts"]["stored"] == 40
+            assert r.metadata["instruments"]["digitiser"]["identity"] == "FAKE,DIGITISER,0,1"
+            st = r.trace(7)
+            expected = FakeConverter().process(st.raw.volts(), st.raw.dt_s).flat()
+            assert st.result["peak_compressional_pa"] == expected["peak_compressional_pa"]
+        fig = snap.figures["peak_compressional_pa"]
+        assert fig.count == 40 and fig.minimum <= fig.mean <= fig.maximum
+        assert snap.pressure_pa.shape == (N,) and snap.spectrum_db.shape == (N // 2 + 1,)
+
+    def test_operator_stop_mark_method_and_acknowledge(self, tmp_path):
+        scene = Scene(amplitude=lambda seq: 0.3)   # clips: 0.3 V > 0.25 V, half the 0.5 V span
+        scene.acquire_delay_s = 0.005
+        s = make_session(tmp_path, scene, max_traces=None,
+                         alerts={"clipping": {"actions": ["record"]}})
+        s.start()
+        deadline = time.monotonic() + 10
+        while not s.snapshot().alerts and time.monotonic() < deadline:
+            time.sleep(0.01)
+        alert = s.snapshot().alerts[0]
+        assert alert.rule == "clipping"
+        s.acknowledge(alert.alert_id)
+        s.mark("hydrophone moved to 40 mm")
+        s.set_method("narrowband")
+        while s.snapshot().method != "narrowband" and time.monotonic() < deadline:
+            time.sleep(0.01)
+        s.stop("operator pressed q")
+        assert s.wait(10)
+        assert s.exit_code == EXIT_OK and not s.running
+        assert s.snapshot().alerts[0].acknowledged
+        with SessionReader(tmp_path / "s.db") as r:
+            kinds = [e["kind"] for e in r.events()]
+            assert "mark" in kinds and "method-change" in kinds
+            stored_alert = r.alerts()[0]
+            assert stored_alert["rule"] == "clipping"
+            assert stored_alert["acknowledged_time_s"] is not None
+            assert r.stop["exit_status"] == "operator"
+            assert r.stop["reason"] == "operator pressed q"
+            assert r.seqs() == list(range(len(r.seqs())))
+
+
+class TestThrottling:
+    def test_slow_writer_throttles_and_loses_nothing(self, tmp_path):
+        scene = Scene()
+        s = run(make_session(tmp_path, scene, max_traces=60, store_delay_s=0.03,
+                             queue_capacity=4))
+        assert s.exit_code == EXIT_OK
+        with SessionReader(tmp_path / "s.db") as r:
+            assert r.seqs() == list(range(60))
+            rules = [a["rule"] for a in r.alerts()]
+        # The acquisition waited (on the full queue or on the judgement of the trace
+        # before) instead of dropping traces.
+        assert s._acq.blocked_s + s._acq.gate_wait_s > 0.5
+        assert "falling_behind" in rules
+
+
+class TestActions:
+    def test_safe_off_before_next_acquisition(self, tmp_path):
+        # 0.2 V on a 0.5 V range is 2 MPa with the fake hydrophone: above the limit.
+        scene = Scene(amplitude=lambda seq: 0.2 if seq >= 5 else 0.02)
+        s = run(make_session(tmp_path, scene, max_traces=12,
+                             alerts={"over_pressure": {"limit_pa": 1.0e6},
+                                     "range_under_use": {"enabled": False}}))
+        log = [e for e in scene.log if e[0] in ("acquire", "output")]
+        i = log.index(("acquire", 5, True))
+        assert log[i + 1] == ("output", False)
+        assert log[i + 2] == ("acquire", 6, False)
+        with SessionReader(tmp_path / "s.db") as r:
+            events = [e for e in r.events() if e["kind"] == "safe-off"]
+            assert events and events[0]["detail"]["done"] is True
+            assert events[0]["detail"]["before_seq"] == 6
+            assert r.trace(6).result["peak_compressional_pa"] < 1.0e5
+            assert [a["rule"] for a in r.alerts()][0] == "over_pressure"
+        assert s.exit_code == EXIT_OK
+
+    def test_stop_action_ends_with_rule_exit_code(self, tmp_path):
+        scene = Scene(amplitude=lambda seq: 0.2 if seq >= 3 else 0.02)
+        s = run(make_session(tmp_path, scene, max_traces=None,
+                             alerts={"over_pressure": {"limit_pa": 1.0e6,
+                                                       "actions": ["record", "safe-off",
+                                                                   "stop"]},
+                                     "range_under_use": {"enabled": False}}))
+        assert s.exit_code == EXIT_STOPPED_BY_RULE
+        assert scene.output_on is False
+        with SessionReader(tmp_path / "s.db") as r:
+            assert r.stop["exit_status"] == "stopped-by-rule"
+            assert "over_pressure" in r.stop["reason"]
+
+    def test_auto_range_steps_and_flags(self, tmp_path):
+        # Clips on 0.2 V, then falls to a small signal that under-uses the range.
+        scene = Scene(amplitude=lambda seq: 0.15 if seq < 6 else 0.02)
+        s = run(make_session(tmp_path, scene, max_traces=30, range_v=0.2,
+                             alerts={"range_under_use": {"consecutive_traces": 3}}))
+        assert s.exit_code == EXIT_OK
+        ranges = [e[1] for e in scene.log if e[0] == "range"]
+        assert ranges == [0.5, 0.2, 0.1]
+        with SessionReader(tmp_path / "s.db") as r:
+            changes = [e for e in r.events() if e["kind"] == "range-change"]
+            assert [(c["detail"]["from_v"], c["detail"]["to_v"]) for c in changes] == [
+                (0.2, 0.5), (0.5, 0.2), (0.2, 0.1)]
+            first_after = changes[0]["detail"]["before_seq"]
+            tr = r.trace(first_after)
+            assert tr.flags["range_changed"] and tr.raw.range_v == 0.5
+            assert tr.flags["previous_range_v"] == 0.2
+            assert not r.trace(first_after + 1).flags["range_changed"]
+            assert r.trace(first_after - 1).raw.range_v == 0.2
+
+
+class TestFaults:
+    def test_reconnect_continues_sequence(self, tmp_path):
+        scene = Scene()
+        scene.faults = {10: [ConnectionLost("peer closed")],
+                        20: [InstrumentTimeout("stalled reply")]}
+        fails = iter([False, True, False])   # first open ok, first reopen refused, then ok
+        s = run(make_session(tmp_path, scene, max_traces=30,
+                             opener_failures=lambda: next(fails, False)))
+        assert s.exit_code == EXIT_OK
+        assert s.opens["digitiser"] == 3
+        with SessionReader(tmp_path / "s.db") as r:
+            assert r.seqs() == list(range(30))
+            kinds = [e["kind"] for e in r.events()]
+            assert "connection-lost" in kinds and "reconnect" in kinds and "resync" in kinds
+            reconnect = next(e for e in r.events() if e["kind"] == "reconnect")
+            assert reconnect["detail"]["next_seq"] == 10
+            assert "instrument-fault" in [a["rule"] for a in r.alerts()]
+
+    def test_lost_for_good_is_an_instrument_failure(self, tmp_path):
+        scene = Scene()
+        scene.faults = {5: [ConnectionLost("peer closed")]}
+        calls = iter([False])
+        s = run(make_session(tmp_path, scene, max_traces=None, give_up_s=0.4,
+                             opener_failures=lambda: next(calls, True)))
+        assert s.exit_code == EXIT_INSTRUMENT
+        assert "not reachable" in s.message_for_operator
+        with SessionReader(tmp_path / "s.db") as r:
+            assert r.seqs() == list(range(5))
+            assert r.stop["exit_status"] == "instrument-failure"
+
+    def test_no_trigger_is_recorded_and_alerted(self, tmp_path):
+        scene = Scene()
+        scene.faults = {3: [NoTrigger("no trigger")] * 25}
+        s = run(make_session(tmp_path, scene, max_traces=6,
+                             alerts={"no_trigger": {"after_s": 0.5}}))
+        with SessionReader(tmp_path / "s.db") as r:
+            assert r.seqs() == list(range(6))
+            assert sum(e["kind"] == "no-trigger" for e in r.events()) == 25
+            assert "no_trigger" in [a["rule"] for a in r.alerts()]
+        assert s.exit_code == EXIT_OK
+
+    def test_conversion_error_stored_and_session_goes_on(self, tmp_path):
+        scene = Scene(amplitude=lambda seq: 0.0 if seq == 4 else 0.05)
+        s = run(make_session(tmp_path, scene, max_traces=10))
+        assert s.exit_code == EXIT_OK
+        snap = s.snapshot()
+        assert (snap.acquired, snap.converted, snap.stored) == (10, 9, 10)
+        with SessionReader(tmp_path / "s.db") as r:
+            bad = r.trace(4)
+            assert bad.result is None and "no signal" in bad.error
+            assert np.all(bad.raw.codes == 0)
+            assert r.trace(5).result is not None
+            assert "conversion_failed" in [a["rule"] for a in r.alerts()]
+
+    def test_disk_full_stops_cleanly_with_store_exit_code(self, tmp_path):
+        scene = Scene()
+        s = run(make_session(tmp_path, scene, max_traces=None, full_after=20,
+                             commit_interval_s=0.0))
+        assert s.exit_code == EXIT_STORE
+        assert "disk is full" in s.message_for_operator
+        assert not s.running
+        with SessionReader(tmp_path / "s.db") as r:
+            assert r.seqs() == list(range(20))
+            assert r.integrity_check() == "ok"
+
+
+@pytest.mark.parametrize("gate", [True])
+def test_duration_stop(tmp_path, gate):
+    scene = Scene()
+    scene.acquire_delay_s = 0.002
+    t0 = time.monotonic()
+    s = run(make_session(tmp_path, scene, max_traces=None, duration_s=0.5))
+    assert 0.4 < time.monotonic() - t0 < 5
+    assert s.exit_code == EXIT_OK
+    with SessionReader(tmp_path / "s.db") as r:
+        assert r.stop["exit_status"] == "completed"
+        assert len(r.seqs()) == s.snapshot().acquired
