@@ -13,6 +13,7 @@ import tomllib
 
 import numpy as np
 import pytest
+
 from tankside.drivers.trace import RawTrace, count_at_rails
 from tankside.monitor import alerts
 from tankside.monitor.alerts import (

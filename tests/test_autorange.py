@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+
 from tankside.monitor.alerts import Firing
 from tankside.monitor.autorange import next_range, range_after
 
