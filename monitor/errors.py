@@ -50,3 +50,9 @@ class StoreError(TanksideError):
 
 class DiskFullError(StoreError):
     """The session store ran out of space; data committed before this is intact."""
+
+
+class SessionFileError(TanksideError):
+    """A session file that cannot be read as asked: missing, not a tankside session,
+    newer than this tankside, or without the trace asked for (an input problem, not a
+    failure to write)."""

@@ -29,9 +29,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+
 from tankside.drivers.trace import RawTrace
 from tankside.monitor import __version__
-from tankside.monitor.errors import DiskFullError, StoreError
+from tankside.monitor.errors import DiskFullError, SessionFileError, StoreError
 from tankside.monitor.store_schema import (
     DDL,
     FLAG_COLUMNS,
@@ -205,7 +206,7 @@ class SessionStore:
         """
         path = Path(path)
         if path.exists():
-            raise StoreError(f"{path}: session file already exists")
+            raise SessionFileError(f"{path}: session file already exists")
         try:
             meta_rows = [(key, _dumps(value)) for key, value in metadata.items()]
         except (TypeError, ValueError) as err:
@@ -443,8 +444,9 @@ class SessionReader:
 
     Raises
     ------
-    StoreError
-        Missing file, not an SQLite file, or not a tankside session.
+    SessionFileError
+        Missing file, not an SQLite file, or not a tankside session (and, from
+        :meth:`trace`, an unknown seq). Other read failures are StoreError.
     """
 
     _CHUNK = 64
@@ -452,7 +454,7 @@ class SessionReader:
     def __init__(self, path):
         self.path = Path(path)
         if not self.path.is_file():
-            raise StoreError(f"{self.path}: no such session file")
+            raise SessionFileError(f"{self.path}: no such session file")
         uri = f"{self.path.resolve().as_uri()}?mode=ro"
         try:
             self._conn = sqlite3.connect(uri, uri=True, check_same_thread=False)
@@ -462,13 +464,13 @@ class SessionReader:
         except sqlite3.Error as err:
             if hasattr(self, "_conn"):
                 self._conn.close()
-            raise StoreError(f"{self.path}: not a tankside session file ({err})") from err
+            raise SessionFileError(f"{self.path}: not a tankside session file ({err})") from err
         if row is None or row[0] != FORMAT_TAG:
             self._conn.close()
-            raise StoreError(f"{self.path}: not a tankside session file")
+            raise SessionFileError(f"{self.path}: not a tankside session file")
         if row[1] > LAYOUT_VERSION:
             self._conn.close()
-            raise StoreError(f"{self.path}: session layout {row[1]} is newer than this "
+            raise SessionFileError(f"{self.path}: session layout {row[1]} is newer than this "
                              f"tankside reads ({LAYOUT_VERSION})")
         self.start = {"format": row[0], "layout_version": row[1], "session_uid": row[2],
                       "start_time_s": row[3], "tool_version": row[4]}
@@ -520,7 +522,7 @@ class SessionReader:
     def calibration_text(self) -> str:
         text = self.metadata.get(META_CALIBRATION_TEXT)
         if text is None:
-            raise StoreError(f"{self.path}: the session holds no calibration file")
+            raise SessionFileError(f"{self.path}: the session holds no calibration file")
         return text
 
     # -- traces -------------------------------------------------------------------------
@@ -529,6 +531,13 @@ class SessionReader:
 
     def __len__(self) -> int:
         return self.trace_count()
+
+    def trace_layouts(self) -> set[tuple[str, int]]:
+        """The distinct (numpy dtype string, sample count) of the stored traces."""
+        return {(d, n) for d, n in self._query("SELECT DISTINCT dtype, n FROM traces")}
+
+    def total_samples(self) -> int:
+        return int(self._query("SELECT COALESCE(SUM(n), 0) FROM traces")[0][0])
 
     def seqs(self) -> list[int]:
         return [r[0] for r in self._query("SELECT seq FROM traces ORDER BY seq")]
@@ -578,7 +587,7 @@ class SessionReader:
         """The trace with sequence number ``seq``; StoreError if there is none."""
         rows = self._trace_rows("WHERE t.seq = ?", (int(seq),))
         if not rows:
-            raise StoreError(f"{self.path}: no trace with seq {seq}")
+            raise SessionFileError(f"{self.path}: no trace with seq {seq}")
         return self._split(rows[0])
 
     def iter_traces(self, start_seq: int | None = None,

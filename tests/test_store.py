@@ -16,7 +16,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 from session_samples import CAL_TEXT, fake_result, make_raw, write_session
-from tankside.monitor.errors import DiskFullError, StoreError
+
+from tankside.monitor.errors import DiskFullError, SessionFileError, StoreError
 from tankside.monitor.store import SessionReader, SessionStore, session_metadata
 from tankside.monitor.store_schema import (
     META_CALIBRATION_SHA256,
@@ -135,27 +136,27 @@ class TestBatchedCommits:
 
 class TestErrors:
     def test_missing_file(self, tmp_path):
-        with pytest.raises(StoreError, match="no such session file"):
+        with pytest.raises(SessionFileError, match="no such session file"):
             SessionReader(tmp_path / "nope.db")
 
     def test_not_a_database(self, tmp_path):
         (tmp_path / "x.db").write_text("time_s,voltage_v\n0,1\n")
-        with pytest.raises(StoreError, match="not a tankside session"):
+        with pytest.raises(SessionFileError, match="not a tankside session"):
             SessionReader(tmp_path / "x.db")
 
     def test_other_sqlite_file(self, tmp_path):
         sqlite3.connect(tmp_path / "o.db").execute("CREATE TABLE t(x)").connection.close()
-        with pytest.raises(StoreError, match="not a tankside session"):
+        with pytest.raises(SessionFileError, match="not a tankside session"):
             SessionReader(tmp_path / "o.db")
 
     def test_unknown_seq(self, tmp_path):
         write_session(tmp_path / "s.db")
-        with SessionReader(tmp_path / "s.db") as reader, pytest.raises(StoreError, match="seq 99"):
+        with SessionReader(tmp_path / "s.db") as reader, pytest.raises(SessionFileError, match="seq 99"):
             reader.trace(99)
 
     def test_create_refuses_existing_file(self, tmp_path):
         write_session(tmp_path / "s.db")
-        with pytest.raises(StoreError, match="already exists"):
+        with pytest.raises(SessionFileError, match="already exists"):
             SessionStore.create(tmp_path / "s.db", _meta())
 
     def test_full_database_keeps_committed_data_and_refuses_more(self, tmp_path):
@@ -186,7 +187,7 @@ _WRITER = textwrap.dedent("""
     import json, resource, signal, sys
     sys.path.insert(0, {tests!r})
     from session_samples import make_raw, fake_result
-    from tankside.monitor.errors import DiskFullError, StoreError
+    from tankside.monitor.errors import DiskFullError, SessionFileError, StoreError
     from tankside.monitor.store import SessionStore, session_metadata
     mode, path = sys.argv[1], sys.argv[2]
     store = SessionStore.create(path, session_metadata(configuration={{}}, instruments={{}}))

@@ -1,0 +1,63 @@
+"""``tankside export``: results, a trace, the calibration file or everything out of a session."""
+
+from __future__ import annotations
+
+import argparse
+
+from tankside.monitor.errors import ConfigError
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    p = subparsers.add_parser(
+        "export",
+        help="write a recorded session's results, traces or calibration to CSV or HDF5",
+        description=(
+            "Export parts of a recorded session. Give one or more of the outputs below; "
+            "the session file is only read, also while it is still being recorded."),
+    )
+    p.add_argument("session", metavar="FILE.db", help="the recorded session file")
+    p.add_argument("--results", metavar="OUT.csv",
+                   help="one row per trace: seq, time_s and the parameters under the names "
+                        "of `convert --json`, then converted, clipped, range_changed, error")
+    p.add_argument("--trace", type=int, metavar="SEQ",
+                   help="sequence number of one trace to write with --out")
+    p.add_argument("--out", metavar="TRACE.csv",
+                   help="where --trace goes: time_s,voltage_v in volts, the form `convert` reads")
+    p.add_argument("--calibration-out", metavar="CAL.csv",
+                   help="the recorded hydrophone calibration file, verbatim")
+    p.add_argument("--hdf5", metavar="OUT.h5",
+                   help="all traces, results, alerts, events and metadata, units as attributes")
+    bar = p.add_mutually_exclusive_group()
+    bar.add_argument("--progress", dest="progress", action="store_const", const=True,
+                     default=None, help="always show the progress bar (default: on a terminal)")
+    bar.add_argument("--no-progress", dest="progress", action="store_const", const=False,
+                     help="never show the progress bar")
+    p.set_defaults(func=run)
+    return p
+
+
+def run(args) -> int:
+    from tankside.monitor import export
+    from tankside.monitor.store import SessionReader
+
+    if (args.trace is None) != (args.out is None):
+        raise ConfigError("--trace SEQ and --out TRACE.csv go together")
+    if not any((args.results, args.out, args.calibration_out, args.hdf5)):
+        raise ConfigError("nothing to export: give --results, --trace/--out, "
+                          "--calibration-out or --hdf5")
+    with SessionReader(args.session) as reader:
+        if args.trace is not None:
+            reader.trace(args.trace)  # an unknown seq fails before any file is written
+        if args.results:
+            rows = export.export_results_csv(reader, args.results, progress=args.progress)
+            print(f"wrote {rows} result rows to {args.results}")
+        if args.trace is not None:
+            n = export.export_trace_csv(reader, args.trace, args.out)
+            print(f"wrote trace {args.trace} ({n} samples) to {args.out}")
+        if args.calibration_out:
+            sha = export.export_calibration(reader, args.calibration_out)
+            print(f"wrote the calibration file to {args.calibration_out} (sha256 {sha})")
+        if args.hdf5:
+            n = export.export_hdf5(reader, args.hdf5, progress=args.progress)
+            print(f"wrote {n} traces with results, alerts and events to {args.hdf5}")
+    return 0

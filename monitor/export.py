@@ -1,0 +1,267 @@
+"""Export a stored session: results CSV, one trace as CSV, the calibration file, HDF5.
+
+Results CSV
+    One row per trace: ``seq``, ``time_s`` (s since the Unix epoch), the result fields
+    under the names of ``convert --json`` flattened (``RESULT_FIELDS``), then
+    ``converted``, ``clipped``, ``range_changed`` and ``error``. Floats are written
+    with ``repr`` (shortest text that reads back to the same float64); booleans as
+    ``true``/``false``; a field without a value (conversion failed) is empty.
+
+Trace CSV
+    ``time_s,voltage_v``, the form ``tankside convert`` reads: sample times relative
+    to the trigger and volts (``codes * volts_per_code + offset_v``), both float64.
+
+Calibration
+    The recorded calibration file, verbatim (a UTF-8 byte-order mark is restored when
+    that is what the recorded sha256 says the original had).
+
+HDF5 layout (``format`` attribute ``"tankside-session-export"``, ``layout_version`` 1)
+    ``/``                    attributes: format, layout_version, source_file,
+                             session_uid, tool_version, start_time_s, stopped_cleanly
+    ``/metadata``            one attribute per metadata key, JSON text; the dataset
+                             ``calibration_text`` (string) with attribute ``sha256``
+    ``/traces/codes``        the codes exactly as sent, shape (N, n) when every trace
+                             has the same length and dtype; otherwise 1-D, all traces
+                             end to end in a common dtype that holds every code exactly,
+                             with ``/traces/code_start`` and ``/traces/code_count``
+    ``/traces/<column>``     one 1-D dataset per trace column, length N: seq, time_s,
+                             volts_per_code, offset_v, dt_s, t0_s, range_v, code_min,
+                             code_max, clipped_low, clipped_high, dtype, data_format,
+                             state_json
+    ``/results/<field>``     one 1-D dataset per result field plus converted, clipped,
+                             range_changed and error; ``narrowband_ok`` is int8
+                             (1 true, 0 false, -1 no result); NaN for a missing number
+    ``/alerts/<column>``     alert_id, time_s, rule, severity, message, actions_json,
+                             seq (-1: none), acknowledged_time_s (NaN: not acknowledged)
+    ``/events/<column>``     event_id, time_s, kind, seq (-1: none), detail_json
+    ``/stop``                attributes stop_time_s, exit_status, reason, counts_json
+                             (absent when the session was not stopped cleanly)
+
+Every numeric dataset carries a ``units`` attribute (SI; ``""`` when dimensionless).
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+
+from tankside.monitor.errors import ConfigError
+from tankside.monitor.progress import Progress
+from tankside.monitor.store import SessionReader
+from tankside.monitor.store_schema import (
+    META_CALIBRATION_SHA256,
+    RESULT_COLUMNS,
+    RESULT_NAMES,
+    units_of,
+)
+
+__all__ = ["export_results_csv", "export_trace_csv", "export_calibration", "export_hdf5",
+           "RESULTS_CSV_COLUMNS"]
+
+RESULTS_CSV_COLUMNS = ("seq", "time_s", *RESULT_NAMES, "converted", "clipped",
+                       "range_changed", "error")
+_BOM = "\ufeff"
+
+
+def _cell(value) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float):
+        return repr(value)
+    return str(value)
+
+
+def export_results_csv(reader: SessionReader, out, *, progress: bool | None = None) -> int:
+    """Write the results CSV; returns the number of rows."""
+    rows = 0
+    with open(out, "w", newline="", encoding="utf-8") as fh, \
+            Progress(reader.trace_count(), "results", enabled=progress) as bar:
+        writer = csv.writer(fh, lineterminator="\n")
+        writer.writerow(RESULTS_CSV_COLUMNS)
+        for r in reader.iter_results():
+            if not r["converted"]:
+                r = {**r, **{name: None for name in RESULT_NAMES}}
+            writer.writerow([_cell(r.get(c)) for c in RESULTS_CSV_COLUMNS])
+            rows += 1
+            bar.update()
+    return rows
+
+
+def write_trace_csv(out, times_s: np.ndarray, voltage_v: np.ndarray) -> None:
+    """Write a ``time_s,voltage_v`` CSV with float64 values that read back exactly."""
+    with open(out, "w", newline="", encoding="utf-8") as fh:
+        fh.write("time_s,voltage_v\n")
+        fh.writelines(f"{t!r},{v!r}\n" for t, v in zip(times_s.tolist(), voltage_v.tolist(),
+                                                       strict=True))
+
+
+def export_trace_csv(reader: SessionReader, seq: int, out) -> int:
+    """Write trace ``seq`` in volts as ``time_s,voltage_v``; returns the sample count."""
+    raw = reader.trace(seq).raw
+    write_trace_csv(out, raw.times(), raw.volts())
+    return raw.n
+
+
+def export_calibration(reader: SessionReader, out) -> str:
+    """Write the recorded calibration file verbatim; returns its sha256 (hex)."""
+    text = reader.calibration_text
+    data = text.encode("utf-8")
+    recorded = reader.metadata.get(META_CALIBRATION_SHA256)
+    if recorded and hashlib.sha256(data).hexdigest() != recorded:
+        with_bom = (_BOM + text).encode("utf-8")
+        if hashlib.sha256(with_bom).hexdigest() == recorded:
+            data = with_bom
+    Path(out).write_bytes(data)
+    return hashlib.sha256(data).hexdigest()
+
+
+# -- HDF5 --------------------------------------------------------------------------------
+_TRACE_FLOATS = ("time_s", "volts_per_code", "offset_v", "dt_s", "t0_s", "range_v",
+                 "code_min", "code_max")
+_TRACE_INTS = ("seq", "clipped_low", "clipped_high")
+_TRACE_STRS = ("dtype", "data_format", "state_json")
+
+
+def _h5():
+    try:
+        import h5py
+    except ImportError as err:  # pragma: no cover - h5py is a dependency
+        raise ConfigError("HDF5 export needs h5py (pip install h5py)") from err
+    return h5py
+
+
+def _strings(group, name: str, values):
+    return group.create_dataset(name, data=np.array(list(values), dtype=object),
+                                dtype=_h5().string_dtype())
+
+
+def _numbers(group, name: str, values, dtype, units: str | None = None):
+    ds = group.create_dataset(name, data=np.array(list(values), dtype=dtype))
+    ds.attrs["units"] = units_of(name) if units is None else units
+    return ds
+
+
+def export_hdf5(reader: SessionReader, out, *, progress: bool | None = None) -> int:
+    """Write the whole session to HDF5 (layout in the module docstring); returns N traces."""
+    h5py = _h5()
+    n_traces = reader.trace_count()
+    layouts = reader.trace_layouts()
+    uniform = len(layouts) == 1
+    meta = reader.metadata
+    stop = reader.stop
+    with h5py.File(out, "w") as f, Progress(n_traces, "hdf5", enabled=progress) as bar:
+        f.attrs.update({"format": "tankside-session-export", "layout_version": 1,
+                        "source_file": str(reader.path), **{k: reader.start[k] for k in
+                        ("session_uid", "tool_version", "start_time_s")},
+                        "stopped_cleanly": stop is not None})
+        g = f.create_group("metadata")
+        for key, value in meta.items():
+            g.attrs[key] = json.dumps(value, sort_keys=True)
+        if meta.get("calibration_text") is not None:
+            ds = g.create_dataset("calibration_text", data=meta["calibration_text"],
+                                  dtype=h5py.string_dtype())
+            ds.attrs["sha256"] = meta.get(META_CALIBRATION_SHA256) or ""
+        _write_traces(f.create_group("traces"), reader, n_traces, layouts, uniform, bar)
+        _write_results(f.create_group("results"), reader)
+        _write_alerts(f.create_group("alerts"), reader.alerts())
+        _write_events(f.create_group("events"), reader.events())
+        if stop is not None:
+            s = f.create_group("stop")
+            s.attrs.update({"stop_time_s": stop["stop_time_s"], "exit_status": stop["exit_status"],
+                            "reason": stop["reason"], "counts_json": json.dumps(stop["counts"])})
+    return n_traces
+
+
+def _write_traces(g, reader, n_traces, layouts, uniform, bar):
+    if uniform and n_traces:
+        dtype_str, n = next(iter(layouts))
+        codes = g.create_dataset("codes", shape=(n_traces, n), dtype=np.dtype(dtype_str),
+                                 chunks=(1, n))
+    else:
+        common = np.result_type(*[np.dtype(d) for d, _ in layouts]) if layouts else np.int16
+        codes = g.create_dataset("codes", shape=(reader.total_samples(),), dtype=common)
+        starts, counts = [], []
+    codes.attrs["units"] = "code"
+    cols = {c: [] for c in (*_TRACE_FLOATS, *_TRACE_INTS, *_TRACE_STRS)}
+    pos = 0
+    for i, stored in enumerate(reader.iter_traces()):
+        raw = stored.raw
+        if uniform:
+            codes[i] = raw.codes
+        else:
+            codes[pos:pos + raw.n] = raw.codes
+            starts.append(pos)
+            counts.append(raw.n)
+            pos += raw.n
+        for c in _TRACE_FLOATS:
+            cols[c].append(float(getattr(raw, c)))
+        cols["seq"].append(raw.seq)
+        cols["clipped_low"].append(raw.clipped_low)
+        cols["clipped_high"].append(raw.clipped_high)
+        cols["dtype"].append(raw.codes.dtype.str)
+        cols["data_format"].append(raw.data_format)
+        cols["state_json"].append(json.dumps(raw.state, sort_keys=True))
+        bar.update()
+    if not uniform:
+        _numbers(g, "code_start", starts, np.int64, "")
+        _numbers(g, "code_count", counts, np.int64, "")
+    for c in _TRACE_FLOATS:
+        _numbers(g, c, cols[c], np.float64)
+    for c in _TRACE_INTS:
+        _numbers(g, c, cols[c], np.int64, "")
+    for c in _TRACE_STRS:
+        _strings(g, c, cols[c])
+
+
+def _write_results(g, reader):
+    cols = {c: [] for c in ("seq", *RESULT_NAMES, "converted", "clipped", "range_changed",
+                            "error")}
+    kinds = dict(RESULT_COLUMNS)
+    for r in reader.iter_results():
+        for c in cols:
+            v = r.get(c)
+            if c in kinds and kinds[c] == "BOOL":
+                v = -1 if (v is None or not r["converted"]) else int(v)
+            elif c in kinds and kinds[c] == "TEXT" or c == "error":
+                v = "" if v is None else str(v)
+            elif c in kinds:
+                v = math.nan if v is None else float(v)
+            cols[c].append(v)
+    for c, values in cols.items():
+        if c in ("converted", "clipped", "range_changed"):
+            _numbers(g, c, values, bool, "")
+        elif kinds.get(c) == "BOOL":
+            _numbers(g, c, values, np.int8, "")
+        elif kinds.get(c) == "TEXT" or c == "error":
+            _strings(g, c, values)
+        elif c == "seq":
+            _numbers(g, c, values, np.int64, "")
+        else:
+            _numbers(g, c, values, np.float64)
+
+
+def _write_alerts(g, alerts):
+    _numbers(g, "alert_id", [a["alert_id"] for a in alerts], np.int64, "")
+    _numbers(g, "time_s", [a["time_s"] for a in alerts], np.float64)
+    for c in ("rule", "severity", "message"):
+        _strings(g, c, [a[c] for a in alerts])
+    _strings(g, "actions_json", [json.dumps(list(a["actions"])) for a in alerts])
+    _numbers(g, "seq", [-1 if a["seq"] is None else a["seq"] for a in alerts], np.int64, "")
+    _numbers(g, "acknowledged_time_s", [math.nan if a["acknowledged_time_s"] is None
+                                        else a["acknowledged_time_s"] for a in alerts],
+             np.float64)
+
+
+def _write_events(g, events):
+    _numbers(g, "event_id", [e["event_id"] for e in events], np.int64, "")
+    _numbers(g, "time_s", [e["time_s"] for e in events], np.float64)
+    _strings(g, "kind", [e["kind"] for e in events])
+    _numbers(g, "seq", [-1 if e["seq"] is None else e["seq"] for e in events], np.int64, "")
+    _strings(g, "detail_json", [json.dumps(e["detail"], sort_keys=True) for e in events])
