@@ -1,0 +1,262 @@
+"""The live dashboard: reads the session's latest snapshot at a fixed rate, never a driver.
+
+``run_dashboard(session)`` runs it on a started :class:`LiveSession` (or anything with
+the same methods) and stops the session cleanly when the operator quits.
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+from textual.app import App, ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal
+from textual.widgets import Footer, Static
+
+from tankside.drivers.errors import InstrumentError
+from tankside.monitor.dashboard.alerts import AlertList, open_alerts
+from tankside.monitor.dashboard.caution import CautionScreen
+from tankside.monitor.dashboard.figures import RunningFigures
+from tankside.monitor.dashboard.marknote import MarkNoteScreen
+from tankside.monitor.dashboard.saving import write_columns_csv
+from tankside.monitor.dashboard.spectrum import SpectrumView
+from tankside.monitor.dashboard.status import BenchStatus
+from tankside.monitor.dashboard.units import clock
+from tankside.monitor.dashboard.waveform import PressureTrace
+from tankside.monitor.errors import TanksideError
+from tankside.monitor.snapshot import Snapshot
+
+REFRESH_HZ = 15.0
+METHODS = ("auto", "deconvolve", "narrowband")
+STATE_STYLE = {
+    "starting": "#ffb35c", "running": "#7fd88f", "reconnecting": "#ffb35c",
+    "stopping": "#ffb35c", "stopped": "#ff6b6b",
+}
+STOP_WAIT_S = 30.0
+
+
+class DashboardApp(App[None]):
+    """The tankside live view: trace, spectrum, running figures, alerts and bench status."""
+
+    CSS_PATH = "dashboard.tcss"
+    TITLE = "tankside"
+    ENABLE_COMMAND_PALETTE = False
+    BINDINGS = [
+        Binding("space", "hold", "hold"),
+        Binding("m", "mark", "mark"),
+        Binding("a", "ack_one", "ack"),
+        Binding("A", "ack_all", "ack all"),
+        Binding("c", "cycle_method", "method"),
+        Binding("l", "toggle_scale", "dB/lin"),
+        Binding("s", "save_snapshot", "save"),
+        Binding("q", "quit_session", "quit"),
+    ]
+
+    def __init__(self, session, *, first_run_notice: bool = True,
+                 snapshot_dir: str | Path | None = None, refresh_hz: float = REFRESH_HZ):
+        super().__init__()
+        self.session = session
+        self.first_run_notice = first_run_notice
+        self.snapshot_dir = Path(snapshot_dir) if snapshot_dir is not None else None
+        self.refresh_hz = refresh_hz
+        self.held = False
+        self.latest: Snapshot | None = None     # the newest snapshot read
+        self.shown: Snapshot | None = None      # the one the plots show (older while held)
+        self.method_requested = getattr(session, "method_requested", None) or "auto"
+        self.saved: list[Path] = []             # files written by the last save
+        self._bell_seen = -1
+
+    def compose(self) -> ComposeResult:
+        # kept as attributes: a modal on top must not hide them from the refresh
+        self.banner = Static("", id="banner")
+        self.trace = PressureTrace(id="trace")
+        self.spectrum = SpectrumView(id="spectrum")
+        self.figures = RunningFigures(id="figures")
+        self.status = BenchStatus(id="status")
+        self.alert_list = AlertList(id="alerts")
+        yield self.banner
+        with Horizontal(id="plots"):
+            yield self.trace
+            yield self.spectrum
+        with Horizontal(id="middle"):
+            yield self.figures
+            yield self.status
+        yield self.alert_list
+        yield Footer(compact=True)
+
+    def on_mount(self) -> None:
+        self._fit_to_size(self.size.width, self.size.height)
+        self.set_interval(1.0 / self.refresh_hz, self.refresh_from_session)
+        self.refresh_from_session()
+        if self.first_run_notice:
+            self.push_screen(CautionScreen())
+
+    def on_resize(self, event) -> None:
+        self._fit_to_size(event.size.width, event.size.height)
+
+    def _fit_to_size(self, width: int, height: int) -> None:
+        # more room: taller alert list and figures, a wider status panel
+        self.screen.set_class(height >= 40, "-tall")
+        self.screen.set_class(width >= 140, "-wide")
+
+    # -- refresh -------------------------------------------------------------------
+
+    def refresh_from_session(self) -> None:
+        """Read the latest snapshot (never blocks) and redraw what changed."""
+        snap = self.session.snapshot()
+        self._draw_banner(snap)
+        if snap is self.latest:
+            return
+        self.latest = snap
+        self.status.show(snap)
+        self.alert_list.show(snap)
+        self._ring_for_new_alerts(snap)
+        if not self.held:
+            self._show_plots(snap)
+
+    def _show_plots(self, snap: Snapshot) -> None:
+        self.shown = snap
+        self.trace.show(snap)
+        self.spectrum.show(snap)
+        self.figures.show(snap)
+
+    def _ring_for_new_alerts(self, snap: Snapshot) -> None:
+        fresh = [a for a in snap.alerts if a.alert_id > self._bell_seen]
+        if fresh:
+            self._bell_seen = max(a.alert_id for a in fresh)
+            if any("bell" in a.actions for a in fresh):
+                self.bell()
+
+    def _draw_banner(self, snap: Snapshot) -> None:
+        colour = STATE_STYLE.get(snap.state, "#d7dde2")
+        state = snap.state
+        if snap.state == "stopped" and snap.stop_reason:
+            state = f"stopped: {snap.stop_reason} (q to leave)"
+        used = f": {snap.method}" if snap.method and snap.method != self.method_requested else ""
+        parts = [
+            "[b]tankside[/b]",
+            f"[{colour}]● {state}[/]",
+            clock(snap.elapsed_s),
+            f"#{snap.seq}" if snap.seq >= 0 else "#-",
+            f"method {self.method_requested}{used}",
+        ]
+        if self.held:
+            parts.insert(1, "[reverse #ffb35c] HELD [/]")
+        self.banner.update("  ".join(parts))
+
+    # -- actions ---------------------------------------------------------------------
+
+    def action_hold(self) -> None:
+        """Freeze the trace, spectrum and figures; alerts and status keep updating."""
+        self.held = not self.held
+        if not self.held and self.latest is not None:
+            self._show_plots(self.latest)
+        if self.latest is not None:
+            self._draw_banner(self.latest)
+
+    def action_mark(self) -> None:
+        self.push_screen(MarkNoteScreen(), self._record_mark)
+
+    def _record_mark(self, note: str | None) -> None:
+        if note is None:
+            return
+        if self._call_session(self.session.mark, note):
+            self.notify(f"mark recorded: {note or '(no note)'}", timeout=3)
+
+    def action_ack_one(self) -> None:
+        """Acknowledge the newest open alert."""
+        pending = open_alerts(self.latest.alerts) if self.latest else []
+        if not pending:
+            self.notify("no open alerts", timeout=2)
+            return
+        self._call_session(self.session.acknowledge, pending[-1].alert_id)
+        self.refresh_from_session()
+
+    def action_ack_all(self) -> None:
+        pending = open_alerts(self.latest.alerts) if self.latest else []
+        for alert in pending:
+            if not self._call_session(self.session.acknowledge, alert.alert_id):
+                break
+        self.refresh_from_session()
+
+    def action_cycle_method(self) -> None:
+        nxt = METHODS[(METHODS.index(self.method_requested) + 1) % len(METHODS)] \
+            if self.method_requested in METHODS else METHODS[0]
+        if self._call_session(self.session.set_method, nxt):
+            self.method_requested = nxt
+            self.notify(f"conversion method: {nxt}", timeout=2)
+        if self.latest is not None:
+            self._draw_banner(self.latest)
+
+    def action_toggle_scale(self) -> None:
+        self.spectrum.set_linear(not self.spectrum.linear)
+
+    def action_save_snapshot(self) -> None:
+        """Save the screen as SVG, and the shown trace in volts and in pascals as CSV."""
+        snap = self.shown or self.latest
+        if snap is None:
+            return
+        folder = self.snapshot_dir
+        if folder is None:
+            base = Path(snap.session_path).parent if snap.session_path else Path.cwd()
+            folder = base / "snapshots"
+        stem = f"snapshot-{time.strftime('%Y%m%d-%H%M%S')}-seq{snap.seq}"
+        try:
+            folder.mkdir(parents=True, exist_ok=True)
+            saved = [Path(self.save_screenshot(filename=f"{stem}.svg", path=str(folder)))]
+            if snap.times_s.size and snap.voltage_v.size == snap.times_s.size:
+                saved.append(write_columns_csv(folder / f"{stem}-voltage.csv",
+                                               ("time_s", "voltage_v"), snap.times_s, snap.voltage_v))
+            if snap.times_s.size and snap.pressure_pa.size == snap.times_s.size:
+                saved.append(write_columns_csv(folder / f"{stem}-pressure.csv",
+                                               ("time_s", "pressure_pa"), snap.times_s,
+                                               snap.pressure_pa))
+        except OSError as err:
+            self.notify(f"snapshot not saved: {err}", severity="error", timeout=6)
+            return
+        self.saved = saved
+        self.notify(f"saved {len(saved)} files in {folder}", timeout=4)
+
+    def action_quit_session(self) -> None:
+        """Stop the session cleanly, then leave."""
+        self._call_session(self.session.stop, "operator")
+        self.exit()
+
+    def _call_session(self, method, *args) -> bool:
+        # expected failures (a rejected method name, a closed store) go on screen, not a traceback
+        try:
+            method(*args)
+        except (TanksideError, InstrumentError, ValueError) as err:
+            self.notify(str(err), severity="error", timeout=6)
+            return False
+        return True
+
+
+def run_dashboard(session, *, first_run_notice: bool = True,
+                  snapshot_dir: str | Path | None = None) -> int:
+    """Show the dashboard on a started live session until the operator quits.
+
+    Parameters
+    ----------
+    session : LiveSession
+        Already started; the dashboard calls only its snapshot/mark/acknowledge/
+        set_method/stop/wait methods and its ``exit_code`` and ``running`` attributes.
+    first_run_notice : bool
+        Show the caution about high-power ultrasound before the live view.
+    snapshot_dir : path, optional
+        Where the save key writes; default ``snapshots/`` beside the session file.
+
+    Returns
+    -------
+    int
+        The session's exit code (see :mod:`tankside.monitor.cli`).
+    """
+    app = DashboardApp(session, first_run_notice=first_run_notice, snapshot_dir=snapshot_dir)
+    try:
+        app.run()
+    finally:
+        if session.running:
+            session.stop("operator")
+        session.wait(timeout_s=STOP_WAIT_S)
+    return session.exit_code

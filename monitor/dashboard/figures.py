@@ -1,0 +1,75 @@
+"""The running-figures panel: last, minimum, maximum, mean and a trend of each parameter."""
+
+from __future__ import annotations
+
+import numpy as np
+from rich.text import Text
+from textual.widget import Widget
+
+from tankside.monitor.dashboard.plotgrid import column_extents
+from tankside.monitor.dashboard.units import DISPLAY_UNITS, in_display_unit, number
+from tankside.monitor.snapshot import FIGURES, RunningFigure, Snapshot
+
+_LEVELS = " ▁▂▃▄▅▆▇█"
+HEAD = "#8a9aa6"
+NAME = "#d7dde2"
+LAST = "#6fd3b8"
+TREND = "#b48ee0"
+
+
+def sparkline(values: np.ndarray, width: int) -> str:
+    """A one-line trend of ``values`` (oldest first) in ``width`` block characters.
+
+    Each character shows the largest value of its share of the history (min/max
+    decimation, as the trace), scaled between the history's minimum and maximum.
+    """
+    values = np.asarray(values, dtype=np.float64)
+    values = values[np.isfinite(values)]
+    if width < 1 or values.size == 0:
+        return ""
+    _, peaks = column_extents(values, min(width, values.size))
+    lo, hi = float(values.min()), float(values.max())
+    if hi <= lo:
+        return _LEVELS[4] * peaks.size
+    idx = 1 + np.round((peaks - lo) / (hi - lo) * (len(_LEVELS) - 2)).astype(int)
+    return "".join(_LEVELS[i] for i in idx)
+
+
+class RunningFigures(Widget):
+    """A table of the session's running figures in fixed display units."""
+
+    DEFAULT_CSS = "RunningFigures { height: 8; }"
+
+    def __init__(self, **kwargs):
+        super().__init__(**kwargs)
+        self.border_title = "running figures"
+        self._figures: dict[str, RunningFigure] = {}
+
+    def show(self, snap: Snapshot) -> None:
+        self._figures = snap.figures
+        counts = [f.count for f in snap.figures.values()]
+        self.border_subtitle = f"{max(counts)} traces" if counts else ""
+        self.refresh()
+
+    def render(self) -> Text:
+        width = self.content_size.width
+        name_w, num_w = 12, 6
+        trend_w = max(0, width - name_w - 4 * (num_w + 1) - 1)
+        out = Text(no_wrap=True, overflow="crop")
+        out.append(f"{'':{name_w}}", HEAD)
+        for head in ("last", "min", "max", "mean"):
+            out.append(f" {head:>{num_w}}", HEAD)
+        if trend_w:
+            out.append(f"  {'trend':<{trend_w - 1}}", HEAD)
+        for key, _, _ in FIGURES:
+            label, unit, _ = DISPLAY_UNITS[key]
+            fig = self._figures.get(key, RunningFigure())
+            out.append("\n")
+            out.append(f"{label:<6}", f"bold {NAME}")
+            out.append(f"{unit:<{name_w - 6}}", HEAD)
+            out.append(" " + number(in_display_unit(key, fig.last), num_w), f"bold {LAST}")
+            for value in (fig.minimum, fig.maximum, fig.mean):
+                out.append(" " + number(in_display_unit(key, value), num_w), NAME)
+            if trend_w:
+                out.append("  " + sparkline(fig.trend, trend_w - 1), TREND)
+        return out

@@ -1,0 +1,89 @@
+"""The pressure-trace panel: the latest pressure waveform with p_c and p_r marked."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from rich.text import Text
+from textual.widget import Widget
+
+from tankside.monitor.dashboard.plotgrid import PlotGrid, column_extents, to_steps
+from tankside.monitor.dashboard.units import number
+from tankside.monitor.snapshot import Snapshot
+
+TRACE = "#6fd3b8"
+COMPRESSION = "#ff9466"
+RAREFACTION = "#7cb6ff"
+ZERO = "#3a4a55"
+AXIS = "#8a9aa6"
+_AXIS_WIDTH = 6
+
+
+class PressureTrace(Widget):
+    """Draws the latest trace column by column from its min/max, so no spike hides."""
+
+    DEFAULT_CSS = "PressureTrace { height: 1fr; }"
+
+    def __init__(self, **kwargs):
+        super().__init__(**kwargs)
+        self.border_title = "pressure trace"
+        self.seq = -1
+        self._times_s = np.zeros(0)
+        self._pressure_pa = np.zeros(0)
+        self._pc_pa = math.nan
+        self._pr_pa = math.nan
+
+    def show(self, snap: Snapshot) -> None:
+        """Take the waveform of a snapshot and redraw."""
+        self.seq = snap.seq
+        self._times_s = snap.times_s
+        self._pressure_pa = snap.pressure_pa
+        self._pc_pa = float(snap.result.get("peak_compressional_pa", math.nan))
+        self._pr_pa = float(snap.result.get("peak_rarefactional_pa", math.nan))
+        if self._times_s.size:
+            span_us = (self._times_s[-1] - self._times_s[0]) * 1e6
+            self.border_subtitle = f"#{snap.seq}  {span_us:.1f} µs"
+        self.refresh()
+
+    def render(self) -> Text:
+        rows, cols = self.content_size.height, self.content_size.width
+        if rows < 2 or cols < _AXIS_WIDTH + 4:
+            return Text("")
+        y = self._pressure_pa
+        if y.size == 0 or not np.any(np.isfinite(y)):
+            return Text("waiting for the first converted trace", style=AXIS)
+        ncols = cols - _AXIS_WIDTH
+        mins, maxs = column_extents(y, ncols)
+        top = float(np.nanmax(maxs))
+        bottom = float(np.nanmin(mins))
+        # keep zero inside the plot and leave a little headroom for the markers
+        top = max(top, 0.0)
+        bottom = min(bottom, 0.0)
+        pad = 0.05 * (top - bottom or 1.0)
+        top, bottom = top + pad, bottom - pad
+        grid = PlotGrid(rows, cols)
+        nsteps = grid.steps
+        plot_cols = range(_AXIS_WIDTH, cols)
+        grid.hline(int(to_steps(np.array([0.0]), bottom, top, nsteps)[0]), ZERO, plot_cols)
+        lo = to_steps(mins, bottom, top, nsteps)
+        hi = to_steps(maxs, bottom, top, nsteps)
+        for c in range(ncols):
+            if lo[c] >= 0:
+                grid.span(_AXIS_WIDTH + c, lo[c], hi[c], TRACE)
+        marks = []
+        if math.isfinite(self._pc_pa):
+            marks.append(("p_c", abs(self._pc_pa), COMPRESSION))
+        if math.isfinite(self._pr_pa):
+            # p_r is reported as a magnitude; it sits below zero on the trace
+            marks.append(("p_r", -abs(self._pr_pa), RAREFACTION))
+        for name, level, colour in marks:
+            step = int(to_steps(np.array([level]), bottom, top, nsteps)[0])
+            grid.hline(step, colour, plot_cols)
+            row = (nsteps - 1 - step) // 2
+            text = f" {name} {number(abs(level) * 1e-6, 0)} "
+            grid.label(row, cols - len(text), text, f"bold {colour}")
+        grid.label(0, 0, number(top * 1e-6, _AXIS_WIDTH - 1), AXIS)
+        grid.label(rows - 1, 0, number(bottom * 1e-6, _AXIS_WIDTH - 1), AXIS)
+        grid.label(rows // 2, 0, " MPa", AXIS)
+        return grid.to_text()
