@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+
 from tankside.drivers.trace import RawTrace, count_at_rails
 from tankside.monitor.store import SessionStore, session_metadata
 
@@ -73,3 +74,23 @@ def write_session(path, n_traces: int = 5, **store_kw) -> list[RawTrace]:
     store.add_event(1.8e9 + 1.0, "range-change", {"from_v": 0.5, "to_v": 1.0}, seq=1)
     store.close("ok", "finished", {"traces": n_traces})
     return raws
+
+
+def calibration_text(scale: float = 1.0) -> str:
+    """An invented hydrophone calibration, 0.5-15 MHz, gently falling, 20 ns delay phase."""
+    lines = ["# invented calibration for the store tests",
+             "frequency_hz,sensitivity_v_per_pa,phase_deg"]
+    for k in range(1, 31):
+        f_hz = 0.5e6 * k
+        m = scale * 5.0e-8 * (1.0 - 0.01 * f_hz / 1e6)
+        lines.append(f"{f_hz:.6g},{m:.6g},{-360.0 * f_hz * 20e-9:.6g}")
+    return "\n".join(lines) + "\n"
+
+
+def zero_trace(seq: int, n: int = 2000) -> RawTrace:
+    """An all-zero trace (nothing to convert)."""
+    raw = make_raw(seq, n=n)
+    return RawTrace(codes=np.zeros(n, dtype="<i2"), volts_per_code=raw.volts_per_code,
+                    offset_v=0.0, dt_s=raw.dt_s, t0_s=raw.t0_s, seq=seq, time_s=raw.time_s,
+                    range_v=raw.range_v, code_min=raw.code_min, code_max=raw.code_max,
+                    clipped_low=0, clipped_high=0, data_format="int16", state=raw.state)

@@ -1,0 +1,296 @@
+"""Re-run the signal chain on a stored session, into a new session file.
+
+The raw traces are copied exactly as recorded; every result is recomputed with
+:class:`tankside.monitor.chain.Converter`, built from the calibration text, loading,
+conversion settings and water temperature stored in the session (or another
+calibration file or method when asked). With the session's own settings the new
+results equal the stored ones bit for bit: the same code runs on the same float64
+volts (``RawTrace.volts()``), and the store keeps float64 exactly.
+
+What is followed from the record, so that a replay reproduces the live run:
+
+- the water temperature of each converted trace (``water_temperature_c`` in its
+  result), falling back to the session's ``temperature_c`` for traces that failed;
+- operator method changes: ``method-change`` events whose ``detail`` holds the new
+  requested method under ``"method"`` (or ``"to"``); the change applies from the
+  event's ``seq`` (the first trace converted with it) or, without a seq, to traces
+  acquired at or after the event's time. ``--method`` overrides all of them.
+
+Events are copied into the new session; alerts are not (they were raised on the old
+results). The original file is only ever opened read-only.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import os
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+from tankside.monitor import __version__
+from tankside.monitor.errors import ConfigError, SessionFileError, TanksideError
+from tankside.monitor.progress import Progress
+from tankside.monitor.store import SessionReader, SessionStore
+from tankside.monitor.store_schema import (
+    EVENT_METHOD_CHANGE,
+    META_CALIBRATION_SHA256,
+    META_CALIBRATION_SOURCE,
+    META_CALIBRATION_TEXT,
+    META_LOADING,
+    META_REPLAY_OF,
+    META_SETTINGS,
+    META_START_TIME_S,
+    META_TEMPERATURE_C,
+    META_TOOL_VERSION,
+    REQUIRED_FOR_REPLAY,
+    RESULT_NAMES,
+)
+
+__all__ = ["ReplaySummary", "build_converter", "conversion_inputs", "replay_session",
+           "result_differences"]
+
+
+@dataclass
+class ReplaySummary:
+    """What a replay did."""
+
+    out_path: Path
+    traces: int
+    converted: int
+    failed: int
+    seconds: float
+    differences: int | None = None   # results differing from the source (when checked)
+
+
+def _settings_class():
+    try:
+        from tankside.monitor.settings import ConversionSettings
+    except ImportError:
+        from tankside.monitor.deconvolve import ConversionSettings
+    return ConversionSettings
+
+
+def _rebuild(cls, data: dict | None, what: str):
+    """An instance of a frozen settings dataclass from its recorded ``as_dict()``."""
+    if data is None:
+        return cls()
+    for name in ("from_table", "from_dict"):
+        if hasattr(cls, name):
+            return getattr(cls, name)(data)
+    fields = {f.name: f for f in dataclasses.fields(cls)}
+    unknown = sorted(set(data) - set(fields))
+    if unknown:
+        raise SessionFileError(f"recorded {what} has settings this tankside does not know: "
+                         f"{', '.join(unknown)}")
+    kwargs = {}
+    for name, value in data.items():
+        default = fields[name].default
+        if isinstance(value, list) and isinstance(default, tuple):
+            value = tuple(value)  # JSON has no tuples
+        kwargs[name] = value
+    return cls(**kwargs)
+
+
+def conversion_inputs(metadata: dict, *, calibration=None, method: str | None = None):
+    """(calibration, loading, settings, temperature_c) that a session's metadata records.
+
+    Parameters
+    ----------
+    metadata : dict
+        ``SessionReader.metadata``.
+    calibration : Calibration, optional
+        Use this instead of the recorded calibration text.
+    method : str, optional
+        Override the recorded conversion method.
+    """
+    from tankside.monitor.calibration import parse_calibration
+    from tankside.monitor.loading import Loading
+
+    missing = [key for key in REQUIRED_FOR_REPLAY if metadata.get(key) is None
+               and not (key == META_CALIBRATION_TEXT and calibration is not None)]
+    if missing:
+        raise SessionFileError(f"the session lacks what replay needs: {', '.join(missing)}")
+    if calibration is None:
+        calibration = parse_calibration(metadata[META_CALIBRATION_TEXT],
+                                        source=metadata.get(META_CALIBRATION_SOURCE)
+                                        or "<stored calibration>")
+    loading = _rebuild(Loading, metadata[META_LOADING], "loading")
+    settings = _rebuild(_settings_class(), metadata[META_SETTINGS], "conversion settings")
+    if method is not None:
+        settings = settings.replace(method=method)
+    return calibration, loading, settings, float(metadata[META_TEMPERATURE_C])
+
+
+def build_converter(metadata: dict, *, calibration=None, method: str | None = None,
+                    temperature_c: float | None = None):
+    """The Converter a session's metadata describes (arguments as :func:`conversion_inputs`;
+    ``temperature_c`` overrides the recorded water temperature, degC)."""
+    from tankside.monitor.chain import Converter
+
+    cal, loading, settings, temp = conversion_inputs(metadata, calibration=calibration,
+                                                     method=method)
+    return Converter(cal, loading=loading, settings=settings,
+                     temperature_c=temp if temperature_c is None else float(temperature_c))
+
+
+def _method_schedule(events: list[dict]):
+    """(seq or None, time_s, method) of each recorded method change, in order."""
+    out = []
+    for ev in events:
+        if ev["kind"] != EVENT_METHOD_CHANGE:
+            continue
+        m = ev["detail"].get("method", ev["detail"].get("to"))
+        if m is not None:
+            out.append((ev["seq"], ev["time_s"], str(m)))
+    return out
+
+
+def _requested_method(schedule, seq: int, time_s: float, initial: str) -> str:
+    method = initial
+    for ev_seq, ev_time, m in schedule:
+        if (ev_seq is not None and seq >= ev_seq) or (ev_seq is None and time_s >= ev_time):
+            method = m
+    return method
+
+
+def _check_paths(src: Path, out: Path, force: bool) -> None:
+    if not src.is_file():
+        raise SessionFileError(f"{src}: no such session file")
+    if out.resolve() == src.resolve() or (out.exists() and os.path.samefile(out, src)):
+        raise ConfigError(f"--out {out}: replay writes a new session and never touches the "
+                          "original; choose another file")
+    if out.exists() and not force:
+        raise ConfigError(f"--out {out}: file exists (use --force to replace it)")
+
+
+def replay_session(src, out, *, calibration_path=None, method: str | None = None,
+                   force: bool = False, check: bool = False,
+                   progress: bool | None = None) -> ReplaySummary:
+    """Recompute every result of session ``src`` into the new session ``out``.
+
+    Parameters
+    ----------
+    src, out : str or Path
+        The recorded session, and the new file (refused if it is ``src``; replaced only
+        with ``force``).
+    calibration_path : str or Path, optional
+        Another calibration file instead of the recorded one.
+    method : str, optional
+        Another conversion method (``"auto"``, ``"deconvolve"``, ``"narrowband"``).
+    check : bool
+        Count results that differ from the recorded ones (``summary.differences``).
+    progress : bool or None
+        Progress bar on stderr: None = only on a terminal.
+    """
+    from tankside.monitor.calibration import load_calibration
+
+    src, out = Path(src), Path(out)
+    _check_paths(src, out, force)
+    t_start = time.perf_counter()
+    with SessionReader(src) as reader:
+        meta = reader.metadata
+        calibration = load_calibration(calibration_path) if calibration_path else None
+        from tankside.monitor.chain import Converter
+
+        cal, loading, settings, temp0 = conversion_inputs(meta, calibration=calibration,
+                                                          method=method)
+        new_meta = dict(meta)
+        if calibration is not None:
+            new_meta[META_CALIBRATION_TEXT] = calibration.text
+            new_meta[META_CALIBRATION_SHA256] = calibration.sha256
+            new_meta[META_CALIBRATION_SOURCE] = str(calibration.source)
+        new_meta[META_SETTINGS] = settings.as_dict()
+        new_meta[META_TOOL_VERSION] = __version__
+        new_meta[META_START_TIME_S] = time.time()
+        new_meta[META_REPLAY_OF] = {
+            "source_file": str(src.resolve()),
+            "source_session_uid": reader.start["session_uid"],
+            "source_calibration_sha256": meta.get(META_CALIBRATION_SHA256),
+            "source_stopped_cleanly": reader.stopped_cleanly,
+            "calibration_file": str(calibration_path) if calibration_path else None,
+            "method": method,
+        }
+        events = reader.events()
+        schedule = [] if method is not None else _method_schedule(events)
+        initial_method = settings.method
+        converters = {}
+
+        def converter_for(requested: str, temperature_c: float):
+            # one Converter (and its cached plans) per method and temperature in use
+            key = (requested, temperature_c)
+            if key not in converters:
+                s = settings if requested == initial_method else settings.replace(
+                    method=requested)
+                converters[key] = Converter(cal, loading=loading, settings=s,
+                                            temperature_c=temperature_c)
+            return converters[key]
+
+        if force:
+            for suffix in ("", "-wal", "-shm"):
+                Path(f"{out}{suffix}").unlink(missing_ok=True)
+        total = reader.trace_count()
+        converted = failed = differences = 0
+        store = SessionStore.create(out, new_meta)
+        try:
+            with Progress(total, "replay", enabled=progress) as bar:
+                for stored in reader.iter_traces():
+                    raw = stored.raw
+                    temp = temp0
+                    if stored.result is not None and not math.isnan(
+                            stored.result.get("water_temperature_c", math.nan)):
+                        temp = stored.result["water_temperature_c"]
+                    requested = _requested_method(schedule, raw.seq, raw.time_s, initial_method)
+                    try:
+                        result = converter_for(requested, temp).process(raw.volts(), raw.dt_s)
+                        flat, error = result.flat(), None
+                        converted += 1
+                    except TanksideError as err:  # recorded as the live pipeline does
+                        flat, error = None, f"{type(err).__name__}: {err}"
+                        failed += 1
+                    store.add_trace(raw, flat, stored.flags, error)
+                    store.maybe_commit()
+                    if check and _differs(stored.result, flat):
+                        differences += 1
+                    bar.update()
+            for ev in events:
+                store.add_event(ev["time_s"], ev["kind"], ev["detail"], seq=ev["seq"])
+            counts = {"traces": total, "converted": converted, "failed": failed}
+            store.commit()
+        except BaseException:
+            store.close("error", "replay did not finish", {"traces": store.traces_written})
+            raise
+        store.close("ok", "replay", counts)
+    return ReplaySummary(out, total, converted, failed, time.perf_counter() - t_start,
+                         differences if check else None)
+
+
+def _same(a, b) -> bool:
+    if isinstance(a, float) and isinstance(b, float):
+        return a == b or (math.isnan(a) and math.isnan(b))
+    return a == b
+
+
+def _differs(old: dict | None, new: dict | None) -> bool:
+    if old is None or new is None:
+        return (old is None) != (new is None)
+    return any(not _same(old.get(k), new.get(k)) for k in RESULT_NAMES)
+
+
+def result_differences(path_a, path_b) -> list[tuple[int, str, object, object]]:
+    """(seq, field, value in a, value in b) for every result that differs between two
+    sessions (NaN equals NaN; a trace missing from one side is reported as ``"trace"``)."""
+    diffs = []
+    with SessionReader(path_a) as a, SessionReader(path_b) as b:
+        rows_b = {r["seq"]: r for r in b.iter_results()}
+        for ra in a.iter_results():
+            rb = rows_b.pop(ra["seq"], None)
+            if rb is None:
+                diffs.append((ra["seq"], "trace", True, None))
+                continue
+            for key in ("converted", *RESULT_NAMES):
+                if not _same(ra[key], rb[key]):
+                    diffs.append((ra["seq"], key, ra[key], rb[key]))
+        diffs.extend((seq, "trace", None, True) for seq in sorted(rows_b))
+    return diffs

@@ -1,0 +1,181 @@
+"""Replay: recompute a stored session into a new file, exactly, or with other settings."""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import struct
+
+import numpy as np
+import pytest
+from session_samples import calibration_text, make_raw, zero_trace
+
+from tankside.monitor.calibration import load_calibration, parse_calibration
+from tankside.monitor.chain import RESULT_FIELDS, Converter
+from tankside.monitor.cli import EXIT_OK, EXIT_USAGE, main
+from tankside.monitor.errors import ConfigError, TanksideError
+from tankside.monitor.loading import Loading
+from tankside.monitor.replay import replay_session, result_differences
+from tankside.monitor.settings import ConversionSettings
+from tankside.monitor.store import SessionReader, SessionStore, session_metadata
+from tankside.monitor.store_schema import EVENT_METHOD_CHANGE, META_REPLAY_OF
+
+LOADING = Loading(hydrophone_capacitance_f=50e-12, cable_capacitance_f=100e-12,
+                  input_capacitance_f=15e-12, preamp_gain_db=6.0)
+SETTINGS = ConversionSettings(method="deconvolve", regularisation=0.02)
+TEMPERATURE_C = 21.5
+
+
+def _bits(x) -> bytes:
+    return struct.pack("<d", x)
+
+
+def _raws(n_traces: int):
+    raws = []
+    for seq in range(n_traces):
+        if seq == 3:
+            raws.append(zero_trace(seq))  # conversion fails: recorded as an error
+        else:
+            raws.append(make_raw(seq, amplitude=0.3 + 0.02 * seq,
+                                 dtype=">i2" if seq % 2 else "<i2"))
+    return raws
+
+
+def record_session(path, *, n_traces=10, switch_to_narrowband_at=None, tmp_cal=None):
+    """Convert and store traces as the live pipeline does (same Converter, same calls)."""
+    cal_path = tmp_cal
+    cal_path.write_text(calibration_text())
+    cal = load_calibration(cal_path)
+    conv = Converter(cal, loading=LOADING, settings=SETTINGS, temperature_c=TEMPERATURE_C)
+    meta = session_metadata(configuration={"calibration": {"file": str(cal_path)}},
+                            instruments={}, calibration=cal, loading=LOADING,
+                            settings=SETTINGS, temperature_c=TEMPERATURE_C)
+    store = SessionStore.create(path, meta)
+    for raw in _raws(n_traces):
+        if raw.seq == switch_to_narrowband_at:
+            conv = conv.with_method("narrowband")
+            store.add_event(raw.time_s, EVENT_METHOD_CHANGE,
+                            {"from": "deconvolve", "to": "narrowband"}, seq=raw.seq)
+        try:
+            flat, error = conv.process(raw.volts(), raw.dt_s).flat(), None
+        except TanksideError as err:
+            flat, error = None, f"{type(err).__name__}: {err}"
+        store.add_trace(raw, flat, {"clipped": raw.clipped > 0, "range_changed": False}, error)
+        store.maybe_commit()
+    store.close("ok", "finished", {"traces": n_traces})
+    return cal
+
+
+def _digest(path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+class TestExactReplay:
+    def test_own_settings_reproduce_every_result_bit_for_bit(self, tmp_path):
+        src, out = tmp_path / "live.db", tmp_path / "again.db"
+        record_session(src, tmp_cal=tmp_path / "cal.csv")
+        before = _digest(src)
+        summary = replay_session(src, out, check=True, progress=False)
+        assert _digest(src) == before  # the original is untouched
+        assert (summary.traces, summary.converted, summary.failed) == (10, 9, 1)
+        assert summary.differences == 0
+        assert result_differences(src, out) == []
+        with SessionReader(src) as a, SessionReader(out) as b:
+            for old, new in zip(a.iter_traces(), b.iter_traces(), strict=True):
+                assert new.raw.codes.tobytes() == old.raw.codes.tobytes()
+                assert new.raw.codes.dtype == old.raw.codes.dtype
+                if old.result is None:
+                    assert new.result is None and new.error == old.error
+                    continue
+                assert tuple(new.result) == RESULT_FIELDS
+                for key in RESULT_FIELDS:
+                    x, y = old.result[key], new.result[key]
+                    if isinstance(x, float):
+                        assert _bits(x) == _bits(y) or (math.isnan(x) and math.isnan(y)), key
+                    else:
+                        assert x == y, key
+            assert b.stop["counts"] == {"traces": 10, "converted": 9, "failed": 1}
+            replay_of = b.metadata[META_REPLAY_OF]
+            assert replay_of["source_session_uid"] == a.start["session_uid"]
+            assert b.metadata["calibration_sha256"] == a.metadata["calibration_sha256"]
+
+    def test_recorded_method_change_is_followed(self, tmp_path):
+        src, out = tmp_path / "live.db", tmp_path / "again.db"
+        record_session(src, switch_to_narrowband_at=6, tmp_cal=tmp_path / "cal.csv")
+        replay_session(src, out, progress=False)
+        assert result_differences(src, out) == []
+        with SessionReader(out) as b:
+            methods = [r["method"] for r in b.iter_results() if r["converted"]]
+            assert methods[-1] == "narrowband" and methods[0] == "deconvolve"
+            assert [e["kind"] for e in b.events()] == [EVENT_METHOD_CHANGE]
+
+
+class TestOtherSettings:
+    def test_other_method(self, tmp_path):
+        src, out = tmp_path / "live.db", tmp_path / "nb.db"
+        cal = record_session(src, tmp_cal=tmp_path / "cal.csv")
+        replay_session(src, out, method="narrowband", progress=False)
+        direct = Converter(cal, loading=LOADING, settings=SETTINGS.replace(method="narrowband"),
+                           temperature_c=TEMPERATURE_C)
+        with SessionReader(out) as b:
+            assert b.metadata["settings"]["method"] == "narrowband"
+            assert b.metadata[META_REPLAY_OF]["method"] == "narrowband"
+            for s in b.iter_traces():
+                if s.result is None:
+                    continue
+                want = direct.process(s.raw.volts(), s.raw.dt_s).flat()
+                assert s.result["method"] == "narrowband"
+                assert s.result["peak_rarefactional_pa"] == want["peak_rarefactional_pa"]
+
+    def test_other_calibration_scales_pressure(self, tmp_path):
+        """Twice the sensitivity gives half the pressure: p = V / M is linear in 1/M
+        (common practice; holds for the regularised inverse too, whose reference scales
+        with |M_L|)."""
+        src, out = tmp_path / "live.db", tmp_path / "cal2.db"
+        record_session(src, tmp_cal=tmp_path / "cal.csv")
+        cal2 = tmp_path / "cal2.csv"
+        cal2.write_text(calibration_text(scale=2.0))
+        replay_session(src, out, calibration_path=cal2, progress=False)
+        with SessionReader(src) as a, SessionReader(out) as b:
+            assert b.calibration_text == calibration_text(scale=2.0)
+            assert b.metadata["calibration_sha256"] == load_calibration(cal2).sha256
+            for old, new in zip(a.iter_results(), b.iter_results(), strict=True):
+                if not old["converted"]:
+                    continue
+                assert new["peak_compressional_pa"] == pytest.approx(
+                    0.5 * old["peak_compressional_pa"], rel=1e-9)
+                assert new["acoustic_working_frequency_hz"] == pytest.approx(
+                    old["acoustic_working_frequency_hz"], rel=1e-9)
+
+    def test_stored_calibration_parses_like_the_file(self, tmp_path):
+        cal = record_session(tmp_path / "live.db", n_traces=1, tmp_cal=tmp_path / "cal.csv")
+        with SessionReader(tmp_path / "live.db") as a:
+            again = parse_calibration(a.calibration_text, source="x")
+        np.testing.assert_array_equal(again.sensitivity_v_per_pa, cal.sensitivity_v_per_pa)
+
+
+class TestRefusals:
+    def test_out_is_input(self, tmp_path):
+        src = tmp_path / "live.db"
+        record_session(src, n_traces=1, tmp_cal=tmp_path / "cal.csv")
+        before = _digest(src)
+        with pytest.raises(ConfigError, match="never touches the original"):
+            replay_session(src, tmp_path / "." / "live.db")
+        assert _digest(src) == before
+
+    def test_out_exists_needs_force(self, tmp_path, capsys):
+        src, out = tmp_path / "live.db", tmp_path / "again.db"
+        record_session(src, n_traces=2, tmp_cal=tmp_path / "cal.csv")
+        out.write_text("old")
+        assert main(["replay", str(src), "--out", str(out)]) == EXIT_USAGE
+        err = capsys.readouterr().err.strip()
+        assert "--force" in err and len(err.splitlines()) == 1
+        assert main(["replay", str(src), "--out", str(out), "--force", "--check",
+                     "--no-progress"]) == EXIT_OK
+        assert "0 differ" in capsys.readouterr().out
+        assert SessionReader(out).trace_count() == 2
+
+    def test_missing_input(self, tmp_path, capsys):
+        assert main(["replay", str(tmp_path / "no.db"), "--out", str(tmp_path / "o.db")]) \
+            == EXIT_USAGE
+        assert "no such session file" in capsys.readouterr().err
