@@ -1,0 +1,338 @@
+"""Hydrophone calibration: loading a certificate's sensitivity table from CSV.
+
+File layout
+-----------
+A header row, then one row per calibrated frequency; lines whose first non-blank
+character is ``#`` are comments and blank lines are ignored. Columns, in any order:
+
+``frequency_hz``
+    Calibration frequency, Hz; finite, non-negative, strictly increasing.
+``sensitivity_v_per_pa`` *or* ``sensitivity_db_re_1v_per_upa``
+    Sensitivity magnitude, V/Pa, or in dB re 1 V/uPa (``-260 dB`` is ``100 nV/Pa``).
+``phase_deg`` *or* ``phase_rad`` (optional)
+    Phase of the complex sensitivity. Wrapped phase is unwrapped.
+
+Phase convention
+----------------
+The complex sensitivity is ``M(f) = V(f) / P(f)`` for time dependence ``exp(+j 2 pi f t)``,
+the same convention as :func:`numpy.fft.rfft`. A hydrophone that only delays the
+pressure by ``tau`` has phase ``-360 f tau`` degrees.
+
+Without a phase column, the phase is the minimum-phase estimate from the magnitude
+(:func:`minimum_phase_rad`) and ``phase_source`` is ``"minimum-phase"``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from scipy.signal import fftconvolve
+
+from tankside.monitor.errors import CalibrationError
+
+#: Fewest calibration points accepted (interpolation and the phase estimate need a band).
+MIN_POINTS = 3
+
+FREQUENCY = "frequency_hz"
+MAGNITUDE_COLUMNS = ("sensitivity_v_per_pa", "sensitivity_db_re_1v_per_upa")
+PHASE_COLUMNS = ("phase_deg", "phase_rad")
+KNOWN_COLUMNS = (FREQUENCY, *MAGNITUDE_COLUMNS, *PHASE_COLUMNS)
+
+# Beyond the calibrated band the log-magnitude follows the edge slope, at most this
+# steep (ln|M| per ln f: 2 is 40 dB per decade).
+_EXTRAPOLATION_MAX_SLOPE = 2.0
+# Quadrature step and margin beyond the band of the gain-phase integral, nepers.
+_BODE_STEP = 0.002
+_BODE_MARGIN = 12.0
+# The edge slope is fitted over the calibration points within this ratio of the edge.
+_EDGE_FIT_RATIO = 2.0 ** 0.25
+
+
+@dataclass(frozen=True, eq=False)
+class Calibration:
+    """A hydrophone sensitivity as certified.
+
+    Attributes
+    ----------
+    frequency_hz : numpy.ndarray
+        Calibration frequencies, Hz, strictly increasing.
+    sensitivity_v_per_pa : numpy.ndarray
+        Complex sensitivity, V/Pa, with the phase applied (convention in the module notes).
+    phase_source : str
+        ``"measured"`` (phase from the file) or ``"minimum-phase"`` (estimated).
+    source : str
+        File name, or a label for in-memory text.
+    text : str
+        The file verbatim.
+    sha256 : str
+        Hex SHA-256 of the file's bytes (of the UTF-8 text for in-memory text).
+    """
+
+    frequency_hz: np.ndarray
+    sensitivity_v_per_pa: np.ndarray
+    phase_source: str
+    source: str
+    text: str = field(repr=False)
+    sha256: str = ""
+
+    @property
+    def band_hz(self) -> tuple[float, float]:
+        """Lowest and highest calibrated frequency, Hz."""
+        return float(self.frequency_hz[0]), float(self.frequency_hz[-1])
+
+    @property
+    def magnitude_v_per_pa(self) -> np.ndarray:
+        return np.abs(self.sensitivity_v_per_pa)
+
+    @property
+    def phase_rad(self) -> np.ndarray:
+        """Unwrapped phase, rad."""
+        return np.unwrap(np.angle(self.sensitivity_v_per_pa))
+
+    def interpolate(self, freqs_hz: np.ndarray) -> np.ndarray:
+        """Complex sensitivity at ``freqs_hz`` (V/Pa); NaN outside the calibrated band.
+
+        Log-magnitude and unwrapped phase are interpolated linearly in frequency.
+        """
+        freqs_hz = np.asarray(freqs_hz, dtype=float)
+        log_mag = np.interp(freqs_hz, self.frequency_hz, np.log(self.magnitude_v_per_pa))
+        phase = np.interp(freqs_hz, self.frequency_hz, self.phase_rad)
+        out = np.exp(log_mag + 1j * phase)
+        lo, hi = self.band_hz
+        out[(freqs_hz < lo) | (freqs_hz > hi)] = np.nan
+        return out
+
+
+def load_calibration(path: str | Path) -> Calibration:
+    """Read a calibration CSV file (layout in the module notes).
+
+    Raises
+    ------
+    CalibrationError
+        The file cannot be read, or any problem listed in :func:`parse_calibration`.
+    """
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except OSError as err:
+        raise CalibrationError(str(path), None, f"cannot read the file ({err.strerror})") from err
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as err:
+        raise CalibrationError(str(path), None, "not UTF-8 text") from err
+    cal = parse_calibration(text, source=str(path))
+    return Calibration(cal.frequency_hz, cal.sensitivity_v_per_pa, cal.phase_source,
+                       cal.source, cal.text, hashlib.sha256(raw).hexdigest())
+
+
+def parse_calibration(text: str, source: str = "<text>") -> Calibration:
+    """Parse calibration CSV text (layout in the module notes).
+
+    Raises
+    ------
+    CalibrationError
+        Empty file; missing, unknown, repeated or conflicting columns; a row with the
+        wrong number of fields or an unparsable number; frequencies negative, non-finite
+        or not strictly increasing; magnitude non-positive or non-finite; non-finite
+        phase; fewer than ``MIN_POINTS`` rows.
+    """
+    header, rows = _split(text, source)
+    columns = _check_header(header, source)
+    values = {name: [] for name in columns}
+    lines = []
+    for lineno, line in rows:
+        fields = [f.strip() for f in line.split(",")]
+        if len(fields) != len(columns):
+            raise CalibrationError(source, lineno,
+                                   f"expected {len(columns)} fields, found {len(fields)}")
+        for name, f in zip(columns, fields, strict=True):
+            try:
+                values[name].append(float(f))
+            except ValueError as err:
+                raise CalibrationError(source, lineno,
+                                       f"{name}: {f!r} is not a number") from err
+        lines.append(lineno)
+    if len(lines) < MIN_POINTS:
+        raise CalibrationError(source, None, f"too few points: {len(lines)} calibration rows, "
+                               f"at least {MIN_POINTS} needed")
+    freq = np.array(values[FREQUENCY])
+    magnitude = _magnitude(values, columns, lines, source)
+    _check_frequencies(freq, lines, source)
+    if "phase_deg" in columns or "phase_rad" in columns:
+        name = "phase_deg" if "phase_deg" in columns else "phase_rad"
+        phase = np.array(values[name])
+        bad = np.flatnonzero(~np.isfinite(phase))
+        if bad.size:
+            raise CalibrationError(source, lines[bad[0]], f"{name} is not finite")
+        if name == "phase_deg":
+            phase = np.deg2rad(phase)
+        phase = np.unwrap(phase)
+        phase_source = "measured"
+    else:
+        phase = minimum_phase_rad(freq, magnitude)
+        phase_source = "minimum-phase"
+    sens = magnitude * np.exp(1j * phase)
+    freq.setflags(write=False)
+    sens.setflags(write=False)
+    return Calibration(freq, sens, phase_source, source, text,
+                       hashlib.sha256(text.encode("utf-8")).hexdigest())
+
+
+def _split(text: str, source: str) -> tuple[tuple[int, str], list[tuple[int, str]]]:
+    header = None
+    rows = []
+    for lineno, line in enumerate(text.splitlines(), start=1):
+        stripped = line.strip()
+        if not stripped or stripped.startswith("#"):
+            continue
+        if header is None:
+            header = (lineno, stripped)
+        else:
+            rows.append((lineno, stripped))
+    if header is None:
+        raise CalibrationError(source, None, "empty file: no header row and no data")
+    return header, rows
+
+
+def _check_header(header: tuple[int, str], source: str) -> list[str]:
+    lineno, line = header
+    columns = [c.strip() for c in line.split(",")]
+    for name in columns:
+        if name not in KNOWN_COLUMNS:
+            raise CalibrationError(source, lineno, f"unknown column {name!r}; expected "
+                                   f"{FREQUENCY}, one of {' or '.join(MAGNITUDE_COLUMNS)}, "
+                                   f"optionally one of {' or '.join(PHASE_COLUMNS)}")
+        if columns.count(name) > 1:
+            raise CalibrationError(source, lineno, f"column {name!r} appears more than once")
+    if FREQUENCY not in columns:
+        raise CalibrationError(source, lineno, f"missing column {FREQUENCY!r}")
+    mags = [c for c in columns if c in MAGNITUDE_COLUMNS]
+    if len(mags) != 1:
+        raise CalibrationError(source, lineno, "need exactly one magnitude column, "
+                               f"{' or '.join(MAGNITUDE_COLUMNS)}; found {len(mags)}")
+    if sum(c in PHASE_COLUMNS for c in columns) > 1:
+        raise CalibrationError(source, lineno, "give phase_deg or phase_rad, not both")
+    return columns
+
+
+def _magnitude(values: dict, columns: list[str], lines: list[int], source: str) -> np.ndarray:
+    if "sensitivity_v_per_pa" in columns:
+        name = "sensitivity_v_per_pa"
+        raw = np.array(values[name])
+        magnitude = raw
+    else:
+        name = "sensitivity_db_re_1v_per_upa"
+        raw = np.array(values[name])
+        with np.errstate(over="ignore", invalid="ignore"):
+            magnitude = db_re_1v_per_upa_to_v_per_pa(raw)
+    bad = np.flatnonzero(~np.isfinite(raw) | ~np.isfinite(magnitude) | ~(magnitude > 0))
+    if bad.size:
+        i = bad[0]
+        raise CalibrationError(source, lines[i], f"{name} = {raw[i]!r}: the magnitude must be "
+                               "finite and positive")
+    return magnitude
+
+
+def _check_frequencies(freq: np.ndarray, lines: list[int], source: str) -> None:
+    bad = np.flatnonzero(~np.isfinite(freq) | (freq < 0))
+    if bad.size:
+        raise CalibrationError(source, lines[bad[0]],
+                               f"frequency_hz = {freq[bad[0]]!r}: must be finite and >= 0")
+    bad = np.flatnonzero(np.diff(freq) <= 0)
+    if bad.size:
+        i = bad[0] + 1
+        raise CalibrationError(source, lines[i], f"frequencies not strictly increasing: "
+                               f"{freq[i]!r} Hz follows {freq[i - 1]!r} Hz")
+
+
+def db_re_1v_per_upa_to_v_per_pa(level_db):
+    """Sensitivity level in dB re 1 V/uPa to magnitude in V/Pa (``-260 dB`` -> ``1e-7``)."""
+    return 10.0 ** (np.asarray(level_db, dtype=float) / 20.0) * 1e6
+
+
+def v_per_pa_to_db_re_1v_per_upa(magnitude_v_per_pa):
+    """Sensitivity magnitude in V/Pa to dB re 1 V/uPa."""
+    return 20.0 * np.log10(np.asarray(magnitude_v_per_pa, dtype=float) * 1e-6)
+
+
+def minimum_phase_rad(frequency_hz: np.ndarray, magnitude: np.ndarray) -> np.ndarray:
+    """Minimum-phase estimate of the phase of a sensitivity known by its magnitude only.
+
+    Bode's gain-phase relation (the Hilbert transform of the log-magnitude written on a
+    logarithmic frequency axis) is evaluated by quadrature on a dense grid in
+    ``u = ln f``. Inside the band the log-magnitude is interpolated linearly in frequency
+    (as everywhere else in tankside). Beyond each band edge it continues with the
+    log-log slope fitted over the outermost quarter-octave of calibration points, limited to
+    the physically expected roll-off: between 0 and +40 dB per decade below the band,
+    between 0 and -40 dB per decade above it (a flat edge is held flat). The slope runs
+    on far enough (12 nepers) that the kernel's remaining weight is negligible.
+
+    Parameters
+    ----------
+    frequency_hz : numpy.ndarray
+        Strictly increasing frequencies, Hz (at least two positive).
+    magnitude : numpy.ndarray
+        Positive magnitudes (any unit).
+
+    Returns
+    -------
+    numpy.ndarray
+        Phase, rad, at ``frequency_hz`` (convention in the module notes; 0 at 0 Hz).
+
+    References
+    ----------
+    H. W. Bode, *Network Analysis and Feedback Amplifier Design*, Van Nostrand, 1945,
+    ch. 14 (gain-phase relation ``phi(w0) = (1/pi) int dA/du ln coth(|u|/2) du``).
+    """
+    f = np.asarray(frequency_hz, dtype=float)
+    log_mag = np.log(np.asarray(magnitude, dtype=float))
+    out = np.zeros(f.size)
+    pos = f > 0
+    fp, ap = f[pos], log_mag[pos]
+    if fp.size < 2:
+        return out
+    u_lo, u_hi = math.log(fp[0]), math.log(fp[-1])
+    s_lo = float(np.clip(_edge_slope(fp, ap, low=True), 0.0, _EXTRAPOLATION_MAX_SLOPE))
+    s_hi = float(np.clip(_edge_slope(fp, ap, low=False), -_EXTRAPOLATION_MAX_SLOPE, 0.0))
+    du = min(_BODE_STEP, (u_hi - u_lo) / 64.0)
+    n_nodes = int(math.ceil((u_hi - u_lo + 2 * _BODE_MARGIN) / du)) + 1
+    u = u_lo - _BODE_MARGIN + du * np.arange(n_nodes)
+    a = np.interp(np.exp(u), fp, ap)
+    a = np.where(u < u_lo, ap[0] + s_lo * (u - u_lo), a)
+    a = np.where(u > u_hi, ap[-1] + s_hi * (u - u_hi), a)
+    slope = np.diff(a) / du                      # on cell midpoints
+    offsets = (np.arange(-(n_nodes - 1), n_nodes - 1) + 0.5) * du
+    kernel = np.log(1.0 / np.tanh(np.abs(offsets) / 2.0))
+    # phase at node j = sum_k slope[k] * kernel(mid_k - u_j) * du / pi
+    full = fftconvolve(slope, kernel[::-1], mode="full")
+    phase_nodes = full[n_nodes - 2:2 * n_nodes - 2] * du / math.pi
+    out[pos] = np.interp(np.log(fp), u, phase_nodes)
+    return out
+def _edge_slope(f: np.ndarray, log_mag: np.ndarray, *, low: bool) -> float:
+    """Log-log slope over the outermost quarter-octave of points at one band edge (clamped)."""
+    pos = f > 0
+    f, log_mag = f[pos], log_mag[pos]
+    if f.size < 2:
+        return 0.0
+    if low:
+        sel = f <= _EDGE_FIT_RATIO * f[0]
+        if sel.sum() < 2:
+            sel = np.zeros(f.size, bool)
+            sel[:2] = True
+    else:
+        sel = f >= f[-1] / _EDGE_FIT_RATIO
+        if sel.sum() < 2:
+            sel = np.zeros(f.size, bool)
+            sel[-2:] = True
+    x = np.log(f[sel])
+    y = log_mag[sel]
+    dx = x - x.mean()
+    denom = float(np.dot(dx, dx))
+    if denom == 0.0:
+        return 0.0
+    slope = float(np.dot(dx, y - y.mean()) / denom)
+    return float(np.clip(slope, -_EXTRAPOLATION_MAX_SLOPE, _EXTRAPOLATION_MAX_SLOPE))

@@ -1,0 +1,283 @@
+"""The signal chain for one trace: voltage in, pressure and its pulse parameters out.
+
+:class:`Converter` binds a calibration, the electrical loading, the conversion settings
+and the water temperature, and keeps one deconvolution plan per FFT grid (record length,
+time step), so the live loop does one ``rfft``, one multiply and one ``irfft`` per trace.
+
+Acoustic working frequency and the out-of-band test: the trace's f_awf is first
+estimated from its voltage spectrum (its shape differs from the pressure spectrum only by
+``|M_L|``). That estimate outside the calibrated band is an :class:`OutOfBandError` for
+every method, since then the pulse is mostly where the sensitivity is unknown. The
+narrowband check for ``auto`` uses that estimate (for the narrowband approximation the
+two spectra have the same shape, so it is exact). After deconvolution, f_awf is taken
+again from the pressure spectrum and the reported narrowband check is for that value.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.fft
+
+from tankside.monitor.calibration import Calibration
+from tankside.monitor.deconvolve import Plan, deconvolution_band_hz, make_plan
+from tankside.monitor.errors import OutOfBandError
+from tankside.monitor.loading import Loading
+from tankside.monitor.narrowband import NarrowbandCheck, SensitivityProfile, narrowband_check
+from tankside.monitor.pulse import (
+    PulseParameters,
+    UnusableTraceError,
+    awf_spectrum_hz,
+    awf_zero_crossing_hz,
+    pulse_bounds_s,
+    pulse_parameters,
+)
+from tankside.monitor.settings import ConversionSettings
+from tankside.monitor.water import Water
+
+__all__ = ["Converter", "TraceResult", "RESULT_FIELDS", "OutOfBandError", "UnusableTraceError"]
+
+#: Keys of :meth:`TraceResult.flat`, in order (storage and CSV export columns).
+RESULT_FIELDS = (
+    "method",
+    "peak_compressional_pa",
+    "peak_rarefactional_pa",
+    "acoustic_working_frequency_hz",
+    "pulse_intensity_integral_j_per_m2",
+    "pulse_duration_s",
+    "pulse_average_intensity_w_per_m2",
+    "mechanical_index",
+    "water_temperature_c",
+    "water_density_kg_per_m3",
+    "water_sound_speed_m_per_s",
+    "narrowband_ok",
+    "narrowband_band_low_hz",
+    "narrowband_band_high_hz",
+    "narrowband_max_deviation_db",
+    "phase_source",
+)
+
+_PARAMETER_KEYS = RESULT_FIELDS[1:8]
+
+#: Shortest trace accepted, samples.
+MIN_SAMPLES = 8
+# Plans kept per converter (distinct record lengths / time steps seen recently).
+_MAX_PLANS = 16
+
+
+@dataclass(frozen=True, eq=False)
+class TraceResult:
+    """Pressure and parameters of one trace.
+
+    Attributes
+    ----------
+    pressure_pa : numpy.ndarray
+        Pressure waveform, Pa, same length and time step as the voltage.
+    dt_s : float
+        Time step, s.
+    method : str
+        Method actually used: ``"deconvolve"`` or ``"narrowband"``.
+    freqs_hz : numpy.ndarray
+        ``rfftfreq(n, dt_s)``, Hz.
+    spectrum_pa : numpy.ndarray
+        Single-sided amplitude spectrum of the pressure, ``2 |rfft(p)| / n``, Pa.
+    sensitivity_v_per_pa : numpy.ndarray
+        ``|M_L|`` on ``freqs_hz``, V/Pa, NaN outside the calibrated band.
+    parameters : PulseParameters
+    narrowband : NarrowbandCheck
+    water : Water
+    phase_source : str
+        ``"measured"`` or ``"minimum-phase"`` (of the calibration).
+    settings : dict
+        :meth:`ConversionSettings.as_dict` of the settings used.
+    voltage_awf_hz : float
+        f_awf estimated from the voltage spectrum, Hz.
+    """
+
+    pressure_pa: np.ndarray
+    dt_s: float
+    method: str
+    freqs_hz: np.ndarray
+    spectrum_pa: np.ndarray
+    sensitivity_v_per_pa: np.ndarray
+    parameters: PulseParameters
+    narrowband: NarrowbandCheck
+    water: Water
+    phase_source: str
+    settings: dict
+    voltage_awf_hz: float
+
+    def __getattr__(self, name):
+        # p_c, p_r, f_awf ... straight from the result, as in its JSON form
+        if name in _PARAMETER_KEYS:
+            return getattr(self.parameters, name)
+        raise AttributeError(name)
+
+    def times_s(self) -> np.ndarray:
+        """Sample times from the first sample, s."""
+        return self.dt_s * np.arange(self.pressure_pa.shape[0])
+
+    def to_json_dict(self) -> dict:
+        """The ``tankside convert --json`` object (SI units; non-finite numbers as null)."""
+        out = {"method": self.method}
+        for key in _PARAMETER_KEYS:
+            out[key] = _finite_or_none(getattr(self.parameters, key))
+        out["water"] = self.water.as_dict()
+        out["narrowband"] = self.narrowband.as_dict()
+        out["phase_source"] = self.phase_source
+        out["settings"] = dict(self.settings)
+        return out
+
+    def flat(self) -> dict[str, float | str | bool]:
+        """Flat ``{name: value}`` with the keys of :data:`RESULT_FIELDS`, in that order."""
+        p, nb, w = self.parameters, self.narrowband, self.water
+        return {
+            "method": self.method,
+            "peak_compressional_pa": p.peak_compressional_pa,
+            "peak_rarefactional_pa": p.peak_rarefactional_pa,
+            "acoustic_working_frequency_hz": p.acoustic_working_frequency_hz,
+            "pulse_intensity_integral_j_per_m2": p.pulse_intensity_integral_j_per_m2,
+            "pulse_duration_s": p.pulse_duration_s,
+            "pulse_average_intensity_w_per_m2": p.pulse_average_intensity_w_per_m2,
+            "mechanical_index": p.mechanical_index,
+            "water_temperature_c": w.temperature_c,
+            "water_density_kg_per_m3": w.density_kg_per_m3,
+            "water_sound_speed_m_per_s": w.sound_speed_m_per_s,
+            "narrowband_ok": nb.ok,
+            "narrowband_band_low_hz": nb.band_hz[0],
+            "narrowband_band_high_hz": nb.band_hz[1],
+            "narrowband_max_deviation_db": nb.max_deviation_db,
+            "phase_source": self.phase_source,
+        }
+
+
+def _finite_or_none(x: float):
+    return x if math.isfinite(x) else None
+
+
+class Converter:
+    """Voltage traces to pressure and pulse parameters, with one cached plan per grid.
+
+    Parameters
+    ----------
+    calibration : Calibration
+    loading : Loading
+        Electrical loading and preamplifier gain (default: none).
+    settings : ConversionSettings
+    temperature_c : float
+        Water temperature, degC.
+
+    Not safe for concurrent use from several threads (the plan cache is unlocked);
+    each thread should have its own.
+    """
+
+    def __init__(self, calibration: Calibration, loading: Loading | None = None,
+                 settings: ConversionSettings | None = None, temperature_c: float = 20.0):
+        self.calibration = calibration
+        self.loading = Loading() if loading is None else loading
+        self.settings = ConversionSettings() if settings is None else settings
+        self.temperature_c = float(temperature_c)
+        self.water = Water.at(temperature_c)
+        self.profile = SensitivityProfile.build(calibration, self.loading)
+        self.band_hz = deconvolution_band_hz(calibration, self.settings)
+        lo, hi = self.band_hz
+        f = self.profile.freqs_hz
+        inside = (f >= lo) & (f <= hi)
+        # the same regularisation reference for every grid: max |M_L| over the band
+        self._reference = float(10.0 ** (self.profile.level_db[inside].max() / 20.0))
+        self._impedance = self.water.impedance_rayl
+        self._settings_dict = self.settings.as_dict()
+        self._plans: dict[tuple[int, float], tuple[Plan, np.ndarray]] = {}
+
+    def with_settings(self, settings: ConversionSettings | None = None,
+                      **changes) -> Converter:
+        """A new converter with other settings (``settings`` and/or changed fields)."""
+        base = self.settings if settings is None else settings
+        return Converter(self.calibration, self.loading, base.replace(**changes) if changes
+                         else base, self.temperature_c)
+
+    def with_method(self, method: str) -> Converter:
+        return self.with_settings(method=method)
+
+    def plan(self, n: int, dt_s: float) -> Plan:
+        """The deconvolution plan for ``n`` samples at ``dt_s`` (cached)."""
+        return self._entry(n, dt_s)[0]
+
+    def _entry(self, n: int, dt_s: float):
+        key = (n, dt_s)
+        entry = self._plans.get(key)
+        if entry is None:
+            if not (math.isfinite(dt_s) and dt_s > 0):
+                raise UnusableTraceError(f"time step {dt_s!r} s is not positive")
+            plan = make_plan(self.calibration, self.loading, self.settings, n, dt_s,
+                             reference_v_per_pa=self._reference)
+            gain = plan.inverse_abs_pa_per_v * (2.0 / n)
+            gain.setflags(write=False)
+            if len(self._plans) >= _MAX_PLANS:
+                self._plans.pop(next(iter(self._plans)))
+            entry = self._plans[key] = (plan, gain)
+        return entry
+
+    def process(self, voltage_v: np.ndarray, dt_s: float) -> TraceResult:
+        """Convert one voltage trace (V, uniform step ``dt_s`` s) to a :class:`TraceResult`.
+
+        Raises
+        ------
+        OutOfBandError
+            The acoustic working frequency lies outside the calibrated band.
+        UnusableTraceError
+            Too short, all zero, not finite, bad time step, or no zero crossings (with
+            the zero-crossing f_awf method).
+        """
+        v = np.asarray(voltage_v, dtype=np.float64)
+        if v.ndim != 1 or v.shape[0] < MIN_SAMPLES:
+            raise UnusableTraceError(f"a trace needs at least {MIN_SAMPLES} samples in one "
+                                     f"dimension, got shape {v.shape}")
+        n = v.shape[0]
+        dt_s = float(dt_s)
+        plan, gain = self._entry(n, dt_s)
+        s = self.settings
+        spec = scipy.fft.rfft(v, workers=1)
+        vabs = np.abs(spec)
+        f_v = self._awf(v, vabs, plan.freqs_hz, dt_s)
+        self._in_band(f_v, "voltage spectrum")
+        used = "deconvolve"
+        if s.method != "deconvolve":
+            nb = narrowband_check(f_v, self.profile, s)
+            if s.method == "narrowband" or nb.ok:
+                used = "narrowband"
+        if used == "narrowband":
+            m = self.profile.magnitude_at_v_per_pa(f_v)
+            pressure = v / m
+            mag = vabs * (2.0 / (n * m))
+            f_awf = f_v
+        else:
+            pressure = scipy.fft.irfft(spec * plan.inverse_pa_per_v, n, workers=1)
+            mag = vabs * gain
+            f_awf = self._awf(pressure, mag, plan.freqs_hz, dt_s)
+            self._in_band(f_awf, "pressure spectrum")
+            nb = narrowband_check(f_awf, self.profile, s)
+        params = pulse_parameters(pressure, dt_s, f_awf, impedance_rayl=self._impedance,
+                                  derating_depth_m=s.derating_depth_m,
+                                  derating_db_per_cm_mhz=s.derating_db_per_cm_mhz)
+        return TraceResult(pressure, dt_s, used, plan.freqs_hz, mag,
+                           plan.sensitivity_abs_v_per_pa, params, nb, self.water,
+                           self.calibration.phase_source, self._settings_dict, f_v)
+
+    def _awf(self, signal: np.ndarray, magnitude: np.ndarray, freqs_hz: np.ndarray,
+             dt_s: float) -> float:
+        if self.settings.awf_method == "spectrum":
+            return awf_spectrum_hz(freqs_hz, magnitude)
+        t10, t90, _ = pulse_bounds_s(signal, dt_s)
+        half = 0.625 * (t90 - t10)
+        centre = 0.5 * (t10 + t90)
+        return awf_zero_crossing_hz(signal, dt_s, centre - half, centre + half)
+
+    def _in_band(self, f_hz: float, where: str) -> None:
+        lo, hi = self.calibration.band_hz
+        if not lo <= f_hz <= hi:
+            raise OutOfBandError(f"acoustic working frequency {f_hz / 1e6:.4g} MHz (from the "
+                                 f"{where}) is outside the calibrated band "
+                                 f"{lo / 1e6:.4g}-{hi / 1e6:.4g} MHz")

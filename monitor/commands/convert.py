@@ -1,0 +1,110 @@
+"""``tankside convert``: one voltage trace file to pressure and its pulse parameters."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+
+from tankside.monitor.calibration import load_calibration
+from tankside.monitor.chain import Converter, TraceResult
+from tankside.monitor.loading import Loading
+from tankside.monitor.settings import AWF_METHODS, METHODS, ConversionSettings
+from tankside.monitor.tracefile import read_trace, write_pressure
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser(
+        "convert",
+        help="convert a hydrophone voltage trace (CSV) to pressure and pulse parameters",
+        description=(
+            "Convert one hydrophone voltage trace to acoustic pressure with the hydrophone's "
+            "calibration, and print the pulse parameters (IEC 62127-1, MI of IEC 62359). "
+            "TRACE is CSV with the header 'time_s,voltage_v' and a uniform time step."),
+    )
+    p.add_argument("trace", metavar="TRACE", help="voltage trace, CSV 'time_s,voltage_v'")
+    p.add_argument("--calibration", "-c", metavar="CAL", required=True,
+                   help="hydrophone calibration CSV (frequency_hz, sensitivity_v_per_pa or "
+                        "sensitivity_db_re_1v_per_upa, optional phase_deg or phase_rad)")
+    p.add_argument("--method", choices=METHODS, default="auto",
+                   help="deconvolve, narrowband, or auto: narrowband only when the narrowband "
+                        "check passes (default: auto)")
+    p.add_argument("--temperature", metavar="DEGC", type=float, default=20.0,
+                   help="water temperature, degC (default 20)")
+    p.add_argument("--json", action="store_true",
+                   help="print one JSON object (SI units) instead of a table")
+    p.add_argument("--out", metavar="PRESSURE.csv",
+                   help="also write the pressure waveform as CSV 'time_s,pressure_pa'")
+    g = p.add_argument_group("electrical loading (for an open-circuit calibration)")
+    g.add_argument("--hydrophone-capacitance", metavar="FARAD", type=float,
+                   help="hydrophone capacitance, F (e.g. 100e-12); without it no loading "
+                        "correction is applied")
+    g.add_argument("--cable-capacitance", metavar="FARAD", type=float, default=0.0,
+                   help="cable capacitance across the hydrophone, F (default 0)")
+    g.add_argument("--input-resistance", metavar="OHM", type=float, default=math.inf,
+                   help="digitiser (or preamplifier) input resistance, ohm (default: infinite)")
+    g.add_argument("--input-capacitance", metavar="FARAD", type=float, default=0.0,
+                   help="digitiser (or preamplifier) input capacitance, F (default 0)")
+    g.add_argument("--preamp-gain-db", metavar="DB", type=float, default=0.0,
+                   help="preamplifier voltage gain, dB (default 0)")
+    d = ConversionSettings()
+    r = p.add_argument_group("deconvolution and parameters")
+    r.add_argument("--band-low", metavar="HZ", type=float,
+                   help="lower edge of the deconvolution band, Hz (default: calibration's lowest)")
+    r.add_argument("--band-high", metavar="HZ", type=float,
+                   help="upper edge of the deconvolution band, Hz (default: calibration's highest)")
+    r.add_argument("--taper-octaves", metavar="OCT", type=float, default=d.taper_octaves,
+                   help=f"raised-cosine taper inside each band edge, octaves (default {d.taper_octaves:g})")
+    r.add_argument("--regularisation", metavar="EPS", type=float, default=d.regularisation,
+                   help="Tikhonov weight relative to the largest sensitivity in the band "
+                        f"(default {d.regularisation:g}; 0: plain division)")
+    r.add_argument("--awf-method", choices=AWF_METHODS, default=d.awf_method,
+                   help="acoustic working frequency from the -3 dB points of the spectrum, or "
+                        "by zero crossings (default spectrum)")
+    r.add_argument("--depth", metavar="M", type=float, default=0.0,
+                   help="depth for derating p_r in the mechanical index, m (default 0: none)")
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    calibration = load_calibration(args.calibration)
+    loading = Loading(args.hydrophone_capacitance, args.cable_capacitance,
+                      args.input_resistance, args.input_capacitance, args.preamp_gain_db)
+    settings = ConversionSettings(method=args.method, band_low_hz=args.band_low,
+                                  band_high_hz=args.band_high, taper_octaves=args.taper_octaves,
+                                  regularisation=args.regularisation, awf_method=args.awf_method,
+                                  derating_depth_m=args.depth)
+    voltage, dt_s, t0_s = read_trace(args.trace)
+    result = Converter(calibration, loading, settings, args.temperature).process(voltage, dt_s)
+    if args.out:
+        write_pressure(args.out, result.pressure_pa, dt_s, t0_s,
+                       comments=[f"pressure from {args.trace} with {calibration.source} "
+                                 f"(sha256 {calibration.sha256}), method {result.method}"])
+    if args.json:
+        print(json.dumps(result.to_json_dict(), indent=2))
+    else:
+        print(format_table(result))
+    return 0
+
+
+def format_table(result: TraceResult) -> str:
+    """The readable form of a result, with units."""
+    p, nb, w = result.parameters, result.narrowband, result.water
+    rows = [
+        ("method", result.method, ""),
+        ("peak-compressional pressure", f"{p.peak_compressional_pa / 1e6:.4g}", "MPa"),
+        ("peak-rarefactional pressure", f"{p.peak_rarefactional_pa / 1e6:.4g}", "MPa"),
+        ("acoustic working frequency", f"{p.acoustic_working_frequency_hz / 1e6:.4g}", "MHz"),
+        ("pulse-intensity integral", f"{p.pulse_intensity_integral_j_per_m2:.4g}", "J/m^2"),
+        ("pulse duration", f"{p.pulse_duration_s * 1e6:.4g}", "us"),
+        ("pulse-average intensity", f"{p.pulse_average_intensity_w_per_m2 / 1e4:.4g}", "W/cm^2"),
+        ("mechanical index", f"{p.mechanical_index:.3g}", ""),
+        ("water", f"{w.temperature_c:g} degC, {w.density_kg_per_m3:.2f} kg/m^3, "
+                  f"{w.sound_speed_m_per_s:.1f} m/s", ""),
+        ("narrowband check", f"{'pass' if nb.ok else 'fail'}: {nb.reason}", ""),
+        ("  check band", f"{nb.band_hz[0] / 1e6:.4g}-{nb.band_hz[1] / 1e6:.4g}", "MHz"),
+        ("  worst deviation", f"{nb.max_deviation_db:.2f}", "dB"),
+        ("phase", result.phase_source, ""),
+    ]
+    width = max(len(r[0]) for r in rows)
+    return "\n".join(f"{name:<{width}}  {value} {unit}".rstrip() for name, value, unit in rows)
