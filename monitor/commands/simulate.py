@@ -1,0 +1,149 @@
+"""``tankside simulate``: run the simulated bench in the foreground until Ctrl-C."""
+
+from __future__ import annotations
+
+import argparse
+import signal
+import sys
+import threading
+
+from tankside.monitor.errors import ConfigError
+
+FAULT_KINDS = ("drop", "stall", "bad-block", "short-block", "miss", "error")
+
+HELP = """\
+Start a simulated digitiser and signal generator on 127.0.0.1, sharing one invented
+acoustic scene (a focused 3.5 MHz source, an invented needle hydrophone), and print
+each instrument's VISA resource string. Runs until Ctrl-C (or SIGTERM).
+
+With --port N the digitiser listens on N and the generator on N+1; by default two free
+ports are picked. --bench-file writes a bench description (resources, profiles,
+calibration file) that `tankside watch --bench` and other commands take.
+
+Faults (--inject, repeatable) are armed on the digitiser (or --inject-device) at start,
+and again every --inject-every seconds if given:
+  drop              close the connection on the next command
+  stall:SECONDS     send the next reply SECONDS late
+  bad-block         break the header of the next waveform block
+  short-block       send only half of the next waveform block
+  miss:N            the next acquisition misses N triggers
+  error:HEADER=CODE the next HEADER command reports SCPI error CODE (e.g. error:ACQ:POIN=-222)
+"""
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser(
+        "simulate", help="run the simulated digitiser and generator on 127.0.0.1",
+        description=HELP, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--port", type=int, default=0, metavar="N",
+                   help="digitiser TCP port (generator on N+1); default 0 picks free ports")
+    p.add_argument("--bench-file", metavar="PATH",
+                   help="write the bench TOML for these instruments to PATH")
+    p.add_argument("--seed", type=int, default=0, metavar="N",
+                   help="seed of the simulated noise and trigger jitter (default 0)")
+    p.add_argument("--trigger-period", type=float, default=None, metavar="SECONDS",
+                   help="burst (trigger) period at start, s (default 0.05, 20 traces/s)")
+    p.add_argument("--inject", action="append", default=[], metavar="KIND[:VALUE]",
+                   help="arm a fault (see the list above); repeatable")
+    p.add_argument("--inject-device", choices=("digitiser", "generator"), default="digitiser",
+                   help="instrument the --inject faults apply to (default digitiser)")
+    p.add_argument("--inject-every", type=float, default=None, metavar="SECONDS",
+                   help="re-arm the --inject faults every SECONDS (default: once, at start)")
+    p.add_argument("--duration", type=float, default=None, metavar="SECONDS",
+                   help="stop by itself after SECONDS (default: run until Ctrl-C)")
+    p.set_defaults(func=run)
+
+
+def parse_fault(text: str) -> tuple[str, str]:
+    """Split ``KIND[:VALUE]`` and check it; raises ConfigError on a bad fault."""
+    kind, _, value = text.partition(":")
+    if kind not in FAULT_KINDS:
+        raise ConfigError(f"--inject {text!r}: unknown fault (expected one of "
+                          f"{', '.join(FAULT_KINDS)})")
+    try:
+        if kind == "stall":
+            if float(value) < 0:
+                raise ValueError
+        elif kind == "miss":
+            if int(value) < 1:
+                raise ValueError
+        elif kind == "error":
+            header, _, code = value.rpartition("=")
+            if not header:
+                raise ValueError
+            int(code)
+        elif value:
+            raise ValueError
+    except ValueError as err:
+        raise ConfigError(f"--inject {text!r}: bad value for {kind}") from err
+    return kind, value
+
+
+def arm(faults, parsed: list[tuple[str, str]], device: str) -> None:
+    for kind, value in parsed:
+        if kind == "drop":
+            faults.drop_connection(device=device)
+        elif kind == "stall":
+            faults.stall_next_reply(float(value), device=device)
+        elif kind == "bad-block":
+            faults.malformed_next_block(device=device)
+        elif kind == "short-block":
+            faults.short_next_block(device=device)
+        elif kind == "miss":
+            faults.miss_triggers(int(value), device=device)
+        elif kind == "error":
+            header, _, code = value.rpartition("=")
+            faults.report_error(header, int(code), device=device)
+
+
+def run(args) -> int:
+    from tankside.simulators.bench import SimulatedBench
+
+    parsed = [parse_fault(text) for text in args.inject]
+    if not (args.port == 0 or 1 <= args.port <= 65534):
+        raise ConfigError(f"--port {args.port}: expected 1..65534 (the generator takes N+1), or 0")
+    if args.trigger_period is not None and not 1e-4 <= args.trigger_period <= 100:
+        raise ConfigError(f"--trigger-period {args.trigger_period}: expected 1e-4..100 s")
+    try:
+        bench = SimulatedBench(seed=args.seed, port=args.port,
+                               trigger_period_s=args.trigger_period)
+    except OSError as err:
+        raise ConfigError(f"cannot listen on 127.0.0.1 port {args.port}: {err.strerror}") from err
+    stop = threading.Event()
+
+    def on_signal(signum, frame):
+        stop.set()
+
+    previous = signal.signal(signal.SIGTERM, on_signal)
+    try:
+        print(f"digitiser  {bench.digitiser_resource}", flush=True)
+        print(f"generator  {bench.generator_resource}", flush=True)
+        print(f"profiles   {bench.digitiser_profile_path}", flush=True)
+        print(f"           {bench.generator_profile_path}", flush=True)
+        print(f"calibration {bench.calibration_path} (invented demo hydrophone)", flush=True)
+        if args.bench_file:
+            try:
+                path = bench.write_bench_file(args.bench_file)
+            except OSError as err:
+                raise ConfigError(f"--bench-file {args.bench_file}: {err.strerror}") from err
+            print(f"bench file {path}", flush=True)
+        arm(bench.faults, parsed, args.inject_device)
+        print("running; Ctrl-C to stop", flush=True)
+        waited = 0.0
+        tick = args.inject_every if (args.inject_every and parsed) else 0.2
+        try:
+            while not stop.is_set():
+                if stop.wait(tick):
+                    break
+                waited += tick
+                if args.inject_every and parsed:
+                    arm(bench.faults, parsed, args.inject_device)
+                if args.duration is not None and waited >= args.duration:
+                    break
+        except KeyboardInterrupt:
+            pass
+        print("stopped", file=sys.stderr, flush=True)
+        return 0
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+        bench.close()

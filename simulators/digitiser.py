@@ -1,0 +1,434 @@
+"""The simulated digitiser (pure device model): SCPI in, reply bytes out.
+
+Identity ``TANKSIDE,SIMDIG-2,0001,1.0``. Two channels; channel 1 carries the hydrophone of
+the shared :class:`~tankside.simulators.scene.Scene`, channel 2 is unconnected (noise only).
+The trigger comes from the generator's sync output on EXT (one per burst period) unless
+the source is IMMediate. Commands (short forms in capitals, ``#`` = optional channel suffix):
+
+=====================================  ==================================================
+``ACQuire:POINts <n>`` / ``?``          record length, 16 .. 4,000,000 samples
+``ACQuire:SRATe <hz>`` / ``?``          sample rate; 1 GS/s divided by a whole number
+                                        (1 MS/s .. 1 GS/s), the nearest is taken
+``ACQuire:AVERage <n>`` / ``?``         averages 1 .. 1024 (n triggers per acquisition)
+``ACQuire:DONE?``                       1 when the armed acquisition is complete, else 0
+``INITiate[:IMMediate]`` / ``ABORt``    arm one acquisition / disarm
+``CHANnel#:RANGe <v>`` / ``?``          full-scale span, V peak to peak, from RANGES_V
+                                        (a value between two is rounded up)
+``CHANnel#:OFFSet <v>`` / ``?``         voltage at mid-scale, |offset| <= 2.5 V
+``CHANnel#:COUPling AC|DC`` / ``?``
+``CHANnel#:IMPedance 50|1e6`` / ``?``   input impedance, ohm
+``TRIGger:SOURce EXT|CHAN#|IMM`` / ``?``
+``TRIGger:LEVel <v>`` / ``?``           -5 .. 5 V; EXT triggers when 0 < level < 3.3 V
+``TRIGger:SLOPe POS|NEG`` / ``?``
+``TRIGger:DELay <s>`` / ``?``           time of the first sample after the trigger
+``WAVeform:SOURce CHAN#`` / ``?``       channel the scaling queries refer to
+``WAVeform:FORMat INT16|INT8|FLOAT32``  data format of the block (default INT16)
+``WAVeform:BORDer LSBF|MSBF``           byte order (default LSBF, little-endian)
+``WAVeform:DATA? [CHAN#]``              the trace, IEEE 488.2 definite-length block
+``WAVeform:XINCrement?`` ``XORigin?``   time step, time of first sample (s)
+``WAVeform:YINCrement?`` ``YOFFset?``   volts per code, volts at code 0
+``WAVeform:CMIN?`` ``CMAX?``            the rails (lowest and highest code)
+=====================================  ==================================================
+
+volts = code * YINC + YOFF; int16 codes span the range in 65536 steps and clip at
+-32768 / 32767 (int8: 256 steps, -128 / 127; float32: volts, clipped at the range edges).
+Time is read from an injected ``clock`` and waits use an injected ``sleep``, so the
+model is testable without a wall clock.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from tankside.simulators.scene import Scene
+from tankside.simulators.scpi import (
+    ScpiDevice,
+    ScpiError,
+    expect_args,
+    format_block,
+    format_float,
+    parse_bounded,
+    parse_choice,
+    parse_integer,
+    parse_number,
+)
+
+RANGES_V = (0.02, 0.05, 0.1, 0.2, 0.5, 1.0, 2.0, 5.0)
+BASE_CLOCK_HZ = 1.0e9
+CHANNELS = (1, 2)
+FORMATS = {"int16": (np.int16, -32768, 32767), "int8": (np.int8, -128, 127),
+           "float32": (np.float32, None, None)}
+MAX_WAIT_S = 30.0  # *OPC? gives up waiting for a trigger that cannot come after this
+
+
+def quantise(volts: np.ndarray, range_v: float, offset_v: float,
+             data_format: str = "int16") -> tuple[np.ndarray, float, float]:
+    """Quantise volts as an ADC set to ``range_v`` (p-p) around ``offset_v`` would.
+
+    Returns ``(codes, volts_per_code, volts_at_code_0)`` with volts = codes * scale + offset.
+    Values beyond the range clip at the rails. For float32 the codes are volts.
+    """
+    dtype, lo, hi = FORMATS[data_format]
+    if lo is None:
+        half = range_v / 2
+        return np.clip(volts, offset_v - half, offset_v + half).astype(dtype), 1.0, 0.0
+    scale = range_v / (hi - lo + 1)
+    codes = np.clip(np.rint((volts - offset_v) / scale), lo, hi).astype(dtype)
+    return codes, scale, offset_v
+
+
+@dataclass
+class ChannelState:
+    range_v: float = 0.5
+    offset_v: float = 0.0
+    coupling: str = "DC"
+    impedance_ohm: float = 1.0e6
+
+
+@dataclass
+class DigitiserState:
+    points: int = 10000
+    divider: int = 4  # 250 MS/s
+    averages: int = 1
+    trigger_source: str = "EXT"
+    trigger_level_v: float = 1.0
+    trigger_slope: str = "POS"
+    trigger_delay_s: float = 0.0
+    wave_source: int = 1
+    data_format: str = "int16"
+    byte_order: str = "little"
+    channels: dict[int, ChannelState] = field(
+        default_factory=lambda: {c: ChannelState() for c in CHANNELS})
+
+
+class SimulatedDigitiser(ScpiDevice):
+    """Pure model of the simulated digitiser.
+
+    Parameters
+    ----------
+    scene : Scene
+        The shared scene (trigger period, hydrophone voltage).
+    seed : int
+        Seed of the noise and jitter generator.
+    clock, sleep : callables
+        Time source (s) and wait function; ``sleep(s)`` may return True to stop waiting.
+    noise_v_rms : float
+        Input-referred noise of the front end, V rms.
+    jitter_s : float
+        Trigger jitter, s rms.
+    missed_triggers : callable, optional
+        Called once per arm; returns how many coming triggers this acquisition misses.
+    precomputed : int
+        If above 0, acquisitions complete at once and fetches cycle through this many
+        traces computed once per setting (so a fetch benchmark measures the link, not
+        the scene).
+    """
+
+    IDENTITY = "TANKSIDE,SIMDIG-2,0001,1.0"
+
+    def __init__(self, scene: Scene, *, seed: int = 0, clock: Callable[[], float] = time.monotonic,
+                 sleep: Callable[[float], object] = time.sleep, noise_v_rms: float = 0.3e-3,
+                 jitter_s: float = 0.5e-9, missed_triggers: Callable[[], int] | None = None,
+                 precomputed: int = 0):
+        super().__init__()
+        self.scene = scene
+        self.rng = np.random.default_rng(seed)
+        self.clock = clock
+        self.sleep = sleep
+        self.noise_v_rms = noise_v_rms
+        self.jitter_s = jitter_s
+        self.missed_triggers = missed_triggers or (lambda: 0)
+        self.precomputed = int(precomputed)
+        self._epoch = clock()
+        self.armed = False
+        self.ready_at = math.inf
+        self.acquisitions = 0
+        self._trace: tuple[np.ndarray, float, float] | None = None
+        self._trace_for: int | None = None
+        self._pre_key: tuple | None = None
+        self._pre_blocks: list[bytes] = []
+        self._pre_next = 0
+        self.state = DigitiserState()
+        self.reset()
+        self._register()
+
+    # ------------------------------------------------------------ IEEE 488.2
+    def identity(self) -> str:
+        return self.IDENTITY
+
+    def reset(self) -> None:
+        self.state = DigitiserState()
+        # Place the pulse 5 us into the record by default.
+        self.state.trigger_delay_s = round((self.scene.arrival_time_s() - 5e-6) * 1e7) / 1e7
+        self.armed = False
+        self.ready_at = math.inf
+        self._trace = None
+
+    def wait_pending(self) -> None:
+        if not self.armed:
+            return
+        deadline = self.clock() + MAX_WAIT_S
+        while self.clock() < min(self.ready_at, deadline):
+            remaining = min(self.ready_at, deadline) - self.clock()
+            if self.sleep(min(max(remaining, 0.0), 0.05)):
+                return
+
+    # ------------------------------------------------------------ registration
+    def _register(self) -> None:
+        a = self.add
+        a("ACQuire:POINts", write=self._set_points, query=lambda x, s: self._q(x, self.state.points))
+        a("ACQuire:SRATe", write=self._set_rate, query=lambda x, s: self._qf(x, self.sample_rate_hz))
+        a("ACQuire:AVERage", write=self._set_averages,
+          query=lambda x, s: self._q(x, self.state.averages))
+        a("ACQuire:DONE", query=lambda x, s: self._q(x, int(self.done())))
+        a("INITiate[:IMMediate]", write=self._arm)
+        a("ABORt", write=self._abort)
+        a("CHANnel#:RANGe", write=self._set_range, query=lambda x, s: self._qf(x, self._ch(s).range_v))
+        a("CHANnel#:OFFSet", write=self._set_offset,
+          query=lambda x, s: self._qf(x, self._ch(s).offset_v))
+        a("CHANnel#:COUPling", write=self._set_coupling,
+          query=lambda x, s: self._q(x, self._ch(s).coupling))
+        a("CHANnel#:IMPedance", write=self._set_impedance,
+          query=lambda x, s: self._qf(x, self._ch(s).impedance_ohm))
+        a("TRIGger:SOURce", write=self._set_trigger_source,
+          query=lambda x, s: self._q(x, self.state.trigger_source))
+        a("TRIGger:LEVel", write=self._set_trigger_level,
+          query=lambda x, s: self._qf(x, self.state.trigger_level_v))
+        a("TRIGger:SLOPe", write=self._set_slope, query=lambda x, s: self._q(x, self.state.trigger_slope))
+        a("TRIGger:DELay", write=self._set_delay,
+          query=lambda x, s: self._qf(x, self.state.trigger_delay_s))
+        a("WAVeform:SOURce", write=self._set_wave_source,
+          query=lambda x, s: self._q(x, f"CHAN{self.state.wave_source}"))
+        a("WAVeform:FORMat", write=self._set_format,
+          query=lambda x, s: self._q(x, self.state.data_format.upper()))
+        a("WAVeform:BORDer", write=self._set_border,
+          query=lambda x, s: self._q(x, "LSBF" if self.state.byte_order == "little" else "MSBF"))
+        a("WAVeform:DATA", query=self._fetch)
+        a("WAVeform:XINCrement", query=lambda x, s: self._qf(x, self.time_step_s))
+        a("WAVeform:XORigin", query=lambda x, s: self._qf(x, self.state.trigger_delay_s))
+        a("WAVeform:YINCrement", query=lambda x, s: self._qf(x, self._scaling()[0]))
+        a("WAVeform:YOFFset", query=lambda x, s: self._qf(x, self._scaling()[1]))
+        a("WAVeform:CMIN", query=lambda x, s: self._q(x, FORMATS[self.state.data_format][1]))
+        a("WAVeform:CMAX", query=lambda x, s: self._q(x, FORMATS[self.state.data_format][2]))
+
+    @staticmethod
+    def _q(args, value) -> str:
+        expect_args(args, 0)
+        return str(value)
+
+    @staticmethod
+    def _qf(args, value) -> str:
+        expect_args(args, 0)
+        return format_float(value)
+
+    def _ch(self, suffixes) -> ChannelState:
+        number = suffixes[0]
+        if number not in self.state.channels:
+            raise ScpiError(-113, f"no channel {number}")
+        return self.state.channels[number]
+
+    # ------------------------------------------------------------ derived values
+    @property
+    def sample_rate_hz(self) -> float:
+        return BASE_CLOCK_HZ / self.state.divider
+
+    @property
+    def time_step_s(self) -> float:
+        return self.state.divider / BASE_CLOCK_HZ
+
+    def _scaling(self) -> tuple[float, float]:
+        ch = self.state.channels[self.state.wave_source]
+        _, lo, hi = FORMATS[self.state.data_format]
+        if lo is None:
+            return 1.0, 0.0
+        return ch.range_v / (hi - lo + 1), ch.offset_v
+
+    # ------------------------------------------------------------ setters
+    def _set_points(self, args, s):
+        expect_args(args, 1)
+        self.state.points = parse_integer(args[0], 16, 4_000_000, what="record length")
+        self._trace = None
+
+    def _set_rate(self, args, s):
+        expect_args(args, 1)
+        rate = parse_bounded(args[0], BASE_CLOCK_HZ / 1000, BASE_CLOCK_HZ, what="sample rate")
+        self.state.divider = max(1, min(1000, round(BASE_CLOCK_HZ / rate)))
+        self._trace = None
+
+    def _set_averages(self, args, s):
+        expect_args(args, 1)
+        self.state.averages = parse_integer(args[0], 1, 1024, what="averages")
+
+    def _set_range(self, args, s):
+        expect_args(args, 1)
+        ch = self._ch(s)
+        value = parse_number(args[0], minimum=RANGES_V[0], maximum=RANGES_V[-1])
+        if not 0 < value <= RANGES_V[-1] * (1 + 1e-9):
+            raise ScpiError(-222, f"range {value:g} V outside {RANGES_V[0]:g}..{RANGES_V[-1]:g}")
+        ch.range_v = next(r for r in RANGES_V if r >= value * (1 - 1e-9))
+
+    def _set_offset(self, args, s):
+        expect_args(args, 1)
+        self._ch(s).offset_v = parse_bounded(args[0], -2.5, 2.5, what="offset")
+
+    def _set_coupling(self, args, s):
+        expect_args(args, 1)
+        self._ch(s).coupling = parse_choice(args[0], {"DC": "DC", "AC": "AC"})
+
+    def _set_impedance(self, args, s):
+        expect_args(args, 1)
+        word = args[0].strip().upper()
+        named = {"FIFTY": 50.0, "FIFT": 50.0, "ONEMEG": 1e6, "ONEM": 1e6, "1M": 1e6}
+        value = named[word] if word in named else parse_number(args[0])
+        if value not in (50.0, 1e6):
+            raise ScpiError(-224, f"impedance {value:g} ohm (50 or 1e6)")
+        self._ch(s).impedance_ohm = value
+
+    def _set_trigger_source(self, args, s):
+        expect_args(args, 1)
+        value = parse_choice(args[0], {"EXTernal": "EXT", "IMMediate": "IMM",
+                                       "CHANnel#": "CHAN"})
+        if value.startswith("CHAN") and int(value[4:]) not in CHANNELS:
+            raise ScpiError(-224, f"no channel {value[4:]}")
+        self.state.trigger_source = value
+
+    def _set_trigger_level(self, args, s):
+        expect_args(args, 1)
+        self.state.trigger_level_v = parse_bounded(args[0], -5.0, 5.0, what="trigger level")
+
+    def _set_slope(self, args, s):
+        expect_args(args, 1)
+        self.state.trigger_slope = parse_choice(
+            args[0], {"POSitive": "POS", "NEGative": "NEG", "RISing": "POS", "FALLing": "NEG"})
+
+    def _set_delay(self, args, s):
+        expect_args(args, 1)
+        self.state.trigger_delay_s = parse_bounded(args[0], -1e-3, 1.0, what="trigger delay")
+
+    def _set_wave_source(self, args, s):
+        expect_args(args, 1)
+        value = parse_choice(args[0], {"CHANnel#": "CHAN"})
+        number = int(value[4:])
+        if number not in CHANNELS:
+            raise ScpiError(-224, f"no channel {number}")
+        self.state.wave_source = number
+
+    def _set_format(self, args, s):
+        expect_args(args, 1)
+        word = args[0].strip().upper()
+        aliases = {"INT16": "int16", "WORD": "int16", "INT8": "int8", "BYTE": "int8",
+                   "FLOAT32": "float32", "REAL": "float32"}
+        if word not in aliases:
+            raise ScpiError(-224, f"format {args[0]!r} (INT16, INT8 or FLOAT32)")
+        self.state.data_format = aliases[word]
+
+    def _set_border(self, args, s):
+        expect_args(args, 1)
+        self.state.byte_order = parse_choice(args[0], {"LSBFirst": "little", "MSBFirst": "big"})
+
+    # ------------------------------------------------------------ acquisition
+    def trigger_possible(self) -> bool:
+        """Whether the configured trigger can fire at all in this scene."""
+        st = self.state
+        if st.trigger_source == "IMM":
+            return True
+        if st.trigger_source == "EXT":
+            # The sync output is a 0 .. sync_high_v square; either slope crosses inside.
+            return 0.0 < st.trigger_level_v < self.scene.params.sync_high_v
+        # A channel trigger fires when the signal crosses the level; the trace is
+        # referenced to the burst, as if the level crossing came with it.
+        if int(st.trigger_source[4:]) != 1 or not self.scene.drive.output_on:
+            return False
+        dt = self.time_step_s
+        t = self.scene.arrival_time_s() + dt * np.arange(-200, int(3e-6 / dt))
+        v = self.scene.hydrophone_voltage_v(t)
+        level = st.trigger_level_v
+        return bool(v.max() > level > v.min())
+
+    def _arm(self, args, s):
+        expect_args(args, 0)
+        now = self.clock()
+        self.armed = True
+        self._trace = None
+        self.acquisitions += 1
+        st = self.state
+        if self.precomputed or st.trigger_source == "IMM":
+            self.ready_at = now
+            return
+        if not self.trigger_possible():
+            self.ready_at = math.inf
+            return
+        period = self.scene.trigger_period_s
+        elapsed = now - self._epoch
+        next_trigger = self._epoch + (math.floor(elapsed / period) + 1) * period
+        missed = max(0, int(self.missed_triggers()))
+        self.ready_at = next_trigger + (st.averages - 1 + missed) * period
+
+    def _abort(self, args, s):
+        expect_args(args, 0)
+        self.armed = False
+        self.ready_at = math.inf
+
+    def done(self) -> bool:
+        return self.armed and self.clock() >= self.ready_at
+
+    def _volts(self, channel: int) -> np.ndarray:
+        st = self.state
+        dt = self.time_step_s
+        times = st.trigger_delay_s + dt * np.arange(st.points)
+        avg = st.averages
+        # Averaging n triggers: noise falls by sqrt(n); the jitter is drawn as the mean of n.
+        jitter = float(self.rng.normal(0.0, self.jitter_s / math.sqrt(avg)))
+        if channel == 1:
+            v = self.scene.hydrophone_voltage_v(times, jitter_s=jitter)
+        else:
+            v = np.zeros(st.points)
+        return v + self.rng.normal(0.0, self.noise_v_rms / math.sqrt(avg), st.points)
+
+    def acquire_codes(self, channel: int) -> tuple[np.ndarray, float, float]:
+        """Quantised codes, volts per code and offset of ``channel`` for the current acquisition."""
+        ch = self.state.channels[channel]
+        return quantise(self._volts(channel), ch.range_v, ch.offset_v, self.state.data_format)
+
+    def _encode(self, codes: np.ndarray) -> bytes:
+        dtype = codes.dtype.newbyteorder("<" if self.state.byte_order == "little" else ">")
+        return format_block(codes.astype(dtype, copy=False).tobytes())
+
+    def _fetch(self, args, s):
+        if len(args) > 1:
+            raise ScpiError(-108, "WAV:DATA? takes at most one channel")
+        if args:
+            value = parse_choice(args[0], {"CHANnel#": "CHAN"})
+            number = int(value[4:])
+            if number not in CHANNELS:
+                raise ScpiError(-224, f"no channel {number}")
+            self.state.wave_source = number
+        channel = self.state.wave_source
+        if self.precomputed:
+            return self._precomputed_block(channel)
+        if not self.done():
+            raise ScpiError(-230, "no completed acquisition")
+        key = (self.acquisitions, channel)
+        if self._trace is None or self._trace_for != key:
+            self._trace = self.acquire_codes(channel)
+            self._trace_for = key
+        return self._encode(self._trace[0])
+
+    def _precomputed_block(self, channel: int) -> bytes:
+        st = self.state
+        ch = st.channels[channel]
+        key = (channel, st.points, st.divider, st.averages, st.trigger_delay_s, st.data_format,
+               st.byte_order, ch.range_v, ch.offset_v, self.scene.version)
+        if key != self._pre_key:
+            self._pre_blocks = [self._encode(self.acquire_codes(channel)[0])
+                                for _ in range(self.precomputed)]
+            self._pre_key = key
+            self._pre_next = 0
+        block = self._pre_blocks[self._pre_next]
+        self._pre_next = (self._pre_next + 1) % len(self._pre_blocks)
+        return block
