@@ -61,3 +61,8 @@ class ProfileError(InstrumentError):
 
     The message names the file and the key.
     """
+
+
+class SettingError(InstrumentError, ValueError):
+    """A requested setting the instrument's profile does not allow (e.g. a range not
+    in ``[ranges] values_v``), or an operation its profile does not define."""

@@ -1,0 +1,325 @@
+"""Profile-driven digitiser driver: configure, arm, wait for the trigger, fetch a trace.
+
+The driver is given its :class:`~tankside.drivers.scpi.ScpiSession`; every command it
+sends comes from the profile, so the same code drives any instrument a profile
+describes.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from tankside.drivers import ieee488
+from tankside.drivers.errors import InstrumentTimeout, NoTrigger, ProtocolError, SettingError
+from tankside.drivers.profile import Profile
+from tankside.drivers.scpi import ScpiSession
+from tankside.drivers.trace import RawTrace, count_at_rails
+
+
+@dataclass(frozen=True)
+class DigitiserSettings:
+    """What the digitiser is set to.
+
+    Attributes
+    ----------
+    record_length : int
+        Samples per trace.
+    sample_rate_hz : float
+        Samples per second, Hz.
+    range_v : float
+        Full-scale span, peak to peak, V; one of the profile's ``ranges_v``.
+    offset_v : float
+        Vertical offset, V.
+    coupling : str
+        Input coupling word as the instrument spells it (e.g. ``"DC"``).
+    impedance_ohm : float
+        Input impedance, ohm.
+    trigger_source, trigger_slope : str
+        As the instrument spells them.
+    trigger_level_v : float
+        Trigger level, V.
+    averages : int
+        Traces averaged per acquisition (1 = none).
+    channel : int
+        Input channel number.
+    """
+
+    record_length: int = 10000
+    sample_rate_hz: float = 250e6
+    range_v: float = 1.0
+    offset_v: float = 0.0
+    coupling: str = "DC"
+    impedance_ohm: float = 1e6
+    trigger_source: str = "EXT"
+    trigger_level_v: float = 0.5
+    trigger_slope: str = "POS"
+    averages: int = 1
+    channel: int = 1
+
+    def __post_init__(self):
+        if not (isinstance(self.record_length, int) and self.record_length > 0):
+            raise SettingError(f"record_length must be a positive integer, "
+                               f"got {self.record_length!r}")
+        for name in ("sample_rate_hz", "range_v", "impedance_ohm"):
+            value = getattr(self, name)
+            if not (isinstance(value, int | float) and math.isfinite(value) and value > 0):
+                raise SettingError(f"{name} must be a positive number, got {value!r}")
+        for name in ("offset_v", "trigger_level_v"):
+            value = getattr(self, name)
+            if not (isinstance(value, int | float) and math.isfinite(value)):
+                raise SettingError(f"{name} must be a number, got {value!r}")
+        if not (isinstance(self.averages, int) and self.averages >= 1):
+            raise SettingError(f"averages must be an integer >= 1, got {self.averages!r}")
+        if not (isinstance(self.channel, int) and self.channel >= 1):
+            raise SettingError(f"channel must be an integer >= 1, got {self.channel!r}")
+
+    def as_dict(self) -> dict:
+        return dataclasses.asdict(self)
+
+    def replace(self, **changes) -> DigitiserSettings:
+        return dataclasses.replace(self, **changes)
+
+
+def decode_codes(payload: bytes, dtype: np.dtype) -> np.ndarray:
+    """Samples of a block payload, in native byte order, values exactly as sent.
+
+    Raises
+    ------
+    ProtocolError
+        If the payload is not a whole number of samples.
+    """
+    dtype = np.dtype(dtype)
+    if len(payload) % dtype.itemsize:
+        raise ProtocolError(f"block of {len(payload)} bytes is not a whole number of "
+                            f"{dtype.itemsize}-byte samples")
+    return np.frombuffer(payload, dtype=dtype).astype(dtype.newbyteorder("="))
+
+
+def _match_range(ranges_v, range_v: float) -> float:
+    for allowed in ranges_v:
+        if math.isclose(allowed, range_v, rel_tol=1e-9):
+            return allowed
+    raise SettingError(f"range {range_v:g} V is not one of the profile's ranges "
+                       f"{', '.join(f'{r:g}' for r in ranges_v)} V")
+
+
+# (settings field, command key, placeholder) in the order they are sent.
+_STEPS = (
+    ("record_length", "set_record_length", "points"),
+    ("sample_rate_hz", "set_sample_rate", "rate_hz"),
+    ("range_v", "set_range", "range_v"),
+    ("offset_v", "set_offset", "offset_v"),
+    ("coupling", "set_coupling", "coupling"),
+    ("impedance_ohm", "set_impedance", "impedance_ohm"),
+    ("trigger_source", "set_trigger_source", "source"),
+    ("trigger_level_v", "set_trigger_level", "level_v"),
+    ("trigger_slope", "set_trigger_slope", "slope"),
+    ("averages", "set_averages", "count"),
+)
+
+
+class Digitiser:
+    """A digitiser driven by its profile.
+
+    Parameters
+    ----------
+    session : ScpiSession
+    profile : Profile
+        A ``kind = "digitiser"`` profile.
+    poll_interval_s : float
+        Pause between ``acquisition_done`` polls, s.
+    check_errors_each_trace : bool
+        Drain the error queue after each trace (policy of the session applies).
+
+    Notes
+    -----
+    The scaling (time step, origin, volts per code, offset) is read after each
+    :meth:`configure` or :meth:`set_range` and reused until the next one, since it
+    only changes with the settings. The last settings are re-applied when the session
+    is reopened.
+    """
+
+    def __init__(self, session: ScpiSession, profile: Profile, *, poll_interval_s: float = 0.002,
+                 check_errors_each_trace: bool = True):
+        if profile.kind != "digitiser":
+            raise SettingError(f"{profile.source}: profile is for a {profile.kind}, "
+                               "not a digitiser")
+        self.session = session
+        self.profile = profile
+        self.poll_interval_s = poll_interval_s
+        self.check_errors_each_trace = check_errors_each_trace
+        self.skipped: tuple[str, ...] = ()
+        self._settings: DigitiserSettings | None = None
+        self._scaling: dict | None = None
+        if profile.has("get_error"):
+            session.error_query = profile.command("get_error")
+        session.add_reopen_hook(self._reapply)
+
+    @property
+    def identity(self) -> str:
+        """The ``identify`` reply (queried once)."""
+        if self.session.identity is None:
+            self.session.identity = self.session.query(self.profile.command("identify")).strip()
+        return self.session.identity
+
+    @property
+    def settings(self) -> DigitiserSettings | None:
+        """The settings last applied, or None before :meth:`configure`."""
+        return self._settings
+
+    @property
+    def ranges_v(self) -> tuple:
+        """Allowed full-scale spans, peak to peak, V, ascending."""
+        return self.profile.ranges_v
+
+    def reset(self) -> None:
+        """Send the profile's ``reset`` command and forget the applied settings."""
+        self.session.write_step(self.profile.command("reset"))
+        self._settings = None
+        self._scaling = None
+
+    def configure(self, settings: DigitiserSettings) -> None:
+        """Apply every setting the profile has a command for, checking errors after each.
+
+        Settings whose command the profile lacks are listed in :attr:`skipped`.
+        """
+        settings = settings.replace(range_v=_match_range(self.ranges_v, settings.range_v))
+        self._scaling = None
+        skipped = []
+        for name, key, placeholder in _STEPS:
+            if not self.profile.has(key):
+                skipped.append(name)
+                continue
+            value = getattr(settings, name)
+            self.session.write_step(self.profile.command(key, channel=settings.channel,
+                                                         **{placeholder: value}))
+        self.skipped = tuple(skipped)
+        self._settings = settings
+
+    def set_range(self, range_v: float) -> None:
+        """Change the vertical range to one of :attr:`ranges_v`."""
+        current = self._require_settings()
+        range_v = _match_range(self.ranges_v, range_v)
+        self._scaling = None
+        self.session.write_step(self.profile.command("set_range", channel=current.channel,
+                                                     range_v=range_v))
+        self._settings = current.replace(range_v=range_v)
+
+    def _require_settings(self) -> DigitiserSettings:
+        if self._settings is None:
+            raise SettingError("digitiser not configured: call configure() first",
+                               resource=self.session.name)
+        return self._settings
+
+    def _reapply(self) -> None:
+        if self._settings is not None:
+            self.configure(self._settings)
+
+    def fetch_scaling(self) -> dict:
+        """Time step, time origin, volts per code and offset; cached until settings change."""
+        if self._scaling is None:
+            ch = self._require_settings().channel
+
+            def number(key: str, default: float | None = None) -> float:
+                if default is not None and not self.profile.has(key):
+                    return default
+                reply = self.session.query(self.profile.command(key, channel=ch))
+                try:
+                    return ieee488.parse_number(reply)
+                except ProtocolError as err:
+                    raise ProtocolError(f"{key}: {err.message}",
+                                        resource=self.session.name) from err
+
+            scaling = {"dt_s": number("get_time_step"), "t0_s": number("get_time_origin", 0.0),
+                       "volts_per_code": number("get_volts_per_code"),
+                       "offset_v": number("get_offset", 0.0)}
+            if not scaling["dt_s"] > 0:
+                raise ProtocolError(f"time step must be positive, got {scaling['dt_s']!r}",
+                                    resource=self.session.name)
+            self._scaling = scaling
+        return self._scaling
+
+    def _wait_for_trigger(self, channel: int, trigger_timeout_s: float) -> None:
+        deadline = time.monotonic() + trigger_timeout_s
+        if self.profile.has("acquisition_done"):
+            command = self.profile.command("acquisition_done", channel=channel)
+            while True:
+                if ieee488.parse_bool(self.session.query(command)):
+                    return
+                if time.monotonic() >= deadline:
+                    raise NoTrigger(f"no trigger within {trigger_timeout_s:g} s",
+                                    resource=self.session.name)
+                time.sleep(self.poll_interval_s)
+        saved = self.session.timeout_s
+        self.session.timeout_s = trigger_timeout_s
+        try:
+            reply = self.session.query(self.profile.command("wait_complete"))
+        except NoTrigger:
+            raise
+        except InstrumentTimeout as err:
+            raise NoTrigger(f"no trigger within {trigger_timeout_s:g} s",
+                            resource=self.session.name) from err
+        finally:
+            self.session.timeout_s = saved
+        if reply.strip() != "1":
+            raise ProtocolError(f"wait_complete: expected '1', got {reply!r}",
+                                resource=self.session.name)
+
+    def acquire(self, seq: int, *, trigger_timeout_s: float) -> RawTrace:
+        """Arm a single acquisition, wait for the trigger, and fetch the trace.
+
+        Parameters
+        ----------
+        seq : int
+            Sequence number to stamp on the trace.
+        trigger_timeout_s : float
+            How long to wait for the trigger, s.
+
+        Raises
+        ------
+        NoTrigger
+            The digitiser did not trigger in time.
+        ProtocolError, InstrumentTimeout, ConnectionLost, InstrumentReportedError
+        """
+        settings = self._require_settings()
+        ch = settings.channel
+        self.session.write(self.profile.command("arm_single", channel=ch))
+        self._wait_for_trigger(ch, trigger_timeout_s)
+        payload = self.session.query_block(self.profile.command("fetch_waveform", channel=ch))
+        time_s = time.time()
+        try:
+            codes = decode_codes(payload, self.profile.dtype)
+        except ProtocolError as err:
+            raise ProtocolError(err.message, resource=self.session.name) from err
+        scaling = self.fetch_scaling()
+        if self.check_errors_each_trace:
+            self.session.check_errors("acquire")
+        low, high = count_at_rails(codes, self.profile.code_min, self.profile.code_max)
+        state = settings.as_dict()
+        state["identity"] = self.session.identity
+        return RawTrace(codes=codes, volts_per_code=scaling["volts_per_code"],
+                        offset_v=scaling["offset_v"], dt_s=scaling["dt_s"],
+                        t0_s=scaling["t0_s"], seq=int(seq), time_s=time_s,
+                        range_v=settings.range_v, code_min=self.profile.code_min,
+                        code_max=self.profile.code_max, clipped_low=low, clipped_high=high,
+                        data_format=self.profile.data_format, state=state)
+
+    def read_settings(self) -> dict:
+        """Replies to the profile's ``query_*`` commands, by settings field (raw text)."""
+        ch = self._settings.channel if self._settings else 1
+        out = {}
+        for name, key, _ in _STEPS:
+            qkey = "query_" + key[len("set_"):]
+            if self.profile.has(qkey):
+                out[name] = self.session.query(self.profile.command(qkey, channel=ch)).strip()
+        return out
+
+    def recover(self) -> str:
+        """Resynchronise the session, or reopen it and re-apply the settings."""
+        self._scaling = None
+        return self.session.recover()

@@ -1,0 +1,316 @@
+"""Instrument profiles: TOML files that map abstract operations to command templates.
+
+A profile is validated completely when it is loaded. Every problem raises
+:class:`tankside.drivers.errors.ProfileError` naming the file and the key, so a user
+adding an instrument learns what to fix without reading code. The schema is described
+in ``drivers/profiles/generic-scpi-digitiser.toml``.
+"""
+
+from __future__ import annotations
+
+import string
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from tankside.drivers.errors import ProfileError
+
+PROFILE_DIR = Path(__file__).with_name("profiles")
+
+KINDS = ("digitiser", "generator")
+DATA_FORMATS = ("int8", "int16", "float32")
+BYTE_ORDERS = ("little", "big")
+
+# Command key -> placeholders it may use. Keys named query_* read a setting back; they
+# are optional and let `probe` restore what it changes.
+_DIGITISER_COMMANDS = {
+    "identify": (), "reset": (),
+    "set_record_length": ("points",), "set_sample_rate": ("rate_hz",),
+    "set_range": ("channel", "range_v"), "set_offset": ("channel", "offset_v"),
+    "set_coupling": ("channel", "coupling"), "set_impedance": ("channel", "impedance_ohm"),
+    "set_trigger_source": ("source",), "set_trigger_level": ("level_v", "channel"),
+    "set_trigger_slope": ("slope",), "set_averages": ("count",),
+    "arm_single": ("channel",), "acquisition_done": ("channel",), "wait_complete": (),
+    "fetch_waveform": ("channel",), "get_time_step": ("channel",),
+    "get_time_origin": ("channel",), "get_volts_per_code": ("channel",),
+    "get_offset": ("channel",), "get_error": (),
+    "query_record_length": (), "query_sample_rate": (), "query_range": ("channel",),
+    "query_offset": ("channel",), "query_coupling": ("channel",),
+    "query_impedance": ("channel",), "query_trigger_source": (),
+    "query_trigger_level": ("channel",), "query_trigger_slope": (), "query_averages": (),
+}
+_DIGITISER_REQUIRED = ("identify", "set_record_length", "set_sample_rate", "set_range",
+                       "arm_single", "fetch_waveform", "get_time_step", "get_volts_per_code")
+
+_GENERATOR_COMMANDS = {
+    "identify": (), "reset": (), "get_error": (),
+    "set_output": ("state",), "get_output": (),
+    "set_amplitude": ("amplitude_vpp",), "get_amplitude": (),
+    "set_frequency": ("frequency_hz",), "get_frequency": (),
+    "set_burst_cycles": ("cycles",), "get_burst_cycles": (),
+    "set_burst_period": ("period_s",), "get_burst_period": (),
+}
+_GENERATOR_REQUIRED = ("identify", "set_output", "get_output", "set_amplitude",
+                       "get_amplitude", "set_frequency", "set_burst_cycles", "set_burst_period")
+
+_SAMPLE_VALUES = {"points": 1000, "rate_hz": 1e8, "channel": 1, "range_v": 1.0,
+                  "offset_v": 0.0, "coupling": "DC", "impedance_ohm": 50.0, "source": "EXT",
+                  "level_v": 0.5, "slope": "POS", "count": 1, "state": "ON",
+                  "amplitude_vpp": 1.0, "frequency_hz": 1e6, "cycles": 10, "period_s": 0.05}
+
+_TABLES = {"digitiser": ("instrument", "transport", "commands", "data", "ranges"),
+           "generator": ("instrument", "transport", "commands", "values")}
+_TRANSPORT_KEYS = ("read_termination", "write_termination", "timeout_s")
+
+
+@dataclass(frozen=True)
+class Profile:
+    """A validated instrument profile.
+
+    Attributes
+    ----------
+    source : str
+        The file it came from.
+    kind : {"digitiser", "generator"}
+    commands : dict[str, str]
+        Command templates by key, with ``{placeholder}`` fields.
+    data_format, byte_order : str
+        Waveform sample format and byte order (digitisers).
+    code_min, code_max : float
+        The ADC rails (digitisers).
+    ranges_v : tuple of float
+        Allowed full-scale spans, peak to peak, V, ascending (digitisers).
+    values : dict
+        Generator reply words: ``output_on``, ``output_off``, ``output_on_replies``,
+        ``output_off_replies``.
+    """
+
+    source: str
+    kind: str
+    description: str = ""
+    commands: dict = field(default_factory=dict)
+    read_termination: str = "\n"
+    write_termination: str = "\n"
+    timeout_s: float = 5.0
+    data_format: str = "int16"
+    byte_order: str = "little"
+    code_min: float = -32768
+    code_max: float = 32767
+    ranges_v: tuple = ()
+    values: dict = field(default_factory=dict)
+
+    def has(self, key: str) -> bool:
+        """True when the profile defines command ``key``."""
+        return key in self.commands
+
+    def command(self, key: str, **fields) -> str:
+        """Command ``key`` with its placeholders filled.
+
+        Raises
+        ------
+        ProfileError
+            If the profile does not define ``key``.
+        """
+        if key not in self.commands:
+            raise ProfileError(f"{self.source}: [commands] {key}: not defined in this profile")
+        return self.commands[key].format(**fields)
+
+    @property
+    def dtype(self) -> np.dtype:
+        """numpy dtype of the samples as sent (with their byte order)."""
+        return np.dtype(self.data_format).newbyteorder("<" if self.byte_order == "little" else ">")
+
+
+def _fail(source: str, key: str, problem: str) -> ProfileError:
+    return ProfileError(f"{source}: {key}: {problem}")
+
+
+def _check_keys(source: str, table: str, got: dict, allowed) -> None:
+    for key in got:
+        if key not in allowed:
+            raise _fail(source, f"[{table}] {key}",
+                        f"unknown key; expected one of {', '.join(sorted(allowed))}")
+
+
+def _check_template(source: str, key: str, template, allowed: tuple) -> None:
+    where = f"[commands] {key}"
+    if not isinstance(template, str) or not template.strip():
+        raise _fail(source, where, "expected a non-empty string")
+    try:
+        names = [name for _, name, _, _ in string.Formatter().parse(template) if name is not None]
+    except ValueError as err:
+        raise _fail(source, where, f"bad template {template!r}: {err}") from err
+    for name in names:
+        if name not in allowed:
+            allowed_text = ", ".join("{" + a + "}" for a in allowed) or "none"
+            raise _fail(source, where, f"unknown placeholder {{{name}}}; allowed: {allowed_text}")
+    try:
+        template.format(**_SAMPLE_VALUES)
+    except (ValueError, KeyError, IndexError) as err:
+        raise _fail(source, where, f"template {template!r} cannot be filled: {err}") from err
+
+
+def _number(source: str, key: str, value, *, positive: bool = False) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise _fail(source, key, f"expected a number, got {value!r}")
+    if positive and not value > 0:
+        raise _fail(source, key, f"expected a positive number, got {value!r}")
+    return float(value)
+
+
+def _choice(source: str, key: str, value, choices) -> str:
+    if value not in choices:
+        raise _fail(source, key, f"expected one of {', '.join(choices)}, got {value!r}")
+    return value
+
+
+def _strings(source: str, key: str, value) -> tuple:
+    if not isinstance(value, list) or not value or not all(isinstance(v, str) for v in value):
+        raise _fail(source, key, f"expected a non-empty list of strings, got {value!r}")
+    return tuple(value)
+
+
+def parse_profile(text: str, source: str = "<text>") -> Profile:
+    """Validate profile TOML ``text``; ``source`` names it in error messages."""
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise ProfileError(f"{source}: not valid TOML: {err}") from err
+    inst = doc.get("instrument")
+    if not isinstance(inst, dict):
+        raise _fail(source, "[instrument]", "missing table")
+    _check_keys(source, "instrument", inst, ("kind", "description"))
+    kind = _choice(source, "[instrument] kind", inst.get("kind"), KINDS)
+    description = inst.get("description", "")
+    if not isinstance(description, str):
+        raise _fail(source, "[instrument] description", "expected a string")
+    _check_keys(source, "top level", doc, _TABLES[kind])
+    for table in doc:
+        if not isinstance(doc[table], dict):
+            raise _fail(source, table, "expected a table")
+
+    out: dict = {"source": source, "kind": kind, "description": description}
+    transport = doc.get("transport", {})
+    _check_keys(source, "transport", transport, _TRANSPORT_KEYS)
+    for key in ("read_termination", "write_termination"):
+        if key in transport:
+            value = transport[key]
+            if not isinstance(value, str) or not value.isascii():
+                raise _fail(source, f"[transport] {key}", f"expected an ASCII string, got {value!r}")
+            out[key] = value
+    if "timeout_s" in transport:
+        out["timeout_s"] = _number(source, "[transport] timeout_s", transport["timeout_s"],
+                                   positive=True)
+
+    allowed, required = ((_DIGITISER_COMMANDS, _DIGITISER_REQUIRED) if kind == "digitiser"
+                         else (_GENERATOR_COMMANDS, _GENERATOR_REQUIRED))
+    commands = doc.get("commands")
+    if not isinstance(commands, dict):
+        raise _fail(source, "[commands]", "missing table")
+    _check_keys(source, "commands", commands, allowed)
+    for key in required:
+        if key not in commands:
+            raise _fail(source, f"[commands] {key}", "missing (required)")
+    for key, template in commands.items():
+        _check_template(source, key, template, allowed[key])
+    out["commands"] = dict(commands)
+
+    if kind == "digitiser":
+        if "acquisition_done" not in commands and "wait_complete" not in commands:
+            raise _fail(source, "[commands] acquisition_done",
+                        "missing: define acquisition_done or wait_complete")
+        out.update(_parse_data(source, doc))
+        out["ranges_v"] = _parse_ranges(source, doc)
+    else:
+        out["values"] = _parse_values(source, doc)
+    return Profile(**out)
+
+
+def _parse_data(source: str, doc: dict) -> dict:
+    data = doc.get("data")
+    if not isinstance(data, dict):
+        raise _fail(source, "[data]", "missing table")
+    _check_keys(source, "data", data, ("format", "byte_order", "code_min", "code_max"))
+    for key in ("format", "code_min", "code_max"):
+        if key not in data:
+            raise _fail(source, f"[data] {key}", "missing (required)")
+    fmt = _choice(source, "[data] format", data["format"], DATA_FORMATS)
+    order = _choice(source, "[data] byte_order", data.get("byte_order", "little"), BYTE_ORDERS)
+    lo = _number(source, "[data] code_min", data["code_min"])
+    hi = _number(source, "[data] code_max", data["code_max"])
+    if not lo < hi:
+        raise _fail(source, "[data] code_max", f"must exceed code_min ({lo:g}), got {hi:g}")
+    if fmt != "float32":
+        info = np.iinfo(fmt)
+        if lo < info.min or hi > info.max or lo != int(lo) or hi != int(hi):
+            raise _fail(source, "[data] code_min",
+                        f"rails {lo:g}..{hi:g} are not integers within {fmt} "
+                        f"({info.min}..{info.max})")
+    return {"data_format": fmt, "byte_order": order, "code_min": lo, "code_max": hi}
+
+
+def _parse_ranges(source: str, doc: dict) -> tuple:
+    ranges = doc.get("ranges")
+    if not isinstance(ranges, dict):
+        raise _fail(source, "[ranges]", "missing table")
+    _check_keys(source, "ranges", ranges, ("values_v",))
+    values = ranges.get("values_v")
+    if not isinstance(values, list) or not values:
+        raise _fail(source, "[ranges] values_v", "expected a non-empty list of spans in V")
+    spans = tuple(_number(source, "[ranges] values_v", v, positive=True) for v in values)
+    if any(b <= a for a, b in zip(spans, spans[1:], strict=False)):
+        raise _fail(source, "[ranges] values_v", f"must be strictly ascending, got {list(spans)}")
+    return spans
+
+
+def _parse_values(source: str, doc: dict) -> dict:
+    values = doc.get("values", {})
+    keys = ("output_on", "output_off", "output_on_replies", "output_off_replies")
+    _check_keys(source, "values", values, keys)
+    out = {"output_on": "ON", "output_off": "OFF", "output_on_replies": ("1", "ON"),
+           "output_off_replies": ("0", "OFF")}
+    for key in ("output_on", "output_off"):
+        if key in values:
+            if not isinstance(values[key], str) or not values[key]:
+                raise _fail(source, f"[values] {key}", "expected a non-empty string")
+            out[key] = values[key]
+    for key in ("output_on_replies", "output_off_replies"):
+        if key in values:
+            out[key] = _strings(source, f"[values] {key}", values[key])
+    overlap = {v.upper() for v in out["output_on_replies"]} & {
+        v.upper() for v in out["output_off_replies"]}
+    if overlap:
+        raise _fail(source, "[values] output_off_replies",
+                    f"words both on and off: {sorted(overlap)}")
+    return out
+
+
+def builtin_profiles() -> list[str]:
+    """Names of the profiles shipped in drivers/profiles/."""
+    return sorted(p.stem for p in PROFILE_DIR.glob("*.toml"))
+
+
+def load_profile(path_or_name: str | Path) -> Profile:
+    """Load and validate a profile from a file path, or a built-in one by name.
+
+    A string without a path separator or ``.toml`` suffix that is not an existing
+    file is looked up among :func:`builtin_profiles`.
+    """
+    path = Path(path_or_name)
+    if not path.is_file():
+        text = str(path_or_name)
+        if "/" not in text and "\\" not in text:
+            candidate = PROFILE_DIR / (text if text.endswith(".toml") else text + ".toml")
+            if candidate.is_file():
+                path = candidate
+        if not path.is_file():
+            names = ", ".join(builtin_profiles()) or "none"
+            raise ProfileError(f"{path_or_name}: no such profile file, and no built-in "
+                               f"profile of that name (built-in: {names})")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as err:
+        raise ProfileError(f"{path}: cannot read: {err}") from err
+    return parse_profile(text, source=str(path))

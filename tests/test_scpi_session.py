@@ -1,0 +1,220 @@
+"""ScpiSession: exact bytes, error policies, error translation and recovery.
+
+The IEEE 488.2 common commands used (*IDN?, *OPC?, *CLS) are from IEEE Std 488.2-1992,
+clause 10; the error queue query SYST:ERR? and its '0,"No error"' end marker from
+SCPI-1999 Vol. 1, 21.8.
+"""
+
+import time
+
+import numpy as np
+import pytest
+from pyvisa.errors import VisaIOError
+
+from tankside.drivers import ieee488
+from tankside.drivers.errors import (
+    ConnectionLost,
+    InstrumentReportedError,
+    InstrumentTimeout,
+    ProtocolError,
+)
+from tankside.drivers.scpi import ScpiSession
+from tankside.drivers.visa import open_resource
+from tests.tcp_fixture import LineServer
+from tests.transcript import CLEAR, FakeResource, Late
+
+IDN = b"Tankside Labs,Bench Digitiser,0001,1.0\n"
+NO_ERROR = (b"SYST:ERR?\n", b'0,"No error"\n')
+
+
+class TestTranscript:
+    def test_write_query_identify(self):
+        with FakeResource([(b"*RST\n", None), (b"VOLT?\n", b"1.5\n"), (b"*IDN?\n", IDN)]) as fake:
+            s = ScpiSession(fake)
+            s.write("*RST")
+            assert s.query("VOLT?") == "1.5"
+            assert s.identify() == IDN.decode().strip()
+            assert s.identity == s.identify.__self__.identity
+
+    def test_opc_and_clear(self):
+        with FakeResource([(b"*OPC?\n", b"1\n"), (b"*CLS\n", None)]) as fake:
+            s = ScpiSession(fake)
+            s.opc()
+            s.clear()
+
+    def test_opc_wrong_reply(self):
+        with FakeResource([(b"*OPC?\n", b"0\n")]) as fake, pytest.raises(ProtocolError):
+            ScpiSession(fake).opc()
+
+    def test_drain_errors_reads_until_zero(self):
+        steps = [(b"SYST:ERR?\n", b'-113,"Undefined header"\n'),
+                 (b"SYST:ERR?\n", b'-222,"Data out of range"\n'), NO_ERROR]
+        with FakeResource(steps) as fake:
+            assert ScpiSession(fake).drain_errors() == [(-113, "Undefined header"),
+                                                        (-222, "Data out of range")]
+
+    def test_policy_raise(self):
+        steps = [(b"RANG 9\n", None), (b"SYST:ERR?\n", b'-222,"Data out of range"\n'), NO_ERROR]
+        with FakeResource(steps) as fake:
+            with pytest.raises(InstrumentReportedError) as info:
+                ScpiSession(fake).write_step("RANG 9")
+        assert (info.value.code, info.value.description, info.value.command) == (
+            -222, "Data out of range", "RANG 9")
+
+    def test_policy_record(self):
+        steps = [(b"RANG 9\n", None), (b"SYST:ERR?\n", b'-222,"Data out of range"\n'), NO_ERROR]
+        with FakeResource(steps) as fake:
+            s = ScpiSession(fake, error_policy="record")
+            assert s.write_step("RANG 9") == [(-222, "Data out of range")]
+        assert [e.code for e in s.recorded_errors] == [-222]
+
+    def test_policy_ignore(self):
+        steps = [(b"RANG 9\n", None), (b"SYST:ERR?\n", b'-222,"Data out of range"\n'), NO_ERROR]
+        with FakeResource(steps) as fake:
+            s = ScpiSession(fake, error_policy="ignore")
+            s.write_step("RANG 9")
+        assert s.recorded_errors == []
+
+    def test_bad_policy(self):
+        with pytest.raises(ValueError):
+            ScpiSession(FakeResource([]), error_policy="log")
+
+    def test_block_with_many_newlines(self):
+        payload = np.full(1000, 0x0A0A, dtype="<i2").tobytes()
+        with FakeResource([(b"WAV?\n", ieee488.encode_block(payload) + b"\n")]) as fake:
+            assert ScpiSession(fake).query_block("WAV?") == payload
+            assert fake.termchar_enabled  # switched back on after the block
+
+    def test_timeout_is_typed_and_chained(self):
+        with FakeResource([(b"VOLT?\n", None)]) as fake:
+            s = ScpiSession(fake)
+            with pytest.raises(InstrumentTimeout) as info:
+                s.query("VOLT?")
+        assert isinstance(info.value.__cause__, VisaIOError)
+        assert s.needs_resync and s.counts["timeouts"] == 1
+
+    def test_late_reply_is_discarded_by_resync(self):
+        # The reply to VOLT? arrives after its timeout; the next query must not take it.
+        steps = [(b"*IDN?\n", IDN), (b"VOLT?\n", Late(b"1.5\n")), CLEAR, (b"*IDN?\n", IDN),
+                 (b"FREQ?\n", b"2000000\n")]
+        with FakeResource(steps) as fake:
+            s = ScpiSession(fake)
+            s.identify()
+            with pytest.raises(InstrumentTimeout):
+                s.query("VOLT?")
+            assert s.query("FREQ?") == "2000000"
+        assert s.counts["resyncs"] == 1 and not s.needs_resync
+
+    def test_protocol_error_sets_resync(self):
+        steps = [(b"WAV?\n", b"garbage\n"), CLEAR, (b"*IDN?\n", IDN), (b"*OPC?\n", b"1\n")]
+        with FakeResource(steps) as fake:
+            s = ScpiSession(fake)
+            with pytest.raises(ProtocolError):
+                s.query_block("WAV?")
+            s.opc()
+        assert s.identity == IDN.decode().strip()
+
+    def test_write_on_closed_link(self):
+        fake = FakeResource([])
+        fake.closed = True
+        with pytest.raises(ConnectionLost) as info:
+            ScpiSession(fake).write("*RST")
+        assert isinstance(info.value.__cause__, VisaIOError)
+
+    def test_reopen_runs_hooks(self):
+        first = FakeResource([])
+        second = FakeResource([(b"ACQ:POIN 100\n", None)])
+        s = ScpiSession(first, reopen=lambda: second)
+        s.add_reopen_hook(lambda: s.write("ACQ:POIN 100"))
+        s.reopen()
+        assert first.closed and s.resource is second and s.counts["reopens"] == 1
+        second.verify()
+
+    def test_reopen_without_factory(self):
+        with pytest.raises(ConnectionLost):
+            ScpiSession(FakeResource([])).reopen()
+
+    def test_recover_falls_back_to_reopen(self):
+        first = FakeResource([CLEAR, (b"*IDN?\n", None)])
+        second = FakeResource([])
+        s = ScpiSession(first, reopen=lambda: second, resync_timeout_s=0.2)
+        assert s.recover() == "reopen"
+        assert s.resource is second
+        first.verify()
+
+
+class TestOverTcp:
+    """The same session over a real socket with pyvisa-py."""
+
+    def test_connection_refused(self):
+        server = LineServer(lambda line: None)
+        resource = server.resource
+        server.close()
+        t0 = time.monotonic()
+        with pytest.raises(ConnectionLost):
+            open_resource(resource, timeout_s=1.0)
+        assert time.monotonic() - t0 < 3.0
+
+    def test_bad_library(self):
+        with pytest.raises(ConnectionLost):
+            open_resource("TCPIP0::127.0.0.1::1::SOCKET", visa_library="/no/such/visa.so")
+
+    def test_block_and_queries(self):
+        payload = np.arange(-5000, 5000, dtype="<i2").tobytes()  # contains 0x0A bytes
+
+        def handler(line):
+            return {b"*IDN?": IDN, b"WAV?": ieee488.encode_block(payload) + b"\n",
+                    b"SYST:ERR?": b'0,"No error"\n'}.get(line)
+
+        with LineServer(handler) as server:
+            s = ScpiSession.open(server.resource, timeout_s=2.0)
+            assert s.identify() == IDN.decode().strip()
+            assert s.query_block("WAV?") == payload
+            assert s.drain_errors() == []
+            assert s.query_block("WAV?") == payload
+            s.close()
+
+    def test_short_block_times_out_within_timeout(self):
+        def handler(line):
+            return {b"*IDN?": IDN, b"WAV?": b"#3100" + b"x" * 50 + b"\n"}.get(line)
+
+        with LineServer(handler) as server:
+            s = ScpiSession.open(server.resource, timeout_s=0.3)
+            t0 = time.monotonic()
+            with pytest.raises(InstrumentTimeout):
+                s.query_block("WAV?")
+            assert time.monotonic() - t0 < 1.5
+            assert s.identify() == IDN.decode().strip()  # resynchronised first
+            s.close()
+
+    def test_stalled_reply_then_resync(self):
+        def stall(conn):
+            time.sleep(0.6)
+            conn.sendall(b"1.25\n")
+
+        def handler(line):
+            return {b"*IDN?": IDN, b"VOLT?": stall, b"FREQ?": b"3\n"}.get(line)
+
+        with LineServer(handler) as server:
+            s = ScpiSession.open(server.resource, timeout_s=0.2)
+            s.identify()
+            with pytest.raises(InstrumentTimeout):
+                s.query("VOLT?")
+            assert s.query("FREQ?") == "3"  # not the late "1.25"
+            s.close()
+
+    def test_dropped_connection_and_reopen(self):
+        def handler(line):
+            if line == b"DROP?":
+                return lambda conn: "closed"
+            return {b"*IDN?": IDN}.get(line)
+
+        with LineServer(handler) as server:
+            s = ScpiSession.open(server.resource, timeout_s=0.3)
+            s.identify()
+            with pytest.raises(ConnectionLost):
+                s.query("DROP?")
+            assert s.recover() == "reopen"
+            assert s.query("*IDN?") == IDN.decode().strip()
+            assert server.connections == 2
+            s.close()
