@@ -8,8 +8,10 @@ Results CSV
     ``true``/``false``; a field without a value (conversion failed) is empty.
 
 Trace CSV
-    ``time_s,voltage_v``, the form ``tankside convert`` reads: sample times relative
-    to the trigger and volts (``codes * volts_per_code + offset_v``), both float64.
+    ``time_s,voltage_v``, the form ``tankside convert`` reads, written by
+    :func:`tankside.monitor.tracefile.write_trace`: sample times relative to the trigger
+    and volts (``codes * volts_per_code + offset_v``), with ``#`` comment lines naming
+    the session, the trace and its exact time step.
 
 Calibration
     The recorded calibration file, verbatim (a UTF-8 byte-order mark is restored when
@@ -94,18 +96,16 @@ def export_results_csv(reader: SessionReader, out, *, progress: bool | None = No
     return rows
 
 
-def write_trace_csv(out, times_s: np.ndarray, voltage_v: np.ndarray) -> None:
-    """Write a ``time_s,voltage_v`` CSV with float64 values that read back exactly."""
-    with open(out, "w", newline="", encoding="utf-8") as fh:
-        fh.write("time_s,voltage_v\n")
-        fh.writelines(f"{t!r},{v!r}\n" for t, v in zip(times_s.tolist(), voltage_v.tolist(),
-                                                       strict=True))
-
-
 def export_trace_csv(reader: SessionReader, seq: int, out) -> int:
     """Write trace ``seq`` in volts as ``time_s,voltage_v``; returns the sample count."""
+    from tankside.monitor.tracefile import write_trace
+
     raw = reader.trace(seq).raw
-    write_trace_csv(out, raw.times(), raw.volts())
+    write_trace(out, raw.volts(), raw.dt_s, raw.t0_s, comments=[
+        f"trace {raw.seq} of session {reader.path.name} ({reader.start['session_uid']})",
+        f"acquired at {raw.time_s!r} s since the Unix epoch; dt_s = {raw.dt_s!r}",
+        f"range {raw.range_v!r} V, {raw.clipped} samples at the rails; codes as sent are "
+        "in the session file"])
     return raw.n
 
 

@@ -16,6 +16,7 @@ from tankside.monitor.cli import EXIT_OK, EXIT_USAGE, main
 from tankside.monitor.export import RESULTS_CSV_COLUMNS
 from tankside.monitor.store import SessionReader, SessionStore, session_metadata
 from tankside.monitor.store_schema import RESULT_NAMES
+from tankside.monitor.tracefile import read_trace
 
 
 @pytest.fixture
@@ -58,14 +59,20 @@ class TestResultsCsv:
 
 
 class TestTraceCsv:
-    def test_volts_exact(self, session, tmp_path):
+    def test_volts_read_back(self, session, tmp_path):
         path, raws = session
         out = tmp_path / "t.csv"
         assert main(["export", str(path), "--trace", "3", "--out", str(out)]) == EXIT_OK
-        data = np.loadtxt(out, delimiter=",", skiprows=1)
-        assert out.read_text().splitlines()[0] == "time_s,voltage_v"
-        np.testing.assert_array_equal(data[:, 0], raws[3].times())
-        np.testing.assert_array_equal(data[:, 1], raws[3].volts())
+        lines = [ln for ln in out.read_text().splitlines() if not ln.startswith("#")]
+        assert lines[0] == "time_s,voltage_v"
+        data = np.array([[float(x) for x in ln.split(",")] for ln in lines[1:]])
+        # printed to 12 and 9 significant digits, far finer than one ADC step
+        np.testing.assert_allclose(data[:, 0], raws[3].times(), rtol=1e-11, atol=0)
+        np.testing.assert_allclose(data[:, 1], raws[3].volts(), rtol=1e-8, atol=0)
+        volts, dt_s, t0_s = read_trace(out)  # what `convert` reads
+        assert volts.shape == (2000,)
+        assert dt_s == pytest.approx(raws[3].dt_s, rel=1e-9)
+        assert t0_s == pytest.approx(raws[3].t0_s, rel=1e-11)
 
     def test_unknown_seq_is_one_line_error(self, session, tmp_path, capsys):
         path, _ = session
@@ -170,3 +177,31 @@ class TestHdf5:
                 np.testing.assert_array_equal(f["traces/codes"][s:s + c], raw.codes)
             assert [d.decode() for d in f["traces/dtype"][:]] == ["|i1", ">i2"]
         store.close("ok", "test", {})
+
+
+class TestProgress:
+    def test_drawn_when_forced_and_erased(self):
+        import io
+
+        from tankside.monitor.progress import Progress
+
+        now = [0.0]
+        stream = io.StringIO()
+        with Progress(4, "replay", stream=stream, enabled=True, clock=lambda: now[0]) as bar:
+            for _ in range(4):
+                now[0] += 1.0
+                bar.update()
+            assert bar.line() == "replay [" + "#" * 30 + "] 4/4 4 s"
+        text = stream.getvalue()
+        assert "\rreplay [" + "#" * 15 + "." * 15 + "] 2/4 2 s" in text
+        assert text.endswith("\r")  # erased at the end
+
+    def test_silent_off_a_terminal(self):
+        import io
+
+        from tankside.monitor.progress import Progress
+
+        stream = io.StringIO()  # not a TTY
+        with Progress(3, "export", stream=stream) as bar:
+            bar.update(3)
+        assert stream.getvalue() == ""
