@@ -318,6 +318,9 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
         for key in gen_rest:
             if key not in _GENERATOR_KEYS:
                 raise ConfigError(f"{source}: [generator] {key}: unknown key")
+        if ("burst_cycles" in gen_rest) != ("burst_period_s" in gen_rest):
+            raise ConfigError(f"{source}: [generator] burst_cycles and burst_period_s: "
+                              "give both or neither")
         gen = GeneratorConfig(**gen_conn, **gen_rest)
 
     cal = _section(data, "calibration", source, True)

@@ -342,6 +342,7 @@ class LiveSession:
     def _counts(self) -> dict:
         return {"acquired": self._acq.seq, "converted": self._converted,
                 "conversion_failed": self._failed, "stored": self._writer.stored,
+                "committed": self._writer.committed,
                 "clipped": self._clipped}
 
     def _request_stop(self, status: str, reason: str, message: str = "") -> None:

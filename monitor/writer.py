@@ -76,7 +76,8 @@ class Writer:
         self.counts = counts
         self.ready = threading.Event()
         self.store = None
-        self.stored = 0
+        self.stored = 0             # traces written (committed or not)
+        self.committed = 0          # traces known durable (at the last commit)
         self.error: StoreError | None = None
         self.open_error: BaseException | None = None
         self.closed = False
@@ -92,6 +93,7 @@ class Writer:
     def _commit_maybe(self) -> None:
         if self.store.maybe_commit():
             self._oldest_uncommitted_s = None
+            self.committed = self.stored
 
     def size_bytes(self) -> int:
         store = self.store
@@ -125,6 +127,7 @@ class Writer:
                 self._commit_maybe()
             self.store.commit()
             self._oldest_uncommitted_s = None
+            self.committed = self.stored
             if close is not None:
                 self.store.close(close.exit_status, close.reason, close.counts())
                 self.closed = True

@@ -1,0 +1,213 @@
+"""``tankside watch``: a live session on the bench described by a bench file."""
+
+from __future__ import annotations
+
+import argparse
+import signal
+import sys
+import tomllib
+from pathlib import Path
+
+from tankside.monitor.errors import ConfigError
+
+EPILOG = """\
+exit codes:
+  0  stopped as asked (duration, trace count, Ctrl-C, SIGTERM, q in the dashboard)
+  1  stopped by an alert rule whose actions include "stop"
+  2  bad bench file or setting, or an instrument that cannot be reached at the start
+  3  an instrument lost during the session that could not be reconnected
+  4  the session file could not be written (disk full, permissions); committed data intact
+
+The session file records why and how the session ended; a file without that record
+was not stopped cleanly (killed or crashed), and every committed trace in it is readable.
+"""
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser(
+        "watch", help="live session: acquire, convert to pressure, alert, record",
+        description=("Acquire every trace from the digitiser of a bench file, convert it to "
+                     "pressure, check the alert rules, carry out their actions and record "
+                     "everything in a session file. Shows the dashboard unless --headless."),
+        epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--bench", required=True, metavar="BENCH.toml",
+                   help="bench file describing instruments, calibration, limits and the "
+                        "session folder")
+    p.add_argument("--session", metavar="FILE.db",
+                   help="new session file (default: session-DATE-TIME.db in the bench "
+                        "file's session folder); must not exist")
+    stop = p.add_mutually_exclusive_group()
+    stop.add_argument("--duration", type=float, metavar="S",
+                      help="stop after S seconds (default: run until stopped)")
+    stop.add_argument("--traces", type=int, metavar="N", help="stop after N traces")
+    p.add_argument("--headless", action="store_true",
+                   help="no dashboard: print a status line every few seconds and every alert")
+    p.add_argument("--status-every", type=float, default=2.0, metavar="S",
+                   help="headless status line interval, s (default 2)")
+
+    o = p.add_argument_group("overrides of the bench file")
+    o.add_argument("--digitiser", metavar="RESOURCE",
+                   help="digitiser VISA resource, e.g. TCPIP0::192.168.1.20::5025::SOCKET")
+    o.add_argument("--digitiser-profile", metavar="NAME|FILE",
+                   help="digitiser profile: built-in name or TOML file")
+    o.add_argument("--range", type=float, metavar="V", dest="range_v",
+                   help="starting vertical range, full-scale span peak to peak, V")
+    o.add_argument("--generator", metavar="RESOURCE", help="generator VISA resource")
+    o.add_argument("--generator-profile", metavar="NAME|FILE",
+                   help="generator profile: built-in name or TOML file")
+    o.add_argument("--no-generator", action="store_true",
+                   help="ignore the bench file's generator (safe-off is then unavailable)")
+    o.add_argument("--calibration", metavar="CAL.csv", help="hydrophone calibration file")
+    o.add_argument("--hydrophone-capacitance", type=float, metavar="PF",
+                   help="hydrophone capacitance for the electrical-loading correction, pF")
+    o.add_argument("--cable-capacitance", type=float, metavar="PF",
+                   help="cable capacitance, pF")
+    o.add_argument("--preamp-gain", type=float, metavar="DB",
+                   help="preamplifier gain, dB")
+    o.add_argument("--method", choices=("auto", "deconvolve", "narrowband"),
+                   help="conversion method at the start (can be switched live)")
+    o.add_argument("--water-temperature", type=float, metavar="C",
+                   help="water temperature, degrees Celsius")
+    o.add_argument("--pressure-limit", type=float, metavar="PA",
+                   help="over-pressure alert limit, Pa (the lower of this and the rated "
+                        "maximum applies)")
+    o.add_argument("--rated-max", type=float, metavar="PA",
+                   help="hydrophone's rated maximum pressure, Pa")
+    o.add_argument("--alert", action="append", default=[], metavar="RULE.KEY=VALUE",
+                   help="set any alert setting, e.g. no_trigger.after_s=10 or "
+                        "'over_pressure.actions=[\"record\",\"safe-off\",\"stop\"]' "
+                        "(VALUE in TOML syntax; repeatable)")
+    p.set_defaults(func=run)
+
+
+def _abs(path: str) -> str:
+    # Paths on the command line are relative to the working folder, not the bench file's.
+    return str(Path(path).expanduser().resolve())
+
+
+def _profile(name: str) -> str:
+    p = Path(name).expanduser()
+    return str(p.resolve()) if (p.exists() or "/" in name or "\\" in name) else name
+
+
+def _parse_alert(text: str) -> tuple[str, object]:
+    key, sep, value = text.partition("=")
+    key = key.strip()
+    if not sep or "." not in key:
+        raise ConfigError(f"--alert {text!r}: expected RULE.KEY=VALUE")
+    try:
+        parsed = tomllib.loads(f"v = {value.strip()}")["v"]
+    except tomllib.TOMLDecodeError:
+        parsed = value.strip()      # a bare word such as warning
+    return f"alerts.{key}", parsed
+
+
+def overrides_from_args(args) -> dict:
+    """The ``section.key`` overrides given on the command line."""
+    o: dict = {}
+    if args.digitiser:
+        o["digitiser.resource"] = args.digitiser
+    if args.digitiser_profile:
+        o["digitiser.profile"] = _profile(args.digitiser_profile)
+    if args.range_v is not None:
+        o["digitiser.range_v"] = args.range_v
+    if args.no_generator:
+        o["generator"] = None
+    else:
+        if args.generator:
+            o["generator.resource"] = args.generator
+        if args.generator_profile:
+            o["generator.profile"] = _profile(args.generator_profile)
+    if args.calibration:
+        o["calibration.file"] = _abs(args.calibration)
+    if args.hydrophone_capacitance is not None:
+        o["loading.hydrophone_capacitance_f"] = args.hydrophone_capacitance * 1e-12
+    if args.cable_capacitance is not None:
+        o["loading.cable_capacitance_f"] = args.cable_capacitance * 1e-12
+    if args.preamp_gain is not None:
+        o["loading.preamp_gain_db"] = args.preamp_gain
+    if args.method:
+        o["conversion.method"] = args.method
+    if args.water_temperature is not None:
+        o["water.temperature_c"] = args.water_temperature
+    if args.pressure_limit is not None:
+        o["alerts.over_pressure.limit_pa"] = args.pressure_limit
+    if args.rated_max is not None:
+        o["alerts.over_pressure.rated_max_pa"] = args.rated_max
+    for text in args.alert:
+        key, value = _parse_alert(text)
+        o[key] = value
+    return o
+
+
+def _first_run(folder: Path, current: Path) -> bool:
+    """True when the session folder holds no earlier session (show the caution)."""
+    try:
+        return not any(p != current for p in folder.glob("*.db"))
+    except OSError:
+        return True
+
+
+def run(args) -> int:
+    from tankside.monitor.benchfile import load_bench
+    from tankside.monitor.headless import run_headless
+    from tankside.monitor.pipeline import LiveSession
+
+    if args.duration is not None and args.duration <= 0:
+        raise ConfigError("--duration must be above 0 s")
+    if args.traces is not None and args.traces < 1:
+        raise ConfigError("--traces must be at least 1")
+    bench = load_bench(args.bench, overrides_from_args(args))
+
+    dashboard = None
+    if not args.headless:
+        try:
+            from tankside.monitor.dashboard.app import run_dashboard as dashboard
+        except ImportError as err:
+            print(f"tankside: dashboard not available ({err}); running headless",
+                  file=sys.stderr)
+    headless = dashboard is None
+
+    def bell() -> None:
+        sys.stdout.write("\a")
+        sys.stdout.flush()
+
+    session = LiveSession.from_bench(
+        bench, session_path=_abs(args.session) if args.session else None,
+        max_traces=args.traces, duration_s=args.duration, bell=bell if headless else None)
+    first_run = _first_run(session.session_path.parent, session.session_path)
+
+    def on_term(signum, frame):
+        session.stop(f"signal {signal.Signals(signum).name}")
+
+    try:
+        previous = signal.signal(signal.SIGTERM, on_term)
+    except ValueError:          # not the main thread (embedded use): no handler to install
+        previous = None
+    try:
+        session.start()
+        print(f"tankside: recording to {session.session_path}", file=sys.stderr, flush=True)
+        if headless:
+            if first_run:
+                print("CAUTION: high-power ultrasound, high drive voltages and cavitation can "
+                      "hurt people and destroy hydrophones; safe-off is a convenience, never "
+                      "the only interlock.", flush=True)
+            code = run_headless(session, status_every_s=args.status_every)
+        else:
+            try:
+                code = dashboard(session, first_run_notice=first_run)
+            finally:
+                if session.running:
+                    session.stop("dashboard closed")
+                session.wait()
+            code = session.exit_code if session.exit_code else code
+    except KeyboardInterrupt:
+        session.stop("interrupted (Ctrl-C)")
+        session.wait()
+        code = session.exit_code
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+    if session.message_for_operator:
+        print(f"tankside: {session.message_for_operator}", file=sys.stderr)
+    return int(code)

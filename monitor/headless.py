@@ -1,0 +1,97 @@
+"""Headless display of a live session: a status line every few seconds, and every alert.
+
+Plain text on stdout, one line per item, so that it reads well in a log file or over
+ssh. It reads :meth:`LiveSession.snapshot` like the dashboard does, and never waits
+on the pipeline.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+import time
+from typing import TextIO
+
+from tankside.monitor.snapshot import AlertView, Snapshot
+
+
+def fmt_si(value: float, unit: str) -> str:
+    """``1.23 MPa``-style text with an SI prefix (k, M, G; m, u below 1)."""
+    if value is None or not math.isfinite(value):
+        return f"- {unit}".strip()
+    size = abs(value)
+    for factor, prefix in ((1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"),
+                           (1e-6, "u")):
+        if size >= factor:
+            return f"{value / factor:.3g} {prefix}{unit}".strip()
+    return f"{value:.3g} {unit}".strip()
+
+
+def status_line(snap: Snapshot, alert_count: int | None = None) -> str:
+    """One line: seq, rate, p_c/p_r/MI of the last trace, narrowband, counts, queue."""
+    r = snap.result or {}
+    if snap.narrowband_ok is None:
+        nb = "narrowband -"
+    else:
+        dev = snap.narrowband_max_deviation_db
+        dev_txt = f" {dev:.2g} dB" if math.isfinite(dev) else ""
+        nb = f"narrowband {'ok' if snap.narrowband_ok else 'FAIL'}{dev_txt}"
+    mi = r.get("mechanical_index", math.nan)
+    mi_txt = f"{mi:.3g}" if isinstance(mi, int | float) and math.isfinite(mi) else "-"
+    alerts = len(snap.alerts) if alert_count is None else alert_count
+    return (f"[{snap.state}] seq {snap.seq} | {snap.traces_per_s:.1f} tr/s | "
+            f"p_c {fmt_si(r.get('peak_compressional_pa', math.nan), 'Pa')} "
+            f"p_r {fmt_si(r.get('peak_rarefactional_pa', math.nan), 'Pa')} MI {mi_txt} | "
+            f"{snap.method or '-'} | {nb} | acquired {snap.acquired} converted "
+            f"{snap.converted} stored {snap.stored} | queue {snap.queue_depth}/"
+            f"{snap.queue_capacity} | range {fmt_si(snap.range_v, 'V')} | alerts {alerts}")
+
+
+def alert_line(alert: AlertView) -> str:
+    stamp = time.strftime("%H:%M:%S", time.localtime(alert.time_s)) \
+        if math.isfinite(alert.time_s) else "--:--:--"
+    seq = f" seq {alert.seq}" if alert.seq is not None else ""
+    return (f"ALERT {stamp} {alert.severity.upper()} {alert.rule}{seq}: {alert.message} "
+            f"[{', '.join(alert.actions)}]")
+
+
+def run_headless(session, *, out: TextIO | None = None, status_every_s: float = 2.0,
+                 poll_s: float = 0.1) -> int:
+    """Print status and alerts until the session ends; returns its exit code.
+
+    Ctrl-C asks the session to stop cleanly and keeps printing until it has.
+    """
+    out = sys.stdout if out is None else out
+    seen: set[int] = set()
+    alert_total = 0
+    next_status = time.monotonic()
+
+    def show(final: bool = False) -> None:
+        nonlocal alert_total, next_status
+        snap = session.snapshot()
+        for alert in snap.alerts:
+            if alert.alert_id not in seen:
+                seen.add(alert.alert_id)
+                alert_total += 1
+                print(alert_line(alert), file=out, flush=True)
+        if final or time.monotonic() >= next_status:
+            next_status = time.monotonic() + status_every_s
+            print(status_line(snap, alert_total), file=out, flush=True)
+
+    while True:
+        try:
+            if session.wait(poll_s):
+                break
+            show()
+        except KeyboardInterrupt:
+            print("stopping (Ctrl-C) ...", file=out, flush=True)
+            session.stop("interrupted (Ctrl-C)")
+    show(final=True)
+    snap = session.snapshot()
+    if session.exit_status == "store-error":
+        where = f"traces committed before the error are intact in {snap.session_path}"
+    else:
+        where = f"{snap.stored} traces in {snap.session_path}"
+    print(f"session stopped: {session.exit_status or 'completed'}: "
+          f"{session.stop_reason or '-'}; {where}", file=out, flush=True)
+    return session.exit_code

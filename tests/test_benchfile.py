@@ -1,0 +1,148 @@
+"""The bench file: validation with messages naming file and key, paths, overrides."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from tankside.monitor.benchfile import load_bench, merge_overrides
+from tankside.monitor.errors import ConfigError
+
+CAL_TEXT = Path(__file__).resolve().parents[1] / "simulators" / "data" / "demo-hydrophone.csv"
+
+GOOD = """
+[digitiser]
+resource = "TCPIP0::127.0.0.1::5025::SOCKET"
+profile = "dig.toml"
+record_length = 2000
+sample_rate_hz = 250e6
+range_v = 0.5
+trigger_timeout_s = 1.5
+
+[generator]
+resource = "TCPIP0::127.0.0.1::5026::SOCKET"
+profile = "gen.toml"
+amplitude_vpp = 2.0
+
+[calibration]
+file = "cal/hydrophone.csv"
+
+[loading]
+hydrophone_capacitance_f = 100e-12
+
+[conversion]
+method = "narrowband"
+
+[water]
+temperature_c = 22.5
+
+[alerts.over_pressure]
+limit_pa = 2.0e6
+
+[session]
+folder = "runs"
+queue_capacity = 8
+"""
+
+
+def write(tmp_path, text, name="bench.toml"):
+    (tmp_path / "dig.toml").write_text("# placeholder\n")
+    (tmp_path / "gen.toml").write_text("# placeholder\n")
+    (tmp_path / "cal").mkdir(exist_ok=True)
+    (tmp_path / "cal" / "hydrophone.csv").write_text(CAL_TEXT.read_text())
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+class TestLoadBench:
+    def test_good_file_and_relative_paths(self, tmp_path):
+        bench = load_bench(write(tmp_path, GOOD))
+        assert bench.digitiser.resource == "TCPIP0::127.0.0.1::5025::SOCKET"
+        assert bench.digitiser.profile == str(tmp_path / "dig.toml")
+        assert bench.generator.profile == str(tmp_path / "gen.toml")
+        assert bench.generator.amplitude_vpp == 2.0
+        assert bench.calibration_path == tmp_path / "cal" / "hydrophone.csv"
+        assert bench.session_folder == tmp_path / "runs"
+        assert bench.trigger_timeout_s == 1.5
+        assert bench.queue_capacity == 8
+        assert bench.temperature_c == 22.5
+        settings = bench.digitiser_settings()
+        assert (settings.record_length, settings.range_v) == (2000, 0.5)
+        assert bench.loading().hydrophone_capacitance_f == 100e-12
+        assert bench.conversion_settings().method == "narrowband"
+        assert bench.alert_config().rules["over_pressure"].params["limit_pa"] == 2.0e6
+        assert bench.calibration().sha256
+        # The recorded configuration carries resolved paths, so it stands on its own.
+        assert bench.tables["calibration"]["file"] == str(tmp_path / "cal" / "hydrophone.csv")
+
+    def test_builtin_profile_name_is_kept(self, tmp_path):
+        text = GOOD.replace('profile = "dig.toml"', 'profile = "generic-scpi-digitiser"')
+        bench = load_bench(write(tmp_path, text))
+        assert bench.digitiser.profile == "generic-scpi-digitiser"
+
+    def test_generator_optional(self, tmp_path):
+        text = GOOD.split("[generator]")[0] + "[calibration]" + GOOD.split("[calibration]")[1]
+        assert load_bench(write(tmp_path, text)).generator is None
+
+    @pytest.mark.parametrize("text, words", [
+        (GOOD.replace('resource = "TCPIP0::127.0.0.1::5025::SOCKET"\n', "", 1),
+         "[digitiser] resource: missing"),
+        (GOOD.replace("range_v = 0.5", 'range_v = "big"'), "[digitiser]"),
+        (GOOD.replace("record_length = 2000", "record_lenght = 2000"),
+         "[digitiser] record_lenght: unknown key"),
+        (GOOD.replace("temperature_c = 22.5", "temperature_c = 95.0"),
+         "[water] temperature_c"),
+        (GOOD.replace("queue_capacity = 8", "queue_capacity = 0"),
+         "[session] queue_capacity"),
+        (GOOD.replace('method = "narrowband"', 'methd = "narrowband"'),
+         "[conversion] methd: unknown key"),
+        (GOOD.replace("limit_pa = 2.0e6", "limit_pascal = 2.0e6"), "limit_pascal"),
+        (GOOD.replace("[session]", "[sesion]"), "unknown section [sesion]"),
+        (GOOD.replace('file = "cal/hydrophone.csv"', ""), "[calibration] file: missing"),
+        (GOOD.replace("trigger_timeout_s = 1.5", "trigger_timeout_s = -1"),
+         "trigger_timeout_s"),
+        (GOOD.replace("amplitude_vpp = 2.0", "burst_cycles = 3"),
+         "burst_cycles and burst_period_s"),
+        ("[digitiser\nresource = 1", "not valid TOML"),
+    ])
+    def test_bad_values_name_file_and_key(self, tmp_path, text, words):
+        path = write(tmp_path, text)
+        with pytest.raises(ConfigError) as info:
+            bench = load_bench(path)
+            # Some problems only show when the object is built.
+            bench.digitiser_settings()
+            bench.conversion_settings()
+            bench.alert_config()
+        assert str(path) in str(info.value)
+        assert words in str(info.value)
+
+    def test_missing_files(self, tmp_path):
+        with pytest.raises(ConfigError, match="no such bench file"):
+            load_bench(tmp_path / "absent.toml")
+        bench = load_bench(write(tmp_path, GOOD.replace("cal/hydrophone.csv", "cal/none.csv")))
+        with pytest.raises(ConfigError, match=r"\[calibration\] file: no such file"):
+            bench.calibration()
+
+
+class TestOverrides:
+    def test_merge_sets_nested_and_removes(self):
+        data = {"digitiser": {"resource": "A"}, "generator": {"resource": "G"}}
+        merged = merge_overrides(data, {"digitiser.resource": "B", "generator": None,
+                                        "alerts.no_trigger.after_s": 3.0})
+        assert merged == {"digitiser": {"resource": "B"},
+                          "alerts": {"no_trigger": {"after_s": 3.0}}}
+        assert data["digitiser"]["resource"] == "A"   # the input is left alone
+
+    def test_overrides_apply_before_validation(self, tmp_path):
+        path = write(tmp_path, GOOD)
+        bench = load_bench(path, {"digitiser.resource": "TCPIP0::10.0.0.9::5025::SOCKET",
+                                  "digitiser.range_v": 1.0, "generator": None,
+                                  "conversion.method": "deconvolve"})
+        assert bench.digitiser.resource == "TCPIP0::10.0.0.9::5025::SOCKET"
+        assert bench.digitiser_settings().range_v == 1.0
+        assert bench.generator is None
+        assert bench.conversion_settings().method == "deconvolve"
+        with pytest.raises(ConfigError, match="temperature_c"):
+            load_bench(path, {"water.temperature_c": "warm"})
