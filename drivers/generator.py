@@ -93,9 +93,9 @@ class Generator:
         """Set the burst length in cycles and the burst repetition period, s."""
         if isinstance(cycles, bool) or not isinstance(cycles, int) or cycles < 1:
             raise SettingError(f"burst cycles must be an integer >= 1, got {cycles!r}")
+        period_s = _positive("burst period", period_s)
         self.session.write_step(self.profile.command("set_burst_cycles", cycles=cycles))
-        self.session.write_step(self.profile.command("set_burst_period",
-                                                     period_s=_positive("burst period", period_s)))
+        self.session.write_step(self.profile.command("set_burst_period", period_s=period_s))
 
     def burst(self) -> tuple[int, float]:
         """(cycles, period_s) (needs ``get_burst_cycles`` and ``get_burst_period``)."""

@@ -1,0 +1,150 @@
+"""Digitiser driver: the exact bytes each operation writes and the replies it accepts.
+
+Scaling relation volts = code * YINC + YOFF and sample i at XOR + i * XINC is the usual
+waveform-preamble convention of SCPI digitisers (common practice).
+"""
+
+import numpy as np
+import pytest
+
+from tankside.drivers import ieee488
+from tankside.drivers.digitiser import Digitiser, DigitiserSettings, decode_codes
+from tankside.drivers.errors import NoTrigger, ProtocolError, SettingError
+from tankside.drivers.profile import load_profile
+from tankside.drivers.scpi import ScpiSession
+from tests.transcript import CLEAR, FakeResource
+
+PROFILE = load_profile("generic-scpi-digitiser")
+OK = (b"SYST:ERR?\n", b'0,"No error"\n')
+IDN = b"Tankside Labs,Bench Digitiser,0001,1.0\n"
+
+
+def configure_steps(s: DigitiserSettings):
+    steps = []
+    for cmd in (f"ACQ:POIN {s.record_length}", f"ACQ:SRAT {s.sample_rate_hz}",
+                f"CHAN1:RANG {s.range_v}", f"CHAN1:OFFS {s.offset_v}",
+                f"CHAN1:COUP {s.coupling}", f"CHAN1:IMP {s.impedance_ohm}",
+                f"TRIG:SOUR {s.trigger_source}", f"TRIG:LEV {s.trigger_level_v}",
+                f"TRIG:SLOP {s.trigger_slope}", f"ACQ:AVER {s.averages}"):
+        steps += [(cmd.encode() + b"\n", None), OK]
+    return steps
+
+
+SETTINGS = DigitiserSettings(record_length=4, sample_rate_hz=1e8, range_v=0.5)
+CODES = np.array([-32768, -1, 10, 32767], dtype="<i2")
+SCALING = [(b"WAV:XINC?\n", b"1E-08\n"), (b"WAV:XOR?\n", b"-2.0E-06\n"),
+           (b"WAV:YINC?\n", b"1.52587890625E-05\n"), (b"WAV:YOFF?\n", b"0.001\n")]
+
+
+def acquire_steps(payload=None, polls=(b"0\n", b"1\n"), scaling=True):
+    payload = CODES.tobytes() if payload is None else payload
+    steps = [(b"INIT\n", None)] + [(b"ACQ:DONE?\n", p) for p in polls]
+    steps.append((b"WAV:DATA? CHAN1\n", ieee488.encode_block(payload) + b"\n"))
+    return steps + (SCALING if scaling else []) + [OK]
+
+
+def test_configure_exact_bytes():
+    with FakeResource(configure_steps(SETTINGS)) as fake:
+        dig = Digitiser(ScpiSession(fake), PROFILE)
+        dig.configure(SETTINGS)
+    assert dig.settings == SETTINGS and dig.skipped == ()
+
+
+def test_acquire_record():
+    with FakeResource(configure_steps(SETTINGS) + acquire_steps()) as fake:
+        dig = Digitiser(ScpiSession(fake), PROFILE, poll_interval_s=0)
+        dig.configure(SETTINGS)
+        raw = dig.acquire(5, trigger_timeout_s=1.0)
+    assert np.array_equal(raw.codes, CODES) and raw.codes.dtype == np.dtype("=i2")
+    assert (raw.dt_s, raw.t0_s, raw.volts_per_code, raw.offset_v) == (
+        1e-8, -2e-6, 1.52587890625e-05, 0.001)
+    assert (raw.clipped_low, raw.clipped_high) == (1, 1)
+    assert raw.seq == 5 and raw.range_v == 0.5 and raw.data_format == "int16"
+    assert raw.state["record_length"] == 4
+    np.testing.assert_allclose(raw.volts(), CODES * 1.52587890625e-05 + 0.001)
+
+
+def test_scaling_reused_until_range_changes():
+    steps = (configure_steps(SETTINGS) + acquire_steps(polls=(b"1\n",))
+             + acquire_steps(polls=(b"1\n",), scaling=False)
+             + [(b"CHAN1:RANG 1.0\n", None), OK] + acquire_steps(polls=(b"1\n",)))
+    with FakeResource(steps) as fake:
+        dig = Digitiser(ScpiSession(fake), PROFILE)
+        dig.configure(SETTINGS)
+        dig.acquire(0, trigger_timeout_s=1.0)
+        dig.acquire(1, trigger_timeout_s=1.0)
+        dig.set_range(1.0)
+        assert dig.acquire(2, trigger_timeout_s=1.0).range_v == 1.0
+
+
+def test_big_endian_codes(tmp_path):
+    text = open(PROFILE.source).read().replace(
+        'byte_order = "little"', 'byte_order = "big"')
+    path = tmp_path / "big.toml"
+    path.write_text(text)
+    profile = load_profile(path)
+    with FakeResource(configure_steps(SETTINGS)
+                      + acquire_steps(payload=CODES.astype(">i2").tobytes())) as fake:
+        dig = Digitiser(ScpiSession(fake), profile, poll_interval_s=0)
+        dig.configure(SETTINGS)
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+    assert np.array_equal(raw.codes, CODES)
+
+
+def test_no_trigger():
+    steps = configure_steps(SETTINGS) + [(b"INIT\n", None)] + [(b"ACQ:DONE?\n", b"0\n")] * 200
+    fake = FakeResource(steps)
+    dig = Digitiser(ScpiSession(fake), PROFILE, poll_interval_s=0.01)
+    dig.configure(SETTINGS)
+    with pytest.raises(NoTrigger):
+        dig.acquire(0, trigger_timeout_s=0.05)
+    assert fake.position < len(steps)  # it stopped polling at the deadline
+
+
+def test_wait_complete_timeout_is_no_trigger(tmp_path):
+    text = open(PROFILE.source).read().replace('acquisition_done = "ACQ:DONE?"', "")
+    path = tmp_path / "opc.toml"
+    path.write_text(text)
+    steps = configure_steps(SETTINGS) + [(b"INIT\n", None), (b"*OPC?\n", None),
+                                         CLEAR, (b"*IDN?\n", IDN), (b"*OPC?\n", b"1\n")]
+    with FakeResource(steps) as fake:
+        session = ScpiSession(fake)
+        dig = Digitiser(session, load_profile(path))
+        dig.configure(SETTINGS)
+        with pytest.raises(NoTrigger):
+            dig.acquire(0, trigger_timeout_s=0.05)
+        assert fake.timeout == 1000  # restored after the wait
+        session.opc()
+
+
+def test_range_not_in_profile():
+    dig = Digitiser(ScpiSession(FakeResource([])), PROFILE)
+    with pytest.raises(SettingError, match="not one of"):
+        dig.configure(SETTINGS.replace(range_v=0.3))
+    with pytest.raises(SettingError, match="configure"):
+        dig.set_range(0.5)
+
+
+def test_odd_payload_is_protocol_error():
+    with pytest.raises(ProtocolError):
+        decode_codes(b"\x00\x01\x02", np.dtype("<i2"))
+
+
+def test_reopen_reapplies_settings():
+    first = FakeResource(configure_steps(SETTINGS))
+    second = FakeResource(configure_steps(SETTINGS))
+    session = ScpiSession(first, reopen=lambda: second)
+    dig = Digitiser(session, PROFILE)
+    dig.configure(SETTINGS)
+    session.reopen()
+    first.verify()
+    second.verify()
+
+
+def test_settings_validated():
+    with pytest.raises(SettingError):
+        DigitiserSettings(record_length=0)
+    with pytest.raises(SettingError):
+        DigitiserSettings(sample_rate_hz=-1.0)
+    with pytest.raises(SettingError):
+        DigitiserSettings(averages=0)

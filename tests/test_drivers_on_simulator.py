@@ -1,0 +1,221 @@
+"""The drivers against the simulated instruments over real TCP with pyvisa-py.
+
+Every driver operation, every fault the simulator can inject, and recovery after a
+timeout. Values checked against the simulator's own state (read from the device model),
+not against numbers copied from the driver.
+"""
+
+import time
+
+import numpy as np
+import pytest
+
+from tankside.drivers.digitiser import Digitiser, DigitiserSettings
+from tankside.drivers.errors import (
+    ConnectionLost,
+    InstrumentReportedError,
+    InstrumentTimeout,
+    NoTrigger,
+    ProtocolError,
+    SettingError,
+)
+from tankside.drivers.generator import Generator
+from tankside.drivers.profile import load_profile
+from tankside.drivers.scpi import ScpiSession
+from tankside.simulators.bench import SimulatedBench
+
+SETTINGS = DigitiserSettings(record_length=2000, sample_rate_hz=250e6, range_v=0.1,
+                             trigger_source="EXT", trigger_level_v=1.0)
+
+
+@pytest.fixture
+def bench():
+    with SimulatedBench(seed=3, trigger_period_s=0.005) as b:
+        yield b
+
+
+def _digitiser(bench, *, timeout_s=2.0, **kw):
+    session = ScpiSession.open(bench.digitiser_resource, timeout_s=timeout_s,
+                               resync_timeout_s=5.0, **kw)
+    dig = Digitiser(session, load_profile(bench.digitiser_profile_path))
+    dig.configure(SETTINGS)
+    return dig
+
+
+def _generator(bench):
+    session = ScpiSession.open(bench.generator_resource, timeout_s=2.0)
+    return Generator(session, load_profile(bench.generator_profile_path))
+
+
+class TestDigitiser:
+    def test_identify_configure_acquire(self, bench):
+        dig = _digitiser(bench)
+        assert dig.identity == bench.digitiser.identity()
+        state = bench.digitiser.state
+        assert state.points == 2000 and state.trigger_source == "EXT"
+        assert state.channels[1].range_v == pytest.approx(0.1)
+        raw = dig.acquire(7, trigger_timeout_s=1.0)
+        assert raw.seq == 7 and raw.n == 2000 and raw.codes.dtype == np.int16
+        assert raw.codes.dtype.byteorder in ("=", "|", "<")
+        assert raw.dt_s == pytest.approx(4e-9)
+        # Peak of the default scene is about 37 mV (simulators/bench.py BENCH_DEFAULTS note).
+        assert 0.01 < np.abs(raw.volts()).max() < 0.05
+        assert raw.clipped == 0 and raw.range_v == pytest.approx(0.1)
+        assert abs(raw.time_s - time.time()) < 5
+        dig.session.close()
+
+    def test_codes_exactly_as_served(self, bench):
+        dig = _digitiser(bench)
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+        served = bench.digitiser._trace[0]  # the codes the model encoded for this block
+        assert np.array_equal(raw.codes, served)
+        dig.session.close()
+
+    def test_set_range_rescales_and_clips(self, bench):
+        dig = _digitiser(bench)
+        wide = dig.acquire(0, trigger_timeout_s=1.0)
+        dig.set_range(0.02)
+        assert bench.digitiser.state.channels[1].range_v == pytest.approx(0.02)
+        narrow = dig.acquire(1, trigger_timeout_s=1.0)
+        assert narrow.volts_per_code == pytest.approx(wide.volts_per_code * 0.2)
+        assert narrow.clipped > 0 and narrow.range_v == pytest.approx(0.02)
+        with pytest.raises(SettingError):
+            dig.set_range(0.03)
+        dig.session.close()
+
+    def test_reset(self, bench):
+        dig = _digitiser(bench)
+        dig.reset()
+        assert dig.settings is None
+        with pytest.raises(SettingError):
+            dig.acquire(0, trigger_timeout_s=0.1)
+        dig.session.close()
+
+    def test_big_endian_profile(self, bench, tmp_path):
+        # The same instrument set to send MSB first, described by a profile that says so.
+        text = bench.digitiser_profile_path.read_text().replace(
+            'byte_order = "little"', 'byte_order = "big"')
+        path = tmp_path / "sim-big.toml"
+        path.write_text(text)
+        session = ScpiSession.open(bench.digitiser_resource, timeout_s=2.0)
+        session.write_step("WAV:BORD MSBF")
+        dig = Digitiser(session, load_profile(path))
+        dig.configure(SETTINGS)
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+        assert np.array_equal(raw.codes, bench.digitiser._trace[0])
+        session.close()
+
+
+class TestGenerator:
+    def test_every_operation(self, bench):
+        gen = _generator(bench)
+        assert gen.identity == bench.generator.identity()
+        gen.set_amplitude(3.0)
+        assert gen.amplitude() == pytest.approx(3.0)
+        gen.set_frequency(2.0e6)
+        gen.set_burst(4, 0.02)
+        drive = bench.scene.drive
+        assert (drive.amplitude_vpp, drive.frequency_hz, drive.burst_cycles,
+                drive.burst_period_s) == pytest.approx((3.0, 2.0e6, 4, 0.02))
+        gen.set_output(False)
+        assert not gen.output_is_on() and not bench.scene.drive.output_on
+        gen.set_output(True)
+        assert gen.output_is_on()
+        gen.reset()
+        gen.session.close()
+
+    def test_out_of_range_amplitude_is_reported(self, bench):
+        gen = _generator(bench)
+        with pytest.raises(InstrumentReportedError) as info:
+            gen.set_amplitude(1000.0)
+        assert info.value.code == -222  # SCPI-1999 Vol. 2, 21.8: data out of range
+        gen.session.close()
+
+
+class TestFaults:
+    def test_dropped_connection_then_reopen_reapplies_settings(self, bench):
+        dig = _digitiser(bench, timeout_s=0.5)
+        bench.faults.drop_connection()
+        with pytest.raises(ConnectionLost):
+            dig.acquire(0, trigger_timeout_s=1.0)
+        bench.digitiser.state.points = 123  # forget, as a power-cycled instrument would
+        assert dig.recover() == "reopen"
+        assert bench.digitiser.state.points == 2000
+        assert dig.acquire(1, trigger_timeout_s=1.0).n == 2000
+        dig.session.close()
+
+    def test_stall_then_resync(self, bench):
+        dig = _digitiser(bench, timeout_s=0.3)
+        bench.faults.stall_next_reply(0.8)
+        t0 = time.monotonic()
+        with pytest.raises(InstrumentTimeout):
+            dig.acquire(0, trigger_timeout_s=1.0)
+        assert time.monotonic() - t0 < 1.0
+        assert dig.session.needs_resync
+        raw = dig.acquire(1, trigger_timeout_s=1.0)  # resynchronises first
+        assert raw.n == 2000 and dig.session.counts["resyncs"] == 1
+        assert np.array_equal(raw.codes, bench.digitiser._trace[0])
+        dig.session.close()
+
+    @pytest.mark.parametrize("kind", ["bad-digit", "bad-length"])
+    def test_malformed_block(self, bench, kind):
+        dig = _digitiser(bench)
+        bench.faults.malformed_next_block(kind)
+        with pytest.raises(ProtocolError):
+            dig.acquire(0, trigger_timeout_s=1.0)
+        assert dig.acquire(1, trigger_timeout_s=1.0).n == 2000
+        dig.session.close()
+
+    def test_short_block_times_out_within_timeout(self, bench):
+        dig = _digitiser(bench, timeout_s=0.3)
+        bench.faults.short_next_block(100)
+        t0 = time.monotonic()
+        with pytest.raises(InstrumentTimeout):
+            dig.acquire(0, trigger_timeout_s=1.0)
+        assert time.monotonic() - t0 < 1.5
+        assert dig.acquire(1, trigger_timeout_s=1.0).n == 2000
+        dig.session.close()
+
+    def test_short_block_then_close(self, bench):
+        dig = _digitiser(bench, timeout_s=0.3)
+        bench.faults.short_next_block(close=True)
+        with pytest.raises(ConnectionLost):
+            dig.acquire(0, trigger_timeout_s=1.0)
+        assert dig.recover() == "reopen"
+        assert dig.acquire(1, trigger_timeout_s=1.0).n == 2000
+        dig.session.close()
+
+    def test_missed_triggers(self, bench):
+        dig = _digitiser(bench)
+        bench.faults.miss_triggers(100)  # 100 periods of 5 ms = 0.5 s
+        t0 = time.monotonic()
+        with pytest.raises(NoTrigger):
+            dig.acquire(0, trigger_timeout_s=0.2)
+        assert 0.2 <= time.monotonic() - t0 < 1.0
+        dig.session.close()
+
+    def test_error_for_a_command_raise(self, bench):
+        bench.faults.report_error("ACQ:POIN", -222)
+        session = ScpiSession.open(bench.digitiser_resource, timeout_s=2.0)
+        dig = Digitiser(session, load_profile(bench.digitiser_profile_path))
+        with pytest.raises(InstrumentReportedError) as info:
+            dig.configure(SETTINGS)
+        assert info.value.code == -222 and info.value.command == "ACQ:POIN 2000"
+        session.close()
+
+    def test_error_for_a_command_record(self, bench):
+        bench.faults.report_error("TRIG:SOUR", -224, execute=True)
+        dig = _digitiser(bench, error_policy="record")
+        assert [(e.code, e.command) for e in dig.session.recorded_errors] == [
+            (-224, "TRIG:SOUR EXT")]
+        dig.session.close()
+
+    def test_error_for_a_query_times_out_and_recovers(self, bench):
+        # An unexecuted query gets no reply: a timeout, then the error in the queue.
+        dig = _digitiser(bench, timeout_s=0.3)
+        bench.faults.report_error("WAV:DATA?", -230)
+        with pytest.raises(InstrumentTimeout):
+            dig.acquire(0, trigger_timeout_s=1.0)
+        assert [code for code, _ in dig.session.drain_errors()] == [-230]
+        assert dig.acquire(1, trigger_timeout_s=1.0).n == 2000
+        dig.session.close()

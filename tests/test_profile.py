@@ -1,0 +1,92 @@
+"""Profile loading and validation: every error names the file and the key."""
+
+import pytest
+
+from tankside.drivers.errors import ProfileError
+from tankside.drivers.profile import PROFILE_DIR, builtin_profiles, load_profile, parse_profile
+
+TEMPLATE = (PROFILE_DIR / "generic-scpi-digitiser.toml").read_text()
+
+
+def edited(old: str, new: str) -> str:
+    assert old in TEMPLATE
+    return TEMPLATE.replace(old, new, 1)
+
+
+def test_builtin_by_name_and_path():
+    assert "generic-scpi-digitiser" in builtin_profiles()
+    by_name = load_profile("generic-scpi-digitiser")
+    by_path = load_profile(PROFILE_DIR / "generic-scpi-digitiser.toml")
+    assert by_name == by_path
+    assert by_name.kind == "digitiser" and by_name.ranges_v[0] == 0.02
+    assert by_name.command("set_range", channel=2, range_v=0.5) == "CHAN2:RANG 0.5"
+
+
+def test_simulator_profiles_load():
+    from tankside.simulators.bench import DIGITISER_PROFILE_PATH, GENERATOR_PROFILE_PATH
+
+    assert load_profile(DIGITISER_PROFILE_PATH).kind == "digitiser"
+    assert load_profile(GENERATOR_PROFILE_PATH).values["output_on"] == "ON"
+
+
+def test_unknown_name():
+    with pytest.raises(ProfileError, match="no-such-scope.*built-in"):
+        load_profile("no-such-scope")
+
+
+@pytest.mark.parametrize("old, new, where", [
+    ('\nkind = "digitiser"', '\nkind = "scope"', "[instrument] kind"),
+    ('set_range = "CHAN{channel}:RANG {range_v}"', 'set_range = "RANG {volts}"',
+     "[commands] set_range"),
+    ('arm_single = "INIT"', 'arm_singel = "INIT"', "[commands] arm_singel"),
+    ('arm_single = "INIT"', "", "[commands] arm_single"),
+    ('format = "int16"', 'format = "int12"', "[data] format"),
+    ('byte_order = "little"', 'byte_order = "middle"', "[data] byte_order"),
+    ("code_max = 32767", "code_max = 40000", "[data] code_min"),
+    ("code_max = 32767", "code_max = -40000", "[data] code_max"),
+    ("values_v = [0.02, 0.05,", "values_v = [0.05, 0.02,", "[ranges] values_v"),
+    ("values_v = [0.02,", 'values_v = ["x",', "[ranges] values_v"),
+    ("timeout_s = 5.0", "timeout_s = -1", "[transport] timeout_s"),
+    ("timeout_s = 5.0", "baud = 9600", "[transport] baud"),
+    ('get_offset = "WAV:YOFF?"', 'get_offset = "WAV:YOFF? {"', "[commands] get_offset"),
+    ('identify = "*IDN?"', "identify = 5", "[commands] identify"),
+    ("\n[ranges]\n", "\n[extras]\nx = 1\n[ranges]\n", "[top level] extras"),
+])
+def test_errors_name_file_and_key(old, new, where):
+    with pytest.raises(ProfileError) as info:
+        parse_profile(edited(old, new), source="my-scope.toml")
+    assert str(info.value).startswith(f"my-scope.toml: {where}:"), str(info.value)
+
+
+def test_needs_a_wait():
+    text = edited('acquisition_done = "ACQ:DONE?"', "").replace('wait_complete = "*OPC?"', "")
+    with pytest.raises(ProfileError, match="acquisition_done"):
+        parse_profile(text, source="p.toml")
+
+
+def test_not_toml(tmp_path):
+    path = tmp_path / "broken.toml"
+    path.write_text("[instrument\nkind=")
+    with pytest.raises(ProfileError, match="broken.toml: not valid TOML"):
+        load_profile(path)
+
+
+def test_generator_defaults_and_checks():
+    base = """[instrument]\nkind = "generator"\n[commands]\nidentify = "*IDN?"
+set_output = "OUTP {state}"\nget_output = "OUTP?"\nset_amplitude = "VOLT {amplitude_vpp}"
+get_amplitude = "VOLT?"\nset_frequency = "FREQ {frequency_hz}"
+set_burst_cycles = "BURS:NCYC {cycles}"\nset_burst_period = "BURS:PER {period_s}"\n"""
+    profile = parse_profile(base, source="g.toml")
+    assert profile.values["output_on_replies"] == ("1", "ON")
+    with pytest.raises(ProfileError, match=r"g.toml: \[commands\] set_output"):
+        parse_profile(base.replace("OUTP {state}", "OUTP {range_v}"), source="g.toml")
+    with pytest.raises(ProfileError, match=r"\[top level\] data"):
+        parse_profile(base + '[data]\nformat = "int8"\n', source="g.toml")
+    with pytest.raises(ProfileError, match="both on and off"):
+        parse_profile(base + '[values]\noutput_off_replies = ["1"]\n', source="g.toml")
+
+
+def test_missing_command_at_use():
+    profile = parse_profile(edited('reset = "*RST"\n', ""), source="p.toml")
+    with pytest.raises(ProfileError, match=r"p.toml: \[commands\] reset"):
+        profile.command("reset")
