@@ -1,0 +1,183 @@
+"""Calibration loader: units, phase convention, minimum-phase estimate, typed errors."""
+
+import hashlib
+
+import numpy as np
+import pytest
+import scipy.signal
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from tankside.monitor.calibration import (
+    db_re_1v_per_upa_to_v_per_pa,
+    load_calibration,
+    minimum_phase_rad,
+    parse_calibration,
+    v_per_pa_to_db_re_1v_per_upa,
+)
+from tankside.monitor.errors import CalibrationError
+
+GOOD = """# invented test hydrophone
+frequency_hz,sensitivity_db_re_1v_per_upa,phase_deg
+1e6,-260,0
+2e6,-259,-10
+
+3e6,-258,-20
+"""
+
+
+class TestUnits:
+    def test_minus_260_db_is_100_nv_per_pa(self):
+        # dB re 1 V/uPa: 20 log10(M / (1 V/uPa)); 1 V/uPa = 1e6 V/Pa (IEC 60565 usage)
+        assert db_re_1v_per_upa_to_v_per_pa(-260.0) == pytest.approx(100e-9, rel=1e-12)
+        assert v_per_pa_to_db_re_1v_per_upa(100e-9) == pytest.approx(-260.0, abs=1e-9)
+
+    def test_db_column_parsed_to_v_per_pa(self):
+        cal = parse_calibration(GOOD)
+        assert cal.magnitude_v_per_pa[0] == pytest.approx(100e-9, rel=1e-12)
+        assert cal.magnitude_v_per_pa[2] == pytest.approx(100e-9 * 10 ** (2 / 20), rel=1e-12)
+        assert cal.phase_source == "measured"
+        assert cal.band_hz == (1e6, 3e6)
+
+    def test_columns_in_any_order_and_radians(self):
+        cal = parse_calibration("phase_rad,sensitivity_v_per_pa,frequency_hz\n"
+                                "0,1e-7,1e6\n-0.5,2e-7,2e6\n-1.0,3e-7,3e6\n")
+        np.testing.assert_allclose(cal.magnitude_v_per_pa, [1e-7, 2e-7, 3e-7])
+        np.testing.assert_allclose(cal.phase_rad, [0, -0.5, -1.0])
+
+
+class TestPhase:
+    def test_wrapped_delay_phase_is_unwrapped(self):
+        # convention: a pure delay tau has phase -360 f tau degrees (exp(+j w t))
+        tau = 0.3e-6  # 53 degrees per calibration step: unwrapping is unambiguous
+        f = np.linspace(1e6, 20e6, 40)
+        wrapped = (-360 * f * tau + 180) % 360 - 180
+        text = "frequency_hz,sensitivity_v_per_pa,phase_deg\n" + "\n".join(
+            f"{a},1e-7,{p}" for a, p in zip(f, wrapped, strict=True))
+        cal = parse_calibration(text)
+        np.testing.assert_allclose(np.rad2deg(cal.phase_rad), -360 * f * tau + wrapped[0]
+                                   - (-360 * f[0] * tau), atol=1e-9)
+
+    def test_convention_matches_numpy_rfft_of_a_delay(self):
+        # numpy.fft.rfft of a delayed impulse has phase -2 pi f tau: same sign convention
+        n, dt, k = 256, 1e-8, 5
+        x = np.zeros(n)
+        x[k] = 1.0
+        f = np.fft.rfftfreq(n, dt)[1:20]
+        measured = np.unwrap(np.angle(np.fft.rfft(x)))[1:20]
+        text = "frequency_hz,sensitivity_v_per_pa,phase_deg\n" + "\n".join(
+            f"{float(a)!r},1.0,{float(-360 * a * k * dt)!r}" for a in f)
+        np.testing.assert_allclose(parse_calibration(text).phase_rad, measured, atol=1e-9)
+
+    def test_minimum_phase_of_resonant_bandpass(self):
+        # reference: scipy.signal.freqs of a 2nd-order bandpass (zeros at s=0, LHP poles:
+        # minimum phase); estimate within 5 degrees over the calibrated band
+        wn, q = 2 * np.pi * 10e6, 2.0
+        f = np.linspace(1e6, 40e6, 79)
+        _, h = scipy.signal.freqs([wn / q, 0], [1, wn / q, wn**2], worN=2 * np.pi * f)
+        est = minimum_phase_rad(f, np.abs(h))
+        assert np.max(np.abs(np.rad2deg(est - np.unwrap(np.angle(h))))) < 5.0
+
+    def test_minimum_phase_of_first_order_lowpass(self):
+        # reference: scipy.signal.freqs of 1/(1 + s/wc); phase -atan(f/fc)
+        wc = 2 * np.pi * 5e6
+        f = np.linspace(0.1e6, 20e6, 100)
+        _, h = scipy.signal.freqs([1], [1 / wc, 1], worN=2 * np.pi * f)
+        est = minimum_phase_rad(f, np.abs(h))
+        assert np.max(np.abs(np.rad2deg(est - np.angle(h)))) < 2.5
+
+    def test_magnitude_only_file_says_minimum_phase(self):
+        cal = parse_calibration("frequency_hz,sensitivity_v_per_pa\n1e6,1e-7\n2e6,1e-7\n3e6,1e-7\n")
+        assert cal.phase_source == "minimum-phase"
+        # flat magnitude: minimum phase is zero
+        np.testing.assert_allclose(cal.phase_rad, 0.0, atol=1e-9)
+
+
+class TestFile:
+    def test_load_keeps_text_and_sha256(self, tmp_path):
+        path = tmp_path / "cal.csv"
+        path.write_bytes(GOOD.encode())
+        cal = load_calibration(path)
+        assert cal.text == GOOD
+        assert cal.sha256 == hashlib.sha256(GOOD.encode()).hexdigest()
+        assert cal.source == str(path)
+
+    def test_missing_file(self, tmp_path):
+        with pytest.raises(CalibrationError, match="cannot read"):
+            load_calibration(tmp_path / "absent.csv")
+
+    def test_not_utf8(self, tmp_path):
+        path = tmp_path / "cal.csv"
+        path.write_bytes(b"frequency_hz,sensitivity_v_per_pa\n\xff\xfe\n")
+        with pytest.raises(CalibrationError, match="UTF-8"):
+            load_calibration(path)
+
+
+HEADER = "frequency_hz,sensitivity_v_per_pa\n"
+
+
+@pytest.mark.parametrize(
+    ("text", "line", "words"),
+    [
+        ("", None, "empty"),
+        ("# only a comment\n\n", None, "empty"),
+        (HEADER + "1e6,1e-7\n3e6,1e-7\n2e6,1e-7\n", 4, "strictly increasing"),
+        (HEADER + "1e6,1e-7\n1e6,1e-7\n2e6,1e-7\n", 3, "strictly increasing"),
+        (HEADER + "1e6,1e-7\n2e6,0\n3e6,1e-7\n", 3, "positive"),
+        (HEADER + "1e6,1e-7\n2e6,-1e-7\n3e6,1e-7\n", 3, "positive"),
+        (HEADER + "1e6,1e-7\n2e6,nan\n3e6,1e-7\n", 3, "finite"),
+        (HEADER + "1e6,1e-7\n2e6,inf\n3e6,1e-7\n", 3, "finite"),
+        (HEADER + "1e6,1e-7\n2e6,abc\n3e6,1e-7\n", 3, "not a number"),
+        (HEADER + "1e6,1e-7\n2e6\n3e6,1e-7\n", 3, "fields"),
+        (HEADER + "1e6,1e-7\n2e6,1e-7\n", None, "too few points"),
+        ("sensitivity_v_per_pa\n1e-7\n1e-7\n1e-7\n", 1, "missing column"),
+        ("frequency_hz\n1\n2\n3\n", 1, "magnitude column"),
+        ("frequency_hz,sensitivity_v_per_pa,colour\n1,1,1\n", 1, "unknown column"),
+        ("frequency_hz,frequency_hz,sensitivity_v_per_pa\n", 1, "more than once"),
+        ("frequency_hz,sensitivity_v_per_pa,sensitivity_db_re_1v_per_upa\n", 1, "exactly one"),
+        ("frequency_hz,sensitivity_v_per_pa,phase_deg,phase_rad\n", 1, "not both"),
+        ("frequency_hz,sensitivity_v_per_pa,phase_deg\n1,1,0\n2,1,nan\n3,1,0\n", 3, "phase"),
+        (HEADER + "-1e6,1e-7\n2e6,1e-7\n3e6,1e-7\n", 2, ">= 0"),
+        ("frequency_hz,sensitivity_db_re_1v_per_upa\n1,-260\n2,-9000\n3,-260\n", 3, "positive"),
+    ],
+)
+def test_bad_files_name_line_and_problem(text, line, words):
+    with pytest.raises(CalibrationError) as info:
+        parse_calibration(text, source="bad.csv")
+    err = info.value
+    assert err.source == "bad.csv"
+    assert err.line == line
+    assert words in err.problem
+    assert str(err).startswith("bad.csv")
+
+
+_TOKENS = st.sampled_from([
+    "frequency_hz", "sensitivity_v_per_pa", "sensitivity_db_re_1v_per_upa", "phase_deg",
+    "phase_rad", "1e6", "2e6", "-1", "0", "nan", "inf", "-260", "1e-7", "x", "", " ",
+    "1e400", "#", "3e6", "1_0", "0x10",
+])
+_LINE = st.one_of(st.lists(_TOKENS, max_size=5).map(",".join), st.text(max_size=20))
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.lists(_LINE, max_size=8))
+def test_any_file_parses_or_gives_calibration_error(lines):
+    # property: the loader never fails with anything but its typed error
+    try:
+        cal = parse_calibration("\n".join(lines))
+    except CalibrationError:
+        return
+    assert np.all(np.diff(cal.frequency_hz) > 0)
+    assert np.all(np.isfinite(cal.sensitivity_v_per_pa))
+    assert np.all(np.abs(cal.sensitivity_v_per_pa) > 0)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.integers(0, len(GOOD) - 1), st.text(max_size=3), st.integers(0, 3))
+def test_mutated_good_file_parses_or_gives_calibration_error(pos, insert, cut):
+    # property: a good file with a few characters changed still gives only the typed error
+    text = GOOD[:pos] + insert + GOOD[pos + cut:]
+    try:
+        parse_calibration(text)
+    except CalibrationError:
+        pass

@@ -1,0 +1,186 @@
+"""Deconvolution round trips through analog hydrophone models built with scipy.signal."""
+
+import numpy as np
+import pytest
+import scipy.signal
+
+from tankside.monitor.calibration import parse_calibration
+from tankside.monitor.chain import RESULT_FIELDS, Converter, UnusableTraceError
+from tankside.monitor.deconvolve import band_window
+from tankside.monitor.errors import OutOfBandError, TanksideError
+from tankside.monitor.loading import Loading
+from tankside.monitor.settings import ConversionSettings
+
+DT = 4e-9
+N = 4096
+T = np.arange(N) * DT
+M0 = 1e-7  # V/Pa, invented test hydrophone
+CAL_F = np.arange(1e6, 40e6 + 1, 0.5e6)
+
+# 2nd-order resonant band-pass, 10 MHz, Q = 2: zeros at s = 0 and left-half-plane poles,
+# so it is minimum phase (a simple model of a resonant hydrophone; scipy.signal)
+WN, Q = 2 * np.pi * 10e6, 2.0
+B, A = [M0 * WN / Q, 0.0], [1.0, WN / Q, WN**2]
+
+
+def pressure_pulse(fc=5e6, centre=5e-6, amplitude=1e6):
+    return amplitude * scipy.signal.gausspulse(T - centre, fc=fc, bw=0.6)
+
+
+def through_model(p):
+    # time-domain simulation, independent of the FFT path (scipy.signal.lsim)
+    _, v, _ = scipy.signal.lsim((B, A), p, T)
+    return v
+
+
+def model_calibration(with_phase=True):
+    _, h = scipy.signal.freqs(B, A, worN=2 * np.pi * CAL_F)
+    if with_phase:
+        rows = [f"{f!r},{abs(x)!r},{float(np.rad2deg(np.angle(x)))!r}"
+                for f, x in zip(CAL_F.tolist(), h.tolist(), strict=True)]
+        return parse_calibration("frequency_hz,sensitivity_v_per_pa,phase_deg\n" + "\n".join(rows))
+    rows = [f"{f!r},{abs(x)!r}" for f, x in zip(CAL_F.tolist(), h.tolist(), strict=True)]
+    return parse_calibration("frequency_hz,sensitivity_v_per_pa\n" + "\n".join(rows))
+
+
+def flat_calibration(f=CAL_F, phase_deg=None):
+    ph = np.zeros_like(f) if phase_deg is None else phase_deg
+    rows = [f"{a!r},{M0!r},{b!r}" for a, b in zip(f.tolist(), ph.tolist(), strict=True)]
+    return parse_calibration("frequency_hz,sensitivity_v_per_pa,phase_deg\n" + "\n".join(rows))
+
+
+DECONV = ConversionSettings(method="deconvolve", regularisation=1e-3)
+
+
+class TestRoundTrip:
+    def test_measured_phase(self):
+        p = pressure_pulse()
+        r = Converter(model_calibration(), settings=DECONV).process(through_model(p), DT)
+        assert r.method == "deconvolve"
+        assert np.max(np.abs(r.pressure_pa - p)) < 0.005 * 1e6
+        assert r.peak_compressional_pa == pytest.approx(p.max(), rel=0.01)
+        assert r.acoustic_working_frequency_hz == pytest.approx(5e6, rel=0.01)
+
+    def test_magnitude_only_minimum_phase(self):
+        # the model is minimum phase, so the magnitude alone determines it
+        p = pressure_pulse()
+        cal = model_calibration(with_phase=False)
+        r = Converter(cal, settings=DECONV).process(through_model(p), DT)
+        assert r.phase_source == "minimum-phase"
+        assert np.max(np.abs(r.pressure_pa - p)) < 0.015 * 1e6
+        assert r.peak_rarefactional_pa == pytest.approx(-p.min(), rel=0.01)
+
+    def test_ignoring_the_resonance_is_wrong(self):
+        # guard that the round trip is not trivially satisfied: a flat calibration at the
+        # same level leaves the pulse shaped by the resonance
+        p = pressure_pulse()
+        r = Converter(flat_calibration(), settings=DECONV).process(through_model(p), DT)
+        assert np.max(np.abs(r.pressure_pa - p)) > 0.2 * 1e6
+
+    def test_pure_delay_convention(self):
+        # phase -360 f tau degrees is a delay tau (module convention; numpy.fft sign)
+        tau = 40 * DT
+        p = pressure_pulse()
+        v = M0 * np.roll(p, 40)
+        cal = flat_calibration(phase_deg=-360 * CAL_F * tau)
+        r = Converter(cal, settings=DECONV).process(v, DT)
+        assert np.max(np.abs(r.pressure_pa - p)) < 0.01 * 1e6
+
+    def test_loading_correction_applied(self):
+        # open-circuit calibration, 100 pF hydrophone with 50 pF cable: v = 0.667 M_O p
+        p = pressure_pulse()
+        load = Loading(100e-12, cable_capacitance_f=50e-12)
+        r = Converter(flat_calibration(), load, DECONV).process(M0 * p * 100 / 150, DT)
+        assert np.max(np.abs(r.pressure_pa - p)) < 0.01 * 1e6
+        np.testing.assert_allclose(r.sensitivity_v_per_pa[(r.freqs_hz > 2e6)
+                                   & (r.freqs_hz < 30e6)], M0 * 100 / 150, rtol=1e-9)
+
+
+class TestRegularisation:
+    def test_inverse_is_zero_outside_the_calibrated_band(self):
+        conv = Converter(model_calibration(), settings=DECONV)
+        plan = conv.plan(N, DT)
+        outside = (plan.freqs_hz < CAL_F[0]) | (plan.freqs_hz > CAL_F[-1])
+        assert np.all(plan.inverse_pa_per_v[outside] == 0)
+        assert np.all(np.isnan(plan.sensitivity_abs_v_per_pa[outside]))
+        assert np.all(np.isfinite(plan.inverse_pa_per_v))
+
+    def test_band_setting_narrows_the_band(self):
+        s = DECONV.replace(band_low_hz=2e6, band_high_hz=20e6)
+        plan = Converter(model_calibration(), settings=s).plan(N, DT)
+        assert np.all(plan.inverse_pa_per_v[plan.freqs_hz > 20e6] == 0)
+        assert np.all(plan.inverse_pa_per_v[plan.freqs_hz < 2e6] == 0)
+
+    def test_band_window_taper(self):
+        f = np.array([1e6, 2 ** 0.125 * 1e6, 2 ** 0.25 * 1e6, 10e6, 40e6])
+        w = band_window(f, 1e6, 40e6, 0.25)
+        # raised cosine in frequency: 0 at the edge, 1 at the end of the taper
+        assert w[0] == 0 and w[2] == pytest.approx(1.0) and w[3] == 1 and w[4] == 0
+        assert 0.4 < w[1] < 0.6
+
+    def test_tikhonov_weight_limits_gain(self):
+        # with eps, the inverse gain never exceeds 1 / (2 eps max|M|) (Tikhonov bound)
+        s = DECONV.replace(regularisation=0.1)
+        conv = Converter(model_calibration(), settings=s)
+        plan = conv.plan(N, DT)
+        ref = np.nanmax(plan.sensitivity_abs_v_per_pa)
+        assert np.max(plan.inverse_abs_pa_per_v) <= 1 / (2 * 0.1 * ref) * (1 + 1e-9)
+
+    def test_settings_in_result(self):
+        s = DECONV.replace(regularisation=0.02, taper_octaves=0.5)
+        r = Converter(model_calibration(), settings=s).process(through_model(pressure_pulse()), DT)
+        got = r.to_json_dict()["settings"]
+        assert got["regularisation"] == 0.02 and got["taper_octaves"] == 0.5
+        assert got["method"] == "deconvolve"
+
+
+class TestConverter:
+    def test_plan_is_cached_per_grid(self):
+        conv = Converter(model_calibration())
+        assert conv.plan(N, DT) is conv.plan(N, DT)
+        assert conv.plan(N // 2, DT) is not conv.plan(N, DT)
+
+    def test_result_forms(self):
+        r = Converter(model_calibration()).process(through_model(pressure_pulse()), DT)
+        assert tuple(r.flat()) == RESULT_FIELDS
+        j = r.to_json_dict()
+        assert set(j) == {"method", "peak_compressional_pa", "peak_rarefactional_pa",
+                          "acoustic_working_frequency_hz", "pulse_intensity_integral_j_per_m2",
+                          "pulse_duration_s", "pulse_average_intensity_w_per_m2",
+                          "mechanical_index", "water", "narrowband", "phase_source", "settings"}
+        assert set(j["narrowband"]) == {"ok", "band_hz", "max_deviation_db"}
+        assert r.pressure_pa.shape == (N,)
+        assert r.spectrum_pa.shape == r.freqs_hz.shape == r.sensitivity_v_per_pa.shape
+
+    def test_spectrum_is_single_sided_amplitude(self):
+        # a sinusoid of amplitude A on an exact bin shows A (common practice, 2|X|/n)
+        f0 = 64 / (N * DT)
+        v = M0 * 1e5 * np.sin(2 * np.pi * f0 * T)
+        r = Converter(flat_calibration(), settings=ConversionSettings(method="narrowband")) \
+            .process(v, DT)
+        assert r.spectrum_pa.max() == pytest.approx(1e5, rel=1e-9)
+
+    @pytest.mark.parametrize("method", ["deconvolve", "narrowband", "auto"])
+    @pytest.mark.parametrize("fc", [60e6, 0.4e6])
+    def test_out_of_band(self, method, fc):
+        conv = Converter(flat_calibration(), settings=ConversionSettings(method=method))
+        t = T - 8e-6
+        v = M0 * 1e6 * scipy.signal.gausspulse(t, fc=fc, bw=0.5)
+        with pytest.raises(OutOfBandError, match="outside the calibrated band"):
+            conv.process(v, DT)
+
+    def test_unusable_traces(self):
+        conv = Converter(flat_calibration())
+        with pytest.raises(UnusableTraceError):
+            conv.process(np.zeros(N), DT)
+        with pytest.raises(UnusableTraceError):
+            conv.process(np.ones(4), DT)
+        with pytest.raises(UnusableTraceError):
+            conv.process(np.full(N, np.nan), DT)
+        with pytest.raises(TanksideError):
+            conv.process(np.ones(N), -1.0)
+
+    def test_with_method(self):
+        conv = Converter(flat_calibration())
+        assert conv.with_method("narrowband").settings.method == "narrowband"
+        assert conv.settings.method == "auto"
