@@ -406,6 +406,15 @@ class SessionStore:
             self._closed = True
             self._conn.close()
             raise mapped from err
+        try:
+            # A finished session becomes one self-contained file, which read-only
+            # readers can open even where no -shm file can be created (archives,
+            # read-only shares). It needs no other connection open; when a reader is
+            # still attached the file simply stays in WAL mode, equally complete.
+            self._conn.execute("PRAGMA busy_timeout=0")  # never wait for a reader here
+            self._conn.execute("PRAGMA journal_mode=DELETE")
+        except sqlite3.OperationalError:
+            pass
         self._closed = True
         self._conn.close()
 

@@ -47,6 +47,10 @@ META_REPLAY_OF = "replay_of"                  # dict, set by replay: source file
 REQUIRED_FOR_REPLAY = (META_CALIBRATION_TEXT, META_LOADING, META_SETTINGS, META_TEMPERATURE_C)
 
 # -- event kinds (free text is allowed; these are the ones tankside writes) -------------
+# ``seq`` of an event is the trace it concerns, or None. For ``method-change`` it is the
+# first trace converted with the new method, and ``detail`` is {"from": old, "to": new}
+# (replay follows these; a method-change without seq applies from its time_s on).
+# ``range-change`` detail: {"from_v", "to_v", ...}; ``mark``: {"note"}.
 EVENT_RANGE_CHANGE = "range-change"
 EVENT_RECONNECT = "reconnect"
 EVENT_CONNECTION_LOST = "connection-lost"

@@ -110,6 +110,22 @@ class TestExactReplay:
             assert [e["kind"] for e in b.events()] == [EVENT_METHOD_CHANGE]
 
 
+def test_method_schedule_by_seq_or_time():
+    from tankside.monitor.replay import _method_schedule, _requested_method
+
+    events = [
+        {"kind": "mark", "seq": 1, "time_s": 10.0, "detail": {"note": "x"}},
+        {"kind": EVENT_METHOD_CHANGE, "seq": 4, "time_s": 12.0,
+         "detail": {"from": "auto", "to": "narrowband"}},
+        {"kind": EVENT_METHOD_CHANGE, "seq": None, "time_s": 20.0,
+         "detail": {"from": "narrowband", "to": "deconvolve"}},
+    ]
+    schedule = _method_schedule(events)
+    got = [_requested_method(schedule, seq, t, "auto")
+           for seq, t in [(0, 9.0), (3, 11.9), (4, 11.95), (9, 19.99), (10, 20.0)]]
+    assert got == ["auto", "auto", "narrowband", "narrowband", "deconvolve"]
+
+
 class TestOtherSettings:
     def test_other_method(self, tmp_path):
         src, out = tmp_path / "live.db", tmp_path / "nb.db"

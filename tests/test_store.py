@@ -97,6 +97,12 @@ class TestRoundTrip:
             assert desc["peak_rarefactional_pa"]["units"] == "Pa"
             assert reader.integrity_check() == "ok"
 
+    def test_closed_session_is_one_file(self, tmp_path):
+        write_session(tmp_path / "s.db")
+        assert sorted(p.name for p in tmp_path.iterdir()) == ["s.db"]
+        with SessionReader(tmp_path / "s.db") as reader:
+            assert reader.trace_count() == 5 and reader.stopped_cleanly
+
     def test_units_from_names(self):
         assert units_of("pulse_intensity_integral_j_per_m2") == "J/m^2"
         assert units_of("water_sound_speed_m_per_s") == "m/s"
