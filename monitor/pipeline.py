@@ -158,6 +158,7 @@ class LiveSession:
         self._clipped = 0
         self._t_start_mono = time.monotonic()
         self._last_arrays_mono = 0.0
+        self._latest: tuple | None = None
         self._pending_method: str | None = None
         self._range_v = float("nan")
         self._fraction = float("nan")
@@ -428,6 +429,8 @@ class LiveSession:
                     and self.elapsed_s >= self._duration_s):
                 self._request_stop("completed", f"duration {self._duration_s:g} s reached")
             if item is None:
+                if now - self._last_arrays_mono >= SNAPSHOT_ARRAYS_EVERY_S:
+                    self._flush_latest()
                 continue
             if item is END:
                 return
@@ -446,8 +449,8 @@ class LiveSession:
             self._request_stop("store-error", str(self._writer.error),
                                f"session store failed: {self._writer.error}; data committed "
                                f"before it is intact in {self.session_path}")
+        self._flush_latest()
         self._publish(state="stopped")
-        self._snap = dataclasses.replace(self._snap, stop_reason=self._reason)
         self._done.set()
 
     def _tick(self) -> None:
@@ -462,6 +465,7 @@ class LiveSession:
                                queue_depth=depth, queue_capacity=cap, disk_free_bytes=free,
                                store_lag_s=self._writer.store_lag_s(now_s))
         self._handle_firings(self._rules.on_tick(tick), raw=None, fraction=float("nan"))
+        self._flush_latest()
         self._publish()
 
     def _on_event(self, ev: AcqEvent) -> None:
@@ -582,10 +586,19 @@ class LiveSession:
             state=state or self._snap.state, stop_reason=self._reason)
         self._snap = snap
 
-    def _publish_trace(self, raw, volts, result, flat) -> None:
+    def _publish_trace(self, raw, volts, result, flat, *, force: bool = False) -> None:
+        # A snapshot is rebuilt at most SNAPSHOT_ARRAYS_EVERY_S apart (displays refresh
+        # 10 to 20 times a second); in between only the latest trace is remembered, so
+        # the waveform, spectrum, result and seq of a snapshot always belong together.
+        self._latest = (raw, volts, result, flat)
         now = time.monotonic()
+        if not force and now - self._last_arrays_mono < SNAPSHOT_ARRAYS_EVERY_S:
+            return
+        self._last_arrays_mono = now
+        self._latest = None
         fields: dict[str, Any] = {"seq": raw.seq, "time_s": raw.time_s, "method": self._method,
-                                  "figures": self._figures.views()}
+                                  "figures": self._figures.views(),
+                                  "times_s": raw.times(), "voltage_v": np.array(volts)}
         if flat is not None:
             fields.update(result=dict(flat), narrowband_ok=_opt_bool(flat.get("narrowband_ok")),
                           narrowband_band_hz=(float(flat.get("narrowband_band_low_hz", np.nan)),
@@ -594,16 +607,17 @@ class LiveSession:
                           narrowband_max_deviation_db=float(
                               flat.get("narrowband_max_deviation_db", np.nan)),
                           method=str(flat.get("method", self._method)))
-        if now - self._last_arrays_mono >= SNAPSHOT_ARRAYS_EVERY_S or result is None:
-            self._last_arrays_mono = now
-            fields.update(times_s=raw.times(), voltage_v=np.array(volts))
-            if result is not None:
-                fields.update(_result_arrays(result, flat))
-            else:
-                fields.update(pressure_pa=np.zeros(0), freqs_hz=np.zeros(0),
-                              spectrum_db=np.zeros(0), sensitivity_db=np.zeros(0),
-                              result={})
+            fields.update(_result_arrays(result, flat))
+        else:
+            fields.update(pressure_pa=np.zeros(0), freqs_hz=np.zeros(0),
+                          spectrum_db=np.zeros(0), sensitivity_db=np.zeros(0), result={},
+                          narrowband_ok=None)
         self._publish(**fields)
+
+    def _flush_latest(self) -> None:
+        latest = self._latest
+        if latest is not None:
+            self._publish_trace(*latest, force=True)
 
 
 def _result_arrays(result, flat: dict) -> dict:
