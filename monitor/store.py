@@ -247,7 +247,17 @@ class SessionStore:
         try:
             if not self._conn.in_transaction:
                 self._conn.execute("BEGIN")
-            out = fn()
+            # A savepoint per row, so that a rejected row (say a repeated seq) is undone
+            # alone and the rest of the uncommitted batch is kept.
+            self._conn.execute("SAVEPOINT row")
+            try:
+                out = fn()
+            except sqlite3.IntegrityError as err:
+                self._conn.execute("ROLLBACK TO row")
+                self._conn.execute("RELEASE row")
+                raise StoreError(f"{self.path}: {doing} was refused ({err}); the session "
+                                 "goes on without it") from err
+            self._conn.execute("RELEASE row")
         except sqlite3.Error as err:
             self._fail(err, doing)
         self._pending += 1

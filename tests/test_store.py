@@ -160,6 +160,17 @@ class TestErrors:
         with SessionReader(tmp_path / "s.db") as reader, pytest.raises(SessionFileError, match="seq 99"):
             reader.trace(99)
 
+    def test_repeated_seq_is_refused_alone(self, tmp_path):
+        store = SessionStore.create(tmp_path / "s.db", _meta())
+        store.add_trace(make_raw(0, n=16), None)
+        with pytest.raises(StoreError, match="refused"):
+            store.add_trace(make_raw(0, n=16), fake_result(0))
+        store.add_trace(make_raw(1, n=16), None)  # the store goes on
+        store.close("ok", "test", {"traces": 2})
+        with SessionReader(tmp_path / "s.db") as reader:
+            assert reader.seqs() == [0, 1]
+            assert reader.trace(0).result is None  # the first row of seq 0 is kept
+
     def test_create_refuses_existing_file(self, tmp_path):
         write_session(tmp_path / "s.db")
         with pytest.raises(SessionFileError, match="already exists"):
