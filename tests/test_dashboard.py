@@ -327,3 +327,109 @@ async def test_layout_matches_stored_screen(size):
     assert text == stored.read_text(encoding="utf-8")
     lines = text.splitlines()
     assert len(lines) == size[1] and max(len(line) for line in lines) <= size[0]
+
+
+# -- the app on the real live session and the simulated bench (loopback) ---------------
+
+@pytest.fixture
+def quick_keys(monkeypatch):
+    """Pilot waits for the process to go idle after each key, up to 1 s; with the live
+    bench's threads busy it never does, so every key would cost the full second."""
+    async def settle(min_sleep: float = 0.0, max_sleep: float = 1.0) -> None:
+        await asyncio.sleep(0.02)
+
+    import textual.app
+    import textual.pilot
+
+    monkeypatch.setattr(textual.app, "wait_for_idle", settle)
+    monkeypatch.setattr(textual.pilot, "wait_for_idle", settle)
+
+
+@pytest.fixture
+def live(tmp_path, quick_keys):
+    from tankside.monitor.benchfile import load_bench
+    from tankside.monitor.pipeline import LiveSession
+    from tankside.simulators.bench import SimulatedBench
+
+    with SimulatedBench(seed=5, trigger_period_s=0.02) as bench:
+        path = bench.write_bench_file(tmp_path / "bench.toml",
+                                      session_folder=str(tmp_path / "sessions"))
+        session = LiveSession.from_bench(load_bench(path, {}))
+        session.start()
+        try:
+            yield bench, session
+        finally:
+            if session.running:
+                session.stop("test teardown")
+            session.wait(20)
+
+
+async def _until(pilot, condition, timeout_s: float = 10.0) -> None:
+    for _ in range(int(timeout_s / 0.05)):
+        if condition():
+            return
+        await asyncio.sleep(0.05)
+    raise AssertionError("condition not reached in time")
+
+
+@sync
+async def test_live_bench_keys_reach_the_session_and_its_file(live, tmp_path):
+    from tankside.monitor.store import SessionReader
+
+    bench, session = live
+    app = DashboardApp(session, first_run_notice=False, snapshot_dir=tmp_path / "snaps")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await _until(pilot, lambda: app.shown is not None and app.shown.pressure_pa.size > 0)
+        assert "SIMDIG" in screen_text(app)
+        # hold: the trace stays while the session goes on acquiring
+        await pilot.press("space")
+        held_seq = app.trace.seq
+        await _until(pilot, lambda: session.snapshot().seq >= held_seq + 5)
+        assert app.trace.seq == held_seq
+        await pilot.press("space")
+        await _until(pilot, lambda: app.trace.seq > held_seq)
+        await pilot.press("m", *"at focus", "enter")
+        await pilot.press("c")                  # auto -> deconvolve
+        await _until(pilot, lambda: app.latest.method == "deconvolve")
+        await pilot.press("l", "s")
+        await pilot.pause(0.1)
+        # an instrument failure shows as an alert on screen, not as a traceback
+        bench.faults.drop_connection()
+        await _until(pilot, lambda: any(a.rule == "instrument-fault" for a in app.latest.alerts))
+        assert "instrument-fault" in screen_text(app)
+        await pilot.pause(0.1)
+        pending = {a.alert_id for a in app.latest.alerts if not a.acknowledged}
+        await pilot.press("A")
+        await _until(pilot, lambda: all(a.acknowledged for a in app.latest.alerts
+                                        if a.alert_id in pending))
+        await pilot.press("q")
+        await pilot.pause()
+        assert not app.is_running
+    assert session.wait(20) and session.exit_code == 0
+    assert app.spectrum.linear
+    volt = next((tmp_path / "snaps").glob("*-voltage.csv"))
+    assert volt.read_text().splitlines()[0] == "time_s,voltage_v"
+    with SessionReader(session.session_path) as reader:
+        events = reader.events()
+        assert [e["detail"]["note"] for e in events if e["kind"] == "mark"] == ["at focus"]
+        assert any(e["kind"] == "method-change" and e["detail"]["to"] == "deconvolve"
+                   for e in events)
+        recorded = [a for a in reader.alerts() if a["rule"] == "instrument-fault"]
+        assert recorded and all(a["acknowledged_time_s"] is not None for a in recorded)
+        assert reader.stop["exit_status"] == "operator"
+
+
+@sync
+async def test_live_bench_layout_at_160x48(live):
+    bench, session = live
+    app = DashboardApp(session, first_run_notice=False)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await _until(pilot, lambda: app.shown is not None and app.shown.pressure_pa.size > 0
+                     and app.latest.traces_per_s > 0)
+        await pilot.pause(0.1)
+        text = screen_text(app)
+        assert "narrowband PASS" in text or "narrowband FAIL" in text
+        assert "TANKSIDE,SIMDIG" in text          # full identity when wide
+        assert "session-" in text and ".db" in text
+        await pilot.press("q")
+    assert session.wait(20)

@@ -63,9 +63,10 @@ class DashboardApp(App[None]):
         self.held = False
         self.latest: Snapshot | None = None     # the newest snapshot read
         self.shown: Snapshot | None = None      # the one the plots show (older while held)
-        self.method_requested = getattr(session, "method_requested", None) or "auto"
+        self.method_requested = _initial_method(session)
         self.saved: list[Path] = []             # files written by the last save
         self._bell_seen = -1
+        self._alerts_key: tuple = ()
 
     def compose(self) -> ComposeResult:
         # kept as attributes: a modal on top must not hide them from the refresh
@@ -110,9 +111,14 @@ class DashboardApp(App[None]):
             return
         self.latest = snap
         self.status.show(snap)
-        self.alert_list.show(snap)
-        self._ring_for_new_alerts(snap)
-        if not self.held:
+        alerts_key = tuple((a.alert_id, a.acknowledged) for a in snap.alerts)
+        if alerts_key != self._alerts_key:
+            self._alerts_key = alerts_key
+            self.alert_list.show(snap)
+            self._ring_for_new_alerts(snap)
+        shown = self.shown
+        if not self.held and (shown is None or snap.seq != shown.seq
+                              or snap.pressure_pa is not shown.pressure_pa):
             self._show_plots(snap)
 
     def _show_plots(self, snap: Snapshot) -> None:
@@ -231,6 +237,15 @@ class DashboardApp(App[None]):
             self.notify(str(err), severity="error", timeout=6)
             return False
         return True
+
+
+def _initial_method(session) -> str:
+    """The conversion method the session was started with ("auto" when it cannot say)."""
+    for name in ("method_requested", "method"):
+        method = getattr(session, name, None)
+        if method in METHODS:
+            return method
+    return "auto"
 
 
 def run_dashboard(session, *, first_run_notice: bool = True,
