@@ -254,7 +254,8 @@ class Converter:
             mag = vabs * (2.0 / (n * m))
             f_awf = f_v
         else:
-            pressure = scipy.fft.irfft(spec * plan.inverse_pa_per_v, n, workers=1)
+            spec *= plan.inverse_pa_per_v    # |V| is taken already; reuse the buffer
+            pressure = scipy.fft.irfft(spec, n, workers=1)
             mag = vabs * gain
             f_awf = self._awf(pressure, mag, plan.freqs_hz, dt_s)
             self._in_band(f_awf, "pressure spectrum")

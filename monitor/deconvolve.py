@@ -153,12 +153,13 @@ def deconvolve(voltage_v: np.ndarray, plan: Plan) -> tuple[np.ndarray, np.ndarra
     Returns
     -------
     pressure_pa : numpy.ndarray
-        Same length as ``voltage_v``.
-    voltage_spectrum : numpy.ndarray
-        ``rfft(voltage_v)`` (complex), for spectrum-based parameters.
+        Same length as ``voltage_v``, Pa.
+    pressure_spectrum : numpy.ndarray
+        ``rfft(voltage_v) * H`` (complex), the unscaled spectrum of the pressure.
     """
     spec = scipy.fft.rfft(voltage_v, workers=1)
-    pressure = scipy.fft.irfft(spec * plan.inverse_pa_per_v, plan.n, workers=1)
+    spec *= plan.inverse_pa_per_v        # in place: one spectrum-sized buffer per trace
+    pressure = scipy.fft.irfft(spec, plan.n, workers=1)
     return pressure, spec
 
 

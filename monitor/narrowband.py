@@ -51,7 +51,11 @@ class SensitivityProfile:
 
     def level_at_db(self, frequency_hz: float) -> float:
         """``20 log10 |M_L|`` at one frequency inside the band (dB re 1 V/Pa)."""
-        return float(np.interp(frequency_hz, self.freqs_hz, self.level_db))
+        f = self.freqs_hz
+        k = min(max(int(np.searchsorted(f, frequency_hz)), 1), f.size - 1)
+        f0, f1 = float(f[k - 1]), float(f[k])
+        y0, y1 = float(self.level_db[k - 1]), float(self.level_db[k])
+        return y0 + (y1 - y0) * (frequency_hz - f0) / (f1 - f0)
 
     def magnitude_at_v_per_pa(self, frequency_hz: float) -> float:
         return 10.0 ** (self.level_at_db(frequency_hz) / 20.0)
@@ -71,15 +75,31 @@ class NarrowbandCheck:
         Worst ``|20 log10(|M_L(f)| / |M_L(f_awf)|)|`` over the calibrated part of the band, dB.
     covered : bool
         Whether the calibration covers the whole check band.
-    reason : str
-        A few words on the verdict.
+    tolerance_db : float
+        The limit applied, dB.
+    calibrated_band_hz : tuple of float
+        The calibrated band, Hz.
     """
 
     ok: bool
     band_hz: tuple[float, float]
     max_deviation_db: float
     covered: bool
-    reason: str
+    tolerance_db: float
+    calibrated_band_hz: tuple[float, float]
+
+    @property
+    def reason(self) -> str:
+        """A few words on the verdict."""
+        lo, hi = self.band_hz
+        if not self.covered:
+            c_lo, c_hi = self.calibrated_band_hz
+            return (f"check band {lo / 1e6:.4g}-{hi / 1e6:.4g} MHz reaches beyond the "
+                    f"calibration {c_lo / 1e6:.4g}-{c_hi / 1e6:.4g} MHz")
+        if not self.ok:
+            return (f"sensitivity varies by {self.max_deviation_db:.2f} dB "
+                    f"(limit {self.tolerance_db:g} dB)")
+        return f"within {self.tolerance_db:g} dB"
 
     def as_dict(self) -> dict:
         dev = self.max_deviation_db
@@ -109,18 +129,12 @@ def narrowband_check(awf_hz: float, profile: SensitivityProfile,
     covered = cal_lo <= lo and hi <= cal_hi
     a, b = max(lo, cal_lo), min(hi, cal_hi)
     ref = profile.level_at_db(awf_hz)
-    f = profile.freqs_hz
-    i, j = np.searchsorted(f, a, side="right"), np.searchsorted(f, b, side="left")
-    inner = profile.level_db[i:j]
-    ends = np.interp((a, b), f, profile.level_db)
-    dev = max(float(np.abs(inner - ref).max()) if inner.size else 0.0,
-              float(np.abs(ends - ref).max()))
-    within = dev <= settings.narrowband_tolerance_db
-    if not covered:
-        reason = (f"check band {lo:.4g}-{hi:.4g} Hz reaches beyond the calibration "
-                  f"{cal_lo:.4g}-{cal_hi:.4g} Hz")
-    elif not within:
-        reason = f"sensitivity varies by {dev:.2f} dB (limit {settings.narrowband_tolerance_db:g} dB)"
-    else:
-        reason = f"within {settings.narrowband_tolerance_db:g} dB"
-    return NarrowbandCheck(bool(covered and within), (lo, hi), dev, bool(covered), reason)
+    f, level = profile.freqs_hz, profile.level_db
+    i, j = int(np.searchsorted(f, a, side="right")), int(np.searchsorted(f, b, side="left"))
+    dev = max(abs(profile.level_at_db(a) - ref), abs(profile.level_at_db(b) - ref))
+    if j > i:
+        inner = level[i:j]
+        dev = max(dev, float(inner.max()) - ref, ref - float(inner.min()))
+    tol = settings.narrowband_tolerance_db
+    return NarrowbandCheck(bool(covered and dev <= tol), (lo, hi), dev, bool(covered), tol,
+                           (cal_lo, cal_hi))

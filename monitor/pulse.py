@@ -130,19 +130,37 @@ def pulse_bounds_s(pressure_pa: np.ndarray, dt_s: float) -> tuple[float, float, 
     energy_pa2_s : float
         ``int p^2 dt``, Pa^2 s.
     """
-    cum = np.cumsum(pressure_pa * pressure_pa)
-    total = float(cum[-1])
+    sq = pressure_pa * pressure_pa
+    n = sq.shape[0]
+    # running sums by blocks: a full cumsum is the slowest step of the parameters
+    cum_blocks = np.add.reduceat(sq, np.arange(0, n, _BLOCK)).cumsum()
+    total = float(cum_blocks[-1])
     if not (total > 0 and math.isfinite(total)):
         raise UnusableTraceError("the pressure is zero or not finite everywhere")
-    return _crossing(cum, 0.1 * total) * dt_s, _crossing(cum, 0.9 * total) * dt_s, total * dt_s
+    t10 = _crossing(sq, cum_blocks, 0.1 * total)
+    t90 = _crossing(sq, cum_blocks, 0.9 * total)
+    return t10 * dt_s, t90 * dt_s, total * dt_s
 
 
-def _crossing(cum: np.ndarray, target: float) -> float:
-    # cum[k] is the integral up to the end of sample k's interval, at time (k + 0.5) dt
-    i = int(np.searchsorted(cum, target))
-    prev = float(cum[i - 1]) if i > 0 else 0.0
-    frac = (target - prev) / (float(cum[i]) - prev)
-    return i - 0.5 + frac
+_BLOCK = 64
+
+
+def _crossing(sq: np.ndarray, cum_blocks: np.ndarray, target: float) -> float:
+    """Fractional sample index where the running sum of ``sq`` reaches ``target``.
+
+    The running sum after sample k is the integral up to the end of that sample's
+    interval, at time (k + 0.5) dt; it is interpolated linearly within the interval.
+    """
+    b = min(int(np.searchsorted(cum_blocks, target)), cum_blocks.size - 1)
+    before = float(cum_blocks[b - 1]) if b > 0 else 0.0
+    start = b * _BLOCK
+    inner = sq[start:start + _BLOCK].cumsum()
+    inner += before
+    i = min(int(np.searchsorted(inner, target)), inner.size - 1)
+    prev = float(inner[i - 1]) if i > 0 else before
+    step = float(inner[i]) - prev
+    frac = (target - prev) / step if step > 0 else 0.0
+    return start + i - 0.5 + min(max(frac, 0.0), 1.0)
 
 
 def derated_pa(pressure_pa: float, frequency_hz: float, depth_m: float,
