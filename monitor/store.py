@@ -153,6 +153,12 @@ def session_metadata(*, configuration: dict, instruments: dict, calibration=None
     return meta
 
 
+def _digitiser_source(metadata: dict) -> str:
+    dig = (metadata.get(META_INSTRUMENTS) or {}).get("digitiser") or {}
+    ident = dig.get("identity") if isinstance(dig, dict) else None
+    return f"digitiser {ident}" if ident else "digitiser"
+
+
 def _map_error(err: sqlite3.Error, doing: str, path: Path) -> StoreError:
     code = getattr(err, "sqlite_errorcode", None)
     if code is not None and (code & 0xFF) in _DISK_CODES:
@@ -171,7 +177,8 @@ class SessionStore:
     """
 
     def __init__(self, conn: sqlite3.Connection, path: Path, commit_interval_s: float,
-                 clock: Callable[[], float], wall_clock: Callable[[], float]):
+                 clock: Callable[[], float], wall_clock: Callable[[], float],
+                 source: str = "digitiser"):
         self._conn = conn
         self.path = path
         self.commit_interval_s = float(commit_interval_s)
@@ -183,6 +190,7 @@ class SessionStore:
         self._closed = False
         self._codes_described = False
         self.traces_written = 0
+        self._source = source
 
     # -- creation -----------------------------------------------------------------------
     @classmethod
@@ -213,6 +221,7 @@ class SessionStore:
             raise StoreError(f"{path}: session metadata is not recordable: {err}") from err
         start_time_s = float(metadata.get(META_START_TIME_S, wall_clock()))
         tool_version = str(metadata.get(META_TOOL_VERSION, __version__))
+        source = _digitiser_source(metadata)
         try:
             conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
         except sqlite3.Error as err:
@@ -229,13 +238,13 @@ class SessionStore:
             conn.executemany("INSERT INTO metadata VALUES (?, ?)", meta_rows)
             conn.executemany(
                 "INSERT INTO descriptors VALUES (?, ?, ?, ?, '[]', ?)",
-                [(name, tbl, units_of(name), dtype, "digitiser" if tbl == "traces"
+                [(name, tbl, units_of(name), dtype, source if tbl == "traces"
                   else "conversion") for name, tbl, dtype in STATIC_DESCRIPTORS])
             conn.execute("COMMIT")
         except sqlite3.Error as err:
             conn.close()
             raise _map_error(err, "writing the start record", path) from err
-        return cls(conn, path, commit_interval_s, clock, wall_clock)
+        return cls(conn, path, commit_interval_s, clock, wall_clock, source)
 
     # -- writing ------------------------------------------------------------------------
     def _write(self, doing: str, fn):
@@ -306,7 +315,7 @@ class SessionStore:
             if not self._codes_described:
                 self._conn.execute(
                     "INSERT OR REPLACE INTO descriptors VALUES ('codes', 'traces', 'code', ?, ?, ?)",
-                    (codes.dtype.str, _dumps([int(codes.shape[0])]), "digitiser"))
+                    (codes.dtype.str, _dumps([int(codes.shape[0])]), self._source))
         self._write(f"recording trace {raw.seq}", insert)
         self._codes_described = True
         self.traces_written += 1

@@ -93,7 +93,7 @@ class TestRoundTrip:
             assert event["kind"] == "range-change" and event["detail"]["to_v"] == 1.0
             desc = reader.descriptors
             assert desc["codes"] == {"table": "traces", "units": "code", "dtype": "<i2",
-                                     "shape": [2000], "source": "digitiser"}
+                                     "shape": [2000], "source": "digitiser INVENTED,DIG,0,1"}
             assert desc["peak_rarefactional_pa"]["units"] == "Pa"
             assert reader.integrity_check() == "ok"
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import sys
 
 from tankside.monitor.errors import ConfigError
 
@@ -46,6 +47,9 @@ def run(args) -> int:
         raise ConfigError("nothing to export: give --results, --trace/--out, "
                           "--calibration-out or --hdf5")
     with SessionReader(args.session) as reader:
+        if not reader.stopped_cleanly:
+            print(f"note: {args.session} has no stop record: the session was not stopped "
+                  "cleanly (or is still being recorded)", file=sys.stderr)
         if args.trace is not None:
             reader.trace(args.trace)  # an unknown seq fails before any file is written
         if args.results:
