@@ -83,6 +83,15 @@ RESULT_NAMES = tuple(name for name, _ in RESULT_COLUMNS)
 # Flags with their own column; any other flag goes to flags_json.
 FLAG_COLUMNS = ("clipped", "range_changed")
 
+# Column order of the traces and results tables.
+TRACE_COLUMNS = ("seq", "time_s", "data_format", "dtype", "n", "codes", "volts_per_code",
+                 "offset_v", "dt_s", "t0_s", "range_v", "code_min", "code_max",
+                 "clipped_low", "clipped_high", "state_json")
+RESULT_ROW_COLUMNS = ("seq", "converted", "error", *RESULT_NAMES, *FLAG_COLUMNS,
+                      "flags_json", "extra_json")
+BOOL_RESULTS = frozenset(name for name, kind in RESULT_COLUMNS if kind == "BOOL")
+REAL_RESULTS = frozenset(name for name, kind in RESULT_COLUMNS if kind == "REAL")
+
 # Unit suffixes of the house naming rule, longest first.
 _SUFFIX_UNITS = (
     ("_j_per_m2", "J/m^2"),
