@@ -118,7 +118,11 @@ class AcquisitionLoop:
         self.digitiser = self.open_digitiser()
         self.connected = True
         if self.open_generator is not None:
-            self.generator = self.open_generator()
+            try:
+                self.generator = self.open_generator()
+            except BaseException:
+                self.close_links()
+                raise
 
     @property
     def ranges_v(self) -> tuple[float, ...]:

@@ -260,7 +260,8 @@ class LiveSession:
         snap = self._snap
         depth, cap = self._queue_load()
         return dataclasses.replace(
-            snap, acquired=self._acq.seq, stored=self._writer.stored,
+            snap, acquired=self._acq.seq, converted=self._converted,
+            clipped_traces=self._clipped, stored=self._writer.stored,
             queue_depth=depth, queue_capacity=cap, elapsed_s=self.elapsed_s,
             session_bytes=self._writer.size_bytes(),
             state=self._state_now(snap.state))
