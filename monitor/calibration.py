@@ -299,6 +299,7 @@ def minimum_phase_rad(frequency_hz: np.ndarray, magnitude: np.ndarray) -> np.nda
     s_lo = float(np.clip(_edge_slope(fp, ap, low=True), 0.0, _EXTRAPOLATION_MAX_SLOPE))
     s_hi = float(np.clip(_edge_slope(fp, ap, low=False), -_EXTRAPOLATION_MAX_SLOPE, 0.0))
     du = min(_BODE_STEP, (u_hi - u_lo) / 64.0)
+    du = max(du, (u_hi - u_lo + 2 * _BODE_MARGIN) / 2**18)   # bounded work for any band
     n_nodes = int(math.ceil((u_hi - u_lo + 2 * _BODE_MARGIN) / du)) + 1
     u = u_lo - _BODE_MARGIN + du * np.arange(n_nodes)
     a = np.interp(np.exp(u), fp, ap)

@@ -16,7 +16,10 @@ Time dependence ``exp(+j 2 pi f t)`` as :func:`numpy.fft.rfft`; see
 References
 ----------
 A. N. Tikhonov and V. Y. Arsenin, *Solutions of Ill-Posed Problems*, Winston, 1977.
-IEC 62127-1, annex on deconvolution of hydrophone signals and the narrowband approximation.
+K. A. Wear et al., "Improved measurement of acoustic output using complex deconvolution
+of hydrophone sensitivity", IEEE Trans. Ultrason. Ferroelectr. Freq. Control 61 (1),
+62-75 (2014).
+IEC 62127-1 (the narrowband approximation).
 """
 
 from __future__ import annotations

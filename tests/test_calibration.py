@@ -181,3 +181,9 @@ def test_mutated_good_file_parses_or_gives_calibration_error(pos, insert, cut):
         parse_calibration(text)
     except CalibrationError:
         pass
+
+
+def test_very_narrow_band_stays_bounded():
+    # a (useless) calibration 1 uHz wide must not make the phase estimate explode
+    cal = parse_calibration(HEADER + "1e6,1e-7\n1.000000000001e6,2e-7\n1.000000000002e6,1e-7\n")
+    assert np.all(np.isfinite(cal.phase_rad))

@@ -184,3 +184,11 @@ class TestConverter:
         conv = Converter(flat_calibration())
         assert conv.with_method("narrowband").settings.method == "narrowband"
         assert conv.settings.method == "auto"
+
+
+def test_zero_crossing_awf_through_the_converter():
+    # a 5 MHz pulse: the zero-crossing f_awf (IEC 62127-1) is within 1 % of 5 MHz
+    s = DECONV.replace(awf_method="zero-crossing")
+    r = Converter(model_calibration(), settings=s).process(through_model(pressure_pulse()), DT)
+    assert r.acoustic_working_frequency_hz == pytest.approx(5e6, rel=0.01)
+    assert r.to_json_dict()["settings"]["awf_method"] == "zero-crossing"
