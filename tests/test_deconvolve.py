@@ -192,3 +192,20 @@ def test_zero_crossing_awf_through_the_converter():
     r = Converter(model_calibration(), settings=s).process(through_model(pressure_pulse()), DT)
     assert r.acoustic_working_frequency_hz == pytest.approx(5e6, rel=0.01)
     assert r.to_json_dict()["settings"]["awf_method"] == "zero-crossing"
+
+
+def test_simulated_scene_cross_check():
+    # the simulated scene (simulators/, written apart from monitor/) makes the hydrophone
+    # voltage from its own pressure and response model; deconvolving with its invented
+    # demo calibration must give its pressure back (peaks within 1 %)
+    from tankside.simulators.hydrophone import calibration_csv_text
+    from tankside.simulators.scene import Scene
+
+    scene = Scene()
+    t = np.arange(10000) * DT + scene.arrival_time_s() - 5e-6
+    v, p = scene.hydrophone_voltage_v(t), scene.pressure_pa(t)
+    cal = parse_calibration(calibration_csv_text())
+    r = Converter(cal, settings=ConversionSettings(method="deconvolve")).process(v, DT)
+    assert r.peak_compressional_pa == pytest.approx(p.max(), rel=0.01)
+    assert r.peak_rarefactional_pa == pytest.approx(-p.min(), rel=0.01)
+    assert np.max(np.abs(r.pressure_pa - p)) < 0.03 * p.max()
