@@ -304,7 +304,8 @@ class SimulatedDigitiser(ScpiDevice):
     def _set_slope(self, args, s):
         expect_args(args, 1)
         self.state.trigger_slope = parse_choice(
-            args[0], {"POSitive": "POS", "NEGative": "NEG", "RISing": "POS", "FALLing": "NEG"})
+            args[0], {"POSitive": "POS", "NEGative": "NEG", "RISing": "POS", "FALLing": "NEG",
+                      "RISE": "POS", "FALL": "NEG"})
 
     def _set_delay(self, args, s):
         expect_args(args, 1)

@@ -260,26 +260,41 @@ class Scene:
     def hydrophone_voltage_v(self, times_s: np.ndarray, *, jitter_s: float = 0.0) -> np.ndarray:
         """The hydrophone's end-of-cable voltage, V, at ``times_s`` (uniform) after the trigger.
 
-        The pressure is computed on a grid extended before the first sample, so that the
-        hydrophone's response to sound arriving just before the record is not lost.
+        Only the stretch from the pulse's arrival to the end of the hydrophone's ringing
+        (``tail_s``) is computed; the rest of the record is zero. That stretch starts
+        before the record when the pulse does, so sound arriving just before the first
+        sample still rings into it.
         """
         times_s = np.asarray(times_s, dtype=float)
         n = times_s.shape[0]
-        if n < 2:
-            return np.zeros(n)
+        out = np.zeros(n)
+        if n < 2 or not self._drive.output_on:
+            return out
+        t0 = float(times_s[0])
         dt = float(times_s[1] - times_s[0])
-        pad = n // 4
-        grid = times_s[0] + dt * np.arange(-pad, n)
+        d = self._drive
+        start = self.arrival_time_s() + jitter_s
+        stop = start + d.burst_cycles / d.frequency_hz + self.tail_s()
+        k0 = int(np.floor((start - t0) / dt)) - 16
+        k1 = min(n, int(np.ceil((stop - t0) / dt)) + 1)
+        if k1 <= max(k0, 0):
+            return out
+        grid = t0 + dt * np.arange(k0, k1)
         p = self.pressure_pa(grid, jitter_s=jitter_s)
-        if not np.any(p):
-            return np.zeros(n)
         key = (grid.shape[0], dt)
         response = self._response_cache.get(key)
         if response is None:
             nfft = 1 << int(np.ceil(np.log2(2 * grid.shape[0])))
             response = self.hydrophone.response(np.fft.rfftfreq(nfft, dt))
-            if len(self._response_cache) > 8:
+            if len(self._response_cache) > 16:
                 self._response_cache.clear()
             self._response_cache[key] = response
         v = filter_by_response(p, dt, lambda _f: response)
-        return v[pad:]
+        first = max(k0, 0)
+        out[first:k1] = v[first - k0:]
+        return out
+
+    def tail_s(self) -> float:
+        """How long the hydrophone rings after the sound stops: 12 time constants of its
+        low-frequency roll-off (e^-12 ~ 6e-6 of the start), s."""
+        return 12.0 / (2 * np.pi * self.hydrophone.highpass_hz)

@@ -144,6 +144,7 @@ class TestProtocol:
     def test_two_clients_share_one_device(self, bench, dig):
         other = Client(bench.digitiser_port)
         dig.write("ACQ:POIN 777")
+        assert dig.query("*OPC?") == "1"  # the write is done before the other client asks
         assert other.query("ACQ:POIN?") == "777"
         other.close()
 
