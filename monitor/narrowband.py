@@ -52,7 +52,7 @@ class SensitivityProfile:
     def level_at_db(self, frequency_hz: float) -> float:
         """``20 log10 |M_L|`` at one frequency inside the band (dB re 1 V/Pa)."""
         f = self.freqs_hz
-        k = min(max(int(np.searchsorted(f, frequency_hz)), 1), f.size - 1)
+        k = min(max(int(f.searchsorted(frequency_hz)), 1), f.size - 1)
         f0, f1 = float(f[k - 1]), float(f[k])
         y0, y1 = float(self.level_db[k - 1]), float(self.level_db[k])
         return y0 + (y1 - y0) * (frequency_hz - f0) / (f1 - f0)
@@ -130,7 +130,7 @@ def narrowband_check(awf_hz: float, profile: SensitivityProfile,
     a, b = max(lo, cal_lo), min(hi, cal_hi)
     ref = profile.level_at_db(awf_hz)
     f, level = profile.freqs_hz, profile.level_db
-    i, j = int(np.searchsorted(f, a, side="right")), int(np.searchsorted(f, b, side="left"))
+    i, j = int(f.searchsorted(a, side="right")), int(f.searchsorted(b, side="left"))
     dev = max(abs(profile.level_at_db(a) - ref), abs(profile.level_at_db(b) - ref))
     if j > i:
         inner = level[i:j]

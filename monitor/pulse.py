@@ -74,7 +74,7 @@ def awf_spectrum_hz(freqs_hz: np.ndarray, magnitude: np.ndarray) -> float:
     mag = magnitude[1:]
     if mag.size == 0:
         raise UnusableTraceError("trace too short for a spectrum")
-    k = int(np.argmax(mag))
+    k = int(mag.argmax())
     peak = float(mag[k])
     if not (peak > 0 and math.isfinite(peak)):
         raise UnusableTraceError("the spectrum is zero or not finite")
@@ -82,13 +82,13 @@ def awf_spectrum_hz(freqs_hz: np.ndarray, magnitude: np.ndarray) -> float:
     df = float(freqs_hz[1] - freqs_hz[0])
     # lowest -3 dB point: first bin at or above the threshold (the peak is one)
     above = mag >= thr
-    i1 = int(np.argmax(above))
+    i1 = int(above.argmax())
     f1 = (i1 + 1) * df
     if i1 > 0:
         f1 -= df * (mag[i1] - thr) / (mag[i1] - mag[i1 - 1])
     lim = min(mag.size, int(3.0 * f1 / df))   # bins with frequency <= 3 f1
     lim = max(lim, k + 1)
-    i2 = lim - 1 - int(np.argmax(above[lim - 1::-1]))
+    i2 = lim - 1 - int(above[lim - 1::-1].argmax())
     f2 = (i2 + 1) * df
     if i2 + 1 < mag.size and mag[i2 + 1] < thr:
         f2 += df * (mag[i2] - thr) / (mag[i2] - mag[i2 + 1])
@@ -151,12 +151,12 @@ def _crossing(sq: np.ndarray, cum_blocks: np.ndarray, target: float) -> float:
     The running sum after sample k is the integral up to the end of that sample's
     interval, at time (k + 0.5) dt; it is interpolated linearly within the interval.
     """
-    b = min(int(np.searchsorted(cum_blocks, target)), cum_blocks.size - 1)
+    b = min(int(cum_blocks.searchsorted(target)), cum_blocks.size - 1)
     before = float(cum_blocks[b - 1]) if b > 0 else 0.0
     start = b * _BLOCK
     inner = sq[start:start + _BLOCK].cumsum()
     inner += before
-    i = min(int(np.searchsorted(inner, target)), inner.size - 1)
+    i = min(int(inner.searchsorted(target)), inner.size - 1)
     prev = float(inner[i - 1]) if i > 0 else before
     step = float(inner[i]) - prev
     frac = (target - prev) / step if step > 0 else 0.0
