@@ -486,7 +486,12 @@ class ScpiDevice:
     def handle(self, line: str | bytes) -> bytes | None:
         """Execute one program message; return the reply line (bytes, ``\\n``-ended) or None."""
         if isinstance(line, bytes):
-            line = line.decode("ascii", errors="replace")
+            try:
+                line = line.decode("ascii")
+            except UnicodeDecodeError:
+                # A program message is 7-bit ASCII (IEEE 488.2, 7.4); no sense can be made of it.
+                self.push_error(-100, "non-ASCII byte in the message")
+                return None
         line = line.strip("\r\n")
         replies: list[bytes] = []
         try:

@@ -162,6 +162,11 @@ class TestErrors:
         assert ask(dev, line) is None
         assert drain(dev) == [code]
 
+    def test_non_ascii_bytes_are_a_command_error(self):
+        dev = Toy()
+        assert dev.handle(b"ACQ:POIN\xff 10") is None
+        assert drain(dev) == [-100]
+
     def test_queue_is_first_in_first_out_with_texts(self):
         dev = Toy()
         ask(dev, "FOO")

@@ -362,9 +362,20 @@ class TestSimulateCommand:
         assert "TCPIP0::127.0.0.1::" in out
         assert tomllib.loads(path.read_text())["digitiser"]["resource"] in out
 
-    def test_bad_fault_is_a_one_line_error(self, capsys):
-        assert cli_main(["simulate", "--inject", "explode"]) == 2
-        assert "unknown fault" in capsys.readouterr().err
+    @pytest.mark.parametrize("argv, words", [
+        (["--inject", "explode"], "unknown fault"),
+        (["--inject", "stall:soon"], "bad value"),
+        (["--position-mm", "1,2"], "three numbers"),
+        (["--port", "70000"], "--port"),
+    ])
+    def test_bad_options_are_one_line_errors(self, capsys, argv, words):
+        assert cli_main(["simulate", *argv]) == 2
+        err = capsys.readouterr().err
+        assert words in err and "Traceback" not in err
+
+    def test_position_option_moves_the_hydrophone(self, capsys):
+        assert cli_main(["simulate", "--duration", "0.2", "--position-mm", "0.5,0,2"]) == 0
+        assert "(0.5, 0, 2) mm" in capsys.readouterr().out
 
     def test_ctrl_c_stops_cleanly(self):
         env = dict(os.environ, PYTHONUNBUFFERED="1")

@@ -43,6 +43,9 @@ def add_parser(subparsers) -> None:
                    help="seed of the simulated noise and trigger jitter (default 0)")
     p.add_argument("--trigger-period", type=float, default=None, metavar="SECONDS",
                    help="burst (trigger) period at start, s (default 0.05, 20 traces/s)")
+    p.add_argument("--position-mm", default=None, metavar="X,Y,Z",
+                   help="hydrophone position relative to the focus, mm (default 0,0,0; "
+                        "z points away from the source)")
     p.add_argument("--inject", action="append", default=[], metavar="KIND[:VALUE]",
                    help="arm a fault (see the list above); repeatable")
     p.add_argument("--inject-device", choices=("digitiser", "generator"), default="digitiser",
@@ -79,6 +82,21 @@ def parse_fault(text: str) -> tuple[str, str]:
     return kind, value
 
 
+def parse_position_mm(text: str) -> tuple[float, float, float]:
+    """``"X,Y,Z"`` in mm -> metres; raises ConfigError."""
+    parts = text.split(",")
+    try:
+        if len(parts) != 3:
+            raise ValueError
+        x, y, z = (float(v) * 1e-3 for v in parts)
+    except ValueError as err:
+        raise ConfigError(f"--position-mm {text!r}: expected three numbers X,Y,Z in mm") from err
+    if max(abs(x), abs(y), abs(z)) > 0.04:
+        raise ConfigError(f"--position-mm {text!r}: the invented tank allows at most 40 mm "
+                          "from the focus on each axis")
+    return x, y, z
+
+
 def arm(faults, parsed: list[tuple[str, str]], device: str) -> None:
     for kind, value in parsed:
         if kind == "drop":
@@ -100,6 +118,7 @@ def run(args) -> int:
     from tankside.simulators.bench import SimulatedBench
 
     parsed = [parse_fault(text) for text in args.inject]
+    position = parse_position_mm(args.position_mm) if args.position_mm else None
     if not (args.port == 0 or 1 <= args.port <= 65534):
         raise ConfigError(f"--port {args.port}: expected 1..65534 (the generator takes N+1), or 0")
     if args.trigger_period is not None and not 1e-4 <= args.trigger_period <= 100:
@@ -109,6 +128,8 @@ def run(args) -> int:
                                trigger_period_s=args.trigger_period)
     except OSError as err:
         raise ConfigError(f"cannot listen on 127.0.0.1 port {args.port}: {err.strerror}") from err
+    if position is not None:
+        bench.scene.set_position_m(*position)
     stop = threading.Event()
 
     def on_signal(signum, frame):
@@ -121,6 +142,12 @@ def run(args) -> int:
         print(f"profiles   {bench.digitiser_profile_path}", flush=True)
         print(f"           {bench.generator_profile_path}", flush=True)
         print(f"calibration {bench.calibration_path} (invented demo hydrophone)", flush=True)
+        d = bench.scene.drive
+        x, y, z = (1e3 * v for v in bench.scene.position_m)
+        print(f"scene      {d.burst_cycles} cycles at {d.frequency_hz / 1e6:g} MHz, "
+              f"{d.amplitude_vpp:g} Vpp, output {'on' if d.output_on else 'off'}, "
+              f"{1 / d.burst_period_s:g} bursts/s; hydrophone at ({x:g}, {y:g}, {z:g}) mm "
+              "from the focus", flush=True)
         if args.bench_file:
             try:
                 path = bench.write_bench_file(args.bench_file)
