@@ -25,7 +25,7 @@ from tankside.monitor.dashboard.marknote import MarkNoteScreen
 from tankside.monitor.dashboard.plotgrid import column_extents
 from tankside.monitor.dashboard.spectrum import SpectrumView, narrowband_window_hz
 from tankside.monitor.dashboard.units import in_display_unit
-from tankside.monitor.dashboard.waveform import PressureTrace
+from tankside.monitor.dashboard.waveform import PressureTrace, pulse_window
 
 DATA = Path(__file__).parent / "data"
 SIZES = [(80, 24), (160, 48)]
@@ -85,6 +85,26 @@ class TestColumnExtents:
         assert np.isnan(column_extents(np.zeros(0), 3)[0]).all()
         with pytest.raises(ValueError):
             column_extents(np.ones(4), 0)
+
+
+class TestPulseWindow:
+    def test_pads_the_pulse_by_its_length_each_side(self):
+        y = np.zeros(1000)
+        y[400:450] = np.hanning(50)        # the Hann window reaches 0.1 inside 400..449
+        start, stop = pulse_window(y, min_samples=10)
+        above = np.flatnonzero(np.abs(y) >= 0.1)
+        length = above[-1] + 1 - above[0]
+        assert (start, stop) == (above[0] - length, above[-1] + 1 + length)
+
+    def test_minimum_length_and_edges(self):
+        y = np.zeros(100)
+        y[2] = 1.0
+        assert pulse_window(y, min_samples=20) == (0, 20)
+        y = np.zeros(100)
+        y[98] = -1.0
+        assert pulse_window(y, min_samples=20) == (80, 100)
+        assert pulse_window(np.zeros(50)) == (0, 50)
+        assert pulse_window(np.zeros(0)) == (0, 0)
 
 
 def test_sparkline_spans_lowest_to_highest_level():
@@ -234,6 +254,19 @@ async def test_scale_key_toggles_db_and_linear(size):
         assert spectrum.linear and "spectrum · linear" in screen_text(app)
         await pilot.press("l")
         assert not spectrum.linear
+
+
+@sync
+async def test_zoom_key_switches_pulse_and_whole_record():
+    fake = started_fake()
+    app = DashboardApp(fake, first_run_notice=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause(0.1)
+        assert app.trace.zoomed and "pulse" in str(app.trace.border_subtitle)
+        await pilot.press("z")
+        await pilot.pause()
+        assert not app.trace.zoomed
+        assert "record 0.00–8.00 µs" in screen_text(app)   # 2000 samples at 4 ns
 
 
 @sync

@@ -49,6 +49,7 @@ class DashboardApp(App[None]):
         Binding("A", "ack_all", "ack all"),
         Binding("c", "cycle_method", "method"),
         Binding("l", "toggle_scale", "dB/lin"),
+        Binding("z", "toggle_zoom", "zoom"),
         Binding("s", "save_snapshot", "save"),
         Binding("q", "quit_session", "quit"),
     ]
@@ -197,6 +198,10 @@ class DashboardApp(App[None]):
 
     def action_toggle_scale(self) -> None:
         self.spectrum.set_linear(not self.spectrum.linear)
+
+    def action_toggle_zoom(self) -> None:
+        """The trace panel shows the pulse, or the whole record."""
+        self.trace.set_zoom(not self.trace.zoomed)
 
     def action_save_snapshot(self) -> None:
         """Save the screen as SVG, and the shown trace in volts and in pascals as CSV."""

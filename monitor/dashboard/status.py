@@ -55,8 +55,7 @@ class BenchStatus(Widget):
                 out.append(f"  {inst.detail}", KEY)
             out.append("\n")
         pair("rate", f"{snap.traces_per_s:.1f}/s")
-        q_style = WARN if snap.queue_capacity and snap.queue_depth > snap.queue_capacity // 2 else VALUE
-        pair("queue", f"{snap.queue_depth}/{snap.queue_capacity}", q_style)
+        pair("clipped", str(snap.clipped_traces), BAD if snap.clipped_traces else VALUE)
         out.append("\n")
         frac = snap.range_fraction_used
         used = f"{frac * 100:.0f}%" if math.isfinite(frac) else "-"
@@ -64,16 +63,16 @@ class BenchStatus(Widget):
             WARN if math.isfinite(frac) and frac < 0.1 else VALUE)
         pair("range", volts(snap.range_v))
         pair("used", used, used_style)
-        out.append("\n" if not wide else "")
-        pair("clipped", str(snap.clipped_traces), BAD if snap.clipped_traces else VALUE)
         out.append("\n")
         pair("acq", str(snap.acquired))
         pair("conv", str(snap.converted))
         pair("stored", str(snap.stored))
         out.append("\n")
-        name = os.path.basename(snap.session_path) if snap.session_path else "-"
-        pair("file", name)
-        out.append(size(snap.session_bytes), VALUE)
+        q_style = WARN if snap.queue_capacity and snap.queue_depth > snap.queue_capacity // 2 else VALUE
+        pair("queue", f"{snap.queue_depth}/{snap.queue_capacity}", q_style)
+        pair("file", size(snap.session_bytes))
+        out.append("\n")
+        out.append(os.path.basename(snap.session_path) if snap.session_path else "-", VALUE)
         return out
 
 

@@ -27,7 +27,11 @@ def number(value: float, width: int = 7) -> str:
         return "-".rjust(width)
     mag = abs(value)
     if mag != 0 and (mag >= 1e5 or mag < 1e-3):
-        text = f"{value:.2e}"
+        mantissa, exponent = f"{value:.2e}".split("e")
+        text = f"{mantissa}e{int(exponent)}"
+        if len(text) > width:
+            mantissa, exponent = f"{value:.1e}".split("e")
+            text = f"{mantissa}e{int(exponent)}"
     elif mag >= 100:
         text = f"{value:.0f}"
     elif mag >= 10:

@@ -20,6 +20,34 @@ AXIS = "#8a9aa6"
 _AXIS_WIDTH = 6
 
 
+def pulse_window(y: np.ndarray, *, fraction: float = 0.1, pad_factor: float = 1.0,
+                 min_samples: int = 64) -> tuple[int, int]:
+    """The sample range ``[start, stop)`` around the pulse in ``y``, padded on both sides.
+
+    The pulse is where ``|y|`` reaches ``fraction`` of its maximum; the window adds
+    ``pad_factor`` times the pulse length on each side and is at least ``min_samples``
+    long (all of ``y`` when it is shorter). All-zero or empty input gives the whole range.
+    """
+    y = np.asarray(y, dtype=np.float64)
+    n = y.size
+    mag = np.abs(np.where(np.isfinite(y), y, 0.0))
+    if n == 0 or not np.any(mag > 0):
+        return 0, n
+    above = np.flatnonzero(mag >= fraction * mag.max())
+    first, last = int(above[0]), int(above[-1]) + 1
+    pad = int(np.ceil(pad_factor * (last - first)))
+    start, stop = first - pad, last + pad
+    short = min_samples - (stop - start)
+    if short > 0:
+        start -= short // 2
+        stop += short - short // 2
+    if start < 0:
+        stop, start = stop - start, 0
+    if stop > n:
+        start, stop = max(0, start - (stop - n)), n
+    return start, stop
+
+
 class PressureTrace(Widget):
     """Draws the latest trace column by column from its min/max, so no spike hides."""
 
@@ -33,6 +61,29 @@ class PressureTrace(Widget):
         self._pressure_pa = np.zeros(0)
         self._pc_pa = math.nan
         self._pr_pa = math.nan
+        self.zoomed = True
+        self._subtitle = ""
+
+    def set_zoom(self, zoomed: bool) -> None:
+        """Pulse view (True) or the whole record (False)."""
+        self.zoomed = zoomed
+        self._set_subtitle()
+        self.refresh()
+
+    def on_resize(self) -> None:
+        self._set_subtitle()
+
+    def _window(self, ncols: int) -> tuple[int, int]:
+        y = self._pressure_pa
+        return pulse_window(y, min_samples=ncols) if self.zoomed else (0, y.size)
+
+    def _set_subtitle(self) -> None:
+        t = self._times_s
+        start, stop = self._window(max(1, self.content_size.width - _AXIS_WIDTH))
+        if t.size == self._pressure_pa.size and stop > start:
+            view = "pulse" if self.zoomed else "record"
+            self.border_subtitle = (f"{view} {t[start] * 1e6:.2f}–{t[stop - 1] * 1e6:.2f} µs"
+                                    f"  #{self.seq}")
 
     def show(self, snap: Snapshot) -> None:
         """Take the waveform of a snapshot and redraw."""
@@ -41,9 +92,7 @@ class PressureTrace(Widget):
         self._pressure_pa = snap.pressure_pa
         self._pc_pa = float(snap.result.get("peak_compressional_pa", math.nan))
         self._pr_pa = float(snap.result.get("peak_rarefactional_pa", math.nan))
-        if self._times_s.size:
-            span_us = (self._times_s[-1] - self._times_s[0]) * 1e6
-            self.border_subtitle = f"#{snap.seq}  {span_us:.1f} µs"
+        self._set_subtitle()
         self.refresh()
 
     def render(self) -> Text:
@@ -54,12 +103,14 @@ class PressureTrace(Widget):
         if y.size == 0 or not np.any(np.isfinite(y)):
             return Text("waiting for the first converted trace", style=AXIS)
         ncols = cols - _AXIS_WIDTH
+        start, stop = self._window(ncols)
+        y = y[start:stop]
         mins, maxs = column_extents(y, ncols)
         top = float(np.nanmax(maxs))
         bottom = float(np.nanmin(mins))
         # keep zero inside the plot and leave a little headroom for the markers
-        top = max(top, 0.0)
-        bottom = min(bottom, 0.0)
+        top = max(top, 0.0, abs(self._pc_pa) if math.isfinite(self._pc_pa) else 0.0)
+        bottom = min(bottom, 0.0, -abs(self._pr_pa) if math.isfinite(self._pr_pa) else 0.0)
         pad = 0.05 * (top - bottom or 1.0)
         top, bottom = top + pad, bottom - pad
         grid = PlotGrid(rows, cols)

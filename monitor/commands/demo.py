@@ -1,0 +1,129 @@
+"""``tankside demo``: the simulated bench on loopback, watched live (``make demo``).
+
+Starts the simulated digitiser and generator on 127.0.0.1, writes their bench file
+into the sessions folder, and runs a live session on them with the invented demo
+hydrophone calibration, shown on the dashboard (or headless). Everything the demo
+shows is invented: no real transducer, hydrophone or calibration is involved.
+"""
+
+from __future__ import annotations
+
+import argparse
+import signal
+import sys
+from pathlib import Path
+
+from tankside.monitor.errors import ConfigError
+
+CAUTION = """\
+CAUTION: this demo drives a simulated bench with invented data. On a real bench,
+high-power ultrasound, high drive voltages and cavitation can hurt people and destroy
+hydrophones: start at low drive, keep hands out of the tank while it is driven, and
+respect the hydrophone's rated maximum pressure. Safe-off is a convenience, never the
+only interlock. tankside does not replace calibrated compliance measurements, local
+rules or licensed practice."""
+
+BENCH_FILE_NAME = "demo-bench.toml"
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser(
+        "demo", help="watch a simulated bench live (invented data; no instruments needed)",
+        description=("Start a simulated digitiser and signal generator on 127.0.0.1, write "
+                     "their bench file into the sessions folder, and watch them live: every "
+                     "trace converted to pressure with the invented demo hydrophone "
+                     "calibration, checked by the alert rules and recorded in a session "
+                     "file. Press q in the dashboard to stop."),
+        epilog="The scene, instruments and calibration of the demo are invented.",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--sessions", default="sessions", metavar="DIR",
+                   help="folder for the session file, snapshots and the demo bench file "
+                        "(default: ./sessions)")
+    p.add_argument("--headless", action="store_true",
+                   help="no dashboard: print a status line every few seconds and every alert")
+    p.add_argument("--duration", type=float, metavar="S",
+                   help="stop after S seconds (default: until q, Ctrl-C or SIGTERM)")
+    p.add_argument("--seed", type=int, default=0, metavar="N",
+                   help="seed of the simulated digitiser's noise and jitter (default 0)")
+    p.set_defaults(func=run)
+
+
+def _first_run(folder: Path) -> bool:
+    """True when the sessions folder holds no earlier session (show the caution)."""
+    try:
+        return not any(folder.glob("*.db"))
+    except OSError:
+        return True
+
+
+def run(args) -> int:
+    from tankside.monitor.benchfile import load_bench
+    from tankside.monitor.headless import run_headless
+    from tankside.monitor.pipeline import LiveSession
+    from tankside.simulators.bench import SimulatedBench
+
+    if args.duration is not None and args.duration <= 0:
+        raise ConfigError("--duration must be above 0 s")
+    folder = Path(args.sessions).expanduser().resolve()
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise ConfigError(f"{folder}: cannot create the sessions folder: {err}") from err
+    first_run = _first_run(folder)
+
+    try:
+        bench = SimulatedBench(seed=args.seed)
+    except OSError as err:
+        raise ConfigError(f"cannot start the simulated bench on 127.0.0.1: {err}") from err
+    with bench:
+        try:
+            bench_path = bench.write_bench_file(folder / BENCH_FILE_NAME,
+                                                session_folder=str(folder))
+        except OSError as err:
+            raise ConfigError(f"{folder}: cannot write the demo bench file: {err}") from err
+        session = LiveSession.from_bench(load_bench(bench_path), duration_s=args.duration)
+        return _watch(session, bench_path, headless=args.headless, first_run=first_run,
+                      run_headless=run_headless)
+
+
+def _watch(session, bench_path: Path, *, headless: bool, first_run: bool, run_headless) -> int:
+    dashboard = None
+    if not headless:
+        from tankside.monitor.dashboard.app import run_dashboard as dashboard
+
+    def on_term(signum, frame):
+        session.stop(f"signal {signal.Signals(signum).name}")
+
+    try:
+        previous = signal.signal(signal.SIGTERM, on_term)
+    except ValueError:          # not the main thread: no handler to install
+        previous = None
+    try:
+        if first_run or headless:
+            print(CAUTION, file=sys.stderr, flush=True)
+        print(f"tankside demo: simulated bench on 127.0.0.1 (bench file {bench_path})",
+              file=sys.stderr, flush=True)
+        session.start()
+        print(f"tankside demo: recording to {session.session_path}", file=sys.stderr,
+              flush=True)
+        if dashboard is None:
+            code = run_headless(session)
+        else:
+            code = dashboard(session, first_run_notice=first_run)
+            snap = session.snapshot()
+            print(f"tankside demo: session stopped ({session.exit_status or 'completed'}: "
+                  f"{session.stop_reason or '-'}); {snap.stored} traces in "
+                  f"{session.session_path}", file=sys.stderr)
+    except KeyboardInterrupt:
+        session.stop("interrupted (Ctrl-C)")
+        session.wait()
+        code = session.exit_code
+    finally:
+        if session.running:
+            session.stop("demo ended")
+            session.wait(30)
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+    if session.message_for_operator:
+        print(f"tankside: {session.message_for_operator}", file=sys.stderr)
+    return int(code)
