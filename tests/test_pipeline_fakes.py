@@ -163,7 +163,8 @@ class SlowStore:
 
 def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, store_delay_s=0.0,
                  full_after=None, queue_capacity=16, opener_failures=None, resync_ok=True,
-                 give_up_s=5.0, generator=True, commit_interval_s=0.05, duration_s=None):
+                 give_up_s=5.0, generator=True, commit_interval_s=0.05, duration_s=None,
+                 bell=None):
     settings = DigitiserSettings(record_length=N, sample_rate_hz=1 / DT_S, range_v=range_v)
     opens = {"digitiser": 0}
 
@@ -187,7 +188,7 @@ def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, st
         converter=FakeConverter(), rules=RuleEngine(AlertConfig.from_table(alerts or {})),
         open_store=open_store, metadata=lambda ids: {"instruments": ids, "test": True},
         session_path=tmp_path / "s.db", trigger_timeout_s=0.05, queue_capacity=queue_capacity,
-        max_traces=max_traces, give_up_s=give_up_s, duration_s=duration_s)
+        max_traces=max_traces, give_up_s=give_up_s, duration_s=duration_s, bell=bell)
     session.opens = opens
     return session
 
@@ -397,3 +398,31 @@ def test_duration_stop(tmp_path, gate):
     with SessionReader(tmp_path / "s.db") as r:
         assert r.stop["exit_status"] == "completed"
         assert len(r.seqs()) == s.snapshot().acquired
+
+
+class TestHeadless:
+    def test_status_lines_alerts_and_bell(self, tmp_path):
+        import io
+
+        from tankside.monitor.headless import run_headless
+
+        scene = Scene(amplitude=lambda seq: 0.2 if seq >= 5 else 0.02)
+        scene.acquire_delay_s = 0.002
+        rings = []
+        s = make_session(tmp_path, scene, max_traces=40,
+                         alerts={"over_pressure": {"limit_pa": 1.0e6},
+                                 "range_under_use": {"enabled": False},
+                                 "pr_drift": {"enabled": False}},
+                         bell=lambda: rings.append(1))
+        s.start()
+        out = io.StringIO()
+        code = run_headless(s, out=out, status_every_s=0.05)
+        text = out.getvalue()
+        assert code == EXIT_OK
+        alert_lines = [ln for ln in text.splitlines() if ln.startswith("ALERT")]
+        assert len(alert_lines) == 1 and "CRITICAL over_pressure seq 5" in alert_lines[0]
+        assert "safe-off" in alert_lines[0]
+        assert rings == [1]            # over_pressure rings by default
+        last = [ln for ln in text.splitlines() if ln.startswith("[stopped]")][-1]
+        assert "acquired 40 converted 40 stored 40" in last and "alerts 1" in last
+        assert "session stopped: completed" in text.splitlines()[-1]

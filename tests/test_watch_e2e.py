@@ -229,7 +229,9 @@ class TestCommand:
         assert main(["export", str(db), "--trace", str(seqs[-1]), "--out", str(out)]) == 0
         assert len(read_trace(out)[0]) == 2000
 
-    def test_sigterm_stops_cleanly(self, sim, tmp_path):
+    @pytest.mark.parametrize("signum, reason", [(signal.SIGTERM, "SIGTERM"),
+                                                (signal.SIGINT, "Ctrl-C")])
+    def test_signal_stops_cleanly(self, sim, tmp_path, signum, reason):
         path = bench_file(sim, tmp_path)
         db = tmp_path / "t.db"
         proc = self._watch("--bench", str(path), "--headless", "--session", str(db))
@@ -237,13 +239,13 @@ class TestCommand:
         while time.monotonic() < deadline and not db.exists():
             time.sleep(0.1)
         time.sleep(1.0)
-        proc.send_signal(signal.SIGTERM)
+        proc.send_signal(signum)
         out, err = proc.communicate(timeout=20)
         assert proc.returncode == EXIT_OK, err
         assert "Traceback" not in err
         with SessionReader(db) as r:
             assert r.stop["exit_status"] == "operator"
-            assert "SIGTERM" in r.stop["reason"]
+            assert reason in r.stop["reason"]
             assert r.stop["counts"]["stored"] == len(r.seqs()) > 0
 
     def test_file_size_limit_is_a_clean_store_stop(self, sim, tmp_path):
