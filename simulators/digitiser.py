@@ -127,6 +127,12 @@ class SimulatedDigitiser(ScpiDevice):
         If above 0, acquisitions complete at once and fetches cycle through this many
         traces computed once per setting (so a fetch benchmark measures the link, not
         the scene).
+
+    Attributes
+    ----------
+    last_codes : numpy.ndarray or None
+        The codes of the most recent block sent by ``WAVeform:DATA?`` (for tests that
+        compare what a client received with what was sent).
     """
 
     IDENTITY = "TANKSIDE,SIMDIG-2,0001,1.0"
@@ -153,6 +159,8 @@ class SimulatedDigitiser(ScpiDevice):
         self._pre_key: tuple | None = None
         self._pre_blocks: list[bytes] = []
         self._pre_next = 0
+        self._pre_codes: list[np.ndarray] = []
+        self.last_codes: np.ndarray | None = None
         self.state = DigitiserState()
         self.reset()
         self._register()
@@ -418,6 +426,7 @@ class SimulatedDigitiser(ScpiDevice):
         if self._trace is None or self._trace_for != key:
             self._trace = self.acquire_codes(channel)
             self._trace_for = key
+        self.last_codes = self._trace[0]
         return self._encode(self._trace[0])
 
     def _precomputed_block(self, channel: int) -> bytes:
@@ -426,10 +435,11 @@ class SimulatedDigitiser(ScpiDevice):
         key = (channel, st.points, st.divider, st.averages, st.trigger_delay_s, st.data_format,
                st.byte_order, ch.range_v, ch.offset_v, self.scene.version)
         if key != self._pre_key:
-            self._pre_blocks = [self._encode(self.acquire_codes(channel)[0])
-                                for _ in range(self.precomputed)]
+            self._pre_codes = [self.acquire_codes(channel)[0] for _ in range(self.precomputed)]
+            self._pre_blocks = [self._encode(codes) for codes in self._pre_codes]
             self._pre_key = key
             self._pre_next = 0
         block = self._pre_blocks[self._pre_next]
+        self.last_codes = self._pre_codes[self._pre_next]
         self._pre_next = (self._pre_next + 1) % len(self._pre_blocks)
         return block

@@ -182,6 +182,7 @@ class TestAcquisition:
         clock, scene, dig = make()
         ask(dig, "CHAN1:RANG 0.1")
         codes = acquire(clock, dig)
+        np.testing.assert_array_equal(codes, dig.last_codes)
         scale = float(ask(dig, "WAV:YINC?"))
         t0 = float(ask(dig, "WAV:XOR?"))
         dt = float(ask(dig, "WAV:XINC?"))
@@ -242,9 +243,13 @@ class TestAcquisition:
         clock, _, dig = make(precomputed=3)
         ask(dig, "ACQ:POIN 2000;:INIT")
         assert ask(dig, "ACQ:DONE?") == "1"
-        blocks = [dig.handle("WAV:DATA?") for _ in range(6)]
+        blocks, served = [], []
+        for _ in range(6):
+            blocks.append(dig.handle("WAV:DATA?"))
+            served.append(dig.last_codes)
         assert blocks[0] == blocks[3] and blocks[1] == blocks[4]
         assert blocks[0] != blocks[1]
+        np.testing.assert_array_equal(np.frombuffer(parse_block(blocks[2]), "<i2"), served[2])
 
 
 class TestGenerator:
