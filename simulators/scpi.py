@@ -340,7 +340,8 @@ class ErrorQueue:
     @staticmethod
     def format(entry: tuple[int, str]) -> str:
         code, text = entry
-        return f'{code},"{text.replace(chr(34), chr(39))}"'
+        text = text.replace(chr(34), chr(39)).encode("ascii", "backslashreplace").decode("ascii")
+        return f'{code},"{text}"'
 
 
 # ---------------------------------------------------------------- device base
@@ -486,12 +487,11 @@ class ScpiDevice:
     def handle(self, line: str | bytes) -> bytes | None:
         """Execute one program message; return the reply line (bytes, ``\\n``-ended) or None."""
         if isinstance(line, bytes):
-            try:
-                line = line.decode("ascii")
-            except UnicodeDecodeError:
-                # A program message is 7-bit ASCII (IEEE 488.2, 7.4); no sense can be made of it.
-                self.push_error(-100, "non-ASCII byte in the message")
-                return None
+            line = line.decode("latin-1")
+        if not line.isascii():
+            # A program message is 7-bit ASCII (IEEE 488.2, 7.4); no sense can be made of it.
+            self.push_error(-100, "non-ASCII byte in the message")
+            return None
         line = line.strip("\r\n")
         replies: list[bytes] = []
         try:

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from tankside.simulators.digitiser import RANGES_V, SimulatedDigitiser, quantise
 from tankside.simulators.generator import SimulatedGenerator
@@ -312,3 +314,30 @@ class TestAgainstTheSignalChain:
         assert result.peak_compressional_pa == pytest.approx(truth.max(), rel=tolerance)
         assert result.peak_rarefactional_pa == pytest.approx(-truth.min(), rel=tolerance)
         assert result.acoustic_working_frequency_hz == pytest.approx(3.5e6, rel=0.02)
+
+
+_WORDS = ["ACQ:POIN", "ACQ:SRAT", "CHAN1:RANG", "CHAN2:OFFS", "TRIG:SOUR", "TRIG:LEV",
+          "WAV:DATA", "WAV:FORM", "INIT", "*RST", "*IDN", "SYST:ERR", "OUTP", "VOLT", "FREQ",
+          "BURS:PER", "BURS:NCYC", "CHAN3:IMP", "ACQ:AVER", "WAV:SOUR", "TRIG:SLOP", "*ESE"]
+_ARGS = st.one_of(st.just(""), st.text(alphabet="0123456789.eE-+ ,;:?\"'ABCXYZMINAX",
+                                       max_size=12))
+_COMMAND = st.builds(lambda w, q, a: w + ("?" if q else "") + (" " + a if a else ""),
+                     st.sampled_from(_WORDS), st.booleans(), _ARGS)
+_LINE = st.one_of(st.lists(_COMMAND, max_size=4).map(";".join), st.text(max_size=30),
+                  st.binary(max_size=30))
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(_LINE, max_size=5))
+def test_any_message_gives_a_reply_line_or_none_never_an_exception(lines):
+    scene = Scene()
+    dig = SimulatedDigitiser(scene, clock=lambda: 0.0, sleep=lambda s: True)
+    gen = SimulatedGenerator(scene)
+    for line in lines:
+        for dev in (dig, gen):
+            reply = dev.handle(line)
+            assert reply is None or reply.endswith(b"\n")
+            assert reply is None or b"#" in reply or reply.isascii()
+    for dev in (dig, gen):
+        entry = ask(dev, "SYST:ERR?")
+        assert int(entry.split(",")[0]) <= 0
