@@ -3,7 +3,8 @@
 Identity ``TANKSIDE,SIMDIG-2,0001,1.0``. Two channels; channel 1 carries the hydrophone of
 the shared :class:`~tankside.simulators.scene.Scene`, channel 2 is unconnected (noise only).
 The trigger comes from the generator's sync output on EXT (one per burst period) unless
-the source is IMMediate. Commands (short forms in capitals, ``#`` = optional channel suffix):
+the source is IMMediate: then the record starts at once, at a random moment of the burst
+cycle, so it holds the pulse only by chance (as on a real free-running digitiser). Commands (short forms in capitals, ``#`` = optional channel suffix):
 
 =====================================  ==================================================
 ``ACQuire:POINts <n>`` / ``?``          record length, 16 .. 4,000,000 samples
@@ -153,6 +154,7 @@ class SimulatedDigitiser(ScpiDevice):
         self._epoch = clock()
         self.armed = False
         self.ready_at = math.inf
+        self.free_run_shift_s = 0.0
         self.acquisitions = 0
         self._trace: tuple[np.ndarray, float, float] | None = None
         self._trace_for: int | None = None
@@ -366,8 +368,12 @@ class SimulatedDigitiser(ScpiDevice):
         self._trace = None
         self.acquisitions += 1
         st = self.state
+        self.free_run_shift_s = 0.0
         if self.precomputed or st.trigger_source == "IMM":
             self.ready_at = now
+            if st.trigger_source == "IMM" and not self.precomputed:
+                period = self.scene.trigger_period_s
+                self.free_run_shift_s = float(self.rng.uniform(-period / 2, period / 2))
             return
         if not self.trigger_possible():
             self.ready_at = math.inf
@@ -393,6 +399,7 @@ class SimulatedDigitiser(ScpiDevice):
         avg = st.averages
         # Averaging n triggers: noise falls by sqrt(n); the jitter is drawn as the mean of n.
         jitter = float(self.rng.normal(0.0, self.jitter_s / math.sqrt(avg)))
+        jitter += self.free_run_shift_s
         if channel == 1:
             v = self.scene.hydrophone_voltage_v(times, jitter_s=jitter)
         else:

@@ -214,7 +214,7 @@ class Scene:
     every change so that a digitiser may cache traces computed for one state.
     """
 
-    def __init__(self, params: SceneParameters | None = None,
+    def __init__(self, params: SceneParameters | None = None, *,
                  hydrophone: HydrophoneModel | None = None, drive: Drive | None = None,
                  position_m: tuple[float, float, float] = (0.0, 0.0, 0.0)):
         self.params = params or SceneParameters()
