@@ -17,7 +17,8 @@ cycle, so it holds the pulse only by chance (as on a real free-running digitiser
                                         (a value between two is rounded up)
 ``CHANnel#:OFFSet <v>`` / ``?``         voltage at mid-scale, |offset| <= 2.5 V
 ``CHANnel#:COUPling AC|DC`` / ``?``
-``CHANnel#:IMPedance 50|1e6`` / ``?``   input impedance, ohm
+``CHANnel#:IMPedance 50|1e6`` / ``?``   input impedance, ohm (50 ohm halves the
+                                        hydrophone's 50 ohm-driven signal)
 ``TRIGger:SOURce EXT|CHAN#|IMM`` / ``?``
 ``TRIGger:LEVel <v>`` / ``?``           -5 .. 5 V; EXT triggers when 0 < level < 3.3 V
 ``TRIGger:SLOPe POS|NEG`` / ``?``
@@ -401,7 +402,8 @@ class SimulatedDigitiser(ScpiDevice):
         jitter = float(self.rng.normal(0.0, self.jitter_s / math.sqrt(avg)))
         jitter += self.free_run_shift_s
         if channel == 1:
-            v = self.scene.hydrophone_voltage_v(times, jitter_s=jitter)
+            load = self.scene.hydrophone.load_factor(st.channels[1].impedance_ohm)
+            v = load * self.scene.hydrophone_voltage_v(times, jitter_s=jitter)
         else:
             v = np.zeros(st.points)
         return v + self.rng.normal(0.0, self.noise_v_rms / math.sqrt(avg), st.points)

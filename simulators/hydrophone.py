@@ -47,6 +47,8 @@ class HydrophoneModel:
         Natural frequency of the element resonance, Hz.
     quality : float
         Quality factor of the resonance (1.2 gives about +2.5 dB of peaking).
+    output_impedance_ohm : float
+        Output resistance of the built-in preamplifier, ohm (see :meth:`load_factor`).
     name : str
         Name printed in the calibration file.
     """
@@ -55,7 +57,18 @@ class HydrophoneModel:
     highpass_hz: float = 0.2e6
     resonance_hz: float = 30.0e6
     quality: float = 1.2
+    output_impedance_ohm: float = 50.0
     name: str = "tankside demo needle hydrophone DN-1 (invented)"
+
+    def load_factor(self, input_impedance_ohm: float) -> float:
+        """Voltage into ``input_impedance_ohm`` relative to the calibrated 1 MOhm load.
+
+        The preamplifier drives the cable through ``output_impedance_ohm`` (a resistive
+        divider; cable and input capacitance left out), so a 50 ohm input about halves it.
+        """
+        r = self.output_impedance_ohm
+        calibrated = 1.0e6 / (1.0e6 + r)
+        return (input_impedance_ohm / (input_impedance_ohm + r)) / calibrated
 
     def response(self, frequency_hz: np.ndarray) -> np.ndarray:
         """Complex sensitivity M(f), V/Pa, time convention e^{j w t}.

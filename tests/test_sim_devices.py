@@ -212,6 +212,16 @@ class TestAcquisition:
         # Gaussian noise: nothing beyond 6 sigma in 10^4 samples (common practice).
         assert np.abs(v).max() < 6 * 0.3e-3
 
+    def test_fifty_ohm_input_halves_the_hydrophone_signal(self):
+        # A 50 ohm source into a 50 ohm load gives half the open-circuit voltage; into
+        # 1 MOhm almost all of it (voltage divider, common practice).
+        peaks = {}
+        for imp in ("1e6", "50"):
+            clock, _, dig = make(noise_v_rms=0.0, jitter_s=0.0)
+            ask(dig, f"CHAN1:RANG 0.1;IMP {imp}")
+            peaks[imp] = np.abs(acquire(clock, dig)).max()
+        assert peaks["50"] / peaks["1e6"] == pytest.approx(0.5 * (1e6 + 50) / 1e6, abs=2e-4)
+
     def test_small_range_clips_at_the_rails(self):
         clock, scene, dig = make()
         scene.set_drive(amplitude_vpp=10.0)
