@@ -377,11 +377,21 @@ class TestSimulateCommand:
         assert cli_main(["simulate", "--duration", "0.2", "--position-mm", "0.5,0,2"]) == 0
         assert "(0.5, 0, 2) mm" in capsys.readouterr().out
 
-    def test_ctrl_c_stops_cleanly(self):
+    @pytest.mark.parametrize("sig, ignore_sigint", [
+        (signal.SIGINT, False),
+        (signal.SIGINT, True),    # a shell's background job inherits SIGINT ignored
+        (signal.SIGTERM, False),
+    ])
+    def test_signals_stop_cleanly(self, sig, ignore_sigint):
         env = dict(os.environ, PYTHONUNBUFFERED="1")
+
+        def child_setup():
+            if ignore_sigint:
+                signal.signal(signal.SIGINT, signal.SIG_IGN)
+
         proc = subprocess.Popen([sys.executable, "-m", "tankside.monitor.cli", "simulate"],
                                 stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                                env=env)
+                                env=env, preexec_fn=child_setup)
         try:
             lines = []
             while not any("running" in ln for ln in lines):
@@ -393,7 +403,7 @@ class TestSimulateCommand:
             c = Client(port)
             assert c.query("*IDN?").startswith("TANKSIDE")
             c.close()
-            proc.send_signal(signal.SIGINT)
+            proc.send_signal(sig)
             _, err = proc.communicate(timeout=10)
         finally:
             if proc.poll() is None:

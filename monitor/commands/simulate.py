@@ -3,9 +3,11 @@
 from __future__ import annotations
 
 import argparse
+import math
 import signal
 import sys
 import threading
+import time
 
 from tankside.monitor.errors import ConfigError
 
@@ -121,6 +123,10 @@ def run(args) -> int:
     position = parse_position_mm(args.position_mm) if args.position_mm else None
     if not (args.port == 0 or 1 <= args.port <= 65534):
         raise ConfigError(f"--port {args.port}: expected 1..65534 (the generator takes N+1), or 0")
+    if args.duration is not None and args.duration <= 0:
+        raise ConfigError(f"--duration {args.duration}: expected a time above 0 s")
+    if args.inject_every is not None and args.inject_every <= 0:
+        raise ConfigError(f"--inject-every {args.inject_every}: expected a time above 0 s")
     if args.trigger_period is not None and not 1e-4 <= args.trigger_period <= 100:
         raise ConfigError(f"--trigger-period {args.trigger_period}: expected 1e-4..100 s")
     try:
@@ -135,7 +141,14 @@ def run(args) -> int:
     def on_signal(signum, frame):
         stop.set()
 
-    previous = signal.signal(signal.SIGTERM, on_signal)
+    # Both signals set the same event, so Ctrl-C works even where SIGINT was inherited
+    # as ignored (a shell's background job).
+    previous = {}
+    for sig in (signal.SIGINT, signal.SIGTERM):
+        try:
+            previous[sig] = signal.signal(sig, on_signal)
+        except ValueError:  # not the main thread: Ctrl-C stays a KeyboardInterrupt there
+            break
     try:
         print(f"digitiser  {bench.digitiser_resource}", flush=True)
         print(f"generator  {bench.generator_resource}", flush=True)
@@ -153,24 +166,26 @@ def run(args) -> int:
                 path = bench.write_bench_file(args.bench_file)
             except OSError as err:
                 raise ConfigError(f"--bench-file {args.bench_file}: {err.strerror}") from err
-            print(f"bench file {path}", flush=True)
+            print(f"bench file {path.resolve()}", flush=True)
         arm(bench.faults, parsed, args.inject_device)
         print("running; Ctrl-C to stop", flush=True)
-        waited = 0.0
-        tick = args.inject_every if (args.inject_every and parsed) else 0.2
+        now = time.monotonic()
+        deadline = now + args.duration if args.duration is not None else math.inf
+        every = args.inject_every if (args.inject_every and parsed) else math.inf
+        next_arm = now + every
         try:
-            while not stop.is_set():
-                if stop.wait(tick):
-                    break
-                waited += tick
-                if args.inject_every and parsed:
+            while not stop.wait(0.1):
+                now = time.monotonic()
+                if now >= next_arm:
                     arm(bench.faults, parsed, args.inject_device)
-                if args.duration is not None and waited >= args.duration:
+                    next_arm = now + every
+                if now >= deadline:
                     break
         except KeyboardInterrupt:
             pass
         print("stopped", file=sys.stderr, flush=True)
         return 0
     finally:
-        signal.signal(signal.SIGTERM, previous)
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
         bench.close()
