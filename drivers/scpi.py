@@ -348,8 +348,11 @@ class ScpiSession:
         except Exception:  # noqa: BLE001, S110 - the link is being replaced; a close
             pass  # failure on a dead socket says nothing more than the error that led here
 
-    def close(self) -> None:
-        """Close the resource."""
+    def close(self, *, quiet: bool = False) -> None:
+        """Close the resource; with ``quiet``, a failure to close a dead link is not raised."""
+        if quiet:
+            self._close_quietly()
+            return
         try:
             self.resource.close()
         except Exception as err:  # noqa: BLE001 - translated and chained

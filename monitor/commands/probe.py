@@ -1,0 +1,293 @@
+"""``tankside probe``: what works on an instrument, tried through its profile.
+
+Each operation is tried in a way that leaves the instrument as it was: queries are
+sent as they are; a setting is written only when the profile can read it back, and
+then with the value read back, which is checked afterwards (and written again if it
+changed). Settings that cannot be read back are reported, not tried. ``reset`` is
+never tried; arming an acquisition only with ``--acquire``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+from dataclasses import dataclass
+
+from tankside.drivers import ieee488
+from tankside.drivers.errors import ConnectionLost, InstrumentError, NoTrigger
+from tankside.drivers.profile import Profile, load_profile
+from tankside.drivers.scpi import ScpiSession
+
+EPILOG = """\
+results:
+  ok         the instrument accepted the operation (and reported no error)
+  failed     it did not (no reply, an error in its queue, or a reply that does not parse)
+  not tried  trying it would change a setting that cannot be restored (or needs --acquire)
+
+exit codes:
+  0  every operation tried worked
+  2  the instrument cannot be reached, or the profile cannot be loaded
+  3  at least one operation failed
+"""
+
+EXIT_OK, EXIT_UNREACHABLE, EXIT_FAILED = 0, 2, 3
+
+_DIGITISER_SETTINGS = (  # (set key, read-back key, placeholder)
+    ("set_record_length", "query_record_length", "points"),
+    ("set_sample_rate", "query_sample_rate", "rate_hz"),
+    ("set_range", "query_range", "range_v"),
+    ("set_offset", "query_offset", "offset_v"),
+    ("set_coupling", "query_coupling", "coupling"),
+    ("set_impedance", "query_impedance", "impedance_ohm"),
+    ("set_trigger_source", "query_trigger_source", "source"),
+    ("set_trigger_level", "query_trigger_level", "level_v"),
+    ("set_trigger_slope", "query_trigger_slope", "slope"),
+    ("set_averages", "query_averages", "count"),
+)
+_GENERATOR_SETTINGS = (
+    ("set_amplitude", "get_amplitude", "amplitude_vpp"),
+    ("set_frequency", "get_frequency", "frequency_hz"),
+    ("set_burst_cycles", "get_burst_cycles", "cycles"),
+    ("set_burst_period", "get_burst_period", "period_s"),
+)
+_NUMERIC_QUERIES = ("get_time_step", "get_time_origin", "get_volts_per_code", "get_offset",
+                    "get_amplitude", "get_frequency", "get_burst_cycles", "get_burst_period")
+
+
+@dataclass
+class Row:
+    operation: str
+    command: str
+    result: str
+    detail: str = ""
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser(
+        "probe", help="identify an instrument and try each operation of its profile",
+        description=("Identify the instrument at RESOURCE and, with --profile, try each "
+                     "operation the profile defines, reporting which work. Settings are "
+                     "read first and written back unchanged; a setting the profile cannot "
+                     "read back is not touched."),
+        epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("resource", metavar="RESOURCE",
+                   help='VISA resource string, e.g. "TCPIP0::192.168.1.20::5025::SOCKET"')
+    p.add_argument("--profile", metavar="P",
+                   help="instrument profile: a built-in name or a path to a TOML file; "
+                        "without it only *IDN?, *OPC? and the error queue are tried")
+    p.add_argument("--visa-library", default="@py", metavar="L",
+                   help='VISA library for pyvisa (default "@py", the pure-Python backend)')
+    p.add_argument("--timeout", type=float, default=None, metavar="S",
+                   help="I/O timeout in seconds (default: the profile's, else 5)")
+    p.add_argument("--acquire", action="store_true",
+                   help="also arm one acquisition and fetch it (a digitiser that was "
+                        "free-running is left stopped after a single acquisition)")
+    p.add_argument("--trigger-timeout", type=float, default=5.0, metavar="S",
+                   help="with --acquire: how long to wait for the trigger, s (default 5)")
+    p.set_defaults(func=run)
+
+
+class _Prober:
+    def __init__(self, session: ScpiSession, profile: Profile | None,
+                 trigger_timeout_s: float = 5.0):
+        self.session = session
+        self.trigger_timeout_s = trigger_timeout_s
+        self.profile = profile
+        self.rows: list[Row] = []
+
+    def _try(self, operation: str, command: str, action) -> str | None:
+        """Run ``action()``; record ok with its detail, or failed with the reason."""
+        try:
+            detail = action()
+        except ConnectionLost:
+            self.rows.append(Row(operation, command, "failed", "connection lost"))
+            raise
+        except InstrumentError as err:
+            self.rows.append(Row(operation, command, "failed",
+                                 err.message + self._queued_errors()))
+            return None
+        self.rows.append(Row(operation, command, "ok", "" if detail is None else str(detail)))
+        return "" if detail is None else str(detail)
+
+    def _queued_errors(self) -> str:
+        """What the instrument queued about a failed operation, so the error is charged
+        to it and not to the next one (resynchronising first after a timeout)."""
+        try:
+            errors = self.session.drain_errors()
+        except ConnectionLost:
+            raise
+        except InstrumentError as err:
+            return f"; error queue unreadable: {err.message}"
+        return "".join(f"; queued {code}, {text!r}" for code, text in errors)
+
+    def _query(self, command: str) -> str:
+        reply = self.session.query(command).strip()
+        self.session.check_errors(command)
+        return reply
+
+    def common(self) -> None:
+        self._try("identify", "*IDN?", self.session.identify)
+        self._try("error queue", self.session.error_query,
+                  lambda: f"{len(self.session.drain_errors())} queued error(s) read")
+        self._try("wait complete", "*OPC?", self.session.opc)
+
+    def queries(self, keys, parse=None) -> None:
+        for key in keys:
+            if not self.profile.has(key):
+                continue
+            command = self.profile.command(key, channel=1)
+
+            def action(command=command, key=key):
+                reply = self._query(command)
+                if parse is not None or key in _NUMERIC_QUERIES:
+                    (parse or ieee488.parse_number)(reply)
+                return reply
+            self._try(key, command, action)
+
+    def settings(self, steps) -> None:
+        for set_key, read_key, placeholder in steps:
+            if not self.profile.has(set_key):
+                continue
+            template = self.profile.commands[set_key]
+            if not self.profile.has(read_key):
+                self.rows.append(Row(set_key, template, "not tried",
+                                     f"no {read_key} in the profile to restore it"))
+                continue
+            read_cmd = self.profile.command(read_key, channel=1)
+            try:
+                before = self._query(read_cmd)
+            except ConnectionLost:
+                raise
+            except InstrumentError as err:
+                self.rows.append(Row(set_key, template, "not tried",
+                                     f"cannot read it back ({read_key}): {err.message}"))
+                continue
+            try:
+                command = self.profile.command(set_key, channel=1, **{placeholder: before})
+            except (ValueError, KeyError) as err:
+                self.rows.append(Row(set_key, template, "not tried",
+                                     f"read-back {before!r} does not fill the template: {err}"))
+                continue
+
+            def action(command=command, read_cmd=read_cmd, before=before):
+                self.session.write_step(command)
+                after = self._query(read_cmd)
+                if after != before:
+                    self.session.write_step(command)
+                    raise InstrumentError(f"read back {after!r} after writing {before!r}; "
+                                          "written again")
+                return f"unchanged: {before}"
+            self._try(set_key, command, action)
+
+    def output_state(self) -> None:
+        values = self.profile.values
+        try:
+            on = ieee488.parse_bool(self._query(self.profile.command("get_output")),
+                                    true_replies=values["output_on_replies"],
+                                    false_replies=values["output_off_replies"])
+        except ConnectionLost:
+            raise
+        except InstrumentError as err:
+            self.rows.append(Row("set_output", self.profile.commands["set_output"], "not tried",
+                                 f"output state unreadable: {err.message}"))
+            return
+        command = self.profile.command("set_output",
+                                       state=values["output_on" if on else "output_off"])
+
+        def action():
+            self.session.write_step(command)
+            return f"unchanged: {'on' if on else 'off'}"
+        self._try("set_output", command, action)
+
+    def acquisition(self, allowed: bool) -> None:
+        keys = ("arm_single", "acquisition_done", "fetch_waveform")
+        if not allowed:
+            for key in keys:
+                if self.profile.has(key):
+                    self.rows.append(Row(key, self.profile.commands[key], "not tried",
+                                         "use --acquire"))
+            return
+        from tankside.drivers.digitiser import decode_codes
+
+        arm = self.profile.command("arm_single", channel=1)
+
+        def arm_action():
+            self.session.write_step(arm)
+        self._try("arm_single", arm, arm_action)
+        if self.profile.has("acquisition_done"):
+            done = self.profile.command("acquisition_done", channel=1)
+
+            def wait_done():
+                deadline = time.monotonic() + self.trigger_timeout_s
+                while not ieee488.parse_bool(self._query(done)):
+                    if time.monotonic() >= deadline:
+                        raise NoTrigger(f"not done within {self.trigger_timeout_s:g} s")
+                    time.sleep(0.01)
+                return "1"
+            if self._try("acquisition_done", done, wait_done) is None:
+                return
+        fetch = self.profile.command("fetch_waveform", channel=1)
+
+        def fetch_action():
+            codes = decode_codes(self.session.query_block(fetch), self.profile.dtype)
+            return f"{codes.size} samples ({self.profile.data_format})"
+        self._try("fetch_waveform", fetch, fetch_action)
+
+    def run(self, acquire: bool) -> None:
+        self.common()
+        if self.profile is None:
+            return
+        if self.profile.kind == "digitiser":
+            self.queries(("get_time_step", "get_time_origin", "get_volts_per_code", "get_offset"))
+            self.settings(_DIGITISER_SETTINGS)
+            self.acquisition(acquire)
+        else:
+            self.queries(("get_output",), parse=lambda r: ieee488.parse_bool(
+                r, true_replies=self.profile.values["output_on_replies"],
+                false_replies=self.profile.values["output_off_replies"]))
+            self.settings(_GENERATOR_SETTINGS)
+            self.output_state()
+        if self.profile.has("reset"):
+            self.rows.append(Row("reset", self.profile.commands["reset"], "not tried",
+                                 "would change every setting"))
+
+
+def format_table(rows: list[Row]) -> str:
+    """The rows as a fixed-width text table."""
+    head = Row("operation", "command", "result", "detail")
+    width = [max(len(getattr(r, f)) for r in [head, *rows])
+             for f in ("operation", "command", "result")]
+    lines = []
+    for r in [head, *rows]:
+        lines.append(f"{r.operation:<{width[0]}}  {r.command:<{width[1]}}  "
+                     f"{r.result:<{width[2]}}  {r.detail}".rstrip())
+    lines.insert(1, "-" * min(100, max(len(line) for line in lines)))
+    return "\n".join(lines)
+
+
+def run(args) -> int:
+    profile = load_profile(args.profile) if args.profile else None
+    timeout_s = args.timeout or (profile.timeout_s if profile else 5.0)
+    terms = ({"read_termination": profile.read_termination,
+              "write_termination": profile.write_termination} if profile else {})
+    session = ScpiSession.open(args.resource, visa_library=args.visa_library,
+                               timeout_s=timeout_s, error_policy="raise",
+                               resync_timeout_s=max(2.0, 3 * timeout_s), **terms)
+    if profile is not None and profile.has("get_error"):
+        session.error_query = profile.command("get_error")
+    prober = _Prober(session, profile, trigger_timeout_s=args.trigger_timeout)
+    try:
+        prober.run(args.acquire)
+    except ConnectionLost:
+        print(format_table(prober.rows))
+        raise
+    finally:
+        session.close(quiet=True)
+    print(f"{args.resource}: {session.identity or 'no identity'}")
+    if profile is not None:
+        print(f"profile: {profile.source} ({profile.kind})")
+    print(format_table(prober.rows))
+    failed = sum(r.result == "failed" for r in prober.rows)
+    skipped = sum(r.result == "not tried" for r in prober.rows)
+    print(f"{len(prober.rows) - failed - skipped} ok, {failed} failed, {skipped} not tried")
+    return EXIT_FAILED if failed else EXIT_OK
