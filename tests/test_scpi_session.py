@@ -218,3 +218,52 @@ class TestOverTcp:
             assert s.query("*IDN?") == IDN.decode().strip()
             assert server.connections == 2
             s.close()
+
+
+class TestBlockPropertyOverTcp:
+    """Malformed or short blocks over a real pyvisa-py socket: a typed error within the
+    timeout, never a hang nor a wrong array, and the session usable again after."""
+
+    def test_property(self):
+        from hypothesis import HealthCheck, given, settings
+        from hypothesis import strategies as st
+
+        reply = {"block": b""}
+
+        def handler(line):
+            if line == b"*IDN?":
+                return IDN
+            if line == b"WAV?":
+                return reply["block"]
+            return None
+
+        payloads = st.binary(min_size=1, max_size=2000)
+        malformed = st.one_of(
+            payloads.map(lambda p: ieee488.encode_block(p)[:-1]),              # short
+            payloads.map(lambda p: b"#0" + p + b"\n"),                         # indefinite
+            payloads.map(lambda p: b"#9" + b"0" * 8 + b"1" + p + b"\n")        # 1 byte, then
+            .filter(lambda b: b[12:13] != b"\n"),                              # no terminator
+            payloads.map(lambda p: b"#" + bytes([65 + p[0] % 26]) + p + b"\n"),  # bad digit
+            payloads.map(lambda p: ieee488.encode_block(p + b"x" * 20)[:-10]),  # short
+        )
+        timeout_s = 0.15
+        with LineServer(handler) as server:
+            session = ScpiSession.open(server.resource, timeout_s=timeout_s,
+                                       resync_timeout_s=2.0)
+            session.identify()
+
+            @settings(max_examples=25, deadline=None,
+                      suppress_health_check=[HealthCheck.function_scoped_fixture])
+            @given(block=malformed)
+            def check(block):
+                reply["block"] = block
+                t0 = time.monotonic()
+                with pytest.raises((ProtocolError, InstrumentTimeout)):
+                    session.query_block("WAV?")
+                assert time.monotonic() - t0 < timeout_s + 0.5
+                good = np.arange(7, dtype="<i2").tobytes()
+                reply["block"] = ieee488.encode_block(good) + b"\n"
+                assert session.query_block("WAV?") == good
+
+            check()
+            session.close()
