@@ -65,7 +65,7 @@ BASE_CLOCK_HZ = 1.0e9
 CHANNELS = (1, 2)
 FORMATS = {"int16": (np.int16, -32768, 32767), "int8": (np.int8, -128, 127),
            "float32": (np.float32, None, None)}
-MAX_WAIT_S = 30.0  # *OPC? gives up waiting for a trigger that cannot come after this
+MAX_WAIT_S = 600.0  # *OPC? gives up (no reply) on a trigger that has not come by then
 
 
 def quantise(volts: np.ndarray, range_v: float, offset_v: float,
@@ -180,14 +180,23 @@ class SimulatedDigitiser(ScpiDevice):
         self.ready_at = math.inf
         self._trace = None
 
-    def wait_pending(self) -> None:
+    def wait_pending(self) -> bool:
+        """Wait for the armed acquisition; True when it completed or was aborted or re-armed
+        (from another connection), False when given up after MAX_WAIT_S or on shutdown."""
         if not self.armed:
-            return
+            return True
+        acquisition = self.acquisitions
         deadline = self.clock() + MAX_WAIT_S
-        while self.clock() < min(self.ready_at, deadline):
-            remaining = min(self.ready_at, deadline) - self.clock()
-            if self.sleep(min(max(remaining, 0.0), 0.05)):
-                return
+        while True:
+            if not self.armed or self.acquisitions != acquisition:
+                return True
+            now = self.clock()
+            if now >= self.ready_at:
+                return True
+            if now >= deadline:
+                return False
+            if self.sleep(min(min(self.ready_at, deadline) - now, 0.05)):
+                return False
 
     # ------------------------------------------------------------ registration
     def _register(self) -> None:

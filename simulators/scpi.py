@@ -412,8 +412,14 @@ class ScpiDevice:
     def reset(self) -> None:
         """``*RST``: settings to their defaults (the error queue is kept, IEEE 488.2 10.32)."""
 
-    def wait_pending(self) -> None:
-        """Block until pending operations are complete (``*WAI``, ``*OPC?``)."""
+    def wait_pending(self) -> bool:
+        """Block until pending operations are complete (``*WAI``, ``*OPC?``).
+
+        Returns False when the wait was given up (the device is shutting down, or the
+        operation can never finish); ``*OPC?`` then sends no reply, as a real
+        instrument whose operation never completes would not.
+        """
+        return True
 
     # --- errors
     def push_error(self, code: int, detail: str = "") -> None:
@@ -457,7 +463,8 @@ class ScpiDevice:
             return None
         if name == "*OPC":
             expect_args(args, 0)
-            self.wait_pending()
+            if not self.wait_pending():
+                return None
             if q:
                 return "1"
             self.esr |= ESR_OPC

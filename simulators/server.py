@@ -53,6 +53,7 @@ class InstrumentServer:
         self.faults = faults
         self.stop_event = stop_event or threading.Event()
         self._device_lock = threading.Lock()
+        self._lock_owner: int | None = None
         self._conns: set[socket.socket] = set()
         self._conns_lock = threading.Lock()
         self._threads: list[threading.Thread] = []
@@ -62,6 +63,22 @@ class InstrumentServer:
         if faults is not None:
             device.interceptor = lambda pattern, q: faults.take_error(
                 name, pattern, q, device.canonical)
+        inner_sleep = getattr(device, "sleep", None)
+        if callable(inner_sleep):
+            device.sleep = lambda seconds: self._sleep_unlocked(inner_sleep, seconds)
+
+    def _sleep_unlocked(self, inner, seconds: float):
+        # A device waiting for a trigger (*OPC?, *WAI) lets other connections in
+        # meanwhile, so a client that gave up and reconnected is not locked out.
+        if self._lock_owner != threading.get_ident():
+            return inner(seconds)  # called outside the server (a test driving the model)
+        self._lock_owner = None
+        self._device_lock.release()
+        try:
+            return inner(seconds) or self.stop_event.is_set()
+        finally:
+            self._device_lock.acquire()
+            self._lock_owner = threading.get_ident()
 
     # ------------------------------------------------------------ lifecycle
     def start(self) -> InstrumentServer:
@@ -164,7 +181,11 @@ class InstrumentServer:
                 if faults is not None and faults.take_drop(self.name):
                     return
                 with self._device_lock:
-                    reply = self.device.handle(line)
+                    self._lock_owner = threading.get_ident()
+                    try:
+                        reply = self.device.handle(line)
+                    finally:
+                        self._lock_owner = None
                 if reply is None:
                     continue
                 if faults is not None and not self._send_with_faults(conn, reply):

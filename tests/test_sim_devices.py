@@ -173,6 +173,15 @@ class TestAcquisition:
         ask(dig, "WAV:DATA?")
         assert errors(dig) == [-230]
 
+    def test_opc_query_gives_no_reply_when_the_trigger_never_comes(self):
+        clock, _, dig = make()
+        ask(dig, "TRIG:LEV 4.0;:INIT")
+        t = clock.t
+        assert dig.handle("*OPC?") is None
+        assert clock.t - t >= 600.0   # gave up after MAX_WAIT_S of (fake) waiting
+        ask(dig, "ABORt")
+        assert ask(dig, "*OPC?") == "1"
+
     def test_immediate_trigger_and_fetch_before_arm(self):
         _, _, dig = make()
         assert dig.handle("WAV:DATA?") is None

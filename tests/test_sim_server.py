@@ -148,6 +148,16 @@ class TestProtocol:
         assert other.query("ACQ:POIN?") == "777"
         other.close()
 
+    def test_a_client_waiting_for_a_trigger_does_not_lock_others_out(self, bench, dig):
+        dig.write("TRIG:LEV 4.5;:INIT")   # above the 3.3 V sync: no trigger will come
+        dig.write("*OPC?")
+        time.sleep(0.1)
+        other = Client(bench.digitiser_port, timeout=1.0)
+        assert other.query("*IDN?").startswith("TANKSIDE")
+        other.write("ABORt")              # nothing pending any more: *OPC? completes
+        assert dig.readline() == "1"
+        other.close()
+
     def test_clean_shutdown_closes_connections_and_frees_port(self):
         b = SimulatedBench(trigger_period_s=0.01)
         c = Client(b.digitiser_port)
