@@ -51,9 +51,9 @@ class SimulatedBench:
         Digitiser port (generator on ``port + 1``); 0 picks free ports.
     trigger_period_s : float, optional
         Burst (trigger) period at power-on; default 0.05 s (20 traces/s). Tests set it small.
-    precomputed : int
-        If above 0, the digitiser completes acquisitions at once and serves this many
-        pre-computed traces in turn (for fetch benchmarks).
+    precomputed : int or bool
+        If above 0 (or True, meaning 8), the digitiser completes acquisitions at once and
+        serves this many pre-computed traces in turn (for fetch benchmarks).
     scene_parameters : SceneParameters, optional
     drive : Drive, optional
         The generator's power-on drive.
@@ -64,7 +64,7 @@ class SimulatedBench:
     """
 
     def __init__(self, seed: int = 0, faults: FaultPlan | None = None, *, port: int = 0,
-                 trigger_period_s: float | None = None, precomputed: int = 0,
+                 trigger_period_s: float | None = None, precomputed: int | bool = 0,
                  scene_parameters: SceneParameters | None = None, drive: Drive | None = None,
                  noise_v_rms: float = 0.3e-3, jitter_s: float = 0.5e-9, start: bool = True):
         if not (port == 0 or 1 <= port <= 65534):

@@ -125,9 +125,9 @@ class SimulatedDigitiser(ScpiDevice):
         Trigger jitter, s rms.
     missed_triggers : callable, optional
         Called once per arm; returns how many coming triggers this acquisition misses.
-    precomputed : int
+    precomputed : int or bool
         If above 0, acquisitions complete at once and fetches cycle through this many
-        traces computed once per setting (so a fetch benchmark measures the link, not
+        (True: 8) traces computed once per setting (so a fetch benchmark measures the link, not
         the scene).
 
     Attributes
@@ -151,7 +151,8 @@ class SimulatedDigitiser(ScpiDevice):
         self.noise_v_rms = noise_v_rms
         self.jitter_s = jitter_s
         self.missed_triggers = missed_triggers or (lambda: 0)
-        self.precomputed = int(precomputed)
+        # True asks for the default set of eight traces.
+        self.precomputed = 8 if precomputed is True else int(precomputed)
         self._epoch = clock()
         self.armed = False
         self.ready_at = math.inf

@@ -268,6 +268,12 @@ class TestAcquisition:
             traces.append(acquire(clock, dig))
         np.testing.assert_array_equal(traces[0], traces[1])
 
+    def test_precomputed_true_means_eight_traces(self):
+        _, _, dig = make(precomputed=True)
+        ask(dig, "ACQ:POIN 100;:INIT")
+        blocks = [dig.handle("WAV:DATA?") for _ in range(9)]
+        assert blocks[0] == blocks[8] and len(set(blocks)) == 8
+
     def test_precomputed_cycles_through_fixed_traces(self):
         clock, _, dig = make(precomputed=3)
         ask(dig, "ACQ:POIN 2000;:INIT")
