@@ -6,16 +6,18 @@ the same methods) and stops the session cleanly when the operator quits.
 
 from __future__ import annotations
 
+import sys
 import time
 from pathlib import Path
 
 from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal
-from textual.widgets import Footer, Static
+from textual.widgets import Footer
 
 from tankside.drivers.errors import InstrumentError
 from tankside.monitor.dashboard.alerts import AlertList, open_alerts
+from tankside.monitor.dashboard.banner import Banner
 from tankside.monitor.dashboard.caution import CautionScreen
 from tankside.monitor.dashboard.figures import RunningFigures
 from tankside.monitor.dashboard.marknote import MarkNoteScreen
@@ -27,13 +29,18 @@ from tankside.monitor.dashboard.waveform import PressureTrace
 from tankside.monitor.errors import TanksideError
 from tankside.monitor.snapshot import Snapshot
 
-REFRESH_HZ = 15.0
+REFRESH_HZ = 10.0
 METHODS = ("auto", "deconvolve", "narrowband")
 STATE_STYLE = {
     "starting": "#ffb35c", "running": "#7fd88f", "reconnecting": "#ffb35c",
     "stopping": "#ffb35c", "stopped": "#ff6b6b",
 }
 STOP_WAIT_S = 30.0
+# The display shares the GIL with the session's acquisition and processing threads.
+# With the default 5 ms switch interval each blocking instrument read that returns
+# while the display is drawing waits up to 5 ms for the GIL; 1 ms keeps the chain's
+# trace rate close to its headless rate (tests/bench/bench_dashboard.py).
+GIL_SWITCH_INTERVAL_S = 0.001
 
 
 class DashboardApp(App[None]):
@@ -68,10 +75,11 @@ class DashboardApp(App[None]):
         self.saved: list[Path] = []             # files written by the last save
         self._bell_seen = -1
         self._alerts_key: tuple = ()
+        self._previous_switch_interval_s = sys.getswitchinterval()
 
     def compose(self) -> ComposeResult:
         # kept as attributes: a modal on top must not hide them from the refresh
-        self.banner = Static("", id="banner")
+        self.banner = Banner(id="banner")
         self.trace = PressureTrace(id="trace")
         self.spectrum = SpectrumView(id="spectrum")
         self.figures = RunningFigures(id="figures")
@@ -88,11 +96,16 @@ class DashboardApp(App[None]):
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
+        self._previous_switch_interval_s = sys.getswitchinterval()
+        sys.setswitchinterval(min(GIL_SWITCH_INTERVAL_S, self._previous_switch_interval_s))
         self._fit_to_size(self.size.width, self.size.height)
         self.set_interval(1.0 / self.refresh_hz, self.refresh_from_session)
         self.refresh_from_session()
         if self.first_run_notice:
             self.push_screen(CautionScreen())
+
+    def on_unmount(self) -> None:
+        sys.setswitchinterval(self._previous_switch_interval_s)
 
     def on_resize(self, event) -> None:
         self._fit_to_size(event.size.width, event.size.height)
@@ -150,7 +163,7 @@ class DashboardApp(App[None]):
         ]
         if self.held:
             parts.insert(1, "[reverse #ffb35c] HELD [/]")
-        self.banner.update("  ".join(parts))
+        self.banner.set_markup("  ".join(parts))
 
     # -- actions ---------------------------------------------------------------------
 

@@ -8,8 +8,10 @@ they render in any UTF-8 terminal, also over ssh, with no special fonts.
 from __future__ import annotations
 
 import numpy as np
+from rich.segment import Segment
 from rich.style import Style
-from rich.text import Text
+from textual.strip import Strip
+from textual.widget import Widget
 
 _UPPER, _LOWER, _FULL = "\u2580", "\u2584", "\u2588"
 
@@ -109,28 +111,99 @@ class PlotGrid:
             if 0 <= col + i < self.cols and 0 <= row < self.rows:
                 self._labels[(row, col + i)] = (ch, style)
 
-    def to_text(self) -> Text:
-        out = Text(no_wrap=True, overflow="crop")
+    def to_strips(self) -> list[Strip]:
+        """One Strip per cell row, with runs of equal style merged into one segment."""
+        strips = []
         for row in range(self.rows):
             upper = self._cells[self.steps - 1 - 2 * row]
             lower = self._cells[self.steps - 2 - 2 * row]
+            segments: list[Segment] = []
+            run: list[str] = []
+            run_style = None
             for c in range(self.cols):
                 bg = self._background[c]
-                if (row, c) in self._labels:
-                    ch, style = self._labels[(row, c)]
-                    out.append(ch, Style.parse(style) + Style(bgcolor=bg) if bg else style)
-                    continue
-                top, bot = upper[c], lower[c]
-                if top and bot and top == bot:
-                    out.append(_FULL, Style(color=top, bgcolor=bg))
-                elif top and bot:
-                    out.append(_UPPER, Style(color=top, bgcolor=bot))
-                elif top:
-                    out.append(_UPPER, Style(color=top, bgcolor=bg))
-                elif bot:
-                    out.append(_LOWER, Style(color=bot, bgcolor=bg))
+                label = self._labels.get((row, c))
+                if label is not None:
+                    ch, style = label[0], _label_style(label[1], bg)
                 else:
-                    out.append(" ", Style(bgcolor=bg))
-            if row < self.rows - 1:
-                out.append("\n")
-        return out
+                    top, bot = upper[c], lower[c]
+                    if top and bot and top == bot:
+                        ch, style = _FULL, _style(top, bg)
+                    elif top and bot:
+                        ch, style = _UPPER, _style(top, bot)
+                    elif top:
+                        ch, style = _UPPER, _style(top, bg)
+                    elif bot:
+                        ch, style = _LOWER, _style(bot, bg)
+                    else:
+                        ch, style = " ", _style(None, bg)
+                if style is not run_style and run:
+                    segments.append(Segment("".join(run), run_style))
+                    run = []
+                run_style = style
+                run.append(ch)
+            if run:
+                segments.append(Segment("".join(run), run_style))
+            strips.append(Strip(segments, self.cols))
+        return strips
+
+
+_STYLES: dict = {}
+
+
+def _style(fg: str | None, bg: str | None) -> Style:
+    key = (fg, bg)
+    style = _STYLES.get(key)
+    if style is None:
+        style = _STYLES[key] = Style(color=fg, bgcolor=bg)
+    return style
+
+
+def _label_style(spec: str, bg: str | None) -> Style:
+    key = ("label", spec, bg)
+    style = _STYLES.get(key)
+    if style is None:
+        style = Style.parse(spec) + Style(bgcolor=bg) if bg else Style.parse(spec)
+        _STYLES[key] = style
+    return style
+
+
+def message_strips(text: str, rows: int, cols: int, colour: str) -> list[Strip]:
+    """A one-line message (e.g. waiting for data) on an otherwise empty panel."""
+    first = Strip([Segment(text[:cols], _style(colour, None))]).adjust_cell_length(cols)
+    return [first] + [Strip.blank(cols) for _ in range(max(0, rows - 1))]
+
+
+class GridPanel(Widget):
+    """A panel drawn line by line from strips built once per change (Textual's line API).
+
+    Subclasses implement :meth:`build` and call :meth:`invalidate` when their data change;
+    the strips are rebuilt lazily on the next paint, for the size the panel has then.
+    """
+
+    def __init__(self, **kwargs):
+        super().__init__(**kwargs)
+        self._strips: list[Strip] | None = None
+        self._built_for: tuple[int, int] | None = None
+
+    def build(self, rows: int, cols: int) -> list[Strip]:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def invalidate(self) -> None:
+        self._strips = None
+        self.refresh()
+
+    def render_line(self, y: int) -> Strip:
+        size = self.content_size
+        key = (size.height, size.width)
+        if self._strips is None or self._built_for != key:
+            self._strips = self.build(size.height, size.width) if size.area else []
+            self._built_for = key
+        if 0 <= y < len(self._strips):
+            return self._strips[y]
+        return Strip.blank(size.width)
+
+    def text_lines(self) -> list[str]:
+        """The panel's content as plain text (for tests and logs)."""
+        size = self.content_size
+        return [self.render_line(y).text for y in range(size.height)]

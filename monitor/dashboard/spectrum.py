@@ -5,10 +5,14 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from rich.text import Text
-from textual.widget import Widget
 
-from tankside.monitor.dashboard.plotgrid import PlotGrid, column_extents, to_steps
+from tankside.monitor.dashboard.plotgrid import (
+    GridPanel,
+    PlotGrid,
+    column_extents,
+    message_strips,
+    to_steps,
+)
 from tankside.monitor.snapshot import Snapshot
 
 BARS = "#b48ee0"
@@ -32,7 +36,7 @@ def narrowband_window_hz(f_awf_hz: float) -> tuple[float, float]:
     return 0.5 * f_awf_hz, min(40e6, 8.0 * f_awf_hz)
 
 
-class SpectrumView(Widget):
+class SpectrumView(GridPanel):
     """Spectrum in dB (or linear amplitude) with |M_L| overlaid and the ±3 dB limits."""
 
     DEFAULT_CSS = "SpectrumView { height: 1fr; }"
@@ -52,7 +56,7 @@ class SpectrumView(Widget):
     def set_linear(self, linear: bool) -> None:
         self.linear = linear
         self._set_titles()
-        self.refresh()
+        self.invalidate()
 
     def show(self, snap: Snapshot) -> None:
         self.seq = snap.seq
@@ -67,7 +71,7 @@ class SpectrumView(Widget):
         self._ok = snap.narrowband_ok
         self._worst_db = snap.narrowband_max_deviation_db
         self._set_titles()
-        self.refresh()
+        self.invalidate()
 
     def verdict(self) -> str:
         """The narrowband verdict as shown, e.g. "narrowband PASS, worst 1.2 dB"."""
@@ -85,13 +89,12 @@ class SpectrumView(Widget):
     def _scale(self, db: np.ndarray) -> np.ndarray:
         return 10.0 ** (db / 20.0) if self.linear else db
 
-    def render(self) -> Text:
-        rows, cols = self.content_size.height, self.content_size.width
+    def build(self, rows: int, cols: int) -> list:
         if rows < 2 or cols < _AXIS_WIDTH + _RIGHT_WIDTH + 4:
-            return Text("")
+            return message_strips("", rows, cols, AXIS)
         f = self._freqs_hz
         if f.size < 2 or self._spectrum_db.size != f.size:
-            return Text("waiting for the first spectrum", style=AXIS)
+            return message_strips("waiting for the first spectrum", rows, cols, AXIS)
         lo_hz, hi_hz = self._band_hz
         f_top = f[-1]
         if math.isfinite(hi_hz):
@@ -146,7 +149,7 @@ class SpectrumView(Widget):
         grid.label(rows - 1, cols - _RIGHT_WIDTH - len(axis), axis, AXIS)
         if window_cols:
             grid.label(0, x0 + 1, self._window_text(), "#9fc7d4")
-        return grid.to_text()
+        return grid.to_strips()
 
     def _window_text(self) -> str:
         lo, hi = self._band_hz

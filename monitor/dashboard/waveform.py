@@ -5,10 +5,14 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from rich.text import Text
-from textual.widget import Widget
 
-from tankside.monitor.dashboard.plotgrid import PlotGrid, column_extents, to_steps
+from tankside.monitor.dashboard.plotgrid import (
+    GridPanel,
+    PlotGrid,
+    column_extents,
+    message_strips,
+    to_steps,
+)
 from tankside.monitor.dashboard.units import number
 from tankside.monitor.snapshot import Snapshot
 
@@ -48,7 +52,7 @@ def pulse_window(y: np.ndarray, *, fraction: float = 0.1, pad_factor: float = 1.
     return start, stop
 
 
-class PressureTrace(Widget):
+class PressureTrace(GridPanel):
     """Draws the latest trace column by column from its min/max, so no spike hides."""
 
     DEFAULT_CSS = "PressureTrace { height: 1fr; }"
@@ -68,7 +72,7 @@ class PressureTrace(Widget):
         """Pulse view (True) or the whole record (False)."""
         self.zoomed = zoomed
         self._set_subtitle()
-        self.refresh()
+        self.invalidate()
 
     def on_resize(self) -> None:
         self._set_subtitle()
@@ -93,15 +97,14 @@ class PressureTrace(Widget):
         self._pc_pa = float(snap.result.get("peak_compressional_pa", math.nan))
         self._pr_pa = float(snap.result.get("peak_rarefactional_pa", math.nan))
         self._set_subtitle()
-        self.refresh()
+        self.invalidate()
 
-    def render(self) -> Text:
-        rows, cols = self.content_size.height, self.content_size.width
+    def build(self, rows: int, cols: int) -> list:
         if rows < 2 or cols < _AXIS_WIDTH + 4:
-            return Text("")
+            return message_strips("", rows, cols, AXIS)
         y = self._pressure_pa
         if y.size == 0 or not np.any(np.isfinite(y)):
-            return Text("waiting for the first converted trace", style=AXIS)
+            return message_strips("waiting for the first converted trace", rows, cols, AXIS)
         ncols = cols - _AXIS_WIDTH
         start, stop = self._window(ncols)
         y = y[start:stop]
@@ -137,4 +140,4 @@ class PressureTrace(Widget):
         grid.label(0, 0, number(top * 1e-6, _AXIS_WIDTH - 1), AXIS)
         grid.label(rows - 1, 0, number(bottom * 1e-6, _AXIS_WIDTH - 1), AXIS)
         grid.label(rows // 2, 0, " MPa", AXIS)
-        return grid.to_text()
+        return grid.to_strips()
