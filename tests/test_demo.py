@@ -1,0 +1,41 @@
+"""``tankside demo``: the simulated bench watched headless, through the real CLI entry."""
+
+from __future__ import annotations
+
+import pytest
+
+from tankside.monitor.cli import EXIT_USAGE, main
+from tankside.monitor.store import SessionReader
+from tankside.simulators.hydrophone import DEMO_CALIBRATION_PATH
+
+
+def test_headless_demo_records_a_session_with_the_demo_calibration(tmp_path, capsys):
+    folder = tmp_path / "sessions"
+    args = ["demo", "--sessions", str(folder), "--headless", "--duration", "1.5", "--seed", "2"]
+    assert main(args) == 0
+    out = capsys.readouterr()
+    assert "CAUTION" in out.err and "invented" in out.err
+    assert "session stopped: completed" in out.out
+    sessions = sorted(folder.glob("*.db"))
+    assert len(sessions) == 1 and (folder / "demo-bench.toml").is_file()
+    with SessionReader(sessions[0]) as reader:
+        assert reader.stop["exit_status"] == "completed"
+        assert reader.stop["counts"]["stored"] >= 5
+        assert reader.trace_count() == reader.stop["counts"]["stored"]
+        # the invented demo hydrophone's calibration, recorded verbatim
+        assert reader.calibration_text == DEMO_CALIBRATION_PATH.read_text(encoding="utf-8")
+
+
+@pytest.mark.parametrize("duration", ["0", "-2"])
+def test_demo_refuses_a_duration_that_is_not_positive(tmp_path, capsys, duration):
+    assert main(["demo", "--sessions", str(tmp_path), "--headless", "--duration", duration]) \
+        == EXIT_USAGE
+    assert "--duration" in capsys.readouterr().err
+
+
+def test_demo_help_names_every_option(capsys):
+    with pytest.raises(SystemExit):
+        main(["demo", "--help"])
+    text = capsys.readouterr().out
+    for option in ("--sessions", "--headless", "--duration", "--seed"):
+        assert option in text
