@@ -64,6 +64,12 @@ class SceneParameters:
     ``beta = 1 + B/(2A) = 3.5`` for water with B/A = 5.0 (Hamilton and Blackstock 1998,
     table of B/A; value recalled from memory). Water at 20 degC: c = 1482 m/s,
     rho = 998.2 kg/m^3 (handbook values, recalled from memory).
+
+    ``max_harmonics`` truncates the Fubini series (also to 90 % of the sampling Nyquist
+    frequency): 12 harmonics of 3.5 MHz reach 42 MHz, just past the invented hydrophone's
+    calibrated band; the dropped tail is below 0.03 % of the amplitude at sigma = 0.5 but
+    grows towards the shock distance (about 2.4 % for the 12th term alone at sigma = 0.93,
+    the default scene at 10 Vpp).
     """
 
     pressure_per_vpp_pa: float = 0.09e6
