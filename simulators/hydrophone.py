@@ -30,6 +30,7 @@ CAL_HIGH_HZ = 40.0e6
 CAL_STEP_HZ = 0.5e6
 
 CSV_HEADER = "frequency_hz,sensitivity_db_re_1v_per_upa,phase_deg"
+CSV_HEADER_V_PER_PA = "frequency_hz,sensitivity_v_per_pa,phase_deg"
 
 
 @dataclass(frozen=True)
@@ -106,14 +107,23 @@ def calibration_frequencies_hz() -> np.ndarray:
 
 
 def calibration_csv_text(model: HydrophoneModel | None = None,
-                         frequency_hz: np.ndarray | None = None) -> str:
+                         frequency_hz: np.ndarray | None = None, *,
+                         magnitude: str = "db") -> str:
     """The calibration CSV text for ``model`` (``#`` comment lines, a header, one row per frequency).
 
-    Magnitude is written in dB re 1 V/uPa with 4 decimals, phase in degrees with 3.
+    ``magnitude="db"`` writes dB re 1 V/uPa with 4 decimals (the shipped file);
+    ``magnitude="v_per_pa"`` writes V/Pa with 6 significant digits. Phase in degrees, 3 decimals.
     """
+    if magnitude not in ("db", "v_per_pa"):
+        raise ValueError("magnitude must be 'db' or 'v_per_pa'")
     model = model or HydrophoneModel()
     f = calibration_frequencies_hz() if frequency_hz is None else np.asarray(frequency_hz, float)
-    db = model.sensitivity_db_re_1v_per_upa(f)
+    if magnitude == "db":
+        header = CSV_HEADER
+        values = [f"{x:.4f}" for x in model.sensitivity_db_re_1v_per_upa(f)]
+    else:
+        header = CSV_HEADER_V_PER_PA
+        values = [f"{x:.6g}" for x in np.abs(model.response(f))]
     phase = model.phase_deg(f)
     lines = [
         "# INVENTED DATA FOR THE TANKSIDE DEMO - not a real hydrophone, not a real certificate.",
@@ -122,17 +132,18 @@ def calibration_csv_text(model: HydrophoneModel | None = None,
         "#   no further electrical-loading correction applies to the simulated bench.",
         "# phase convention: e^{j w t} (phase falls with frequency for a causal response)",
         f"# calibrated band: {CAL_LOW_HZ / 1e6:g} MHz to {CAL_HIGH_HZ / 1e6:g} MHz",
-        CSV_HEADER,
+        header,
     ]
-    for fi, di, pi in zip(f, db, phase, strict=True):
-        lines.append(f"{fi:.0f},{di:.4f},{pi:.3f}")
+    for fi, vi, pi in zip(f, values, phase, strict=True):
+        lines.append(f"{fi:.0f},{vi},{pi:.3f}")
     return "\n".join(lines) + "\n"
 
 
-def write_calibration_csv(path: str | Path, model: HydrophoneModel | None = None) -> Path:
+def write_calibration_csv(path: str | Path, model: HydrophoneModel | None = None, *,
+                          magnitude: str = "db") -> Path:
     """Write the invented calibration CSV for ``model`` to ``path``; return the path."""
     path = Path(path)
-    path.write_text(calibration_csv_text(model), encoding="utf-8")
+    path.write_text(calibration_csv_text(model, magnitude=magnitude), encoding="utf-8")
     return path
 
 

@@ -80,6 +80,16 @@ class TestModel:
         f = np.array([1e6, 5e6])
         np.testing.assert_allclose(m.response(-f), np.conj(m.response(f)))
 
+    def test_both_magnitude_forms_load_to_the_same_sensitivity(self, tmp_path):
+        # Cross-check with the monitor's own calibration loader (written independently).
+        from tankside.monitor.calibration import load_calibration
+
+        db = load_calibration(write_calibration_csv(tmp_path / "db.csv"))
+        vpa = load_calibration(write_calibration_csv(tmp_path / "v.csv", magnitude="v_per_pa"))
+        model = HydrophoneModel().response(db.frequency_hz)
+        np.testing.assert_allclose(vpa.sensitivity_v_per_pa, db.sensitivity_v_per_pa, rtol=2e-5)
+        np.testing.assert_allclose(db.sensitivity_v_per_pa, model, rtol=2e-5)
+
     def test_text_for_custom_grid(self):
         text = calibration_csv_text(frequency_hz=np.array([1e6, 2e6]))
         assert text.splitlines()[-2].startswith("1000000,")
