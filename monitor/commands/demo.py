@@ -111,8 +111,10 @@ def _watch(session, bench_path: Path, *, headless: bool, first_run: bool, run_he
         else:
             code = dashboard(session, first_run_notice=first_run)
             snap = session.snapshot()
-            print(f"tankside demo: session stopped ({session.exit_status or 'completed'}: "
-                  f"{session.stop_reason or '-'}); {snap.stored} traces in "
+            status = session.exit_status or "completed"
+            why = status if session.stop_reason in ("", status) else \
+                f"{status}: {session.stop_reason}"
+            print(f"tankside demo: session stopped ({why}); {snap.stored} traces in "
                   f"{session.session_path}", file=sys.stderr)
     except KeyboardInterrupt:
         session.stop("interrupted (Ctrl-C)")

@@ -113,6 +113,7 @@ class DashboardApp(App[None]):
     def _fit_to_size(self, width: int, height: int) -> None:
         # more room: taller alert list and figures, a wider status panel
         self.screen.set_class(height >= 40, "-tall")
+        self.screen.set_class(100 <= width < 140, "-roomy")
         self.screen.set_class(width >= 140, "-wide")
 
     # -- refresh -------------------------------------------------------------------

@@ -60,7 +60,7 @@ class RunningFigures(Widget):
         for head in ("last", "min", "max", "mean"):
             out.append(f" {head:>{num_w}}", HEAD)
         if trend_w:
-            out.append(f"  {'trend':<{trend_w - 1}}", HEAD)
+            out.append(f"  {'trend' if trend_w >= 6 else '':<{trend_w - 1}}", HEAD)
         for key, _, _ in FIGURES:
             label, unit, _ = DISPLAY_UNITS[key]
             fig = self._figures.get(key, RunningFigure())

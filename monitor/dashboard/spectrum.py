@@ -28,7 +28,7 @@ DB_TOP, DB_BOTTOM = 6.0, -54.0
 LIN_TOP = 1.5            # linear scale: amplitude ratio, 0 .. 1.5
 SENS_SPAN_DB = 6.0       # right axis for |M_L|: ±6 dB re its value at f_awf
 _AXIS_WIDTH = 5
-_RIGHT_WIDTH = 4
+_RIGHT_WIDTH = 5
 
 
 def narrowband_window_hz(f_awf_hz: float) -> tuple[float, float]:
@@ -135,17 +135,17 @@ class SpectrumView(GridPanel):
         if self.linear:
             grid.label(0, 0, f"{top:4.1f}", AXIS)
             grid.label(rows - 1, 0, " 0.0", AXIS)
-            grid.label(0, cols - _RIGHT_WIDTH, f"{s_top:4.2f}", SENSITIVITY)
-            grid.label(rows - 1, cols - _RIGHT_WIDTH, f"{s_bottom:4.2f}", SENSITIVITY)
+            grid.label(0, cols - _RIGHT_WIDTH, f"{s_top:5.2f}", SENSITIVITY)
+            grid.label(rows - 1, cols - _RIGHT_WIDTH, f"{s_bottom:5.2f}", SENSITIVITY)
         else:
             grid.label(0, 0, f"{top:+4.0f}", AXIS)
             grid.label(rows - 1, 0, f"{bottom:4.0f}", AXIS)
             grid.label(rows // 2, 0, "  dB", AXIS)
-            grid.label(0, cols - _RIGHT_WIDTH, f" {SENS_SPAN_DB:+.0f}", SENSITIVITY)
-            grid.label(rows - 1, cols - _RIGHT_WIDTH, f" {-SENS_SPAN_DB:+.0f}", SENSITIVITY)
+            grid.label(0, cols - _RIGHT_WIDTH, f"{SENS_SPAN_DB:+5.0f}", SENSITIVITY)
+            grid.label(rows - 1, cols - _RIGHT_WIDTH, f"{-SENS_SPAN_DB:+5.0f}", SENSITIVITY)
         if rows >= 3:
-            grid.label(rows // 2, cols - _RIGHT_WIDTH, " M_L", f"bold {SENSITIVITY}")
-        axis = f"{f_top * 1e-6:.0f} MHz"
+            grid.label(rows // 2, cols - _RIGHT_WIDTH, "  M_L", f"bold {SENSITIVITY}")
+        axis = f"{f_top * 1e-6:.0f} MHz "
         grid.label(rows - 1, cols - _RIGHT_WIDTH - len(axis), axis, AXIS)
         if window_cols:
             grid.label(0, x0 + 1, self._window_text(), "#9fc7d4")

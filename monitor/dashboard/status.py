@@ -64,9 +64,13 @@ class BenchStatus(Widget):
         pair("range", volts(snap.range_v))
         pair("used", used, used_style)
         out.append("\n")
-        pair("acq", str(snap.acquired))
-        pair("conv", str(snap.converted))
-        pair("stored", str(snap.stored))
+        if wide:
+            pair("acquired", count(snap.acquired))
+            pair("converted", count(snap.converted))
+            pair("stored", count(snap.stored))
+        else:
+            pair("acq/conv/sto", "/".join(count(n) for n in (snap.acquired, snap.converted,
+                                                             snap.stored)))
         out.append("\n")
         q_style = WARN if snap.queue_capacity and snap.queue_depth > snap.queue_capacity // 2 else VALUE
         pair("queue", f"{snap.queue_depth}/{snap.queue_capacity}", q_style)
@@ -74,6 +78,11 @@ class BenchStatus(Widget):
         out.append("\n")
         out.append(os.path.basename(snap.session_path) if snap.session_path else "-", VALUE)
         return out
+
+
+def count(n: int) -> str:
+    """A trace count, with a k suffix from 100 000 on so that it stays short."""
+    return str(n) if n < 100_000 else f"{n / 1000:.0f}k"
 
 
 def short_identity(identity: str) -> str:
