@@ -47,7 +47,7 @@ def test_table_output_and_pressure_file(files, capsys, tmp_path):
     trace, cal, p = files
     out_csv = tmp_path / "pressure.csv"
     assert main(["convert", str(trace), "-c", str(cal), "--method", "deconvolve",
-                 "--hydrophone-capacitance", "100e-12", "--cable-capacitance", "50e-12",
+                 "--hydrophone-capacitance", "100", "--cable-capacitance", "50",
                  "--regularisation", "0.001", "--out", str(out_csv)]) == 0
     text = capsys.readouterr().out
     assert "deconvolve" in text and "MPa" in text and "MHz" in text and "J/m^2" in text

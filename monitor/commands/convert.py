@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 
 from tankside.monitor.calibration import load_calibration
 from tankside.monitor.chain import Converter, TraceResult
+from tankside.monitor.commands.options import add_loading_options, loading_overrides
 from tankside.monitor.loading import Loading
 from tankside.monitor.settings import AWF_METHODS, METHODS, ConversionSettings
 from tankside.monitor.tracefile import read_trace, write_pressure
@@ -29,24 +29,11 @@ def add_parser(subparsers) -> None:
     p.add_argument("--method", choices=METHODS, default="auto",
                    help="deconvolve, narrowband, or auto: narrowband only when the narrowband "
                         "check passes (default: auto)")
-    p.add_argument("--temperature", metavar="DEGC", type=float, default=20.0,
-                   help="water temperature, degC (default 20)")
     p.add_argument("--json", action="store_true",
                    help="print one JSON object (SI units) instead of a table")
     p.add_argument("--out", metavar="PRESSURE.csv",
                    help="also write the pressure waveform as CSV 'time_s,pressure_pa'")
-    g = p.add_argument_group("electrical loading (for an open-circuit calibration)")
-    g.add_argument("--hydrophone-capacitance", metavar="FARAD", type=float,
-                   help="hydrophone capacitance, F (e.g. 100e-12); without it no loading "
-                        "correction is applied")
-    g.add_argument("--cable-capacitance", metavar="FARAD", type=float, default=0.0,
-                   help="cable capacitance across the hydrophone, F (default 0)")
-    g.add_argument("--input-resistance", metavar="OHM", type=float, default=math.inf,
-                   help="digitiser (or preamplifier) input resistance, ohm (default: infinite)")
-    g.add_argument("--input-capacitance", metavar="FARAD", type=float, default=0.0,
-                   help="digitiser (or preamplifier) input capacitance, F (default 0)")
-    g.add_argument("--preamp-gain-db", metavar="DB", type=float, default=0.0,
-                   help="preamplifier voltage gain, dB (default 0)")
+    add_loading_options(p, title="electrical loading (for an open-circuit calibration) and water")
     d = ConversionSettings()
     r = p.add_argument_group("deconvolution and parameters")
     r.add_argument("--band-low", metavar="HZ", type=float,
@@ -68,14 +55,14 @@ def add_parser(subparsers) -> None:
 
 def run(args: argparse.Namespace) -> int:
     calibration = load_calibration(args.calibration)
-    loading = Loading(args.hydrophone_capacitance, args.cable_capacitance,
-                      args.input_resistance, args.input_capacitance, args.preamp_gain_db)
+    loading = Loading(**loading_overrides(args))
+    temperature_c = 20.0 if args.water_temperature is None else args.water_temperature
     settings = ConversionSettings(method=args.method, band_low_hz=args.band_low,
                                   band_high_hz=args.band_high, taper_octaves=args.taper_octaves,
                                   regularisation=args.regularisation, awf_method=args.awf_method,
                                   derating_depth_m=args.depth)
     voltage, dt_s, t0_s = read_trace(args.trace)
-    result = Converter(calibration, loading, settings, args.temperature).process(voltage, dt_s)
+    result = Converter(calibration, loading, settings, temperature_c).process(voltage, dt_s)
     if args.out:
         write_pressure(args.out, result.pressure_pa, dt_s, t0_s,
                        comments=[f"pressure from {args.trace} with {calibration.source} "

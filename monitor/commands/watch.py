@@ -8,6 +8,7 @@ import sys
 import tomllib
 from pathlib import Path
 
+from tankside.monitor.commands.options import add_loading_options, loading_overrides
 from tankside.monitor.errors import ConfigError
 
 EPILOG = """\
@@ -58,16 +59,8 @@ def add_parser(subparsers) -> None:
     o.add_argument("--no-generator", action="store_true",
                    help="ignore the bench file's generator (safe-off is then unavailable)")
     o.add_argument("--calibration", metavar="CAL.csv", help="hydrophone calibration file")
-    o.add_argument("--hydrophone-capacitance", type=float, metavar="PF",
-                   help="hydrophone capacitance for the electrical-loading correction, pF")
-    o.add_argument("--cable-capacitance", type=float, metavar="PF",
-                   help="cable capacitance, pF")
-    o.add_argument("--preamp-gain", type=float, metavar="DB",
-                   help="preamplifier gain, dB")
     o.add_argument("--method", choices=("auto", "deconvolve", "narrowband"),
                    help="conversion method at the start (can be switched live)")
-    o.add_argument("--water-temperature", type=float, metavar="C",
-                   help="water temperature, degrees Celsius")
     o.add_argument("--pressure-limit", type=float, metavar="PA",
                    help="over-pressure alert limit, Pa (the lower of this and the rated "
                         "maximum applies)")
@@ -77,6 +70,7 @@ def add_parser(subparsers) -> None:
                    help="set any alert setting, e.g. no_trigger.after_s=10 or "
                         "'over_pressure.actions=[\"record\",\"safe-off\",\"stop\"]' "
                         "(VALUE in TOML syntax; repeatable)")
+    add_loading_options(p, title="overrides of the bench file: electrical loading and water")
     p.set_defaults(func=run)
 
 
@@ -120,12 +114,8 @@ def overrides_from_args(args) -> dict:
             o["generator.profile"] = _profile(args.generator_profile)
     if args.calibration:
         o["calibration.file"] = _abs(args.calibration)
-    if args.hydrophone_capacitance is not None:
-        o["loading.hydrophone_capacitance_f"] = args.hydrophone_capacitance * 1e-12
-    if args.cable_capacitance is not None:
-        o["loading.cable_capacitance_f"] = args.cable_capacitance * 1e-12
-    if args.preamp_gain is not None:
-        o["loading.preamp_gain_db"] = args.preamp_gain
+    for key, value in loading_overrides(args).items():
+        o[f"loading.{key}"] = value
     if args.method:
         o["conversion.method"] = args.method
     if args.water_temperature is not None:

@@ -1,0 +1,44 @@
+"""Command-line options shared by several commands, so they are spelled and scaled alike."""
+
+from __future__ import annotations
+
+import argparse
+
+PF = 1e-12
+
+
+def add_loading_options(parser: argparse.ArgumentParser, *, title: str) -> None:
+    """Electrical-loading and water options, all defaulting to None (= not given).
+
+    Capacitances are given in pF on the command line and carried in F everywhere else.
+    """
+    g = parser.add_argument_group(title)
+    g.add_argument("--hydrophone-capacitance", metavar="PF", type=float,
+                   help="hydrophone capacitance, pF (e.g. 100); it switches on the loading "
+                        "correction of an open-circuit calibration")
+    g.add_argument("--cable-capacitance", metavar="PF", type=float,
+                   help="cable capacitance across the hydrophone, pF (default 0)")
+    g.add_argument("--input-resistance", metavar="OHM", type=float,
+                   help="digitiser (or preamplifier) input resistance, ohm (default: infinite)")
+    g.add_argument("--input-capacitance", metavar="PF", type=float,
+                   help="digitiser (or preamplifier) input capacitance, pF (default 0)")
+    g.add_argument("--preamp-gain", metavar="DB", type=float,
+                   help="preamplifier voltage gain, dB (default 0)")
+    g.add_argument("--temperature", metavar="DEGC", dest="water_temperature", type=float,
+                   help="water temperature, degC, for density and sound speed (default 20)")
+
+
+def loading_overrides(args: argparse.Namespace) -> dict[str, float]:
+    """The loading fields given on the command line, in SI units (Loading field names)."""
+    out: dict[str, float] = {}
+    if args.hydrophone_capacitance is not None:
+        out["hydrophone_capacitance_f"] = args.hydrophone_capacitance * PF
+    if args.cable_capacitance is not None:
+        out["cable_capacitance_f"] = args.cable_capacitance * PF
+    if args.input_resistance is not None:
+        out["input_resistance_ohm"] = args.input_resistance
+    if args.input_capacitance is not None:
+        out["input_capacitance_f"] = args.input_capacitance * PF
+    if args.preamp_gain is not None:
+        out["preamp_gain_db"] = args.preamp_gain
+    return out
