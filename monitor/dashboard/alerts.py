@@ -22,7 +22,7 @@ def open_alerts(alerts: list[AlertView]) -> list[AlertView]:
 
 
 class AlertList(Widget):
-    """Alerts newest first; acknowledged ones dimmed and marked."""
+    """Alerts newest first: id, ✓ once acknowledged, time, severity, rule, [actions], message."""
 
     DEFAULT_CSS = "AlertList { height: 5; }"
 
@@ -52,11 +52,12 @@ class AlertList(Widget):
             if alert.acknowledged:
                 style = ACKED
             out.append(f"#{alert.alert_id:<3}", style)
+            out.append("✓ " if alert.acknowledged else "  ", ACKED)
             out.append(f"{wall_time(alert.time_s)} ", ACKED)
             out.append(f"{mark} {alert.severity[:4]:<4} ", style)
-            out.append(f"{alert.rule}: {alert.message}", style)
+            out.append(f"{alert.rule}", style)
             if alert.actions:
-                out.append(f"  → {', '.join(alert.actions)}", ACKED if alert.acknowledged else "#c8ccd0")
-            if alert.acknowledged:
-                out.append("  ✓ acknowledged", ACKED)
+                out.append(f" [{', '.join(alert.actions)}]",
+                           ACKED if alert.acknowledged else "#c8ccd0")
+            out.append(f" {alert.message}", style)
         return out
