@@ -10,6 +10,7 @@ import asyncio
 import functools
 import io
 import os
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -298,12 +299,15 @@ async def test_save_writes_screenshot_and_trace_csvs(tmp_path):
 async def test_q_stops_the_session_and_leaves(size):
     fake = started_fake(auto_advance=True)
     app = DashboardApp(fake, first_run_notice=False)
+    before = sys.getswitchinterval()
     async with app.run_test(size=size) as pilot:
         await pilot.pause(0.1)
+        assert sys.getswitchinterval() <= 0.001      # the display yields the GIL sooner
         await pilot.press("q")
         await pilot.pause()
         assert not app.is_running
     assert fake.stops == ["operator"] and not fake.running
+    assert sys.getswitchinterval() == before
 
 
 @sync
