@@ -154,6 +154,8 @@ class SimulatedDigitiser(ScpiDevice):
         # True asks for the default set of eight traces.
         self.precomputed = 8 if precomputed is True else int(precomputed)
         self._epoch = clock()
+        # Missed triggers are a stretch of time with no trigger: re-arming does not end it.
+        self._quiet_until = -math.inf
         self.armed = False
         self.ready_at = math.inf
         self.free_run_shift_s = 0.0
@@ -390,10 +392,13 @@ class SimulatedDigitiser(ScpiDevice):
             self.ready_at = math.inf
             return
         period = self.scene.trigger_period_s
-        elapsed = now - self._epoch
+        elapsed = max(now, self._quiet_until) - self._epoch
         next_trigger = self._epoch + (math.floor(elapsed / period) + 1) * period
         missed = max(0, int(self.missed_triggers()))
-        self.ready_at = next_trigger + (st.averages - 1 + missed) * period
+        if missed:
+            self._quiet_until = next_trigger + (missed - 0.5) * period
+            next_trigger += missed * period
+        self.ready_at = next_trigger + (st.averages - 1) * period
 
     def _abort(self, args, s):
         expect_args(args, 0)

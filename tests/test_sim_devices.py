@@ -165,6 +165,22 @@ class TestAcquisition:
         clock.t += 0.05
         assert ask(dig, "ACQ:DONE?") == "1"
 
+    def test_rearming_does_not_end_a_stretch_of_missed_triggers(self):
+        # A client that gives up waiting and arms again must still see no trigger until
+        # the missed stretch is over (so "no trigger for N s" can be observed live).
+        missed = iter([10, 0, 0])
+        clock = FakeClock()
+        dig = SimulatedDigitiser(Scene(), clock=clock, sleep=clock.sleep,
+                                 missed_triggers=lambda: next(missed))
+        ask(dig, "INIT")
+        clock.t += 0.2
+        assert ask(dig, "ACQ:DONE?") == "0"
+        ask(dig, "ABOR;:INIT")          # re-arm 0.2 s into a 0.55 s stretch
+        clock.t += 0.3
+        assert ask(dig, "ACQ:DONE?") == "0"
+        clock.t += 0.1                  # past the 11th trigger period
+        assert ask(dig, "ACQ:DONE?") == "1"
+
     def test_trigger_level_above_sync_never_triggers(self):
         clock, _, dig = make()
         ask(dig, "TRIG:LEV 4.0;:INIT")
