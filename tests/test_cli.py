@@ -35,6 +35,19 @@ def test_loading_options_spelled_alike(command, capsys):
         assert option in out, option
 
 
+@pytest.mark.parametrize("command", [["export", "s.db", "--hdf5", "o.h5"],
+                                     ["replay", "s.db", "--out", "n.db"]])
+def test_progress_options_alike(command, capsys):
+    parser = build_parser()
+    assert parser.parse_args(command).progress is None
+    assert parser.parse_args([*command, "--progress"]).progress is True
+    assert parser.parse_args([*command, "--no-progress"]).progress is False
+    with pytest.raises(SystemExit) as exit_info:
+        parser.parse_args([*command, "--progress", "--no-progress"])
+    assert exit_info.value.code == 2
+    assert "not allowed with argument" in capsys.readouterr().err
+
+
 def test_watch_takes_capacitance_in_pf():
     args = build_parser().parse_args(
         ["watch", "--bench", "b.toml", "--hydrophone-capacitance", "100",

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
+from tankside.monitor.commands.options import add_progress_options
 from tankside.monitor.errors import ConfigError
 
 
@@ -28,11 +29,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="the recorded hydrophone calibration file, verbatim")
     p.add_argument("--hdf5", metavar="OUT.h5",
                    help="all traces, results, alerts, events and metadata, units as attributes")
-    bar = p.add_mutually_exclusive_group()
-    bar.add_argument("--progress", dest="progress", action="store_const", const=True,
-                     default=None, help="always show the progress bar (default: on a terminal)")
-    bar.add_argument("--no-progress", dest="progress", action="store_const", const=False,
-                     help="never show the progress bar")
+    add_progress_options(p)
     p.set_defaults(func=run)
     return p
 

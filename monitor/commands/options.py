@@ -28,6 +28,15 @@ def add_loading_options(parser: argparse.ArgumentParser, *, title: str) -> None:
                    help="water temperature, degC, for density and sound speed (default 20)")
 
 
+def add_progress_options(parser: argparse.ArgumentParser) -> None:
+    """``--progress`` / ``--no-progress``: ``args.progress`` is True, False or None (= on a terminal)."""
+    bar = parser.add_mutually_exclusive_group()
+    bar.add_argument("--progress", dest="progress", action="store_const", const=True,
+                     default=None, help="always show the progress bar (default: on a terminal)")
+    bar.add_argument("--no-progress", dest="progress", action="store_const", const=False,
+                     help="never show the progress bar")
+
+
 def loading_overrides(args: argparse.Namespace) -> dict[str, float]:
     """The loading fields given on the command line, in SI units (Loading field names)."""
     out: dict[str, float] = {}

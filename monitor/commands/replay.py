@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from tankside.monitor.commands.options import add_progress_options
+
 METHODS = ("auto", "deconvolve", "narrowband")
 
 
@@ -27,11 +29,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--force", action="store_true", help="replace NEW.db if it exists")
     p.add_argument("--check", action="store_true",
                    help="also count the traces whose new results differ from the recorded ones")
-    bar = p.add_mutually_exclusive_group()
-    bar.add_argument("--progress", dest="progress", action="store_const", const=True,
-                     default=None, help="always show the progress bar (default: on a terminal)")
-    bar.add_argument("--no-progress", dest="progress", action="store_const", const=False,
-                     help="never show the progress bar")
+    add_progress_options(p)
     p.set_defaults(func=run)
     return p
 
