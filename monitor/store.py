@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
 import sqlite3
 import time
 import uuid
@@ -31,7 +30,7 @@ import numpy as np
 from tankside.drivers.trace import RawTrace
 from tankside.monitor import __version__
 from tankside.monitor.errors import DiskFullError, SessionFileError, StoreError
-from tankside.monitor.store_reader import SessionReader, StoredTrace
+from tankside.monitor.store_reader import SessionReader, StoredTrace, session_size_bytes
 from tankside.monitor.store_schema import (
     BOOL_RESULTS,
     DDL,
@@ -391,13 +390,7 @@ class SessionStore:
 
     def size_bytes(self) -> int:
         """Bytes on disk: the database file and its WAL."""
-        total = 0
-        for suffix in ("", "-wal"):
-            try:
-                total += os.path.getsize(f"{self.path}{suffix}")
-            except FileNotFoundError:
-                pass
-        return total
+        return session_size_bytes(self.path)
 
     def close(self, exit_status: str, reason: str, counts: dict) -> None:
         """Commit, write the stop record and close the file.

@@ -43,6 +43,17 @@ class StoredTrace:
     error: str | None = None
 
 
+def session_size_bytes(path) -> int:
+    """Bytes on disk of a session file and its WAL (0 for either that does not exist)."""
+    total = 0
+    for suffix in ("", "-wal"):
+        try:
+            total += os.path.getsize(f"{path}{suffix}")
+        except FileNotFoundError:
+            pass
+    return total
+
+
 def _nan_if_none(v):
     return math.nan if v is None else v
 
@@ -260,13 +271,8 @@ class SessionReader:
                 for e, t, k, s, d in rows]
 
     def size_bytes(self) -> int:
-        total = 0
-        for suffix in ("", "-wal"):
-            try:
-                total += os.path.getsize(f"{self.path}{suffix}")
-            except FileNotFoundError:
-                pass
-        return total
+        """Bytes on disk: the database file and its WAL."""
+        return session_size_bytes(self.path)
 
     def integrity_check(self) -> str:
         """SQLite's ``PRAGMA integrity_check`` verdict (``"ok"`` when sound)."""

@@ -103,6 +103,22 @@ class TestRoundTrip:
         with SessionReader(tmp_path / "s.db") as reader:
             assert reader.trace_count() == 5 and reader.stopped_cleanly
 
+    def test_size_counts_the_file_and_its_wal(self, tmp_path):
+        path = tmp_path / "s.db"
+        store = SessionStore.create(path, _meta())
+        store.add_trace(make_raw(0, n=4000), None)
+        store.commit()
+        reader = SessionReader(path)
+        wal = Path(f"{path}-wal")
+        assert wal.stat().st_size > 0  # committed but not yet checkpointed
+        want = path.stat().st_size + wal.stat().st_size
+        assert store.size_bytes() == want and reader.size_bytes() == want
+        reader.close()
+        store.close("ok", "test", {"traces": 1})
+        assert not wal.exists()
+        with SessionReader(path) as reader:
+            assert reader.size_bytes() == path.stat().st_size
+
     def test_units_from_names(self):
         assert units_of("pulse_intensity_integral_j_per_m2") == "J/m^2"
         assert units_of("water_sound_speed_m_per_s") == "m/s"
