@@ -53,7 +53,6 @@ from tankside.simulators.scpi import (
     ScpiError,
     expect_args,
     format_block,
-    format_float,
     parse_bounded,
     parse_choice,
     parse_integer,
@@ -238,16 +237,6 @@ class SimulatedDigitiser(ScpiDevice):
         a("WAVeform:YOFFset", query=lambda x, s: self._qf(x, self._scaling()[1]))
         a("WAVeform:CMIN", query=lambda x, s: self._q(x, FORMATS[self.state.data_format][1]))
         a("WAVeform:CMAX", query=lambda x, s: self._q(x, FORMATS[self.state.data_format][2]))
-
-    @staticmethod
-    def _q(args, value) -> str:
-        expect_args(args, 0)
-        return str(value)
-
-    @staticmethod
-    def _qf(args, value) -> str:
-        expect_args(args, 0)
-        return format_float(value)
 
     def _ch(self, suffixes) -> ChannelState:
         number = suffixes[0]

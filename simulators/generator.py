@@ -24,7 +24,6 @@ from tankside.simulators.scpi import (
     ScpiDevice,
     ScpiError,
     expect_args,
-    format_float,
     parse_bool,
     parse_bounded,
     parse_integer,
@@ -67,16 +66,6 @@ class SimulatedGenerator(ScpiDevice):
         self.scene.set_drive(output_on=p.output_on, amplitude_vpp=p.amplitude_vpp,
                              frequency_hz=p.frequency_hz, burst_cycles=p.burst_cycles,
                              burst_period_s=p.burst_period_s)
-
-    @staticmethod
-    def _q(args, value) -> str:
-        expect_args(args, 0)
-        return str(value)
-
-    @staticmethod
-    def _qf(args, value) -> str:
-        expect_args(args, 0)
-        return format_float(value)
 
     def _check_fits(self, cycles: int, frequency_hz: float, period_s: float) -> None:
         if cycles / frequency_hz >= period_s:

@@ -405,6 +405,17 @@ class ScpiDevice:
         found = self.lookup(command.nodes)
         return found[0].pattern if found else None
 
+    # --- replies of plain setting queries (no parameters allowed)
+    @staticmethod
+    def _q(args: tuple[str, ...], value) -> str:
+        expect_args(args, 0)
+        return str(value)
+
+    @staticmethod
+    def _qf(args: tuple[str, ...], value: float) -> str:
+        expect_args(args, 0)
+        return format_float(value)
+
     # --- to override
     def identity(self) -> str:
         return "TANKSIDE,SIMULATED,0,0"

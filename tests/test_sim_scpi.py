@@ -42,6 +42,8 @@ class Toy(ScpiDevice):
                  query=lambda a, s: repr(self.levels[s[0]]))
         self.add("DISPlay:TEXT", write=lambda a, s: setattr(self, "text", a[0]))
         self.add("STATus:DONE", query=lambda a, s: "1")
+        self.add("ACQuire:DELay", query=lambda a, s: self._qf(a, 1e-6 / 3))
+        self.add("ACQuire:MODE", query=lambda a, s: self._q(a, "NORM"))
 
     def identity(self):
         return "TOY,1,2,3"
@@ -161,6 +163,15 @@ class TestErrors:
         dev = Toy()
         assert ask(dev, line) is None
         assert drain(dev) == [code]
+
+    def test_setting_query_replies(self):
+        dev = Toy()
+        assert float(ask(dev, "ACQ:DEL?")) == 1e-6 / 3  # repr round-trips a float exactly
+        assert ask(dev, "ACQ:MODE?") == "NORM"
+        assert drain(dev) == []
+        assert ask(dev, "ACQ:DEL? 2") is None
+        assert ask(dev, "ACQ:MODE? x") is None
+        assert drain(dev) == [-108, -108]  # -108 Parameter not allowed (SCPI vol. 2 ch. 21)
 
     def test_non_ascii_bytes_are_a_command_error(self):
         dev = Toy()
