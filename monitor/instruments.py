@@ -7,38 +7,22 @@ so that a bad profile is reported before anything is opened.
 
 from __future__ import annotations
 
-import socket
-
 from tankside.drivers.digitiser import Digitiser
 from tankside.drivers.errors import InstrumentError
 from tankside.drivers.generator import Generator
 from tankside.drivers.profile import load_profile
 from tankside.drivers.scpi import ScpiSession
-from tankside.drivers.visa import backend_socket
 from tankside.monitor.acquire import Link
 
 
-def _no_delay(session: ScpiSession) -> None:
-    # Commands and queries are short lines sent back to back; with Nagle's algorithm on,
-    # each one waits for the ACK of the one before, which the instrument delays (about
-    # 40 ms on Linux), and an acquisition cycle (arm, poll, fetch) costs tens of ms.
-    sock = backend_socket(session.resource)
-    if sock is not None:
-        try:
-            sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
-        except OSError:
-            pass  # not a TCP socket (e.g. a local socket): nothing to tune
-
-
 def _session(config, profile, name: str) -> ScpiSession:
+    # open_resource (under ScpiSession.open) already switches Nagle's algorithm off.
     timeout_s = config.timeout_s if config.timeout_s else profile.timeout_s
-    session = ScpiSession.open(config.resource, visa_library=config.visa_library,
+    return ScpiSession.open(config.resource, visa_library=config.visa_library,
                             timeout_s=timeout_s, read_termination=profile.read_termination,
                             write_termination=profile.write_termination,
                             name=f"{name} {config.resource}",
                             resync_timeout_s=timeout_s + 2.0)
-    _no_delay(session)
-    return session
 
 
 def digitiser_opener(config, settings):

@@ -5,6 +5,7 @@ timeout. Values checked against the simulator's own state (read from the device 
 not against numbers copied from the driver.
 """
 
+import socket
 import time
 
 import numpy as np
@@ -22,6 +23,9 @@ from tankside.drivers.errors import (
 from tankside.drivers.generator import Generator
 from tankside.drivers.profile import load_profile
 from tankside.drivers.scpi import ScpiSession
+from tankside.drivers.visa import backend_socket, open_resource
+from tankside.monitor.benchfile import InstrumentConfig
+from tankside.monitor.instruments import digitiser_opener
 from tankside.simulators.bench import SimulatedBench
 
 SETTINGS = DigitiserSettings(record_length=2000, sample_rate_hz=250e6, range_v=0.1,
@@ -45,6 +49,34 @@ def _digitiser(bench, *, timeout_s=2.0, **kw):
 def _generator(bench):
     session = ScpiSession.open(bench.generator_resource, timeout_s=2.0)
     return Generator(session, load_profile(bench.generator_profile_path))
+
+
+def _nodelay(sock: socket.socket) -> int:
+    return sock.getsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY)
+
+
+class TestTransport:
+    def test_open_resource_switches_nagle_off(self, bench):
+        res = open_resource(bench.digitiser_resource, timeout_s=2.0)
+        try:
+            sock = backend_socket(res)
+            assert sock.getpeername()[0] == "127.0.0.1"
+            assert _nodelay(sock) != 0
+            # a fresh TCP socket has Nagle on (RFC 1122, 4.2.3.4), so the check above can fail
+            with socket.create_connection(sock.getpeername()[:2], timeout=2.0) as plain:
+                assert _nodelay(plain) == 0
+            assert res.query("*IDN?") == bench.digitiser.identity()
+        finally:
+            res.close()
+
+    def test_bench_opener_socket_has_nagle_off(self, bench):
+        config = InstrumentConfig(resource=bench.digitiser_resource,
+                                  profile=str(bench.digitiser_profile_path), timeout_s=2.0)
+        link = digitiser_opener(config, SETTINGS)()
+        try:
+            assert _nodelay(backend_socket(link.session.resource)) != 0
+        finally:
+            link.session.close()
 
 
 class TestDigitiser:
