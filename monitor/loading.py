@@ -82,7 +82,14 @@ class Loading:
         return cls(**kw)
 
     def as_dict(self) -> dict:
-        return asdict(self)
+        """Strict-JSON form (no ``inf``): no resistive load is ``input_resistance_ohm: None``.
+
+        ``from_table(as_dict())`` gives an equal Loading.
+        """
+        out = asdict(self)
+        if math.isinf(self.input_resistance_ohm):
+            out["input_resistance_ohm"] = None
+        return out
 
     @property
     def gain(self) -> float:

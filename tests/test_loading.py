@@ -1,5 +1,6 @@
 """Electrical loading correction M_L = M_O Z_L / (Z_L + Z_H), and preamplifier gain."""
 
+import json
 import math
 
 import numpy as np
@@ -59,6 +60,20 @@ def test_zero_hz_into_finite_resistance_is_zero():
 def test_bad_values_are_config_errors(kw):
     with pytest.raises(ConfigError):
         Loading(**kw)
+
+
+@pytest.mark.parametrize("load", [Loading(), Loading(100e-12), Loading(100e-12, 50e-12, 1e6)])
+def test_stored_form_is_strict_json_and_round_trips(load):
+    text = json.dumps(load.as_dict(), allow_nan=False)  # raises on inf or NaN
+    assert Loading.from_table(json.loads(text)) == load
+    if math.isinf(load.input_resistance_ohm):
+        assert json.loads(text)["input_resistance_ohm"] is None
+
+
+def test_sessions_recorded_with_infinity_still_load():
+    # the form of earlier session files: Python's json wrote inf as the token Infinity
+    table = json.loads('{"hydrophone_capacitance_f": 1e-10, "input_resistance_ohm": Infinity}')
+    assert Loading.from_table(table) == Loading(100e-12)
 
 
 def test_from_table_round_trip_and_unknown_key():

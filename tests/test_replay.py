@@ -15,7 +15,7 @@ from tankside.monitor.chain import RESULT_FIELDS, Converter
 from tankside.monitor.cli import EXIT_OK, EXIT_USAGE, main
 from tankside.monitor.errors import ConfigError, TanksideError
 from tankside.monitor.loading import Loading
-from tankside.monitor.replay import replay_session, result_differences
+from tankside.monitor.replay import conversion_inputs, replay_session, result_differences
 from tankside.monitor.settings import ConversionSettings
 from tankside.monitor.store import SessionReader, SessionStore, session_metadata
 from tankside.monitor.store_schema import EVENT_METHOD_CHANGE, META_REPLAY_OF
@@ -98,6 +98,9 @@ class TestExactReplay:
             replay_of = b.metadata[META_REPLAY_OF]
             assert replay_of["source_session_uid"] == a.start["session_uid"]
             assert b.metadata["calibration_sha256"] == a.metadata["calibration_sha256"]
+            # no resistive load is stored as null (strict JSON) and rebuilt as inf
+            assert a.metadata["loading"]["input_resistance_ohm"] is None
+            assert conversion_inputs(a.metadata)[1] == LOADING
 
     def test_recorded_method_change_is_followed(self, tmp_path):
         src, out = tmp_path / "live.db", tmp_path / "again.db"
