@@ -77,7 +77,7 @@ _STATUS_RANK = ("completed", "operator", "stopped-by-rule", "instrument-failure"
 
 
 class LiveSession:
-    """One live session beside the tank (contract H).
+    """One live session beside the tank.
 
     Build it with :meth:`from_bench` for real instruments; the keyword constructor
     takes the pieces directly (tests give it fakes).

@@ -39,7 +39,7 @@ BENCH_DEFAULTS = {
 
 
 class SimulatedBench:
-    """Simulated digitiser and generator SCPI servers sharing one :class:`Scene` (contract D).
+    """Simulated digitiser and generator SCPI servers sharing one :class:`Scene`.
 
     Parameters
     ----------
@@ -142,7 +142,7 @@ class SimulatedBench:
 
     # ------------------------------------------------------------ bench file
     def bench_file_text(self, *, session_folder: str = "sessions") -> str:
-        """The bench TOML (contract F) for this bench, as text."""
+        """The bench TOML (the layout tankside.monitor.benchfile reads) for this bench, as text."""
         d = self.scene.drive
         s = BENCH_DEFAULTS
         return "\n".join([
@@ -174,13 +174,24 @@ class SimulatedBench:
             "[water]",
             "temperature_c = 20.0",
             "",
+            "# For an open-circuit calibration, give the loading (the demo file is loaded):",
+            "# [loading]",
+            "# hydrophone_capacitance_f = 100e-12",
+            "# cable_capacitance_f = 50e-12",
+            "",
+            "# Alert thresholds and actions (README, 'Alerts'); take the rated maximum",
+            "# from your hydrophone's data sheet:",
+            "# [alerts.over_pressure]",
+            "# rated_max_pa = 5.0e6",
+            '# actions = ["record", "bell", "safe-off"]',
+            "",
             "[session]",
             f"folder = {_toml_str(session_folder)}",
             "",
         ])
 
     def write_bench_file(self, path: str | Path, *, session_folder: str = "sessions") -> Path:
-        """Write the bench TOML (contract F) to ``path``; return the path."""
+        """Write the bench TOML to ``path``; return the path."""
         path = Path(path)
         path.write_text(self.bench_file_text(session_folder=session_folder), encoding="utf-8")
         return path

@@ -1,4 +1,4 @@
-"""A deterministic stand-in for LiveSession (contract H) that feeds the dashboard.
+"""A deterministic stand-in for tankside.monitor.pipeline.LiveSession that feeds the dashboard.
 
 Data are invented for tests only: a 2.5 MHz tone burst with a little asymmetry (as a
 mildly nonlinear field would show), its spectrum, an invented smooth hydrophone
@@ -53,7 +53,7 @@ class FakeLiveSession:
         self._history: dict[str, list[float]] = {key: [] for key, _, _ in FIGURES}
         self._snap = Snapshot()
 
-    # -- contract H ----------------------------------------------------------------
+    # -- the LiveSession interface -------------------------------------------------------------
     def start(self) -> None:
         self.running = True
         self.advance()

@@ -146,3 +146,24 @@ class TestOverrides:
         assert bench.conversion_settings().method == "deconvolve"
         with pytest.raises(ConfigError, match="temperature_c"):
             load_bench(path, {"water.temperature_c": "warm"})
+
+
+def test_commented_examples_in_the_simulated_bench_file_are_valid(tmp_path):
+    # The bench file `tankside simulate` writes is where users start; its commented-out
+    # [loading] and [alerts] examples must load once uncommented.
+    from tankside.simulators.bench import SimulatedBench
+
+    with SimulatedBench() as sim:
+        text = sim.bench_file_text(session_folder=str(tmp_path))
+    lines = []
+    for line in text.splitlines():
+        body = line[2:] if line.startswith("# ") else None
+        if body and (body.startswith("[") or "=" in body):
+            line = body
+        lines.append(line)
+    path = tmp_path / "bench.toml"
+    path.write_text("\n".join(lines) + "\n")
+    bench = load_bench(path)
+    assert bench.loading().hydrophone_capacitance_f == 100e-12
+    assert bench.alert_config().rules["over_pressure"].params["rated_max_pa"] == 5.0e6
+    assert "safe-off" in bench.alert_config().rules["over_pressure"].actions
