@@ -181,7 +181,8 @@ def run(args) -> int:
             if first_run:
                 print("CAUTION: high-power ultrasound, high drive voltages and cavitation can "
                       "hurt people and destroy hydrophones; safe-off is a convenience, never "
-                      "the only interlock.", flush=True)
+                      "the only interlock. tankside does not replace calibrated compliance "
+                      "measurements, local rules or licensed practice.", flush=True)
             code = run_headless(session, status_every_s=args.status_every)
         else:
             try:
