@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 import sqlite3
 import time
 import uuid
@@ -65,8 +66,25 @@ _DISK_CODES = {sqlite3.SQLITE_FULL, sqlite3.SQLITE_IOERR}
 
 
 def _dumps(value) -> str:
-    # allow_nan: Loading's input_resistance_ohm defaults to inf; Python's json reads it back.
-    return json.dumps(value, sort_keys=True, default=_json_default)
+    """Strict JSON text (RFC 8259) of a metadata value, flags, extras or event detail.
+
+    NaN and the infinities, which strict JSON lacks (Python would write the tokens
+    ``NaN`` and ``Infinity`` that other readers refuse), are recorded as null.
+    """
+    return json.dumps(_finite_json(value), sort_keys=True, allow_nan=False)
+
+
+def _finite_json(value):
+    # float first: numpy's float64 is a float subclass, and bool an int subclass
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if value is None or isinstance(value, str | int):
+        return value
+    if isinstance(value, dict):
+        return {k: _finite_json(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_finite_json(v) for v in value]
+    return _finite_json(_json_default(value))
 
 
 def _json_default(obj):

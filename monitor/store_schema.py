@@ -9,6 +9,8 @@ A session file is a run record in five parts:
     identities, the calibration file verbatim with its sha256, the electrical loading,
     the conversion settings and the water temperature. Keys are the ``META_*`` names
     below; :func:`tankside.monitor.store.session_metadata` builds the dict.
+    This and every other ``*_json`` column is strict JSON: a NaN or infinity in a
+    recorded value is written as null.
 ``descriptors`` (one row per recorded quantity)
     units, dtype, shape and source of each column of ``traces`` and ``results``.
 ``traces``, ``results``, ``alerts``, ``events``

@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
+import math
 import os
 import signal
 import sqlite3
@@ -18,6 +20,7 @@ import pytest
 from session_samples import CAL_TEXT, fake_result, make_raw, write_session
 
 from tankside.monitor.errors import DiskFullError, SessionFileError, StoreError
+from tankside.monitor.loading import Loading
 from tankside.monitor.store import SessionReader, SessionStore, session_metadata
 from tankside.monitor.store_schema import (
     META_CALIBRATION_SHA256,
@@ -128,6 +131,61 @@ class TestRoundTrip:
     def test_result_columns_match_the_signal_chain(self):
         chain = pytest.importorskip("tankside.monitor.chain")
         assert tuple(chain.RESULT_FIELDS) == RESULT_NAMES
+
+
+_JSON_COLUMNS = (("metadata", "value_json"), ("descriptors", "shape_json"),
+                 ("traces", "state_json"), ("results", "flags_json"), ("results", "extra_json"),
+                 ("alerts", "actions_json"), ("events", "detail_json"),
+                 ("session_stop", "counts_json"))
+
+
+def _strict_loads(text: str):
+    def refuse(token):
+        raise ValueError(f"{token} is not JSON (RFC 8259, section 6)")
+    return json.loads(text, parse_constant=refuse)
+
+
+class TestStrictJson:
+    def test_non_finite_numbers_are_recorded_as_null(self, tmp_path):
+        path = tmp_path / "s.db"
+        meta = session_metadata(
+            configuration={"digitiser": {"range_v": math.inf}}, instruments={},
+            calibration_text=CAL_TEXT, loading=Loading(),
+            extra={"drift_pa": np.float64("nan"), "limits_v": (np.float32("-inf"), 1.5)})
+        raw = dataclasses.replace(make_raw(0, n=64),
+                                  state={"trigger_level_v": math.nan, "points": 64})
+        with SessionStore.create(path, meta) as store:
+            store.add_trace(raw, {**fake_result(0), "noise_v": math.nan}, {"ratio": -math.inf})
+            store.add_event(1.8e9, "range-change", {"from_v": 0.5, "to_v": np.inf}, seq=0)
+            store.add_alert(1.8e9, "drift", "warning", "p_r drifted", ["record"], seq=0)
+        conn = sqlite3.connect(path)
+        try:
+            for table, column in _JSON_COLUMNS:
+                texts = [r[0] for r in conn.execute(f"SELECT {column} FROM {table}")]
+                assert texts, (table, column)
+                for text in texts:
+                    _strict_loads(text)  # raises on NaN / Infinity
+        finally:
+            conn.close()
+        with SessionReader(path) as reader:
+            m = reader.metadata
+            assert m["configuration"] == {"digitiser": {"range_v": None}}
+            assert m["drift_pa"] is None and m["limits_v"] == [None, 1.5]
+            assert m["loading"]["input_resistance_ohm"] is None
+            back = reader.trace(0)
+            assert back.raw.state == {"trigger_level_v": None, "points": 64}
+            assert back.result["noise_v"] is None and back.flags["ratio"] is None
+            assert reader.events()[0]["detail"] == {"from_v": 0.5, "to_v": None}
+
+    def test_finite_values_are_unchanged(self, tmp_path):
+        value = {"x": 5e-324, "y": -0.0, "z": [1, True, None, "NaN", 1.7976931348623157e308]}
+        meta = session_metadata(configuration=value, instruments={}, calibration_text=CAL_TEXT)
+        with SessionStore.create(tmp_path / "s.db", meta):
+            pass
+        with SessionReader(tmp_path / "s.db") as reader:
+            back = reader.metadata["configuration"]
+        assert back == value and _bits(back["x"]) == _bits(5e-324)
+        assert back["z"][1] is True and math.copysign(1.0, back["y"]) == -1.0
 
 
 class TestBatchedCommits:
