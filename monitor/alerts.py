@@ -73,7 +73,8 @@ A rule fires when its condition starts, then stays quiet while the condition
 stands, and re-arms when it clears (or fires again after ``repeat_after_s``). A
 change of vertical range re-arms clipping and range_under_use (the condition on a
 new range is a new one, so auto-range can take the next step); a change of
-position restarts the p_r drift window. A rule that cannot be evaluated on a trace
+position or of vertical range restarts the p_r drift window, and clipped traces are
+left out of it (their p_r is a floor, not a measurement). A rule that cannot be evaluated on a trace
 (for example no result because the conversion failed) keeps its state.
 """
 
@@ -318,6 +319,8 @@ class RuleEngine:
             self._under_used = 0
             self._latches["clipping"].reset()
             self._latches["range_under_use"].reset()
+            # p_r from before a range step (often clipped) is no baseline for drift
+            self._pr_window.clear()
         self._range_v = obs.range_v
         if obs.position != self._position:
             self._pr_window.clear()
@@ -328,7 +331,8 @@ class RuleEngine:
             self._under_used += 1
         else:
             self._under_used = 0
-        if obs.result is not None:
+        if obs.result is not None and obs.clipped_low + obs.clipped_high == 0:
+            # a clipped trace's p_r is a floor, not a measurement: keep it out of the window
             pr = abs(_number(obs.result, "peak_rarefactional_pa"))
             if math.isfinite(pr):
                 self._pr_window.append(pr)

@@ -307,6 +307,22 @@ class TestPrDrift:
         eng.on_trace(obs(3, result=result(p_r=1.2e6)))
         assert fired(eng.on_trace(obs(4, result=result(p_r=1.2e6))), "pr_drift")
 
+    def test_clipped_traces_and_range_steps_do_not_count_as_drift(self):
+        # Auto-range in action: two clipped traces (p_r a floor) on 0.02 V, then steady
+        # traces on the next range. Neither the clipped p_r nor the old range is a baseline.
+        eng = engine(**self.tables)
+        out = []
+        for i, (pr, clipped, rng) in enumerate([(0.6e6, 40, 0.02), (0.8e6, 30, 0.05)]
+                                               + [(1.0e6, 0, 0.1)] * 6):
+            out += fired(eng.on_trace(obs(i, result=result(p_r=pr), range_v=rng,
+                                          clipped_low=clipped, clipped_high=clipped)),
+                         "pr_drift")
+        assert out == []
+        # a real drift on the new range still fires
+        for i, pr in enumerate([1.0e6, 1.0e6, 1.2e6, 1.2e6], start=8):
+            out += fired(eng.on_trace(obs(i, result=result(p_r=pr), range_v=0.1)), "pr_drift")
+        assert len(out) == 1
+
 
 class TestNarrowbandFail:
     def test_fires_only_while_the_narrowband_method_is_in_use(self):
