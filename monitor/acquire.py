@@ -6,6 +6,12 @@ acquisition; nothing is dropped). Before each acquisition it carries out the act
 the processing stage asked for (safe-off first, then a range change), and when
 ``gate`` is set it first waits until the rules have seen the previous trace, so that a
 safe-off decided on trace N takes effect before trace N+1 is acquired.
+
+With a generator, it also knows the output state: off after a safe-off, and asked
+of the generator about once a second (``DRIVE_POLL_S``, between acquisitions), so
+that an operator switching the output on or off at the instrument is noticed. Each
+change is an event (``drive-on`` / ``drive-off``, detail ``{"output_on", "cause",
+"before_seq"}``, cause "start", "safe-off" or "generator"), in order with the traces.
 """
 
 from __future__ import annotations
@@ -26,6 +32,10 @@ from tankside.drivers.errors import (
 )
 
 BACKOFF_S = (0.1, 0.2, 0.5, 1.0, 2.0, 5.0)
+DRIVE_POLL_S = 1.0          # output-state query interval (cheap; not one per trace)
+DRIVE_RETRY_S = 5.0         # after a failed query: do not stall acquisition every second
+EVENT_DRIVE_ON = "drive-on"
+EVENT_DRIVE_OFF = "drive-off"
 
 
 @dataclass
@@ -112,6 +122,11 @@ class AcquisitionLoop:
         self._verdict = threading.Condition()
         self._verdict_seq = first_seq - 1
         self._next_flags: dict = {}
+        # Generator output: True/False, None while unknown; only this thread writes it.
+        self.drive_on: bool | None = None
+        self.drive_cause = ""
+        self._next_drive_poll = 0.0
+        self._drive_fault: str | None = None
 
     # -- connection, called from the starting thread before run() --------------
     def connect(self) -> None:
@@ -157,6 +172,7 @@ class AcquisitionLoop:
                 if self.gate:
                     self._wait_verdict()
                 self._apply_commands()
+                self._poll_drive()
                 if self.stop.is_set():
                     break
                 self._acquire_one()
@@ -314,6 +330,44 @@ class AcquisitionLoop:
                                "generator reports output still on after safe-off"))
             return
         self._event("safe-off", {"done": True, "before_seq": self.seq, **cause})
+        self._set_drive(False, "safe-off")
+
+    # -- generator output state ----------------------------------------------------
+    def _set_drive(self, on: bool, cause: str) -> None:
+        self._drive_fault = None
+        if on == self.drive_on:
+            return
+        self.drive_on = on
+        self.drive_cause = cause
+        self._event(EVENT_DRIVE_ON if on else EVENT_DRIVE_OFF,
+                    {"output_on": on, "cause": cause, "before_seq": self.seq})
+
+    def _poll_drive(self) -> None:
+        """Ask the generator for its output state when the poll interval is up."""
+        if self.generator is None:
+            return
+        now = time.monotonic()
+        if now < self._next_drive_poll:
+            return
+        try:
+            on = bool(self.generator.device.output_is_on())
+        except InstrumentError as err:
+            self._next_drive_poll = now + DRIVE_RETRY_S
+            try:
+                # a late reply must not be read as the answer to the next query
+                self.generator.session.resync()
+            except InstrumentError:
+                pass  # the link is gone; safe-off reopens it when it is needed
+            if self._drive_fault is None:
+                self._drive_fault = str(err)
+                self.drive_on = None
+                self._event("fault", {"kind": "generator-query", "message": str(err),
+                                      "at_seq": self.seq},
+                            alert=("instrument-fault", "warning",
+                                   f"generator output state unknown: {err}"))
+            return
+        self._next_drive_poll = now + DRIVE_POLL_S
+        self._set_drive(on, "start" if self.drive_cause == "" else "generator")
 
     def _set_range(self, new_v: float, cause: dict) -> None:
         old_v = self.current_range_v()

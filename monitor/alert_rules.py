@@ -75,6 +75,11 @@ RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for s
               meaning="traces in the window (at one position)"))),
     RuleSpec("narrowband_fail", "warning", ("record",)),
     RuleSpec("conversion_failed", "warning", ("record",)),
+    RuleSpec("no_pulse", "info", ("record",), (
+        Param("noise_factor", "float", 8.0, "1", 0.0, True,
+              meaning="peak over robust noise sigma that counts as a pulse"),
+        Param("edge_fraction", "float", 0.1, "1", 0.0, high=0.5,
+              meaning="share of the record at each end for the noise"))),
     RuleSpec("disk_space_low", "warning", ("record", "bell"), (
         Param("min_free_bytes", "int", 1_000_000_000, "bytes", 0, True,
               meaning="free space left on the session disk"),)),
@@ -86,7 +91,9 @@ RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for s
               meaning="age of the oldest uncommitted trace"),)),
 )})
 
-COMMON_KEYS = ("enabled", "severity", "actions", "repeat_after_s")
+COMMON_KEYS = ("enabled", "severity", "actions", "repeat_after_s", "clear_after_traces")
+# Observations a condition must stay clear before its rule re-arms (anti-flap hold).
+DEFAULT_CLEAR_AFTER = 3
 
 
 @dataclass(frozen=True)
@@ -104,6 +111,9 @@ class RuleConfig:
     repeat_after_s : float
         0: fire once per episode; above 0: fire again every so many seconds while
         the condition stands.
+    clear_after_traces : int
+        Observations in a row (traces; ticks for the once-a-second rules) on which
+        the condition must be clear before the rule re-arms and may fire again.
     params : mapping
         Threshold key -> value (units in the key name or in :data:`RULES`).
     """
@@ -114,10 +124,12 @@ class RuleConfig:
     actions: tuple[str, ...]
     repeat_after_s: float = 0.0
     params: MappingProxyType = field(default_factory=lambda: MappingProxyType({}))
+    clear_after_traces: int = DEFAULT_CLEAR_AFTER
 
     def as_dict(self) -> dict:
         out = {"enabled": self.enabled, "severity": self.severity,
-               "actions": list(self.actions), "repeat_after_s": self.repeat_after_s}
+               "actions": list(self.actions), "repeat_after_s": self.repeat_after_s,
+               "clear_after_traces": self.clear_after_traces}
         out.update({k: v for k, v in self.params.items() if v is not None})
         return out
 
@@ -190,10 +202,15 @@ def _parse_rule(spec: RuleSpec, table) -> RuleConfig:
     actions = _parse_actions(spec.name, table.get("actions", list(spec.actions)))
     repeat = _parse_number(f"{spec.name}.repeat_after_s", table.get("repeat_after_s", 0.0),
                            Param("repeat_after_s", "float", 0.0, "s", 0.0, True))
+    clear_after = _parse_number(f"{spec.name}.clear_after_traces",
+                                table.get("clear_after_traces", DEFAULT_CLEAR_AFTER),
+                                Param("clear_after_traces", "int", DEFAULT_CLEAR_AFTER,
+                                      "traces", 1, True))
     values = {p.key: (_parse_number(f"{spec.name}.{p.key}", table[p.key], p)
                       if p.key in table else p.default) for p in spec.params}
     return RuleConfig(name=spec.name, enabled=enabled, severity=severity, actions=actions,
-                      repeat_after_s=float(repeat), params=MappingProxyType(values))
+                      repeat_after_s=float(repeat), params=MappingProxyType(values),
+                      clear_after_traces=int(clear_after))
 
 
 def _parse_actions(rule: str, value) -> tuple[str, ...]:

@@ -21,6 +21,8 @@ pr_drift                      p_r moves by >= max_change_percent between the fir
                               last half of a window_traces window at one position
 narrowband_fail               narrowband check fails while the narrowband method is used  warning   record
 conversion_failed             a trace could not be converted to pressure                  warning   record
+no_pulse                      the trace holds no pulse: its peak from the median is       info      record
+                              below noise_factor robust noise sigmas (edge_fraction)
 disk_space_low                free bytes on the session disk <= min_free_bytes            warning   record, bell
 falling_behind                queue depth / queue capacity >= queue_fraction              warning   record, bell
 store_lag                     oldest trace not yet committed is >= max_lag_s old          warning   record
@@ -39,6 +41,8 @@ range_under_use   consecutive_traces  traces   10             under-used traces 
 no_trigger        after_s             s        5.0            time without a trigger
 pr_drift          max_change_percent  %        10.0           change of p_r relative to the first half
 pr_drift          window_traces       traces   20             traces in the window (at one position)
+no_pulse          noise_factor        1        8.0            peak over robust noise sigma that counts as a pulse
+no_pulse          edge_fraction       1        0.1            share of the record at each end for the noise
 disk_space_low    min_free_bytes      bytes    1000000000     free space left on the session disk
 falling_behind    queue_fraction      1        0.8            share of the processing queue in use
 store_lag         max_lag_s           s        5.0            age of the oldest uncommitted trace
@@ -49,9 +53,11 @@ rating (common practice); set it from the hydrophone's data sheet.
 
 Every rule also takes ``enabled`` (default true), ``severity`` ("info", "warning",
 "critical"), ``actions`` (a list of "record", "bell", "auto-range", "safe-off",
-"stop"; "auto-range" only on clipping and range_under_use) and ``repeat_after_s``
+"stop"; "auto-range" only on clipping and range_under_use), ``repeat_after_s``
 (default 0: fire once per episode; above 0: fire again every so many seconds while
-the condition stands).
+the condition stands) and ``clear_after_traces`` (default 3: how many observations in
+a row, traces or for the once-a-second rules ticks, the condition must be clear
+before the rule re-arms; 1 re-arms on the first clear one).
 
 Bench file layout (every table and key optional)::
 
@@ -70,12 +76,25 @@ Bench file layout (every table and key optional)::
 Latching
 --------
 A rule fires when its condition starts, then stays quiet while the condition
-stands, and re-arms when it clears (or fires again after ``repeat_after_s``). A
+stands, and re-arms when it has been clear for ``clear_after_traces`` observations
+in a row (or fires again after ``repeat_after_s``): a condition that flickers on and
+off from one trace to the next raises one alert, not one per flicker. A
 change of vertical range re-arms clipping and range_under_use (the condition on a
 new range is a new one, so auto-range can take the next step); a change of
 position or of vertical range restarts the p_r drift window, and clipped traces are
 left out of it (their p_r is a floor, not a measurement). A rule that cannot be evaluated on a trace
 (for example no result because the conversion failed) keeps its state.
+
+No pulse, drive off
+-------------------
+A trace with no pulse (see :mod:`tankside.monitor.signal_presence`; decided by
+:func:`observation_from_trace` with the no_pulse thresholds), or one acquired while
+the generator output is known to be off, is noise: range_under_use, pr_drift,
+narrowband_fail and conversion_failed keep their state and do not fire on it, its
+p_r stays out of the drift window and it does not count as an under-used trace (so
+auto-range does not step down on noise). When the pulse is back the drift window
+starts afresh. clipping, over_pressure, no_trigger and the once-a-second rules stay
+live. no_pulse itself fires once when the pulse goes and re-arms when it is back.
 """
 
 from __future__ import annotations
@@ -84,12 +103,19 @@ import math
 from collections import deque
 from dataclasses import dataclass, field
 
+import numpy as np
+
 from tankside.monitor.alert_rules import (
     AUTO_RANGE_RULES,
     RULES,
     SEVERITIES,
     AlertConfig,
     RuleConfig,
+)
+from tankside.monitor.signal_presence import (
+    DEFAULT_EDGE_FRACTION,
+    DEFAULT_FACTOR,
+    pulse_presence,
 )
 
 __all__ = [
@@ -132,6 +158,15 @@ class TraceObservation:
         Conversion method configured: "auto", "deconvolve" or "narrowband".
     position : tuple or None
         Stage position, or None without a stage (treated as one fixed position).
+    pulse_present : bool
+        The trace holds a pulse above its noise (see
+        :mod:`tankside.monitor.signal_presence`).
+    drive_on : bool or None
+        Generator output state when the trace was acquired; None when unknown
+        (no generator, or it did not answer).
+    peak_to_noise : float
+        Peak of the trace from its median over the robust noise sigma (NaN if not
+        computed).
     """
 
     seq: int
@@ -144,6 +179,14 @@ class TraceObservation:
     error: str | None = None
     method_in_use: str = "auto"
     position: tuple | None = None
+    pulse_present: bool = True
+    drive_on: bool | None = None
+    peak_to_noise: float = float("nan")
+
+    @property
+    def quiet(self) -> bool:
+        """No pulse to judge: none in the trace, or the generator output is off."""
+        return not self.pulse_present or self.drive_on is False
 
 
 @dataclass(frozen=True)
@@ -206,20 +249,32 @@ class Firing:
 
 def observation_from_trace(raw, result: dict | None = None, error: str | None = None, *,
                            method_in_use: str = "auto", position: tuple | None = None,
-                           volts_v=None) -> TraceObservation:
+                           volts_v=None, drive_on: bool | None = None,
+                           noise_factor: float = DEFAULT_FACTOR,
+                           edge_fraction: float = DEFAULT_EDGE_FRACTION) -> TraceObservation:
     """Build a :class:`TraceObservation` from a ``RawTrace`` and its conversion outcome.
 
     ``volts_v`` (the trace in volts) saves converting the codes again when the
-    caller already has it.
+    caller already has it. ``noise_factor`` and ``edge_fraction`` are the no_pulse
+    thresholds (:meth:`RuleEngine.presence_options` gives the configured ones);
+    ``drive_on`` is the generator output state, None when unknown.
     """
     volts = raw.volts() if volts_v is None else volts_v
     peak_v = float(abs(volts).max()) if len(volts) else 0.0
     half_span_v = raw.range_v / 2.0
     fraction = peak_v / half_span_v if half_span_v > 0 else float("nan")
+    if len(volts) and np.all(np.isfinite(volts)):
+        presence = pulse_presence(volts, factor=noise_factor, edge_fraction=edge_fraction,
+                                  resolution_v=abs(float(raw.volts_per_code))
+                                  if raw.data_format != "float32" else 0.0)
+        present, ratio = presence.present, presence.peak_to_noise
+    else:
+        present, ratio = False, float("nan")
     return TraceObservation(seq=raw.seq, time_s=raw.time_s, clipped_low=raw.clipped_low,
                             clipped_high=raw.clipped_high, range_v=raw.range_v,
                             fraction_of_full_scale=fraction, result=result, error=error,
-                            method_in_use=method_in_use, position=position)
+                            method_in_use=method_in_use, position=position,
+                            pulse_present=present, drive_on=drive_on, peak_to_noise=ratio)
 
 
 def _fmt_pa(value_pa: float) -> str:
@@ -250,17 +305,28 @@ def _number(result: dict, key: str) -> float:
 
 
 class _Latch:
-    """Fires on the rising edge of a condition, then again only after repeat_after_s."""
+    """Fires on the rising edge of a condition, then again only after repeat_after_s.
 
-    def __init__(self, repeat_after_s: float):
+    Once fired it stays latched until the condition has been clear on
+    ``clear_after`` observations in a row, so a flickering condition fires once.
+    """
+
+    def __init__(self, repeat_after_s: float, clear_after: int = 1):
         self.repeat_after_s = repeat_after_s
+        self.clear_after = max(1, int(clear_after))
         self.active = False
+        self.clear_run = 0
         self.last_fired_s = float("nan")
 
     def step(self, condition: bool, now_s: float) -> bool:
         if not condition:
-            self.active = False
+            if self.active:
+                self.clear_run += 1
+                if self.clear_run >= self.clear_after:
+                    self.active = False
+                    self.clear_run = 0
             return False
+        self.clear_run = 0
         if not self.active:
             self.active = True
             self.last_fired_s = now_s
@@ -272,6 +338,7 @@ class _Latch:
 
     def reset(self) -> None:
         self.active = False
+        self.clear_run = 0
 
 
 # An evaluator returns None when the rule cannot be judged on this observation
@@ -288,19 +355,26 @@ class RuleEngine:
 
     def __init__(self, config: AlertConfig | None = None):
         self.config = config if config is not None else AlertConfig.defaults()
-        self._latches = {name: _Latch(rule.repeat_after_s)
+        self._latches = {name: _Latch(rule.repeat_after_s, rule.clear_after_traces)
                          for name, rule in self.config.rules.items()}
         self._range_v: float | None = None
         self._under_used = 0
         self._position: object = _UNSET
+        self._quiet = False
         window = self.config.rules["pr_drift"].params["window_traces"]
         self._pr_window: deque[float] = deque(maxlen=window)
 
     # -- public -----------------------------------------------------------------
     @property
     def active(self) -> frozenset[str]:
-        """Names of the rules whose condition currently stands."""
+        """Names of the latched rules: condition standing, or not yet clear for the hold."""
         return frozenset(name for name, latch in self._latches.items() if latch.active)
+
+    def presence_options(self) -> dict:
+        """The no_pulse thresholds as keywords of :func:`observation_from_trace`."""
+        params = self.config.rules["no_pulse"].params
+        return {"noise_factor": params["noise_factor"],
+                "edge_fraction": params["edge_fraction"]}
 
     @property
     def under_used_traces(self) -> int:
@@ -326,12 +400,23 @@ class RuleEngine:
             self._pr_window.clear()
             self._latches["pr_drift"].reset()
             self._position = obs.position
-        if obs.fraction_of_full_scale <= self.config.rules["range_under_use"].params[
-                "below_fraction"] and obs.clipped_low + obs.clipped_high == 0:
+        quiet = obs.quiet
+        if self._quiet and not quiet:
+            # The drive is back (perhaps at a new amplitude): p_r from before the
+            # pause is no baseline for drift.
+            self._pr_window.clear()
+        self._quiet = quiet
+        clipped = obs.clipped_low + obs.clipped_high > 0
+        if clipped:
+            self._under_used = 0
+        elif quiet:
+            pass    # noise is no measure of the range's use: the count waits for the pulse
+        elif obs.fraction_of_full_scale <= self.config.rules["range_under_use"].params[
+                "below_fraction"]:
             self._under_used += 1
         else:
             self._under_used = 0
-        if obs.result is not None and obs.clipped_low + obs.clipped_high == 0:
+        if obs.result is not None and not clipped and not quiet:
             # a clipped trace's p_r is a floor, not a measurement: keep it out of the window
             pr = abs(_number(obs.result, "peak_rarefactional_pa"))
             if math.isfinite(pr):
@@ -340,10 +425,11 @@ class RuleEngine:
         verdicts = {
             "clipping": self._clipping(obs),
             "over_pressure": self._over_pressure(obs),
-            "range_under_use": self._range_under_use(obs),
-            "pr_drift": self._pr_drift(obs),
-            "narrowband_fail": self._narrowband_fail(obs),
-            "conversion_failed": self._conversion_failed(obs),
+            "range_under_use": None if quiet else self._range_under_use(obs),
+            "pr_drift": None if quiet else self._pr_drift(obs),
+            "narrowband_fail": None if quiet else self._narrowband_fail(obs),
+            "conversion_failed": None if quiet else self._conversion_failed(obs),
+            "no_pulse": self._no_pulse(obs),
         }
         return self._fire(verdicts, obs.time_s, obs.seq)
 
@@ -464,6 +550,18 @@ class RuleEngine:
         text = obs.error if obs.error is not None else "no result"
         message = f"Conversion to pressure failed on trace {obs.seq}: {text}"
         return failed, message, {"error": text}
+
+    def _no_pulse(self, obs: TraceObservation) -> _Verdict:
+        factor = self._p("no_pulse", "noise_factor")
+        why = "generator output off" if obs.drive_on is False else "source off?"
+        ratio = obs.peak_to_noise
+        ratio_txt = f"{ratio:.3g}" if math.isfinite(ratio) else "-"
+        message = (f"No pulse in the traces ({why}): peak {ratio_txt} x noise sigma, below "
+                   f"{factor:g} x, from trace {obs.seq}; raw traces are still recorded, "
+                   f"drift, conversion, narrowband and range-use alerts wait for the pulse.")
+        detail = {"peak_to_noise": ratio if math.isfinite(ratio) else None,
+                  "noise_factor": factor, "drive_on": obs.drive_on}
+        return not obs.pulse_present, message, detail
 
     # -- tick rules ---------------------------------------------------------------------
     def _no_trigger(self, tick: TickObservation) -> _Verdict:

@@ -28,7 +28,7 @@ def fmt_si(value: float, unit: str) -> str:
 
 
 def status_line(snap: Snapshot, alert_count: int | None = None) -> str:
-    """One line: seq, rate, p_c/p_r/MI of the last trace, narrowband, counts, queue."""
+    """One line: seq, rate, source state, p_c/p_r/MI of the last trace, narrowband, counts, queue."""
     r = snap.result or {}
     if snap.narrowband_ok is None:
         nb = "narrowband -"
@@ -40,11 +40,27 @@ def status_line(snap: Snapshot, alert_count: int | None = None) -> str:
     mi_txt = f"{mi:.3g}" if isinstance(mi, int | float) and math.isfinite(mi) else "-"
     alerts = len(snap.alerts) if alert_count is None else alert_count
     return (f"[{snap.state}] seq {snap.seq} | {snap.traces_per_s:.1f} tr/s | "
+            f"{source_text(snap)}"
             f"p_c {fmt_si(r.get('peak_compressional_pa', math.nan), 'Pa')} "
             f"p_r {fmt_si(r.get('peak_rarefactional_pa', math.nan), 'Pa')} MI {mi_txt} | "
             f"{snap.method or '-'} | {nb} | acquired {snap.acquired} converted "
             f"{snap.converted} stored {snap.stored} | queue {snap.queue_depth}/"
             f"{snap.queue_capacity} | range {fmt_si(snap.range_v, 'V')} | alerts {alerts}")
+
+
+def source_text(snap: Snapshot) -> str:
+    """``"SOURCE OFF / NO PULSE: output off (safe-off) | "``-style text, or "" when normal.
+
+    Said when the generator output is known to be off or the latest trace holds no
+    pulse: the figures that follow are then of noise, not of the field.
+    """
+    off = snap.drive_on is False
+    no_pulse = snap.pulse_present is False
+    if not (off or no_pulse):
+        return "drive on | " if snap.drive_on else ""
+    words = " / ".join(w for w, on in (("SOURCE OFF", off), ("NO PULSE", no_pulse)) if on)
+    why = f": {snap.drive_detail}" if snap.drive_detail else ""
+    return f"{words}{why} | "
 
 
 def alert_line(alert: AlertView) -> str:

@@ -17,6 +17,13 @@ until processing has judged trace N (and queued its actions) before it acquires
 trace N+1 (``gate=True``, the default). Processing is fast beside an acquisition, so
 this costs little, and a safe-off decided on trace N always comes before trace N+1.
 
+No pulse, drive off: the generator's output state arrives as ``drive-on`` /
+``drive-off`` events in order with the traces, and each trace gets a pulse-presence
+verdict (:mod:`tankside.monitor.signal_presence`). A trace with no pulse, or acquired
+with the output off, is still stored and converted, flagged (``no_pulse``,
+``drive_off``) and shown, but kept out of the running figures; the rules do not judge
+drift, conversion, narrowband or range use on it (see :mod:`tankside.monitor.alerts`).
+
 Displays (the dashboard, :mod:`tankside.monitor.headless`) call only the public
 methods of :class:`LiveSession`; they never touch a driver.
 """
@@ -36,7 +43,14 @@ from typing import Any
 
 import numpy as np
 
-from tankside.monitor.acquire import AcqEvent, Acquired, AcquisitionLoop, Link
+from tankside.monitor.acquire import (
+    EVENT_DRIVE_OFF,
+    EVENT_DRIVE_ON,
+    AcqEvent,
+    Acquired,
+    AcquisitionLoop,
+    Link,
+)
 from tankside.monitor.alerts import Firing, TickObservation, observation_from_trace
 from tankside.monitor.autorange import range_after
 from tankside.monitor.cli import (
@@ -162,6 +176,11 @@ class LiveSession:
         self._pending_method: str | None = None
         self._range_v = float("nan")
         self._fraction = float("nan")
+        # Generator output as processing knows it (from the acquisition's events).
+        self._drive_on: bool | None = None
+        self._drive_cause = ""
+        self._pulse_present: bool | None = None
+        self._no_pulse = 0
         self._snap = Snapshot(session_path=str(self.session_path), state="starting")
         self.message_for_operator = ""
 
@@ -481,6 +500,14 @@ class LiveSession:
                                          time_s=ev.time_s)], raw=None, fraction=float("nan"))
         if kind == "range-change" and ev.detail.get("done"):
             self._range_v = float(ev.detail["to_v"])
+        if kind in (EVENT_DRIVE_ON, EVENT_DRIVE_OFF):
+            self._drive_on = kind == EVENT_DRIVE_ON
+            self._drive_cause = str(ev.detail.get("cause", ""))
+            self._publish()
+        elif kind == "fault" and ev.detail.get("kind") == "generator-query":
+            self._drive_on = None
+            self._drive_cause = ""
+            self._publish()
 
     def _on_trace(self, item: Acquired) -> None:
         raw = item.raw
@@ -499,9 +526,11 @@ class LiveSession:
             error = f"{type(err).__name__}: {err}"
             self._failed += 1
         obs = observation_from_trace(raw, flat, error, method_in_use=self._method,
-                                     volts_v=volts)
+                                     volts_v=volts, drive_on=self._drive_on,
+                                     **self._rules.presence_options())
         self._range_v = raw.range_v
         self._fraction = obs.fraction_of_full_scale
+        self._pulse_present = obs.pulse_present
         firings = self._rules.on_trace(obs)
         self._handle_firings(firings, raw=raw, fraction=obs.fraction_of_full_scale)
         # Actions for trace N are queued: trace N+1 may be acquired now.
@@ -509,9 +538,15 @@ class LiveSession:
         flags = dict(item.flags)
         flags["clipped"] = raw.clipped > 0
         flags.setdefault("range_changed", False)
+        if not obs.pulse_present:
+            flags["no_pulse"] = True
+            self._no_pulse += 1
+        if self._drive_on is False:
+            flags["drive_off"] = True
         if raw.clipped:
             self._clipped += 1
-        if flat is not None:
+        if flat is not None and not obs.quiet:
+            # noise converted to "pressure" is no figure of the field
             self._figures.add(flat)
         self._put(TraceItem(raw, flat, flags, error))
         self._publish_trace(raw, volts, result, flat)
@@ -575,15 +610,27 @@ class LiveSession:
             if link is None:
                 continue
             connected = self._acq.connected if name == "digitiser" else True
+            detail = self._drive_text() if name == "generator" else ""
             views.append(InstrumentView(name=name, resource=self._resources.get(name, ""),
-                                        identity=link.identity, connected=connected))
+                                        identity=link.identity, connected=connected,
+                                        detail=detail))
         return views
+
+    def _drive_text(self) -> str:
+        if self._drive_on is None:
+            return "output state unknown"
+        if self._drive_on:
+            return "output on"
+        return "output off (safe-off)" if self._drive_cause == "safe-off" else "output off"
 
     def _publish(self, state: str | None = None, **fields) -> None:
         snap = dataclasses.replace(
             self._snap, **fields, converted=self._converted, traces_per_s=self._rate.rate(time.monotonic()),
             range_v=self._range_v, range_fraction_used=self._fraction,
             clipped_traces=self._clipped, instruments=self._instrument_views(),
+            drive_on=self._drive_on,
+            drive_detail=self._drive_text() if self._acq.generator is not None else "",
+            pulse_present=self._pulse_present, no_pulse_traces=self._no_pulse,
             state=state or self._snap.state, stop_reason=self._reason)
         self._snap = snap
 

@@ -107,3 +107,10 @@ class Snapshot:
     session_bytes: int = 0
     state: str = "starting"  # "starting" | "running" | "reconnecting" | "stopping" | "stopped"
     stop_reason: str = ""
+    # generator output: True/False, None when unknown or no generator; and as text,
+    # e.g. "output off (safe-off)" ("" without a generator)
+    drive_on: bool | None = None
+    drive_detail: str = ""
+    # the latest trace holds a pulse above its noise (None before the first trace)
+    pulse_present: bool | None = None
+    no_pulse_traces: int = 0

@@ -382,12 +382,52 @@ class TestTickRules:
 # -- latching ------------------------------------------------------------------------------
 
 def test_standing_condition_fires_once_and_re_arms_when_cleared():
-    eng = engine()
+    eng = engine(clipping={"clear_after_traces": 1})
     clipped = [1, 1, 1, 0, 1, 1]
     hits = [bool(fired(eng.on_trace(obs(i, clipped_high=c)), "clipping"))
             for i, c in enumerate(clipped)]
     assert hits == [True, False, False, False, True, False]
     assert "clipping" in eng.active
+
+
+def test_flickering_condition_fires_once_within_the_clear_hold():
+    # Default hold of 3: two clear traces between episodes are not enough to re-arm.
+    eng = engine()
+    clipped = [1, 0, 1, 0, 0, 1, 0, 0, 0, 1]
+    hits = [bool(fired(eng.on_trace(obs(i, clipped_high=c)), "clipping"))
+            for i, c in enumerate(clipped)]
+    assert hits == [True, False, False, False, False, False, False, False, False, True]
+
+
+@pytest.mark.parametrize("hold", [1, 2, 5])
+def test_clear_hold_is_the_configured_number_of_clear_traces(hold):
+    eng = engine(clipping={"clear_after_traces": hold})
+    eng.on_trace(obs(0, clipped_high=1))
+    for i in range(1, hold):
+        eng.on_trace(obs(i))
+        assert "clipping" in eng.active, i
+    eng.on_trace(obs(hold))
+    assert "clipping" not in eng.active
+    assert fired(eng.on_trace(obs(hold + 1, clipped_high=1)), "clipping")
+
+
+def test_traces_that_cannot_be_judged_do_not_count_towards_the_hold():
+    eng = engine(conversion_failed={"clear_after_traces": 2})
+    assert fired(eng.on_trace(obs(0, result=None, error="bad")), "conversion_failed")
+    eng.on_trace(obs(1))                                      # clear: 1 of 2
+    eng.on_trace(obs(2, result=None, error="bad", pulse_present=False))  # not judged
+    assert "conversion_failed" in eng.active
+    eng.on_trace(obs(3))                                      # clear: 2 of 2
+    assert "conversion_failed" not in eng.active
+
+
+def test_clear_hold_setting_is_checked():
+    with pytest.raises(ConfigError, match=r"^clipping.clear_after_traces: must be >= 1"):
+        AlertConfig.from_table({"clipping": {"clear_after_traces": 0}})
+    config = AlertConfig.from_table({"pr_drift": {"clear_after_traces": 7}})
+    assert config["pr_drift"].clear_after_traces == 7
+    assert config["clipping"].clear_after_traces == 3
+    assert AlertConfig.from_table(config.as_dict()) == config
 
 
 def test_repeat_interval_while_condition_stands():
@@ -398,7 +438,7 @@ def test_repeat_interval_while_condition_stands():
 
 
 def test_tick_rule_re_arms_after_a_trigger():
-    eng = engine()
+    eng = engine(no_trigger={"clear_after_traces": 1})
     seen = [bool(eng.on_tick(TickObservation(now_s=t, since_trigger_s=s)))
             for t, s in ((0, 6.0), (1, 7.0), (2, 0.1), (3, 6.0))]
     assert seen == [True, False, False, True]

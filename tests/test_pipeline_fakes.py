@@ -129,16 +129,19 @@ class FakeResult:
 class FakeConverter:
     """Divides by a flat sensitivity; refuses a trace without signal (like f_awf unknown)."""
 
-    def __init__(self, method="deconvolve"):
+    def __init__(self, method="deconvolve", refuse_above_v=None):
         self.method = method
+        self.refuse_above_v = refuse_above_v
 
     def process(self, voltage_v, dt_s):
         if np.max(np.abs(voltage_v)) < 1e-4:
             raise OutOfBandError("no signal: acoustic working frequency undefined")
+        if self.refuse_above_v is not None and np.max(np.abs(voltage_v)) > self.refuse_above_v:
+            raise OutOfBandError("acoustic working frequency outside the calibrated band")
         return FakeResult(voltage_v, dt_s, self.method)
 
     def with_method(self, method):
-        return FakeConverter(method)
+        return FakeConverter(method, self.refuse_above_v)
 
 
 class SlowStore:
@@ -164,7 +167,7 @@ class SlowStore:
 def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, store_delay_s=0.0,
                  full_after=None, queue_capacity=16, opener_failures=None, resync_ok=True,
                  give_up_s=5.0, generator=True, commit_interval_s=0.05, duration_s=None,
-                 bell=None):
+                 bell=None, converter=None):
     settings = DigitiserSettings(record_length=N, sample_rate_hz=1 / DT_S, range_v=range_v)
     opens = {"digitiser": 0}
 
@@ -185,7 +188,7 @@ def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, st
 
     session = LiveSession(
         open_digitiser=open_digitiser, open_generator=open_generator if generator else None,
-        converter=FakeConverter(), rules=RuleEngine(AlertConfig.from_table(alerts or {})),
+        converter=converter or FakeConverter(), rules=RuleEngine(AlertConfig.from_table(alerts or {})),
         open_store=open_store, metadata=lambda ids: {"instruments": ids, "test": True},
         session_path=tmp_path / "s.db", trigger_timeout_s=0.05, queue_capacity=queue_capacity,
         max_traces=max_traces, give_up_s=give_up_s, duration_s=duration_s, bell=bell)
@@ -363,17 +366,31 @@ class TestFaults:
         assert s.exit_code == EXIT_OK
 
     def test_conversion_error_stored_and_session_goes_on(self, tmp_path):
-        scene = Scene(amplitude=lambda seq: 0.0 if seq == 4 else 0.05)
-        s = run(make_session(tmp_path, scene, max_traces=10))
+        # Trace 4 holds a pulse the converter refuses: a conversion failure to report.
+        scene = Scene(amplitude=lambda seq: 0.08 if seq == 4 else 0.05)
+        s = run(make_session(tmp_path, scene, max_traces=10,
+                             converter=FakeConverter(refuse_above_v=0.07)))
         assert s.exit_code == EXIT_OK
         snap = s.snapshot()
         assert (snap.acquired, snap.converted, snap.stored) == (10, 9, 10)
         with SessionReader(tmp_path / "s.db") as r:
             bad = r.trace(4)
+            assert bad.result is None and "outside the calibrated band" in bad.error
+            assert r.trace(5).result is not None
+            assert [a["rule"] for a in r.alerts()] == ["conversion_failed"]
+
+    def test_empty_trace_is_no_pulse_not_a_conversion_failure(self, tmp_path):
+        scene = Scene(amplitude=lambda seq: 0.0 if seq == 4 else 0.05)
+        s = run(make_session(tmp_path, scene, max_traces=10))
+        assert s.exit_code == EXIT_OK
+        assert (s.snapshot().converted, s.snapshot().no_pulse_traces) == (9, 1)
+        with SessionReader(tmp_path / "s.db") as r:
+            bad = r.trace(4)
             assert bad.result is None and "no signal" in bad.error
             assert np.all(bad.raw.codes == 0)
-            assert r.trace(5).result is not None
-            assert "conversion_failed" in [a["rule"] for a in r.alerts()]
+            assert bad.flags.get("no_pulse") is True
+            assert "no_pulse" not in r.trace(5).flags
+            assert [a["rule"] for a in r.alerts()] == ["no_pulse"]
 
     def test_disk_full_stops_cleanly_with_store_exit_code(self, tmp_path):
         scene = Scene()
