@@ -46,7 +46,6 @@ from __future__ import annotations
 
 import csv
 import hashlib
-import json
 import math
 from pathlib import Path
 
@@ -54,7 +53,7 @@ import numpy as np
 
 from tankside.monitor.errors import ConfigError
 from tankside.monitor.progress import Progress
-from tankside.monitor.store import SessionReader
+from tankside.monitor.store import SessionReader, strict_json
 from tankside.monitor.store_schema import (
     META_CALIBRATION_SHA256,
     RESULT_COLUMNS,
@@ -163,7 +162,7 @@ def export_hdf5(reader: SessionReader, out, *, progress: bool | None = None) -> 
                         "stopped_cleanly": stop is not None})
         g = f.create_group("metadata")
         for key, value in meta.items():
-            g.attrs[key] = json.dumps(value, sort_keys=True)
+            g.attrs[key] = strict_json(value)
         if meta.get("calibration_text") is not None:
             ds = g.create_dataset("calibration_text", data=meta["calibration_text"],
                                   dtype=h5py.string_dtype())
@@ -175,7 +174,7 @@ def export_hdf5(reader: SessionReader, out, *, progress: bool | None = None) -> 
         if stop is not None:
             s = f.create_group("stop")
             s.attrs.update({"stop_time_s": stop["stop_time_s"], "exit_status": stop["exit_status"],
-                            "reason": stop["reason"], "counts_json": json.dumps(stop["counts"])})
+                            "reason": stop["reason"], "counts_json": strict_json(stop["counts"])})
     return n_traces
 
 
@@ -207,7 +206,7 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar):
         cols["clipped_high"].append(raw.clipped_high)
         cols["dtype"].append(raw.codes.dtype.str)
         cols["data_format"].append(raw.data_format)
-        cols["state_json"].append(json.dumps(raw.state, sort_keys=True))
+        cols["state_json"].append(strict_json(raw.state))
         bar.update()
     if not uniform:
         _numbers(g, "code_start", starts, np.int64, "")
@@ -252,7 +251,7 @@ def _write_alerts(g, alerts):
     _numbers(g, "time_s", [a["time_s"] for a in alerts], np.float64)
     for c in ("rule", "severity", "message"):
         _strings(g, c, [a[c] for a in alerts])
-    _strings(g, "actions_json", [json.dumps(list(a["actions"])) for a in alerts])
+    _strings(g, "actions_json", [strict_json(list(a["actions"])) for a in alerts])
     _numbers(g, "seq", [-1 if a["seq"] is None else a["seq"] for a in alerts], np.int64, "")
     _numbers(g, "acknowledged_time_s", [math.nan if a["acknowledged_time_s"] is None
                                         else a["acknowledged_time_s"] for a in alerts],
@@ -264,4 +263,4 @@ def _write_events(g, events):
     _numbers(g, "time_s", [e["time_s"] for e in events], np.float64)
     _strings(g, "kind", [e["kind"] for e in events])
     _numbers(g, "seq", [-1 if e["seq"] is None else e["seq"] for e in events], np.int64, "")
-    _strings(g, "detail_json", [json.dumps(e["detail"], sort_keys=True) for e in events])
+    _strings(g, "detail_json", [strict_json(e["detail"]) for e in events])

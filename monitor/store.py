@@ -65,7 +65,7 @@ __all__ = [
 _DISK_CODES = {sqlite3.SQLITE_FULL, sqlite3.SQLITE_IOERR}
 
 
-def _dumps(value) -> str:
+def strict_json(value) -> str:
     """Strict JSON text (RFC 8259) of a metadata value, flags, extras or event detail.
 
     NaN and the infinities, which strict JSON lacks (Python would write the tokens
@@ -227,7 +227,7 @@ class SessionStore:
         if path.exists():
             raise SessionFileError(f"{path}: session file already exists")
         try:
-            meta_rows = [(key, _dumps(value)) for key, value in metadata.items()]
+            meta_rows = [(key, strict_json(value)) for key, value in metadata.items()]
         except (TypeError, ValueError) as err:
             raise StoreError(f"{path}: session metadata is not recordable: {err}") from err
         start_time_s = float(metadata.get(META_START_TIME_S, wall_clock()))
@@ -311,10 +311,10 @@ class SessionStore:
                          float(raw.volts_per_code), float(raw.offset_v), float(raw.dt_s),
                          float(raw.t0_s), float(raw.range_v), float(raw.code_min),
                          float(raw.code_max), int(raw.clipped_low), int(raw.clipped_high),
-                         _dumps(raw.state))
+                         strict_json(raw.state))
             values, extra = self._result_values(result)
             result_row = (int(raw.seq), result is not None, error, *values, clipped,
-                          range_changed, _dumps(flags), _dumps(extra))
+                          range_changed, strict_json(flags), strict_json(extra))
         except (TypeError, ValueError) as err:
             raise StoreError(f"{self.path}: trace {raw.seq} is not recordable: {err}") from err
 
@@ -326,7 +326,7 @@ class SessionStore:
             if not self._codes_described:
                 self._conn.execute(
                     "INSERT OR REPLACE INTO descriptors VALUES ('codes', 'traces', 'code', ?, ?, ?)",
-                    (codes.dtype.str, _dumps([int(codes.shape[0])]), self._source))
+                    (codes.dtype.str, strict_json([int(codes.shape[0])]), self._source))
         self._write(f"recording trace {raw.seq}", insert)
         self._codes_described = True
         self.traces_written += 1
@@ -351,7 +351,7 @@ class SessionStore:
     def add_alert(self, time_s: float, rule: str, severity: str, message: str,
                   actions, seq: int | None = None) -> int:
         """Record an alert; returns its id (for :meth:`acknowledge_alert`)."""
-        row = (float(time_s), str(rule), str(severity), str(message), _dumps(list(actions)),
+        row = (float(time_s), str(rule), str(severity), str(message), strict_json(list(actions)),
                None if seq is None else int(seq))
         cur = self._write(f"recording alert {rule!r}", lambda: self._conn.execute(
             "INSERT INTO alerts (time_s, rule, severity, message, actions_json, seq) "
@@ -369,7 +369,7 @@ class SessionStore:
     def add_event(self, time_s: float, kind: str, detail: dict, seq: int | None = None) -> None:
         """Record an event (kinds: the ``EVENT_*`` names of store_schema, or free text)."""
         try:
-            detail_json = _dumps(detail)
+            detail_json = strict_json(detail)
         except (TypeError, ValueError) as err:
             raise StoreError(f"{self.path}: event {kind!r} is not recordable: {err}") from err
         self._write(f"recording event {kind!r}", lambda: self._conn.execute(
@@ -420,7 +420,7 @@ class SessionStore:
         """
         if self._closed:
             return
-        row = (float(self._wall_clock()), str(exit_status), str(reason), _dumps(counts))
+        row = (float(self._wall_clock()), str(exit_status), str(reason), strict_json(counts))
         try:
             if self._conn.in_transaction and self._failed is None:
                 self._conn.execute("COMMIT")
