@@ -107,6 +107,9 @@ class FakeGenerator:
         self.scene.note("output", bool(on))
 
     def output_is_on(self):
+        self.scene.note("output?")
+        if getattr(self.scene, "generator_mute", False):
+            raise InstrumentTimeout("generator: no reply to OUTP?")
         return self.scene.output_on
 
 
@@ -443,3 +446,52 @@ class TestHeadless:
         last = [ln for ln in text.splitlines() if ln.startswith("[stopped]")][-1]
         assert "acquired 40 converted 40 stored 40" in last and "alerts 1" in last
         assert "session stopped: completed" in text.splitlines()[-1]
+
+
+class TestDriveState:
+    def test_output_switched_at_the_generator_is_noticed_without_a_query_per_trace(
+            self, tmp_path):
+        scene = Scene()
+        scene.output_on = False          # off at the start
+        scene.acquire_delay_s = 0.002
+        s = make_session(tmp_path, scene, max_traces=None)
+        s.start()
+        try:
+            wait = time.monotonic() + 5
+            while s.snapshot().drive_detail != "output off" and time.monotonic() < wait:
+                time.sleep(0.01)
+            assert s.snapshot().drive_on is False
+            scene.output_on = True       # the operator, at the instrument
+            t_on = time.monotonic()
+            while s.snapshot().drive_on is not True and time.monotonic() < t_on + 5:
+                time.sleep(0.01)
+            assert time.monotonic() - t_on < 2.0
+            gen = next(v for v in s.snapshot().instruments if v.name == "generator")
+            assert gen.detail == "output on"
+        finally:
+            s.stop()
+            assert s.wait(10)
+        queries = sum(e[0] == "output?" for e in scene.log)
+        traces = len(acquires(scene))
+        assert traces > 50 and queries <= 2 + s.elapsed_s / 1.0
+        with SessionReader(tmp_path / "s.db") as r:
+            drive = [(e["kind"], e["detail"]["cause"]) for e in r.events()
+                     if e["kind"] in ("drive-on", "drive-off")]
+            assert drive == [("drive-off", "start"), ("drive-on", "generator")]
+            before = next(e for e in r.events() if e["kind"] == "drive-on")["detail"]
+            assert r.trace(before["before_seq"] - 1).flags.get("drive_off") is True
+            assert "drive_off" not in r.trace(before["before_seq"]).flags
+
+    def test_unanswered_output_query_is_a_fault_and_the_state_unknown(self, tmp_path):
+        scene = Scene()
+        scene.generator_mute = True
+        s = run(make_session(tmp_path, scene, max_traces=20))
+        assert s.exit_code == EXIT_OK
+        snap = s.snapshot()
+        assert snap.drive_on is None and snap.drive_detail == "output state unknown"
+        with SessionReader(tmp_path / "s.db") as r:
+            faults = [e for e in r.events() if e["kind"] == "fault"]
+            assert [f["detail"]["kind"] for f in faults] == ["generator-query"]
+            assert [a["rule"] for a in r.alerts()].count("instrument-fault") == 1
+            assert r.seqs() == list(range(20))
+        assert ("resync",) in scene.log
