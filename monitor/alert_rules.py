@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 from types import MappingProxyType
 
 from tankside.monitor.errors import ConfigError
+from tankside.monitor.signal_presence import DEFAULT_EDGE_FRACTION, DEFAULT_FACTOR
 
 SEVERITIES = ("info", "warning", "critical")
 ACTIONS = ("record", "bell", "auto-range", "safe-off", "stop")
@@ -76,9 +77,9 @@ RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for s
     RuleSpec("narrowband_fail", "warning", ("record",)),
     RuleSpec("conversion_failed", "warning", ("record",)),
     RuleSpec("no_pulse", "info", ("record",), (
-        Param("noise_factor", "float", 8.0, "1", 0.0, True,
+        Param("noise_factor", "float", DEFAULT_FACTOR, "1", 0.0, True,
               meaning="peak over robust noise sigma that counts as a pulse"),
-        Param("edge_fraction", "float", 0.1, "1", 0.0, high=0.5,
+        Param("edge_fraction", "float", DEFAULT_EDGE_FRACTION, "1", 0.0, high=0.5,
               meaning="share of the record at each end for the noise"))),
     RuleSpec("disk_space_low", "warning", ("record", "bell"), (
         Param("min_free_bytes", "int", 1_000_000_000, "bytes", 0, True,
