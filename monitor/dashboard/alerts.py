@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
-from rich.text import Text
-from textual.widget import Widget
+from textual.strip import Strip
 
+from tankside.monitor.dashboard.panel import LinePanel, text_strips
 from tankside.monitor.dashboard.units import wall_time
 from tankside.monitor.snapshot import AlertView, Snapshot
 
@@ -21,7 +21,7 @@ def open_alerts(alerts: list[AlertView]) -> list[AlertView]:
     return [a for a in alerts if not a.acknowledged]
 
 
-class AlertList(Widget):
+class AlertList(LinePanel):
     """Alerts newest first: id, ✓ once acknowledged, time, severity, rule, [actions], message."""
 
     DEFAULT_CSS = "AlertList { height: 5; }"
@@ -34,30 +34,27 @@ class AlertList(Widget):
     def show(self, snap: Snapshot) -> None:
         self.alerts = list(snap.alerts)
         n_open = len(open_alerts(self.alerts))
-        self.border_title = f"alerts · {n_open} open" if n_open else "alerts"
-        self.border_subtitle = f"{len(self.alerts)} in session" if self.alerts else ""
+        self.set_titles(title=f"alerts · {n_open} open" if n_open else "alerts",
+                        subtitle=f"{len(self.alerts)} in session" if self.alerts else "")
         self.set_class(n_open > 0, "-open")
-        self.refresh()
+        self.invalidate()
 
-    def render(self) -> Text:
-        rows = self.content_size.height
-        out = Text(no_wrap=True, overflow="crop")
+    def build(self, rows: int, cols: int) -> list[Strip]:
+        lines: list[list[tuple[str, str]]] = []
         if not self.alerts:
-            out.append("no alerts", ACKED)
-            return out
-        for i, alert in enumerate(reversed(self.alerts[-rows:] if rows else [])):
-            if i:
-                out.append("\n")
+            lines.append([("no alerts", ACKED)])
+        for alert in reversed(self.alerts[-rows:] if rows else []):
             mark, style = SEVERITY_STYLE.get(alert.severity, ("?", "white"))
             if alert.acknowledged:
                 style = ACKED
-            out.append(f"#{alert.alert_id:<3}", style)
-            out.append("✓ " if alert.acknowledged else "  ", ACKED)
-            out.append(f"{wall_time(alert.time_s)} ", ACKED)
-            out.append(f"{mark} {alert.severity[:4]:<4} ", style)
-            out.append(f"{alert.rule}", style)
+            line = [(f"#{alert.alert_id:<3}", style),
+                    ("✓ " if alert.acknowledged else "  ", ACKED),
+                    (f"{wall_time(alert.time_s)} ", ACKED),
+                    (f"{mark} {alert.severity[:4]:<4} ", style),
+                    (f"{alert.rule}", style)]
             if alert.actions:
-                out.append(f" [{', '.join(alert.actions)}]",
-                           ACKED if alert.acknowledged else "#c8ccd0")
-            out.append(f" {alert.message}", style)
-        return out
+                line.append((f" [{', '.join(alert.actions)}]",
+                             ACKED if alert.acknowledged else "#c8ccd0"))
+            line.append((f" {alert.message}", style))
+            lines.append(line)
+        return text_strips(lines, rows, cols, self.visual_style.rich_style)

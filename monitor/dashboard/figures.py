@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 import numpy as np
-from rich.text import Text
-from textual.widget import Widget
+from textual.strip import Strip
 
+from tankside.monitor.dashboard.panel import LinePanel, text_strips
 from tankside.monitor.dashboard.plotgrid import column_extents
 from tankside.monitor.dashboard.units import DISPLAY_UNITS, in_display_unit, number
 from tankside.monitor.snapshot import FIGURES, RunningFigure, Snapshot
@@ -35,7 +35,7 @@ def sparkline(values: np.ndarray, width: int) -> str:
     return "".join(_LEVELS[i] for i in idx)
 
 
-class RunningFigures(Widget):
+class RunningFigures(LinePanel):
     """A table of the session's running figures in fixed display units."""
 
     DEFAULT_CSS = "RunningFigures { height: 8; }"
@@ -48,28 +48,26 @@ class RunningFigures(Widget):
     def show(self, snap: Snapshot) -> None:
         self._figures = snap.figures
         counts = [f.count for f in snap.figures.values()]
-        self.border_subtitle = f"{max(counts)} traces" if counts else ""
-        self.refresh()
+        self.set_titles(subtitle=f"{max(counts)} traces" if counts else "")
+        self.invalidate()
 
-    def render(self) -> Text:
-        width = self.content_size.width
+    def build(self, rows: int, cols: int) -> list[Strip]:
         name_w, num_w = 12, 6
-        trend_w = max(0, width - name_w - 4 * (num_w + 1) - 1)
-        out = Text(no_wrap=True, overflow="crop")
-        out.append(f"{'':{name_w}}", HEAD)
-        for head in ("last", "min", "max", "mean"):
-            out.append(f" {head:>{num_w}}", HEAD)
+        trend_w = max(0, cols - name_w - 4 * (num_w + 1) - 1)
+        head = [(f"{'':{name_w}}", HEAD)]
+        for title in ("last", "min", "max", "mean"):
+            head.append((f" {title:>{num_w}}", HEAD))
         if trend_w:
-            out.append(f"  {'trend' if trend_w >= 6 else '':<{trend_w - 1}}", HEAD)
+            head.append((f"  {'trend' if trend_w >= 6 else '':<{trend_w - 1}}", HEAD))
+        lines = [head]
         for key, _, _ in FIGURES:
             label, unit, _ = DISPLAY_UNITS[key]
             fig = self._figures.get(key, RunningFigure())
-            out.append("\n")
-            out.append(f"{label:<6}", f"bold {NAME}")
-            out.append(f"{unit:<{name_w - 6}}", HEAD)
-            out.append(" " + number(in_display_unit(key, fig.last), num_w), f"bold {LAST}")
+            line = [(f"{label:<6}", f"bold {NAME}"), (f"{unit:<{name_w - 6}}", HEAD),
+                    (" " + number(in_display_unit(key, fig.last), num_w), f"bold {LAST}")]
             for value in (fig.minimum, fig.maximum, fig.mean):
-                out.append(" " + number(in_display_unit(key, value), num_w), NAME)
+                line.append((" " + number(in_display_unit(key, value), num_w), NAME))
             if trend_w:
-                out.append("  " + sparkline(fig.trend, trend_w - 1), TREND)
-        return out
+                line.append(("  " + sparkline(fig.trend, trend_w - 1), TREND))
+            lines.append(line)
+        return text_strips(lines, rows, cols, self.visual_style.rich_style)

@@ -11,7 +11,6 @@ import numpy as np
 from rich.segment import Segment
 from rich.style import Style
 from textual.strip import Strip
-from textual.widget import Widget
 
 _UPPER, _LOWER, _FULL = "\u2580", "\u2584", "\u2588"
 
@@ -73,37 +72,82 @@ class PlotGrid:
     """A rows x cols grid of half-cells, each holding a colour (or nothing).
 
     Later drawing wins. ``background`` holds a per-column cell background colour.
+    The half-cells are a numpy array of colour numbers (0 = nothing), so that whole
+    columns are drawn and whole rows turned into strips in a few array operations:
+    the dashboard redraws its plots about ten times a second beside the live chain.
     """
 
     def __init__(self, rows: int, cols: int):
         self.rows = max(1, rows)
         self.cols = max(1, cols)
         self.steps = 2 * self.rows
-        self._cells: list[list[str | None]] = [[None] * self.cols for _ in range(self.steps)]
-        self._background: list[str | None] = [None] * self.cols
+        self._colours: list[str | None] = [None]       # colour number -> colour
+        self._numbers: dict[str, int] = {}
+        # half-cell rows from the bottom (step 0) to the top (step steps-1)
+        self._cells = np.zeros((self.steps, self.cols), dtype=np.int32)
+        self._background = np.zeros(self.cols, dtype=np.int32)
         self._labels: dict[tuple[int, int], tuple[str, str]] = {}
+
+    def _number(self, colour: str) -> int:
+        n = self._numbers.get(colour)
+        if n is None:
+            n = self._numbers[colour] = len(self._colours)
+            self._colours.append(colour)
+        return n
+
+    def _col_slice(self, cols: range | None) -> slice | None:
+        if cols is None:
+            return slice(0, self.cols)
+        if cols.step != 1:
+            raise ValueError("column ranges must be contiguous")
+        lo, hi = max(cols.start, 0), min(cols.stop, self.cols)
+        return slice(lo, hi) if hi > lo else None
 
     def span(self, col: int, lo_step: int, hi_step: int, colour: str) -> None:
         """Fill half-cells lo_step..hi_step (inclusive) of a column."""
         if not 0 <= col < self.cols or lo_step < 0 or hi_step < 0:
             return
-        lo, hi = sorted((lo_step, hi_step))
-        for s in range(max(lo, 0), min(hi, self.steps - 1) + 1):
-            self._cells[s][col] = colour
+        lo, hi = sorted((int(lo_step), int(hi_step)))
+        self._cells[lo:min(hi, self.steps - 1) + 1, col] = self._number(colour)
+
+    def spans(self, col0: int, lo_steps: np.ndarray, hi_steps: np.ndarray, colour: str) -> None:
+        """:meth:`span` for consecutive columns from ``col0``, one per entry of the arrays.
+
+        A column whose ``lo_steps`` or ``hi_steps`` entry is negative (no data) is skipped.
+        """
+        lo_steps = np.asarray(lo_steps, dtype=np.int64)
+        hi_steps = np.asarray(hi_steps, dtype=np.int64)
+        lo = np.minimum(lo_steps, hi_steps)
+        hi = np.maximum(lo_steps, hi_steps)
+        drawn = (lo_steps >= 0) & (hi_steps >= 0)
+        c0, c1 = max(col0, 0), min(col0 + lo.size, self.cols)
+        if c1 <= c0:
+            return
+        pick = slice(c0 - col0, c1 - col0)
+        steps = np.arange(self.steps)[:, None]
+        fill = drawn[pick] & (steps >= lo[pick]) & (steps <= hi[pick])
+        block = self._cells[:, c0:c1]
+        block[fill] = self._number(colour)
 
     def hline(self, step: int, colour: str, cols: range | None = None, *,
               over: bool = False) -> None:
         """A horizontal rule one half-cell thick, under what is drawn (or ``over`` it)."""
         if not 0 <= step < self.steps:
             return
-        for c in cols if cols is not None else range(self.cols):
-            if 0 <= c < self.cols and (over or self._cells[step][c] is None):
-                self._cells[step][c] = colour
+        where = self._col_slice(cols)
+        if where is None:
+            return
+        row = self._cells[step, where]
+        n = self._number(colour)
+        if over:
+            row[:] = n
+        else:
+            row[row == 0] = n
 
     def shade(self, cols: range, colour: str) -> None:
-        for c in cols:
-            if 0 <= c < self.cols:
-                self._background[c] = colour
+        where = self._col_slice(cols)
+        if where is not None:
+            self._background[where] = self._number(colour)
 
     def label(self, row: int, col: int, text: str, style: str) -> None:
         """Write text into cell row ``row`` (0 = top) from column ``col``."""
@@ -113,38 +157,47 @@ class PlotGrid:
 
     def to_strips(self) -> list[Strip]:
         """One Strip per cell row, with runs of equal style merged into one segment."""
+        rows, cols = self.rows, self.cols
+        flipped = self._cells[::-1]                      # top half-cell row first
+        upper, lower = flipped[0::2], flipped[1::2]      # (rows, cols) each
+        bg = np.broadcast_to(self._background, (rows, cols))
+        both = (upper > 0) & (lower > 0)
+        # character: 0 blank, 1 upper half, 2 lower half, 3 full block
+        kind = np.where(upper > 0, 1, np.where(lower > 0, 2, 0))
+        kind[both & (upper == lower)] = 3
+        fg = np.where(upper > 0, upper, lower)
+        back = np.where(both & (upper != lower), lower, bg)
+        # one integer per distinct style; labels take style numbers above all colour pairs
+        ncol = len(self._colours)
+        key = fg * ncol + back
+        chars = np.array([" ", _UPPER, _LOWER, _FULL])[kind]
+        label_styles: dict[tuple[str, int], int] = {}
+        for (r, c), (ch, spec) in self._labels.items():
+            number = label_styles.setdefault((spec, int(bg[r, c])),
+                                             ncol * ncol + len(label_styles))
+            chars[r, c] = ch
+            key[r, c] = number
+        styles: dict[int, Style] = {}
+        for (spec, b), number in label_styles.items():
+            styles[number] = _label_style(spec, self._colours[b])
+        colours = self._colours
+        texts = chars.view(f"<U{cols}").ravel().tolist()
+        change = key[:, 1:] != key[:, :-1]
         strips = []
-        for row in range(self.rows):
-            upper = self._cells[self.steps - 1 - 2 * row]
-            lower = self._cells[self.steps - 2 - 2 * row]
-            segments: list[Segment] = []
-            run: list[str] = []
-            run_style = None
-            for c in range(self.cols):
-                bg = self._background[c]
-                label = self._labels.get((row, c))
-                if label is not None:
-                    ch, style = label[0], _label_style(label[1], bg)
-                else:
-                    top, bot = upper[c], lower[c]
-                    if top and bot and top == bot:
-                        ch, style = _FULL, _style(top, bg)
-                    elif top and bot:
-                        ch, style = _UPPER, _style(top, bot)
-                    elif top:
-                        ch, style = _UPPER, _style(top, bg)
-                    elif bot:
-                        ch, style = _LOWER, _style(bot, bg)
-                    else:
-                        ch, style = " ", _style(None, bg)
-                if style is not run_style and run:
-                    segments.append(Segment("".join(run), run_style))
-                    run = []
-                run_style = style
-                run.append(ch)
-            if run:
-                segments.append(Segment("".join(run), run_style))
-            strips.append(Strip(segments, self.cols))
+        for r in range(rows):
+            row_key = key[r]
+            cuts = (np.flatnonzero(change[r]) + 1).tolist()
+            text = texts[r]
+            segments = []
+            start = 0
+            for stop in cuts + [cols]:
+                k = int(row_key[start])
+                style = styles.get(k)
+                if style is None:
+                    style = styles[k] = _style(colours[k // ncol], colours[k % ncol])
+                segments.append(Segment(text[start:stop], style))
+                start = stop
+            strips.append(Strip(segments, cols))
         return strips
 
 
@@ -172,38 +225,3 @@ def message_strips(text: str, rows: int, cols: int, colour: str) -> list[Strip]:
     """A one-line message (e.g. waiting for data) on an otherwise empty panel."""
     first = Strip([Segment(text[:cols], _style(colour, None))]).adjust_cell_length(cols)
     return [first] + [Strip.blank(cols) for _ in range(max(0, rows - 1))]
-
-
-class GridPanel(Widget):
-    """A panel drawn line by line from strips built once per change (Textual's line API).
-
-    Subclasses implement :meth:`build` and call :meth:`invalidate` when their data change;
-    the strips are rebuilt lazily on the next paint, for the size the panel has then.
-    """
-
-    def __init__(self, **kwargs):
-        super().__init__(**kwargs)
-        self._strips: list[Strip] | None = None
-        self._built_for: tuple[int, int] | None = None
-
-    def build(self, rows: int, cols: int) -> list[Strip]:  # pragma: no cover - abstract
-        raise NotImplementedError
-
-    def invalidate(self) -> None:
-        self._strips = None
-        self.refresh()
-
-    def render_line(self, y: int) -> Strip:
-        size = self.content_size
-        key = (size.height, size.width)
-        if self._strips is None or self._built_for != key:
-            self._strips = self.build(size.height, size.width) if size.area else []
-            self._built_for = key
-        if 0 <= y < len(self._strips):
-            return self._strips[y]
-        return Strip.blank(size.width)
-
-    def text_lines(self) -> list[str]:
-        """The panel's content as plain text (for tests and logs)."""
-        size = self.content_size
-        return [self.render_line(y).text for y in range(size.height)]

@@ -6,8 +6,8 @@ import math
 
 import numpy as np
 
+from tankside.monitor.dashboard.panel import LinePanel
 from tankside.monitor.dashboard.plotgrid import (
-    GridPanel,
     PlotGrid,
     column_extents,
     message_strips,
@@ -36,7 +36,7 @@ def narrowband_window_hz(f_awf_hz: float) -> tuple[float, float]:
     return 0.5 * f_awf_hz, min(40e6, 8.0 * f_awf_hz)
 
 
-class SpectrumView(GridPanel):
+class SpectrumView(LinePanel):
     """Spectrum in dB (or linear amplitude) with |M_L| overlaid and the ±3 dB limits."""
 
     DEFAULT_CSS = "SpectrumView { height: 1fr; }"
@@ -82,9 +82,9 @@ class SpectrumView(GridPanel):
 
     def _set_titles(self) -> None:
         scale = "linear" if self.linear else "dB"
-        self.border_title = f"spectrum · {scale}"
         colour = AXIS if self._ok is None else (PASS if self._ok else FAIL)
-        self.border_subtitle = f"[{colour}]{self.verdict()}[/]"
+        self.set_titles(title=f"spectrum · {scale}",
+                        subtitle=f"[{colour}]{self.verdict()}[/]")
 
     def _scale(self, db: np.ndarray) -> np.ndarray:
         return 10.0 ** (db / 20.0) if self.linear else db
@@ -116,9 +116,7 @@ class SpectrumView(GridPanel):
         if math.isfinite(lo_hz) and math.isfinite(hi_hz):
             window_cols = range(col_of(lo_hz), col_of(hi_hz) + 1)
             grid.shade(window_cols, WINDOW)
-        for c in range(ncols):
-            if hi[c] >= 0:
-                grid.span(x0 + c, 0, hi[c], BARS)
+        grid.spans(x0, np.zeros_like(hi), hi, BARS)
         # right axis: |M_L| re its value at f_awf, zoomed so the ±3 dB limits stand apart
         s_top, s_bottom = (self._scale(np.array([SENS_SPAN_DB, -SENS_SPAN_DB])))
         for limit in (LIMIT_DB, -LIMIT_DB):
@@ -129,9 +127,7 @@ class SpectrumView(GridPanel):
             s_lo, s_hi = column_extents(self._scale(sens), ncols)
             lo_s = to_steps(s_lo, s_bottom, s_top, nsteps)
             hi_s = to_steps(s_hi, s_bottom, s_top, nsteps)
-            for c in range(ncols):
-                if lo_s[c] >= 0:
-                    grid.span(x0 + c, lo_s[c], hi_s[c], SENSITIVITY)
+            grid.spans(x0, lo_s, hi_s, SENSITIVITY)
         if self.linear:
             grid.label(0, 0, f"{top:4.1f}", AXIS)
             grid.label(rows - 1, 0, " 0.0", AXIS)

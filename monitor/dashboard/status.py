@@ -5,9 +5,9 @@ from __future__ import annotations
 import math
 import os
 
-from rich.text import Text
-from textual.widget import Widget
+from textual.strip import Strip
 
+from tankside.monitor.dashboard.panel import LinePanel, text_strips
 from tankside.monitor.dashboard.units import size, volts
 from tankside.monitor.snapshot import Snapshot
 
@@ -18,7 +18,7 @@ BAD = "#ff6b6b"
 WARN = "#ffb35c"
 
 
-class BenchStatus(Widget):
+class BenchStatus(LinePanel):
     """Instrument identities and connection, rates, range use, counts, session file."""
 
     DEFAULT_CSS = "BenchStatus { height: 8; }"
@@ -30,40 +30,43 @@ class BenchStatus(Widget):
 
     def show(self, snap: Snapshot) -> None:
         self._snap = snap
-        self.refresh()
+        self.invalidate()
 
-    def render(self) -> Text:
-        out = Text(no_wrap=True, overflow="ellipsis")
+    def build(self, rows: int, cols: int) -> list[Strip]:
+        return text_strips(self.lines(cols), rows, cols, self.visual_style.rich_style)
+
+    def lines(self, cols: int) -> list[list[tuple[str, str]]]:
+        """The panel's lines as (text, style) pieces, for a panel ``cols`` wide."""
         snap = self._snap
         if snap is None:
-            out.append("waiting for the session", KEY)
-            return out
+            return [[("waiting for the session", KEY)]]
+        lines: list[list[tuple[str, str]]] = []
 
         def pair(key: str, value: str, style: str = VALUE) -> None:
-            out.append(f"{key} ", KEY)
-            out.append(f"{value}  ", style)
+            lines[-1] += [(f"{key} ", KEY), (f"{value}  ", style)]
 
-        wide = self.content_size.width >= 50
+        wide = cols >= 50
         for inst in snap.instruments:
-            out.append("● " if inst.connected else "○ ", GOOD if inst.connected else BAD)
-            out.append(f"{inst.name[:3]} ", KEY)
+            line = [("● " if inst.connected else "○ ", GOOD if inst.connected else BAD),
+                    (f"{inst.name[:3]} ", KEY)]
             if not inst.connected:
-                out.append("lost ", BAD)
-            out.append(inst.identity if wide else short_identity(inst.identity)
-                       or inst.resource, VALUE)
+                line.append(("lost ", BAD))
+            line.append((inst.identity if wide else short_identity(inst.identity)
+                         or inst.resource, VALUE))
             if inst.detail:
-                out.append(f"  {inst.detail}", KEY)
-            out.append("\n")
+                line.append((f"  {inst.detail}", KEY))
+            lines.append(line)
+        lines.append([])
         pair("rate", f"{snap.traces_per_s:.1f}/s")
         pair("clipped", str(snap.clipped_traces), BAD if snap.clipped_traces else VALUE)
-        out.append("\n")
+        lines.append([])
         frac = snap.range_fraction_used
         used = f"{frac * 100:.0f}%" if math.isfinite(frac) else "-"
         used_style = BAD if math.isfinite(frac) and frac >= 0.98 else (
             WARN if math.isfinite(frac) and frac < 0.1 else VALUE)
         pair("range", volts(snap.range_v))
         pair("used", used, used_style)
-        out.append("\n")
+        lines.append([])
         if wide:
             pair("acquired", count(snap.acquired))
             pair("converted", count(snap.converted))
@@ -71,13 +74,12 @@ class BenchStatus(Widget):
         else:
             pair("acq/conv/sto", "/".join(count(n) for n in (snap.acquired, snap.converted,
                                                              snap.stored)))
-        out.append("\n")
+        lines.append([])
         q_style = WARN if snap.queue_capacity and snap.queue_depth > snap.queue_capacity // 2 else VALUE
         pair("queue", f"{snap.queue_depth}/{snap.queue_capacity}", q_style)
         pair("file", size(snap.session_bytes))
-        out.append("\n")
-        out.append(os.path.basename(snap.session_path) if snap.session_path else "-", VALUE)
-        return out
+        lines.append([(os.path.basename(snap.session_path) if snap.session_path else "-", VALUE)])
+        return lines
 
 
 def count(n: int) -> str:

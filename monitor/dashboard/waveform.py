@@ -6,8 +6,8 @@ import math
 
 import numpy as np
 
+from tankside.monitor.dashboard.panel import LinePanel
 from tankside.monitor.dashboard.plotgrid import (
-    GridPanel,
     PlotGrid,
     column_extents,
     message_strips,
@@ -52,7 +52,7 @@ def pulse_window(y: np.ndarray, *, fraction: float = 0.1, pad_factor: float = 1.
     return start, stop
 
 
-class PressureTrace(GridPanel):
+class PressureTrace(LinePanel):
     """Draws the latest trace column by column from its min/max, so no spike hides."""
 
     DEFAULT_CSS = "PressureTrace { height: 1fr; }"
@@ -86,8 +86,8 @@ class PressureTrace(GridPanel):
         start, stop = self._window(max(1, self.content_size.width - _AXIS_WIDTH))
         if t.size == self._pressure_pa.size and stop > start:
             view = "pulse" if self.zoomed else "record"
-            self.border_subtitle = (f"{view} {t[start] * 1e6:.2f}–{t[stop - 1] * 1e6:.2f} µs"
-                                    f"  #{self.seq}")
+            self.set_titles(subtitle=f"{view} {t[start] * 1e6:.2f}–{t[stop - 1] * 1e6:.2f} µs"
+                                     f"  #{self.seq}")
 
     def show(self, snap: Snapshot) -> None:
         """Take the waveform of a snapshot and redraw."""
@@ -122,9 +122,7 @@ class PressureTrace(GridPanel):
         grid.hline(int(to_steps(np.array([0.0]), bottom, top, nsteps)[0]), ZERO, plot_cols)
         lo = to_steps(mins, bottom, top, nsteps)
         hi = to_steps(maxs, bottom, top, nsteps)
-        for c in range(ncols):
-            if lo[c] >= 0:
-                grid.span(_AXIS_WIDTH + c, lo[c], hi[c], TRACE)
+        grid.spans(_AXIS_WIDTH, lo, hi, TRACE)
         marks = []
         if math.isfinite(self._pc_pa):
             marks.append(("p_c", abs(self._pc_pa), COMPRESSION))
