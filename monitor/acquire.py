@@ -30,12 +30,11 @@ from tankside.drivers.errors import (
     NoTrigger,
     ProtocolError,
 )
+from tankside.monitor.store_schema import EVENT_DRIVE_OFF, EVENT_DRIVE_ON
 
 BACKOFF_S = (0.1, 0.2, 0.5, 1.0, 2.0, 5.0)
 DRIVE_POLL_S = 1.0          # output-state query interval (cheap; not one per trace)
 DRIVE_RETRY_S = 5.0         # after a failed query: do not stall acquisition every second
-EVENT_DRIVE_ON = "drive-on"
-EVENT_DRIVE_OFF = "drive-off"
 
 
 @dataclass

@@ -60,6 +60,9 @@ EVENT_MARK = "mark"
 EVENT_METHOD_CHANGE = "method-change"
 EVENT_FAULT = "fault"
 EVENT_SAFE_OFF = "safe-off"
+# ``drive-on`` / ``drive-off``: the generator output changed; detail {"output_on", "cause"}
+EVENT_DRIVE_ON = "drive-on"
+EVENT_DRIVE_OFF = "drive-off"
 
 # -- result columns, in the order of tankside.monitor.chain.RESULT_FIELDS ---------------
 RESULT_COLUMNS: tuple[tuple[str, str], ...] = (
