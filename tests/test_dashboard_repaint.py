@@ -170,7 +170,8 @@ async def test_line_panel_repaints_only_changed_lines(monkeypatch):
 @pytest.mark.parametrize("size", [(80, 24), (160, 48)])
 @sync
 async def test_repainted_screen_equals_a_fresh_full_paint(size):
-    """After many partial repaints the screen is what a fresh dashboard draws at once."""
+    """After many partial repaints (some under a modal) the screen is what a fresh
+    dashboard draws at once."""
     live = FakeLiveSession()
     live.start()
     live.advance(5)
@@ -181,8 +182,10 @@ async def test_repainted_screen_equals_a_fresh_full_paint(size):
             live.advance(3)
             if step == 2:
                 live.add_alert("clipping", "warning", "samples at the upper rail")
+            if step == 3:
+                await pilot.press("m")                # a modal over the panels ...
             if step == 5:
-                await pilot.press("a")
+                await pilot.press("escape", "a")      # ... gone again; acknowledge
             await pilot.pause(0.15)
         assert app.trace.seq == live.snapshot().seq
         repainted = screen_text(app)

@@ -10,6 +10,7 @@ nothing, a changed one repaints only its border row.
 
 from __future__ import annotations
 
+from rich.cells import cell_len
 from rich.segment import Segment
 from rich.style import Style
 from textual.geometry import Region
@@ -131,8 +132,13 @@ def style_of(spec: str | None, base: Style | None = None) -> Style | None:
 def text_strip(pieces: list[tuple[str, str | None]], cols: int,
                base: Style | None = None) -> Strip:
     """One line of (text, style string) pieces over ``base``, cut or padded to ``cols`` cells."""
-    strip = Strip([Segment(text, style_of(spec, base)) for text, spec in pieces if text])
-    return strip.adjust_cell_length(cols, _blank_style(base))
+    segments = [Segment(text, style_of(spec, base)) for text, spec in pieces if text]
+    width = sum(cell_len(text) for text, _ in pieces)
+    if width <= cols:                    # the usual case: pad, and make one Strip only
+        if width < cols:
+            segments.append(Segment(" " * (cols - width), _blank_style(base)))
+        return Strip(segments, cols)
+    return Strip(segments).adjust_cell_length(cols, _blank_style(base))
 
 
 def text_strips(lines: list[list[tuple[str, str | None]]], rows: int, cols: int,
@@ -143,6 +149,14 @@ def text_strips(lines: list[list[tuple[str, str | None]]], rows: int, cols: int,
     return strips + [Strip.blank(cols, blank) for _ in range(rows - len(strips))]
 
 
+_BLANKS: dict[Style, Style] = {}
+
+
 def _blank_style(base: Style | None) -> Style | None:
     # empty cells carry only the background, as Textual pads rendered text
-    return Style(bgcolor=base.bgcolor) if base is not None and base.bgcolor else None
+    if base is None or not base.bgcolor:
+        return None
+    blank = _BLANKS.get(base)
+    if blank is None:
+        blank = _BLANKS[base] = Style(bgcolor=base.bgcolor)
+    return blank

@@ -182,22 +182,24 @@ class PlotGrid:
             styles[number] = _label_style(spec, self._colours[b])
         colours = self._colours
         texts = chars.view(f"<U{cols}").ravel().tolist()
-        change = key[:, 1:] != key[:, :-1]
+        # where a run of one style starts: column 0 of every row, and each change of key
+        starts = np.ones((rows, cols), dtype=bool)
+        starts[:, 1:] = key[:, 1:] != key[:, :-1]
+        run_row, run_col = np.nonzero(starts)
+        run_key = key[run_row, run_col].tolist()
+        run_row, run_col = run_row.tolist(), run_col.tolist()
         strips = []
-        for r in range(rows):
-            row_key = key[r]
-            cuts = (np.flatnonzero(change[r]) + 1).tolist()
-            text = texts[r]
-            segments = []
-            start = 0
-            for stop in cuts + [cols]:
-                k = int(row_key[start])
-                style = styles.get(k)
-                if style is None:
-                    style = styles[k] = _style(colours[k // ncol], colours[k % ncol])
-                segments.append(Segment(text[start:stop], style))
-                start = stop
-            strips.append(Strip(segments, cols))
+        segments: list[Segment] = []
+        for i, (r, c, k) in enumerate(zip(run_row, run_col, run_key, strict=True)):
+            last = i + 1 == len(run_row) or run_row[i + 1] != r
+            stop = cols if last else run_col[i + 1]
+            style = styles.get(k)
+            if style is None:
+                style = styles[k] = _style(colours[k // ncol], colours[k % ncol])
+            segments.append(Segment(texts[r][c:stop], style))
+            if last:
+                strips.append(Strip(segments, cols))
+                segments = []
         return strips
 
 

@@ -67,6 +67,8 @@ class PressureTrace(LinePanel):
         self._pr_pa = math.nan
         self.zoomed = True
         self._subtitle = ""
+        self._window_for: int | None = None       # panel width the pulse window is for
+        self._pulse = (0, 0)
 
     def set_zoom(self, zoomed: bool) -> None:
         """Pulse view (True) or the whole record (False)."""
@@ -79,7 +81,12 @@ class PressureTrace(LinePanel):
 
     def _window(self, ncols: int) -> tuple[int, int]:
         y = self._pressure_pa
-        return pulse_window(y, min_samples=ncols) if self.zoomed else (0, y.size)
+        if not self.zoomed:
+            return 0, y.size
+        # the subtitle and the plot both ask, once each per trace
+        if self._window_for != ncols:
+            self._window_for, self._pulse = ncols, pulse_window(y, min_samples=ncols)
+        return self._pulse
 
     def _set_subtitle(self) -> None:
         t = self._times_s
@@ -94,6 +101,7 @@ class PressureTrace(LinePanel):
         self.seq = snap.seq
         self._times_s = snap.times_s
         self._pressure_pa = snap.pressure_pa
+        self._window_for = None
         self._pc_pa = float(snap.result.get("peak_compressional_pa", math.nan))
         self._pr_pa = float(snap.result.get("peak_rarefactional_pa", math.nan))
         self._set_subtitle()
