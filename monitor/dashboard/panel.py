@@ -51,8 +51,9 @@ class LinePanel(Widget):
         changed = [y for y in range(max(len(new), len(old)))
                    if y >= len(new) or y >= len(old) or new[y] != old[y]]
         self._strips = new
-        for start, stop in _runs(changed):
-            self.refresh(Region(0, start, size.width, stop - start))
+        if changed:
+            self.refresh(*(Region(0, start, size.width, stop - start)
+                           for start, stop in _runs(changed)))
 
     def render_line(self, y: int) -> Strip:
         size = self.content_size
