@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import argparse
 import importlib
-import importlib.util
 import sys
 
 from tankside.drivers.errors import InstrumentError
@@ -32,9 +31,7 @@ COMMANDS = ("convert", "simulate", "probe", "watch", "replay", "export", "demo")
 
 def _command_modules():
     for name in COMMANDS:
-        modname = f"tankside.monitor.commands.{name}"
-        if importlib.util.find_spec(modname) is not None:
-            yield importlib.import_module(modname)
+        yield importlib.import_module(f"tankside.monitor.commands.{name}")
 
 
 def build_parser() -> argparse.ArgumentParser:
