@@ -13,40 +13,18 @@ import tomllib
 
 import numpy as np
 import pytest
+from alert_samples import engine, obs, result
 
 from tankside.drivers.trace import RawTrace, count_at_rails
 from tankside.monitor import alerts
 from tankside.monitor.alerts import (
     RULES,
     AlertConfig,
-    RuleEngine,
     TickObservation,
-    TraceObservation,
     observation_from_trace,
 )
 from tankside.monitor.autorange import range_after
 from tankside.monitor.errors import ConfigError, TanksideError
-
-
-def result(p_c=1.0e6, p_r=0.8e6, **extra):
-    out = {"method": "deconvolve", "peak_compressional_pa": p_c,
-           "peak_rarefactional_pa": p_r, "narrowband_ok": True,
-           "narrowband_band_low_hz": 0.8e6, "narrowband_band_high_hz": 1.2e6,
-           "narrowband_max_deviation_db": 0.4}
-    out.update(extra)
-    return out
-
-
-def obs(seq=0, **kw):
-    values = {"seq": seq, "time_s": 0.05 * seq, "clipped_low": 0, "clipped_high": 0,
-              "range_v": 1.0, "fraction_of_full_scale": 0.5, "result": result(),
-              "error": None, "method_in_use": "auto", "position": None}
-    values.update(kw)
-    return TraceObservation(**values)
-
-
-def engine(**tables):
-    return RuleEngine(AlertConfig.from_table(tables))
 
 
 def fired(firings, rule):
