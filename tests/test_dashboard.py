@@ -7,16 +7,14 @@ bench is covered in tests/test_dashboard_bench.py.
 from __future__ import annotations
 
 import asyncio
-import functools
-import io
 import os
 import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from dashboard_pilot import screen_text, sync
 from fake_session import FakeLiveSession
-from rich.console import Console
 
 from tankside.monitor.dashboard.alerts import AlertList
 from tankside.monitor.dashboard.app import DashboardApp
@@ -30,22 +28,6 @@ from tankside.monitor.dashboard.waveform import PressureTrace, pulse_window
 
 DATA = Path(__file__).parent / "data"
 SIZES = [(80, 24), (160, 48)]
-
-
-def sync(test):
-    """Run an async Pilot test in its own event loop (no asyncio plugin needed)."""
-    @functools.wraps(test)
-    def run(*args, **kwargs):
-        return asyncio.run(test(*args, **kwargs))
-    return run
-
-
-def screen_text(app) -> str:
-    """The screen as plain text, one line per terminal row."""
-    console = Console(file=io.StringIO(), width=app.size.width, height=app.size.height,
-                      color_system=None, legacy_windows=False)
-    console.print(app.screen._compositor.render_update(full=True))
-    return console.file.getvalue()
 
 
 def started_fake(**kwargs) -> FakeLiveSession:

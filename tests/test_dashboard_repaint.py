@@ -6,14 +6,10 @@ grid is checked against a plain per-cell rendering written here from its definit
 
 from __future__ import annotations
 
-import asyncio
-import functools
-import io
-
 import numpy as np
 import pytest
+from dashboard_pilot import screen_text, sync
 from fake_session import FakeLiveSession
-from rich.console import Console
 from textual.app import App, ComposeResult
 from textual.strip import Strip
 from textual.widget import Widget
@@ -21,21 +17,6 @@ from textual.widget import Widget
 from tankside.monitor.dashboard.app import DashboardApp
 from tankside.monitor.dashboard.panel import LinePanel, text_strips
 from tankside.monitor.dashboard.plotgrid import PlotGrid
-
-
-def sync(test):
-    @functools.wraps(test)
-    def run(*args, **kwargs):
-        return asyncio.run(test(*args, **kwargs))
-    return run
-
-
-def screen_text(app) -> str:
-    console = Console(file=io.StringIO(), width=app.size.width, height=app.size.height,
-                      color_system=None, legacy_windows=False)
-    console.print(app.screen._compositor.render_update(full=True))
-    return console.file.getvalue()
-
 
 # -- the plot grid against a per-cell reference ------------------------------------------
 
