@@ -241,7 +241,7 @@ class Converter:
         s = self.settings
         spec = scipy.fft.rfft(v, workers=1)
         vabs = np.abs(spec)
-        f_v = self._awf(v, vabs, plan.freqs_hz, dt_s)
+        f_v, bounds = self._awf(v, vabs, plan.freqs_hz, dt_s)
         self._in_band(f_v, "voltage spectrum")
         used = "deconvolve"
         if s.method != "deconvolve":
@@ -253,28 +253,35 @@ class Converter:
             pressure = v / m
             mag = vabs * (2.0 / (n * m))
             f_awf = f_v
+            if bounds is not None:
+                # the 10 %/90 % times do not change with the scale 1/m; the energy goes as 1/m^2
+                bounds = (bounds[0], bounds[1], bounds[2] / (m * m))
         else:
             spec *= plan.inverse_pa_per_v    # |V| is taken already; reuse the buffer
             pressure = scipy.fft.irfft(spec, n, workers=1)
             mag = vabs * gain
-            f_awf = self._awf(pressure, mag, plan.freqs_hz, dt_s)
+            f_awf, bounds = self._awf(pressure, mag, plan.freqs_hz, dt_s)
             self._in_band(f_awf, "pressure spectrum")
             nb = narrowband_check(f_awf, self.profile, s)
         params = pulse_parameters(pressure, dt_s, f_awf, impedance_rayl=self._impedance,
                                   derating_depth_m=s.derating_depth_m,
-                                  derating_db_per_cm_mhz=s.derating_db_per_cm_mhz)
+                                  derating_db_per_cm_mhz=s.derating_db_per_cm_mhz,
+                                  bounds=bounds)
         return TraceResult(pressure, dt_s, used, plan.freqs_hz, mag,
                            plan.sensitivity_abs_v_per_pa, params, nb, self.water,
                            self.calibration.phase_source, self._settings_dict, f_v)
 
     def _awf(self, signal: np.ndarray, magnitude: np.ndarray, freqs_hz: np.ndarray,
-             dt_s: float) -> float:
+             dt_s: float) -> tuple[float, tuple[float, float, float] | None]:
+        """f_awf, Hz, and the pulse window of ``signal`` when it was found on the way
+        (zero-crossing method), for :func:`pulse_parameters` to use rather than search again."""
         if self.settings.awf_method == "spectrum":
-            return awf_spectrum_hz(freqs_hz, magnitude)
-        t10, t90, _ = pulse_bounds_s(signal, dt_s)
+            return awf_spectrum_hz(freqs_hz, magnitude), None
+        bounds = pulse_bounds_s(signal, dt_s)
+        t10, t90, _ = bounds
         half = 0.625 * (t90 - t10)
         centre = 0.5 * (t10 + t90)
-        return awf_zero_crossing_hz(signal, dt_s, centre - half, centre + half)
+        return awf_zero_crossing_hz(signal, dt_s, centre - half, centre + half), bounds
 
     def _in_band(self, f_hz: float, where: str) -> None:
         lo, hi = self.calibration.band_hz

@@ -180,7 +180,8 @@ def mechanical_index(peak_rarefactional_pa: float, frequency_hz: float) -> float
 
 def pulse_parameters(pressure_pa: np.ndarray, dt_s: float, acoustic_working_frequency_hz: float,
                      *, impedance_rayl: float, derating_depth_m: float = 0.0,
-                     derating_db_per_cm_mhz: float = 0.3) -> PulseParameters:
+                     derating_db_per_cm_mhz: float = 0.3,
+                     bounds: tuple[float, float, float] | None = None) -> PulseParameters:
     """All pulse parameters of one pressure waveform, given its acoustic working frequency.
 
     Parameters
@@ -193,8 +194,11 @@ def pulse_parameters(pressure_pa: np.ndarray, dt_s: float, acoustic_working_freq
         Characteristic impedance of water rho*c, kg m^-2 s^-1.
     derating_depth_m, derating_db_per_cm_mhz : float
         Derating of p_r for the mechanical index.
+    bounds : tuple of float, optional
+        ``pulse_bounds_s(pressure_pa, dt_s)`` when the caller has it already (the
+        zero-crossing f_awf needs the same window), so it is not searched again.
     """
-    t10, t90, energy = pulse_bounds_s(pressure_pa, dt_s)
+    t10, t90, energy = pulse_bounds_s(pressure_pa, dt_s) if bounds is None else bounds
     p_c = float(pressure_pa.max())
     p_r = max(0.0, -float(pressure_pa.min()))
     pii = energy / impedance_rayl

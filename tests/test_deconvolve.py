@@ -9,6 +9,7 @@ from tankside.monitor.chain import RESULT_FIELDS, Converter, UnusableTraceError
 from tankside.monitor.deconvolve import band_window
 from tankside.monitor.errors import OutOfBandError, TanksideError
 from tankside.monitor.loading import Loading
+from tankside.monitor.pulse import pulse_parameters
 from tankside.monitor.settings import ConversionSettings
 
 DT = 4e-9
@@ -209,3 +210,17 @@ def test_simulated_scene_cross_check():
     assert r.peak_compressional_pa == pytest.approx(p.max(), rel=0.01)
     assert r.peak_rarefactional_pa == pytest.approx(-p.min(), rel=0.01)
     assert np.max(np.abs(r.pressure_pa - p)) < 0.03 * p.max()
+
+
+@pytest.mark.parametrize("method", ["deconvolve", "narrowband"])
+def test_zero_crossing_window_reused_gives_the_same_parameters(method):
+    # the converter hands the pulse window found for the zero-crossing f_awf on to the
+    # parameters; they must equal those searched afresh on the returned pressure
+    s = DECONV.replace(awf_method="zero-crossing", method=method)
+    r = Converter(model_calibration(), settings=s).process(through_model(pressure_pulse()), DT)
+    again = pulse_parameters(r.pressure_pa, DT, r.acoustic_working_frequency_hz,
+                             impedance_rayl=r.water.impedance_rayl)
+    assert r.method == method
+    for field in ("pulse_intensity_integral_j_per_m2", "pulse_duration_s",
+                  "pulse_start_s", "pulse_end_s", "mechanical_index"):
+        assert getattr(r.parameters, field) == pytest.approx(getattr(again, field), rel=1e-9)
