@@ -51,10 +51,15 @@ class BenchStatus(LinePanel):
                     (f"{inst.name[:3]} ", KEY)]
             if not inst.connected:
                 line.append(("lost ", BAD))
-            line.append((inst.identity if wide else short_identity(inst.identity)
-                         or inst.resource, VALUE))
-            if inst.detail:
-                line.append((f"  {inst.detail}", KEY))
+            identity = (inst.identity if wide else short_identity(inst.identity)
+                        or inst.resource, VALUE)
+            if inst.detail and not wide:
+                # narrow: the output state matters more than the identity, so it goes first
+                line += [(f"{inst.detail}  ", KEY), identity]
+            else:
+                line.append(identity)
+                if inst.detail:
+                    line.append((f"  {inst.detail}", KEY))
             lines.append(line)
         lines.append([])
         pair("rate", f"{snap.traces_per_s:.1f}/s")
