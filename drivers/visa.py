@@ -7,7 +7,10 @@ library string (a path to a vendor VISA, ``"@ivi"``, ...) is passed to
 
 from __future__ import annotations
 
+import math
+import select
 import socket
+import time
 
 import pyvisa
 from pyvisa import constants
@@ -71,6 +74,72 @@ def backend_session(res):
     if not isinstance(sessions, dict):
         return None
     return sessions.get(getattr(res, "session", None))
+
+
+class DirectReader:
+    """Exact byte counts read straight from the socket under a pyvisa-py SOCKET resource.
+
+    A block payload of a few hundred kilobytes read through pyvisa-py's ``read`` is
+    copied five or six times on its way out (its receive buffer, a slice, ``bytes``,
+    pyvisa's own accumulator, ...). Here it is received once, with ``recv_into``, into
+    one buffer of the announced size. Bytes pyvisa-py has already received and buffered
+    are taken first, so text and block reads can be mixed freely on one resource.
+    Only :func:`DirectReader.for_resource` builds one, and only for the pyvisa-py
+    backend; any other VISA library reads through VISA as usual.
+    """
+
+    def __init__(self, backend, sock: socket.socket):
+        self._backend = backend
+        self._sock = sock
+
+    @classmethod
+    def for_resource(cls, res) -> DirectReader | None:
+        """A reader for ``res``, or None when it is not a pyvisa-py socket resource."""
+        backend = backend_session(res)
+        sock = backend_socket(res)
+        if (sock is None or not hasattr(socket, "MSG_DONTWAIT")   # not on Windows
+                or not isinstance(getattr(backend, "_pending_buffer", None), bytearray)):
+            return None
+        return cls(backend, sock)
+
+    def read_exactly(self, count: int, timeout_s: float | None) -> bytearray:
+        """Exactly ``count`` bytes, waiting at most ``timeout_s`` s in all (None: no limit).
+
+        Raises
+        ------
+        TimeoutError
+            Fewer than ``count`` bytes arrived in time; those that did are consumed.
+        ConnectionResetError
+            The instrument closed the connection before ``count`` bytes arrived.
+        """
+        out = bytearray(count)
+        with memoryview(out) as view:
+            # pyvisa-py replaces its buffer object on every read: look it up each time
+            pending = self._backend._pending_buffer
+            got = min(len(pending), count)
+            if got:
+                view[:got] = pending[:got]
+                del pending[:got]
+            deadline = None
+            if timeout_s is not None and math.isfinite(timeout_s):
+                deadline = time.monotonic() + timeout_s
+            sock = self._sock
+            while got < count:
+                try:
+                    n = sock.recv_into(view[got:], count - got, socket.MSG_DONTWAIT)
+                except (BlockingIOError, InterruptedError):
+                    wait = None if deadline is None else deadline - time.monotonic()
+                    if wait is not None and wait <= 0:
+                        raise TimeoutError(f"{got} of {count} bytes arrived in time") from None
+                    readable, _, _ = select.select([sock], [], [], wait)
+                    if not readable:
+                        raise TimeoutError(f"{got} of {count} bytes arrived in time") from None
+                    continue
+                if n == 0:
+                    raise ConnectionResetError(
+                        f"connection closed by the instrument after {got} of {count} bytes")
+                got += n
+        return out
 
 
 def peer_closed(res) -> bool:
@@ -186,9 +255,6 @@ def flush_input(res, *, quiet_s: float = 0.05, limit_s: float = 2.0) -> None:
     ConnectionLost
         The peer has closed the connection.
     """
-    import select
-    import time
-
     backend = backend_session(res)
     sock = backend_socket(res)
     pending = getattr(backend, "_pending_buffer", None)

@@ -143,6 +143,12 @@ class TestTranscript:
         first.verify()
 
 
+@pytest.fixture(params=[True, False], ids=["direct", "via-visa"])
+def direct(request):
+    """Both ways of reading blocks on pyvisa-py: straight from its socket, and via VISA."""
+    return request.param
+
+
 class TestOverTcp:
     """The same session over a real socket with pyvisa-py."""
 
@@ -159,7 +165,7 @@ class TestOverTcp:
         with pytest.raises(ConnectionLost):
             open_resource("TCPIP0::127.0.0.1::1::SOCKET", visa_library="/no/such/visa.so")
 
-    def test_block_and_queries(self):
+    def test_block_and_queries(self, direct):
         payload = np.arange(-5000, 5000, dtype="<i2").tobytes()  # contains 0x0A bytes
 
         def handler(line):
@@ -167,24 +173,62 @@ class TestOverTcp:
                     b"SYST:ERR?": b'0,"No error"\n'}.get(line)
 
         with LineServer(handler) as server:
-            s = ScpiSession.open(server.resource, timeout_s=2.0)
+            s = ScpiSession.open(server.resource, timeout_s=2.0, direct_block_reads=direct)
+            assert s.reads_blocks_directly is direct  # pyvisa-py's socket is reachable
             assert s.identify() == IDN.decode().strip()
             assert s.query_block("WAV?") == payload
             assert s.drain_errors() == []
             assert s.query_block("WAV?") == payload
             s.close()
 
-    def test_short_block_times_out_within_timeout(self):
+    def test_block_after_buffered_text(self, direct):
+        # One segment carries a text reply and a whole block: the line read leaves the
+        # block in pyvisa-py's own buffer, and the block read must start from there.
+        payload = bytes(range(256)) * 40
+
+        def handler(line):
+            if line == b"BOTH?":
+                return b"1.25\n" + ieee488.encode_block(payload) + b"\n"
+            return {b"*IDN?": IDN}.get(line)   # "WAIT?" gets no reply of its own
+
+        with LineServer(handler) as server:
+            s = ScpiSession.open(server.resource, timeout_s=2.0, direct_block_reads=direct)
+            assert s.query("BOTH?") == "1.25"
+            backend = s.resource.visalib.sessions[s.resource.session]
+            assert len(backend._pending_buffer) > 0   # one loopback segment, read whole
+            assert s.query_block("WAIT?") == payload
+            assert s.identify() == IDN.decode().strip()  # nothing left over
+            s.close()
+
+    def test_short_block_times_out_within_timeout(self, direct):
         def handler(line):
             return {b"*IDN?": IDN, b"WAV?": b"#3100" + b"x" * 50 + b"\n"}.get(line)
 
         with LineServer(handler) as server:
-            s = ScpiSession.open(server.resource, timeout_s=0.3)
+            s = ScpiSession.open(server.resource, timeout_s=0.3, direct_block_reads=direct)
             t0 = time.monotonic()
             with pytest.raises(InstrumentTimeout):
                 s.query_block("WAV?")
             assert time.monotonic() - t0 < 1.5
             assert s.identify() == IDN.decode().strip()  # resynchronised first
+            s.close()
+
+    def test_block_cut_off_by_a_close(self, direct):
+        def cut(conn):
+            conn.sendall(b"#41000" + b"x" * 400)
+            return "closed"
+
+        def handler(line):
+            return {b"*IDN?": IDN, b"WAV?": cut}.get(line)
+
+        with LineServer(handler) as server:
+            s = ScpiSession.open(server.resource, timeout_s=1.0, direct_block_reads=direct)
+            t0 = time.monotonic()
+            with pytest.raises(ConnectionLost):
+                s.query_block("WAV?")
+            assert time.monotonic() - t0 < 2.0
+            assert s.recover() == "reopen"
+            assert s.identify() == IDN.decode().strip()
             s.close()
 
     def test_stalled_reply_then_resync(self):
@@ -224,7 +268,7 @@ class TestBlockPropertyOverTcp:
     """Malformed or short blocks over a real pyvisa-py socket: a typed error within the
     timeout, never a hang nor a wrong array, and the session usable again after."""
 
-    def test_property(self):
+    def test_property(self, direct):
         from hypothesis import HealthCheck, given, settings
         from hypothesis import strategies as st
 
@@ -249,7 +293,7 @@ class TestBlockPropertyOverTcp:
         timeout_s = 0.15
         with LineServer(handler) as server:
             session = ScpiSession.open(server.resource, timeout_s=timeout_s,
-                                       resync_timeout_s=2.0)
+                                       resync_timeout_s=2.0, direct_block_reads=direct)
             session.identify()
 
             @settings(max_examples=25, deadline=None,

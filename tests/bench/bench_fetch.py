@@ -1,9 +1,11 @@
 """Fetch rate of int16 waveform blocks from the simulated digitiser, three ways, one run.
 
-1. the driver: ``ScpiSession.query_block`` (header, then exactly the announced count
-   with the termination character off, then the terminator), over pyvisa-py;
-   also with pyvisa-py's default 4 KiB receive size, to show what raising it buys;
-   and the whole ``Digitiser.acquire`` (arm, poll, block, scaling, error queue);
+1. the driver: ``ScpiSession.query_block`` (header, then exactly the announced count,
+   then the terminator), over pyvisa-py, reading straight from its socket into one
+   buffer (the default); the same session reading through pyvisa-py's ``read`` with
+   the termination character off (``direct_block_reads=False``, what any other VISA
+   library gets); and the whole ``Digitiser.acquire`` (arm, poll, block, scaling,
+   error queue);
 2. a plain-socket client reading the same blocks from the same simulator;
 3. pyvisa's termination-based ``query_binary_values`` on a pyvisa-py socket resource.
 
@@ -27,7 +29,7 @@ from tankside.drivers import ieee488
 from tankside.drivers.digitiser import Digitiser, DigitiserSettings
 from tankside.drivers.profile import load_profile
 from tankside.drivers.scpi import ScpiSession
-from tankside.drivers.visa import backend_session, open_resource
+from tankside.drivers.visa import open_resource
 from tankside.simulators.bench import SimulatedBench
 
 FETCH = "WAV:DATA? CHAN1"
@@ -89,7 +91,7 @@ def _serve(conn) -> None:
 def main() -> None:
     print("fetch rate of int16 blocks from the simulated digitiser over loopback "
           "(pre-computed traces), blocks/s")
-    header = (f"{'samples':>8} {'driver':>9} {'driver 4K':>9} {'acquire':>9} {'socket':>9} "
+    header = (f"{'samples':>8} {'driver':>9} {'via VISA':>9} {'acquire':>9} {'socket':>9} "
               f"{'pyvisa term':>11} {'drv/term':>8} {'drv/sock':>8} {'MB/s drv':>8}")
     print(header)
     rows = []
@@ -109,12 +111,12 @@ def main() -> None:
             driver = _rate(lambda s=session: s.query_block(FETCH), nbytes)
             newlines = session.query_block(FETCH).count(b"\n")
 
-            backend = backend_session(session.resource)
-            backend.max_recv_size = 4096  # pyvisa-py's own default
-            driver_4k = _rate(lambda s=session: s.query_block(FETCH), nbytes)
-            backend.max_recv_size = 1 << 20
             acquire = _rate(lambda d=dig: d.acquire(0, trigger_timeout_s=5.0).codes.tobytes(),
                             nbytes)
+            session.close()
+
+            session = ScpiSession.open(resource, timeout_s=10.0, direct_block_reads=False)
+            via_visa = _rate(lambda s=session: s.query_block(FETCH), nbytes)
             session.close()
 
             sock, fetch = _plain_socket(port)
@@ -126,8 +128,8 @@ def main() -> None:
                 FETCH, datatype="h", is_big_endian=False, container=np.array)).tobytes(),
                 nbytes, budget_s=3.0)
             res.close()
-            rows.append((samples, driver, driver_4k, acquire, plain, term, newlines))
-            print(f"{samples:>8} {driver:>9.0f} {driver_4k:>9.0f} {acquire:>9.0f} {plain:>9.0f} "
+            rows.append((samples, driver, via_visa, acquire, plain, term, newlines))
+            print(f"{samples:>8} {driver:>9.0f} {via_visa:>9.0f} {acquire:>9.0f} {plain:>9.0f} "
                   f"{term:>11.1f} {driver / term:>8.1f} {driver / plain:>8.2f} "
                   f"{driver * nbytes / 1e6:>8.0f}")
     finally:
