@@ -30,7 +30,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-from scipy.signal import fftconvolve
 
 from tankside.monitor.errors import CalibrationError
 
@@ -308,6 +307,10 @@ def minimum_phase_rad(frequency_hz: np.ndarray, magnitude: np.ndarray) -> np.nda
     slope = np.diff(a) / du                      # on cell midpoints
     offsets = (np.arange(-(n_nodes - 1), n_nodes - 1) + 0.5) * du
     kernel = np.log(1.0 / np.tanh(np.abs(offsets) / 2.0))
+    # scipy.signal takes over a second to import and only a magnitude-only calibration
+    # needs it, so it is imported here rather than by every command and session process
+    from scipy.signal import fftconvolve
+
     # phase at node j = sum_k slope[k] * kernel(mid_k - u_j) * du / pi
     full = fftconvolve(slope, kernel[::-1], mode="full")
     phase_nodes = full[n_nodes - 2:2 * n_nodes - 2] * du / math.pi

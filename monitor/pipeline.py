@@ -207,12 +207,7 @@ class LiveSession:
                               temperature_c=bench.temperature_c)
         rules = RuleEngine(bench.alert_config())
         dig_settings = bench.digitiser_settings()
-        path = Path(session_path) if session_path is not None else default_session_path(
-            bench.session_folder)
-        if path.exists():
-            from tankside.monitor.errors import ConfigError
-            raise ConfigError(f"{path}: session file already exists (choose a new name)")
-        path.parent.mkdir(parents=True, exist_ok=True)
+        path = new_session_path(bench.session_folder, session_path)
         open_dig = instruments.digitiser_opener(bench.digitiser, dig_settings)
         open_gen = (instruments.generator_opener(bench.generator)
                     if bench.generator is not None else None)
@@ -701,6 +696,26 @@ def _opt_bool(value) -> bool | None:
 def _method_of(converter) -> str:
     settings = getattr(converter, "settings", None)
     return str(getattr(settings, "method", "auto"))
+
+
+def new_session_path(folder: str | Path, session_path: str | Path | None = None) -> Path:
+    """The session file to create: ``session_path``, or a new name in ``folder``.
+
+    Raises
+    ------
+    ConfigError
+        The file exists already, or its folder cannot be made.
+    """
+    from tankside.monitor.errors import ConfigError
+
+    path = Path(session_path) if session_path is not None else default_session_path(folder)
+    if path.exists():
+        raise ConfigError(f"{path}: session file already exists (choose a new name)")
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise ConfigError(f"{path.parent}: cannot create the session folder: {err}") from err
+    return path
 
 
 def default_session_path(folder: str | Path) -> Path:

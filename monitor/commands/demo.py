@@ -59,7 +59,7 @@ def _first_run(folder: Path) -> bool:
 def run(args) -> int:
     from tankside.monitor.benchfile import load_bench
     from tankside.monitor.headless import run_headless
-    from tankside.monitor.pipeline import LiveSession
+    from tankside.monitor.session_process import session_for_display
     from tankside.simulators.bench import SimulatedBench
 
     if args.duration is not None and args.duration <= 0:
@@ -81,7 +81,10 @@ def run(args) -> int:
                                                 session_folder=str(folder))
         except OSError as err:
             raise ConfigError(f"{folder}: cannot write the demo bench file: {err}") from err
-        session = LiveSession.from_bench(load_bench(bench_path), duration_s=args.duration)
+        # with the dashboard the session runs in a child process; the simulated
+        # instruments stay here, behind their sockets, like instruments of their own
+        session = session_for_display(load_bench(bench_path), own_process=not args.headless,
+                                      duration_s=args.duration)
         return _watch(session, bench_path, headless=args.headless, first_run=first_run,
                       run_headless=run_headless)
 
@@ -126,6 +129,8 @@ def _watch(session, bench_path: Path, *, headless: bool, first_run: bool, run_he
             session.wait(30)
         if previous is not None:
             signal.signal(signal.SIGTERM, previous)
+        if hasattr(session, "close"):
+            session.close()     # what the session process printed, if anything
     if session.message_for_operator:
         print(f"tankside: {session.message_for_operator}", file=sys.stderr)
     return int(code)

@@ -141,7 +141,7 @@ def _first_run(folder: Path, current: Path) -> bool:
 def run(args) -> int:
     from tankside.monitor.benchfile import load_bench
     from tankside.monitor.headless import run_headless
-    from tankside.monitor.pipeline import LiveSession
+    from tankside.monitor.session_process import session_for_display
 
     if args.duration is not None and args.duration <= 0:
         raise ConfigError("--duration must be above 0 s")
@@ -162,8 +162,11 @@ def run(args) -> int:
         sys.stdout.write("\a")
         sys.stdout.flush()
 
-    session = LiveSession.from_bench(
-        bench, session_path=_abs(args.session) if args.session else None,
+    # with the dashboard, the session runs in a process of its own: drawing never
+    # takes the interpreter from acquisition and conversion
+    session = session_for_display(
+        bench, own_process=not headless,
+        session_path=_abs(args.session) if args.session else None,
         max_traces=args.traces, duration_s=args.duration, bell=bell if headless else None)
     first_run = _first_run(session.session_path.parent, session.session_path)
 
@@ -199,6 +202,8 @@ def run(args) -> int:
     finally:
         if previous is not None:
             signal.signal(signal.SIGTERM, previous)
+        if hasattr(session, "close"):
+            session.close()     # what the session process printed, if anything
     if session.message_for_operator:
         print(f"tankside: {session.message_for_operator}", file=sys.stderr)
     return int(code)

@@ -36,10 +36,11 @@ STATE_STYLE = {
     "stopping": "#ffb35c", "stopped": "#ff6b6b",
 }
 STOP_WAIT_S = 30.0
-# The display shares the GIL with the session's acquisition and processing threads.
-# With the default 5 ms switch interval each blocking instrument read that returns
-# while the display is drawing waits up to 5 ms for the GIL; 1 ms keeps the chain's
-# trace rate close to its headless rate (tests/bench/bench_dashboard.py).
+# `watch` and `demo` run the session in a process of its own
+# (tankside.monitor.session_process). Where threads that answer instruments share
+# this process with the display (a LiveSession given directly, the demo's simulated
+# instruments), each blocking read that returns while the display is drawing waits
+# up to the switch interval for the GIL: 1 ms instead of the default 5 ms.
 GIL_SWITCH_INTERVAL_S = 0.001
 
 
@@ -273,7 +274,7 @@ def run_dashboard(session, *, first_run_notice: bool = True,
 
     Parameters
     ----------
-    session : LiveSession
+    session : LiveSession or SessionProcess
         Already started; the dashboard calls only its snapshot/mark/acknowledge/
         set_method/stop/wait methods and its ``exit_code`` and ``running`` attributes.
     first_run_notice : bool

@@ -1,0 +1,443 @@
+"""A live session in a process of its own, watched from the dashboard's process.
+
+The dashboard redraws ten times a second. In the live chain's own process every frame
+holds the interpreter lock that acquisition, conversion and the store need: about
+11 ms a frame at 160x48, which cost the chain some 15 % of its trace rate when it ran
+flat out (tests/bench/bench_dashboard.py). So ``watch`` and ``demo`` with the
+dashboard run the :class:`~tankside.monitor.pipeline.LiveSession` in a child process
+and the display in the parent, joined by two pipes:
+
+* snapshots, child to parent: a thread of the child sends the session's latest
+  snapshot and status at the display's rate. A display that falls behind blocks only
+  that thread, never the chain; the parent keeps the newest it has received.
+* commands, parent to child: mark, acknowledge and set_method are answered (an
+  expected error comes back and is raised in the parent, so it shows as a notice);
+  stop is not, so that it can be sent from a signal handler at any moment.
+
+The child ignores Ctrl-C and hangups (the parent decides when to stop), ends its
+session cleanly when the parent goes away (its end of the pipes closes), and exits
+with the session's exit code. What it prints goes to a temporary file, copied to the
+parent's stderr once the display is closed, so it never lands on the dashboard.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import multiprocessing
+import os
+import pickle
+import signal
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+from tankside.drivers.errors import InstrumentError
+from tankside.monitor.cli import EXIT_INSTRUMENT
+from tankside.monitor.errors import StoreError, TanksideError
+from tankside.monitor.snapshot import Snapshot
+
+#: How long a command waits for the child's answer, s.
+ANSWER_WAIT_S = 10.0
+#: How long the child's snapshot thread may take to deliver the final snapshot, s.
+FINAL_PUSH_WAIT_S = 5.0
+
+
+@dataclasses.dataclass(frozen=True)
+class SessionSpec:
+    """What the child needs to build the session (all of it picklable)."""
+
+    bench: object                     # a tankside.monitor.benchfile.BenchConfig
+    session_path: Path
+    max_traces: int | None = None
+    duration_s: float | None = None
+
+
+@dataclasses.dataclass
+class SessionStatus:
+    """The parts of a session's state that are not in its snapshot."""
+
+    running: bool = False
+    exit_code: int = 0
+    exit_status: str = ""
+    stop_reason: str = ""
+    message_for_operator: str = ""
+    method: str = "auto"
+
+
+class SessionProcess:
+    """A :class:`LiveSession` run in a child process, with the same public methods.
+
+    Parameters
+    ----------
+    spec : SessionSpec
+        The bench and session file; the file must not exist yet.
+    push_hz : float
+        How often the child sends a snapshot, per second (the display's rate).
+    """
+
+    def __init__(self, spec: SessionSpec, *, push_hz: float = 10.0):
+        if push_hz <= 0:
+            raise ValueError(f"push_hz must be positive, got {push_hz}")
+        self.spec = spec
+        self.session_path = Path(spec.session_path)
+        self.push_hz = push_hz
+        self._status = SessionStatus()
+        self._snap = Snapshot(session_path=str(self.session_path), state="starting")
+        self._process = None
+        self._commands = None
+        self._snapshots = None
+        self._ended = False            # the child has exited (or was never started)
+        self._log_path: Path | None = None
+
+    # ---------------------------------------------------------------- start
+    def start(self) -> None:
+        """Start the child and wait until its session is running.
+
+        Raises
+        ------
+        TanksideError, InstrumentError
+            The child's session could not start (a bad file, an unreachable
+            instrument): the child's own error, raised here.
+        """
+        if self._process is not None:
+            raise RuntimeError("session already started")
+        context = multiprocessing.get_context("spawn")
+        commands, child_commands = context.Pipe(duplex=True)
+        snapshots, child_snapshots = context.Pipe(duplex=False)
+        fd, log = tempfile.mkstemp(prefix="tankside-session-", suffix=".log")
+        os.close(fd)
+        self._log_path = Path(log)
+        self._process = context.Process(
+            target=child_main, name="tankside-session",
+            args=(self.spec, child_commands, child_snapshots, str(self._log_path),
+                  self.push_hz))
+        self._process.start()
+        # the parent keeps only its own ends, so that the child sees the parent go away
+        child_commands.close()
+        child_snapshots.close()
+        self._commands, self._snapshots = commands, snapshots
+        while True:
+            try:
+                if commands.poll(0.1):
+                    kind, payload = commands.recv()
+                    break
+            except (EOFError, OSError):
+                kind, payload = "gone", None
+                break
+            if not self._process.is_alive():
+                kind, payload = "gone", None
+                break
+        if kind == "started":
+            self._status = payload
+            self._status.running = True
+            self._snap = dataclasses.replace(self._snap, state="running")
+            return
+        self._process.join(10)
+        self._finish()
+        if kind == "failed":
+            raise payload
+        raise TanksideError(f"the session process ended while starting (exit code "
+                            f"{self._process.exitcode}){self._log_hint()}")
+
+    # ---------------------------------------------------------------- the session's methods
+    def snapshot(self) -> Snapshot:
+        """The newest snapshot the child has sent; never blocks for long.
+
+        When the child has gone without a last snapshot (killed, crashed), the one
+        returned says so: state "stopped" and the reason.
+        """
+        self._drain()
+        if self._snapshots is None and not self._ended and self._process is not None:
+            self._process.join(1.0)             # the pipe closed: the child is exiting
+            if not self._process.is_alive():
+                self._finish()
+        return self._snap
+
+    def mark(self, note: str) -> None:
+        self._call("mark", str(note))
+
+    def acknowledge(self, alert_id: int) -> None:
+        self._call("acknowledge", int(alert_id))
+
+    def set_method(self, method: str) -> None:
+        self._call("set_method", str(method))
+
+    def stop(self, reason: str = "operator") -> None:
+        """Ask the child to stop its session cleanly; returns at once.
+
+        Safe in a signal handler: one small message, no answer awaited.
+        """
+        if self._commands is None or self._ended:
+            return
+        with contextlib.suppress(OSError, ValueError):
+            self._commands.send(("stop", (str(reason),)))
+
+    def wait(self, timeout_s: float | None = None) -> bool:
+        """Wait until the child has ended its session and exited; True when it has."""
+        if self._process is None:
+            return True
+        deadline = None if timeout_s is None else time.monotonic() + timeout_s
+        while self._process.is_alive():
+            # keep reading: the child's last snapshot must find room in the pipe
+            self._drain()
+            left = 0.05 if deadline is None else min(0.05, deadline - time.monotonic())
+            if left <= 0:
+                return False
+            self._process.join(left)
+        self._finish()
+        return True
+
+    @property
+    def running(self) -> bool:
+        if self._process is None or self._ended:
+            return False
+        self._drain()
+        return self._process.is_alive()
+
+    @property
+    def exit_code(self) -> int:
+        return self._status.exit_code
+
+    @property
+    def exit_status(self) -> str:
+        return self._status.exit_status
+
+    @property
+    def stop_reason(self) -> str:
+        return self._status.stop_reason
+
+    @property
+    def message_for_operator(self) -> str:
+        return self._status.message_for_operator
+
+    @property
+    def method(self) -> str:
+        return self._status.method
+
+    @property
+    def pid(self) -> int | None:
+        """The child's process id (None before :meth:`start`)."""
+        return self._process.pid if self._process is not None else None
+
+    def child_output(self) -> str:
+        """What the child printed (tracebacks of a bug, warnings); "" when nothing."""
+        if self._log_path is None:
+            return ""
+        try:
+            return self._log_path.read_text(errors="replace")
+        except OSError:
+            return ""
+
+    def close(self, *, report=None) -> None:
+        """After the child has exited: copy what it printed to ``report`` (default
+        stderr), then remove its log file."""
+        if self._log_path is None or (self._process is not None and self._process.is_alive()):
+            return
+        text = self.child_output()
+        if text:
+            out = report if report is not None else sys.stderr
+            out.write(f"tankside: the session process wrote:\n{text}")
+            if not text.endswith("\n"):
+                out.write("\n")
+            out.flush()
+        with contextlib.suppress(OSError):
+            self._log_path.unlink()
+        self._log_path = None
+
+    # ---------------------------------------------------------------- internals
+    def _call(self, op: str, *args) -> None:
+        if self._commands is None or self._ended or not self._process.is_alive():
+            raise TanksideError("the session has ended")
+        try:
+            self._commands.send((op, args))
+            if not self._commands.poll(ANSWER_WAIT_S):
+                raise TanksideError(f"the session did not answer {op} within "
+                                    f"{ANSWER_WAIT_S:g} s")
+            kind, payload = self._commands.recv()
+        except (EOFError, OSError) as err:
+            raise TanksideError("the session has ended") from err
+        if kind == "error":
+            raise payload
+
+    def _drain(self) -> None:
+        """Take every snapshot waiting in the pipe; keep the newest."""
+        if self._snapshots is None:
+            return
+        try:
+            while self._snapshots.poll(0):
+                self._snap, self._status = self._snapshots.recv()
+        except (EOFError, OSError):
+            self._snapshots.close()           # the child's end is closed: it is exiting
+            self._snapshots = None
+
+    def _finish(self) -> None:
+        """The child has exited: take its last words and settle the status."""
+        if self._ended:
+            return
+        self._drain()
+        self._ended = True
+        for conn in (self._commands, self._snapshots):
+            if conn is not None:
+                conn.close()
+        self._commands = self._snapshots = None
+        code = self._process.exitcode if self._process is not None else 0
+        status = self._status
+        status.running = False
+        if status.exit_status or code == status.exit_code:
+            return
+        # the child died without a clean end of its session: say so, with its code
+        status.exit_code = EXIT_INSTRUMENT
+        status.exit_status = "internal-error"
+        status.stop_reason = f"session process ended unexpectedly (exit code {code})"
+        status.message_for_operator = status.stop_reason + self._log_hint()
+        self._snap = dataclasses.replace(self._snap, state="stopped",
+                                         stop_reason=status.stop_reason)
+
+    def _log_hint(self) -> str:
+        return f"; its output: {self._log_path}" if self.child_output() else ""
+
+
+# -------------------------------------------------------------------- the child
+def child_main(spec: SessionSpec, commands, snapshots, log_path: str, push_hz: float) -> None:
+    """The child process: build and start the session, serve the parent, stop cleanly."""
+    _quiet_output(log_path)
+    if hasattr(signal, "SIGHUP"):
+        signal.signal(signal.SIGHUP, signal.SIG_IGN)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    from tankside.monitor.pipeline import LiveSession
+
+    try:
+        session = LiveSession.from_bench(spec.bench, session_path=spec.session_path,
+                                         max_traces=spec.max_traces,
+                                         duration_s=spec.duration_s)
+        session.start()
+    except (TanksideError, InstrumentError) as err:
+        _send_quietly(commands, ("failed", transferable(err)))
+        _remove_if_empty(log_path)
+        sys.exit(2)
+    signal.signal(signal.SIGTERM, lambda signum, frame: session.stop("signal SIGTERM"))
+    _send_quietly(commands, ("started", _status_of(session)))
+    pusher = threading.Thread(target=_push_snapshots, args=(session, snapshots, 1.0 / push_hz),
+                              name="tankside-snapshot-pipe", daemon=True)
+    pusher.start()
+    try:
+        _serve_commands(session, commands)
+    finally:
+        if session.running:
+            session.stop("display closed")
+        session.wait()
+        pusher.join(FINAL_PUSH_WAIT_S)
+        sys.stdout.flush()
+        sys.stderr.flush()
+        _remove_if_empty(log_path)   # a parent that has gone cannot do it
+    sys.exit(session.exit_code)
+
+
+def _serve_commands(session, commands) -> None:
+    """Answer the parent's commands until the session ends or the parent goes away."""
+    while session.running:
+        try:
+            if not commands.poll(0.2):
+                continue
+            op, args = commands.recv()
+        except (EOFError, OSError):
+            session.stop("display closed")     # the parent has gone
+            return
+        if op == "stop":
+            session.stop(*args)
+            continue
+        try:
+            getattr(session, op)(*args)
+        except (TanksideError, InstrumentError, ValueError) as err:
+            answer = ("error", transferable(err))
+        else:
+            answer = ("ok", None)
+        if not _send_quietly(commands, answer):
+            session.stop("display closed")
+            return
+
+
+def _push_snapshots(session, snapshots, period_s: float) -> None:
+    """Send the latest snapshot and status every ``period_s``, and once more at the end."""
+    while True:
+        done = not session.running
+        if not _send_quietly(snapshots, (session.snapshot(), _status_of(session))):
+            return                              # the parent has gone; the commands see it
+        if done:
+            return
+        time.sleep(period_s)
+
+
+def _status_of(session) -> SessionStatus:
+    running = session.running
+    return SessionStatus(running=running, exit_code=0 if running else session.exit_code,
+                         exit_status="" if running else (session.exit_status or "completed"),
+                         stop_reason=session.stop_reason,
+                         message_for_operator=session.message_for_operator,
+                         method=session.method)
+
+
+def _send_quietly(conn, message) -> bool:
+    try:
+        conn.send(message)
+        return True
+    except (OSError, ValueError):
+        return False
+
+
+def _quiet_output(log_path: str) -> None:
+    """Send the child's stdout and stderr (file descriptors 1 and 2) to ``log_path``."""
+    with open(log_path, "ab", buffering=0) as log:
+        os.dup2(log.fileno(), 1)
+        os.dup2(log.fileno(), 2)
+
+
+def _remove_if_empty(path: str) -> None:
+    with contextlib.suppress(OSError):
+        if os.path.getsize(path) == 0:
+            os.unlink(path)
+
+
+def transferable(err: BaseException) -> BaseException:
+    """``err`` if it survives pickling, else the nearest tankside base type with its text.
+
+    Errors whose constructors take several arguments (a calibration error's file,
+    line and problem) do not unpickle from their message alone; the base type keeps
+    the message and the exit code the CLI gives it.
+    """
+    try:
+        back = pickle.loads(pickle.dumps(err))
+        if type(back) is type(err) and str(back) == str(err):
+            return back
+    except Exception:  # noqa: BLE001 - any failure means: send the plain form
+        pass
+    for base in (StoreError, TanksideError, InstrumentError, ValueError):
+        if isinstance(err, base):
+            return base(str(err))
+    return TanksideError(str(err))
+
+
+def session_for_display(bench, *, own_process: bool, session_path: str | Path | None = None,
+                        max_traces: int | None = None, duration_s: float | None = None,
+                        bell=None):
+    """The session a command shows: in this process (headless), or in a child (dashboard).
+
+    Parameters
+    ----------
+    bench : BenchConfig
+    own_process : bool
+        Run the session in a child process (:class:`SessionProcess`); False builds a
+        :class:`~tankside.monitor.pipeline.LiveSession` here (``bell`` rings on alerts).
+    session_path, max_traces, duration_s
+        As for :meth:`LiveSession.from_bench`.
+    """
+    from tankside.monitor.pipeline import LiveSession, new_session_path
+
+    if not own_process:
+        return LiveSession.from_bench(bench, session_path=session_path, max_traces=max_traces,
+                                      duration_s=duration_s, bell=bell)
+    path = new_session_path(bench.session_folder, session_path)
+    return SessionProcess(SessionSpec(bench, path, max_traces=max_traces, duration_s=duration_s))

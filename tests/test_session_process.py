@@ -1,0 +1,281 @@
+"""The live session in a child process (what `watch` and `demo` run under the dashboard).
+
+Against the simulated bench on 127.0.0.1: snapshots cross the pipe, commands reach the
+session and its file, expected errors come back typed, and the session file is closed
+with a reason however the session ends: asked to stop, signalled, or left behind by a
+parent that died. A child that dies is reported, not waited for.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import io
+import os
+import signal
+import socket
+import subprocess
+import sys
+import textwrap
+import time
+
+import pytest
+
+from tankside.drivers.errors import ConnectionLost, InstrumentError, InstrumentReportedError
+from tankside.monitor.benchfile import BenchConfig, load_bench
+from tankside.monitor.cli import EXIT_INSTRUMENT, EXIT_OK
+from tankside.monitor.errors import CalibrationError, ConfigError, TanksideError
+from tankside.monitor.session_process import (
+    SessionProcess,
+    SessionSpec,
+    session_for_display,
+    transferable,
+)
+from tankside.monitor.store import SessionReader
+from tankside.simulators.bench import SimulatedBench
+
+FAST = {"digitiser.record_length": 2000, "digitiser.trigger_timeout_s": 0.5,
+        "digitiser.timeout_s": 1.0}
+
+
+@pytest.fixture
+def sim():
+    with SimulatedBench(seed=4, trigger_period_s=0.005) as bench:
+        yield bench
+
+
+def _bench(sim, tmp_path, overrides=None):
+    path = sim.write_bench_file(tmp_path / "bench.toml", session_folder=str(tmp_path / "s"))
+    return load_bench(path, {**FAST, **(overrides or {})})
+
+
+def _until(condition, timeout_s: float = 20.0, what: str = "condition"):
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline:
+        value = condition()
+        if value:
+            return value
+        time.sleep(0.05)
+    raise AssertionError(f"{what} not reached in {timeout_s} s")
+
+
+@pytest.fixture
+def child(sim, tmp_path):
+    session = SessionProcess(SessionSpec(_bench(sim, tmp_path), tmp_path / "c.db"))
+    session.start()
+    try:
+        yield session
+    finally:
+        session.stop("test teardown")
+        session.wait(30)
+        session.close(report=io.StringIO())
+
+
+class TestCommandsAndSnapshots:
+    def test_snapshots_advance_and_commands_reach_the_file(self, child):
+        assert child.pid != os.getpid() and child.running
+        first = _until(lambda: child.snapshot().seq >= 3 and child.snapshot(), what="traces")
+        later = _until(lambda: child.snapshot().seq >= first.seq + 10 and child.snapshot(),
+                       what="more traces")
+        assert later.state == "running" and later.pressure_pa.size == 2000
+        assert later.converted >= later.seq and later.session_path == str(child.session_path)
+        child.mark("probe at focus")
+        child.set_method("deconvolve")
+        _until(lambda: child.snapshot().method == "deconvolve", what="method switched")
+        child.stop("operator done")
+        assert child.wait(30)
+        assert not child.running
+        assert (child.exit_code, child.exit_status, child.stop_reason) == (
+            EXIT_OK, "operator", "operator done")
+        assert child.snapshot().state == "stopped"
+        with SessionReader(child.session_path) as reader:
+            events = reader.events()
+            assert [e["detail"]["note"] for e in events if e["kind"] == "mark"] == [
+                "probe at focus"]
+            assert any(e["kind"] == "method-change" and e["detail"]["to"] == "deconvolve"
+                       for e in events)
+            assert reader.stop["exit_status"] == "operator"
+            assert reader.stop["reason"] == "operator done"
+            assert reader.stop["counts"]["stored"] == len(reader.seqs()) > 0
+
+    def test_a_rejected_command_is_raised_here_and_the_session_goes_on(self, child):
+        with pytest.raises(ValueError, match="method must be one of"):
+            child.set_method("fastest")
+        seq = child.snapshot().seq
+        _until(lambda: child.snapshot().seq > seq + 5, what="traces after the error")
+        assert child.running
+
+    def test_acknowledge_reaches_the_session(self, sim, child):
+        sim.faults.drop_connection()
+        alert = _until(lambda: next((a for a in child.snapshot().alerts
+                                     if a.rule == "instrument-fault"), None),
+                       what="instrument-fault alert")
+        child.acknowledge(alert.alert_id)
+        _until(lambda: any(a.alert_id == alert.alert_id and a.acknowledged
+                           for a in child.snapshot().alerts), what="acknowledged")
+        child.stop()
+        assert child.wait(30)
+        with SessionReader(child.session_path) as reader:
+            row = next(a for a in reader.alerts() if a["rule"] == "instrument-fault")
+            assert row["acknowledged_time_s"] is not None
+
+    def test_commands_after_the_end_are_a_typed_error(self, child):
+        child.stop()
+        assert child.wait(30)
+        with pytest.raises(TanksideError, match="ended"):
+            child.mark("too late")
+        child.stop()   # a second stop is harmless
+
+
+class TestStart:
+    def test_unreachable_digitiser_is_raised_here_and_no_file_is_made(self, sim, tmp_path):
+        with socket.socket() as s:
+            s.bind(("127.0.0.1", 0))
+            port = s.getsockname()[1]
+        bench = _bench(sim, tmp_path, {"digitiser.resource": f"TCPIP0::127.0.0.1::{port}::SOCKET"})
+        session = SessionProcess(SessionSpec(bench, tmp_path / "never.db"))
+        with pytest.raises(ConnectionLost, match=str(port)):
+            session.start()
+        assert not session.running and session.wait(5)
+        assert not (tmp_path / "never.db").exists()
+        session.close(report=io.StringIO())
+
+    def test_bad_calibration_keeps_its_message(self, sim, tmp_path):
+        bad = tmp_path / "bad-cal.csv"
+        bad.write_text("frequency_hz,sensitivity_v_per_pa\n1e6,abc\n")
+        bench = _bench(sim, tmp_path, {"calibration.file": str(bad)})
+        session = SessionProcess(SessionSpec(bench, tmp_path / "never.db"))
+        with pytest.raises(TanksideError) as info:
+            session.start()
+        assert "bad-cal.csv" in str(info.value) and "line 2" in str(info.value)
+        session.close(report=io.StringIO())
+
+    def test_existing_session_file_is_refused_before_any_process(self, sim, tmp_path):
+        (tmp_path / "taken.db").write_bytes(b"")
+        with pytest.raises(ConfigError, match="already exists"):
+            session_for_display(_bench(sim, tmp_path), own_process=True,
+                                session_path=tmp_path / "taken.db")
+
+
+class TestEndings:
+    def test_sigterm_to_the_child_is_a_clean_stop(self, child):
+        _until(lambda: child.snapshot().seq >= 3, what="traces")
+        os.kill(child.pid, signal.SIGTERM)
+        assert child.wait(30)
+        assert child.exit_code == EXIT_OK and "SIGTERM" in child.stop_reason
+        with SessionReader(child.session_path) as reader:
+            assert reader.stopped_cleanly and "SIGTERM" in reader.stop["reason"]
+
+    def test_ctrl_c_reaches_only_the_parent(self, child):
+        # A terminal sends SIGINT to the whole foreground process group; the child
+        # leaves the decision to the parent and goes on.
+        seq = _until(lambda: child.snapshot().seq >= 3 and child.snapshot().seq)
+        os.kill(child.pid, signal.SIGINT)
+        _until(lambda: child.snapshot().seq > seq + 10, what="traces after SIGINT")
+        assert child.running
+
+    def test_a_killed_child_is_reported_not_awaited(self, child):
+        committed = _until(lambda: _committed(child.session_path) >= 5, what="commits")
+        os.kill(child.pid, signal.SIGKILL)
+        assert child.wait(10)
+        snap = child.snapshot()
+        assert snap.state == "stopped" and "unexpectedly" in snap.stop_reason
+        assert child.exit_code == EXIT_INSTRUMENT
+        assert "unexpectedly" in child.message_for_operator
+        with SessionReader(child.session_path) as reader:   # committed traces stay
+            assert reader.integrity_check() == "ok" and not reader.stopped_cleanly
+            assert reader.trace_count() >= committed
+
+    def test_a_parent_that_dies_leaves_a_cleanly_closed_file(self, sim, tmp_path):
+        bench_path = sim.write_bench_file(tmp_path / "bench.toml",
+                                          session_folder=str(tmp_path / "s"))
+        db = tmp_path / "orphan.db"
+        script = textwrap.dedent(f"""
+            import sys, time
+            from pathlib import Path
+            from tankside.monitor.benchfile import BenchConfig, load_bench
+            from tankside.monitor.session_process import SessionProcess, SessionSpec
+            if __name__ == "__main__":
+                bench = load_bench({str(bench_path)!r}, {FAST!r})
+                session = SessionProcess(SessionSpec(bench, Path({str(db)!r})))
+                session.start()
+                print(session.pid, flush=True)
+                time.sleep(60)
+        """)
+        (tmp_path / "parent.py").write_text(script)
+        # the child's log stays behind when its parent is killed: keep it in tmp_path
+        parent = subprocess.Popen([sys.executable, str(tmp_path / "parent.py")],
+                                  stdout=subprocess.PIPE, text=True,
+                                  env=dict(os.environ, TMPDIR=str(tmp_path)))
+        try:
+            child_pid = int(parent.stdout.readline())
+            _until(lambda: db.exists() and _committed(db) >= 5, what="committed traces")
+        finally:
+            parent.kill()
+            parent.wait(10)
+            parent.stdout.close()
+        _until(lambda: not _alive(child_pid), timeout_s=30, what="the orphan's exit")
+        assert not list(tmp_path.glob("tankside-session-*.log"))   # empty: removed
+        with SessionReader(db) as reader:
+            assert reader.stopped_cleanly
+            assert reader.stop["reason"] == "display closed"
+            assert reader.stop["counts"]["stored"] == len(reader.seqs()) > 0
+
+
+def _committed(db) -> int:
+    try:
+        with SessionReader(db) as reader:
+            return reader.trace_count()
+    except Exception:  # noqa: BLE001 - the file may be mid-creation
+        return 0
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    # a zombie whose parent has gone is reaped by init; until then it counts as ended
+    try:
+        with open(f"/proc/{pid}/stat") as f:
+            return f.read().split(")")[-1].split()[0] != "Z"
+    except OSError:
+        return False
+
+
+@dataclasses.dataclass(frozen=True)
+class NoisyBench(BenchConfig):
+    """A bench whose calibration loader prints, as a library warning would."""
+
+    def calibration(self):
+        print("noisy bench: loading the calibration")
+        print("noisy bench: a warning", file=sys.stderr)
+        return super().calibration()
+
+
+def test_what_the_child_prints_is_reported_after_the_display(sim, tmp_path, capfd):
+    plain = _bench(sim, tmp_path)
+    bench = NoisyBench(**{f.name: getattr(plain, f.name) for f in dataclasses.fields(plain)})
+    session = SessionProcess(SessionSpec(bench, tmp_path / "n.db"))
+    session.start()
+    _until(lambda: session.snapshot().seq >= 2, what="traces")
+    session.stop()
+    assert session.wait(30)
+    out, err = capfd.readouterr()            # nothing reached this process's terminal
+    assert "noisy bench" not in out + err
+    report = io.StringIO()
+    session.close(report=report)
+    assert "loading the calibration" in report.getvalue()
+    assert "a warning" in report.getvalue()
+    assert session.child_output() == ""      # reported once, then removed
+
+
+class TestTransferable:
+    def test_single_message_errors_cross_unchanged(self):
+        err = transferable(ConnectionLost("link lost", resource="TCPIP0::x::1::SOCKET"))
+        assert type(err) is ConnectionLost and "link lost" in str(err)
+
+    def test_errors_with_several_arguments_keep_message_and_family(self):
+        cal = transferable(CalibrationError("cal.csv", 4, "magnitude must be positive"))
+        assert type(cal) is TanksideError and str(cal) == "cal.csv, line 4: magnitude must be positive"
+        inst = transferable(InstrumentReportedError(-222, "Data out of range", command="VOLT 9"))
+        assert type(inst) is InstrumentError and "-222" in str(inst) and "VOLT 9" in str(inst)
