@@ -7,9 +7,10 @@ flat out (tests/bench/bench_dashboard.py). So ``watch`` and ``demo`` with the
 dashboard run the :class:`~tankside.monitor.pipeline.LiveSession` in a child process
 and the display in the parent, joined by two pipes:
 
-* snapshots, child to parent: a thread of the child sends the session's latest
-  snapshot and status at the display's rate. A display that falls behind blocks only
-  that thread, never the chain; the parent keeps the newest it has received.
+* snapshots: the parent asks for one and collects the answer on its next read, so at
+  most one request is in flight and the answer is the session's latest state when
+  the child's snapshot thread took it (never one queued earlier). A display that
+  stops reading stops the requests; it never blocks the chain.
 * commands, parent to child: mark, acknowledge and set_method are answered (an
   expected error comes back and is raised in the parent, so it shows as a notice);
   stop is not, so that it can be sent from a signal handler at any moment.
@@ -41,8 +42,9 @@ from tankside.monitor.snapshot import Snapshot
 
 #: How long a command waits for the child's answer, s.
 ANSWER_WAIT_S = 10.0
-#: How long the child's snapshot thread may take to deliver the final snapshot, s.
-FINAL_PUSH_WAIT_S = 5.0
+#: How long the child waits, after its session has ended, for the parent to ask for
+#: the last snapshot (the parent asks every 50 ms while it waits for the child), s.
+FINAL_SNAPSHOT_WAIT_S = 5.0
 
 
 @dataclasses.dataclass(frozen=True)
@@ -74,21 +76,21 @@ class SessionProcess:
     ----------
     spec : SessionSpec
         The bench and session file; the file must not exist yet.
-    push_hz : float
-        How often the child sends a snapshot, per second (the display's rate).
+
+    A snapshot read returns the answer to the request made by the read before it, so
+    a display reading ten times a second shows the session as it was at most about
+    0.1 s earlier.
     """
 
-    def __init__(self, spec: SessionSpec, *, push_hz: float = 10.0):
-        if push_hz <= 0:
-            raise ValueError(f"push_hz must be positive, got {push_hz}")
+    def __init__(self, spec: SessionSpec):
         self.spec = spec
         self.session_path = Path(spec.session_path)
-        self.push_hz = push_hz
         self._status = SessionStatus()
         self._snap = Snapshot(session_path=str(self.session_path), state="starting")
         self._process = None
         self._commands = None
         self._snapshots = None
+        self._asked = False            # a snapshot request is in flight
         self._ended = False            # the child has exited (or was never started)
         self._log_path: Path | None = None
 
@@ -106,14 +108,13 @@ class SessionProcess:
             raise RuntimeError("session already started")
         context = multiprocessing.get_context("spawn")
         commands, child_commands = context.Pipe(duplex=True)
-        snapshots, child_snapshots = context.Pipe(duplex=False)
+        snapshots, child_snapshots = context.Pipe(duplex=True)
         fd, log = tempfile.mkstemp(prefix="tankside-session-", suffix=".log")
         os.close(fd)
         self._log_path = Path(log)
         self._process = context.Process(
             target=child_main, name="tankside-session",
-            args=(self.spec, child_commands, child_snapshots, str(self._log_path),
-                  self.push_hz))
+            args=(self.spec, child_commands, child_snapshots, str(self._log_path)))
         self._process.start()
         # the parent keeps only its own ends, so that the child sees the parent go away
         child_commands.close()
@@ -134,6 +135,7 @@ class SessionProcess:
             self._status = payload
             self._status.running = True
             self._snap = dataclasses.replace(self._snap, state="running")
+            self._drain()                       # the first request
             return
         self._process.join(10)
         self._finish()
@@ -263,14 +265,19 @@ class SessionProcess:
             raise payload
 
     def _drain(self) -> None:
-        """Take every snapshot waiting in the pipe; keep the newest."""
-        if self._snapshots is None:
+        """Take the answer to the last request if it has come, and ask for the next."""
+        conn = self._snapshots
+        if conn is None:
             return
         try:
-            while self._snapshots.poll(0):
-                self._snap, self._status = self._snapshots.recv()
+            if self._asked and conn.poll(0):
+                self._snap, self._status = conn.recv()
+                self._asked = False
+            if not self._asked:
+                conn.send(None)
+                self._asked = True
         except (EOFError, OSError):
-            self._snapshots.close()           # the child's end is closed: it is exiting
+            conn.close()                      # the child's end is closed: it is exiting
             self._snapshots = None
 
     def _finish(self) -> None:
@@ -301,7 +308,7 @@ class SessionProcess:
 
 
 # -------------------------------------------------------------------- the child
-def child_main(spec: SessionSpec, commands, snapshots, log_path: str, push_hz: float) -> None:
+def child_main(spec: SessionSpec, commands, snapshots, log_path: str) -> None:
     """The child process: build and start the session, serve the parent, stop cleanly."""
     _quiet_output(log_path)
     if hasattr(signal, "SIGHUP"):
@@ -320,16 +327,16 @@ def child_main(spec: SessionSpec, commands, snapshots, log_path: str, push_hz: f
         sys.exit(2)
     signal.signal(signal.SIGTERM, lambda signum, frame: session.stop("signal SIGTERM"))
     _send_quietly(commands, ("started", _status_of(session)))
-    pusher = threading.Thread(target=_push_snapshots, args=(session, snapshots, 1.0 / push_hz),
-                              name="tankside-snapshot-pipe", daemon=True)
-    pusher.start()
+    answering = threading.Thread(target=_answer_snapshots, args=(session, snapshots),
+                                 name="tankside-snapshot-pipe", daemon=True)
+    answering.start()
     try:
         _serve_commands(session, commands)
     finally:
         if session.running:
             session.stop("display closed")
         session.wait()
-        pusher.join(FINAL_PUSH_WAIT_S)
+        answering.join(FINAL_SNAPSHOT_WAIT_S)
         sys.stdout.flush()
         sys.stderr.flush()
         _remove_if_empty(log_path)   # a parent that has gone cannot do it
@@ -360,15 +367,18 @@ def _serve_commands(session, commands) -> None:
             return
 
 
-def _push_snapshots(session, snapshots, period_s: float) -> None:
-    """Send the latest snapshot and status every ``period_s``, and once more at the end."""
+def _answer_snapshots(session, snapshots) -> None:
+    """Answer each request with the latest snapshot and status, the last one after the end."""
     while True:
-        done = not session.running
-        if not _send_quietly(snapshots, (session.snapshot(), _status_of(session))):
+        try:
+            if not snapshots.poll(0.2):
+                continue
+            snapshots.recv()
+        except (EOFError, OSError):
             return                              # the parent has gone; the commands see it
-        if done:
+        done = not session.running
+        if not _send_quietly(snapshots, (session.snapshot(), _status_of(session))) or done:
             return
-        time.sleep(period_s)
 
 
 def _status_of(session) -> SessionStatus:
