@@ -40,6 +40,8 @@ from tankside.monitor.cli import EXIT_INSTRUMENT
 from tankside.monitor.errors import StoreError, TanksideError
 from tankside.monitor.snapshot import Snapshot
 
+#: The session methods the parent may call in the child (stop has no answer).
+COMMANDS = ("mark", "acknowledge", "set_method")
 #: How long a command waits for the child's answer, s.
 ANSWER_WAIT_S = 10.0
 #: How long the child waits, after its session has ended, for the parent to ask for
@@ -91,6 +93,7 @@ class SessionProcess:
         self._commands = None
         self._snapshots = None
         self._asked = False            # a snapshot request is in flight
+        self._serial = 0               # of the last command sent
         self._ended = False            # the child has exited (or was never started)
         self._log_path: Path | None = None
 
@@ -175,7 +178,7 @@ class SessionProcess:
         if self._commands is None or self._ended:
             return
         with contextlib.suppress(OSError, ValueError):
-            self._commands.send(("stop", (str(reason),)))
+            self._commands.send((None, "stop", (str(reason),)))
 
     def wait(self, timeout_s: float | None = None) -> bool:
         """Wait until the child has ended its session and exited; True when it has."""
@@ -183,7 +186,7 @@ class SessionProcess:
             return True
         deadline = None if timeout_s is None else time.monotonic() + timeout_s
         while self._process.is_alive():
-            # keep reading: the child's last snapshot must find room in the pipe
+            # keep asking: the child answers one last request before it exits
             self._drain()
             left = 0.05 if deadline is None else min(0.05, deadline - time.monotonic())
             if left <= 0:
@@ -253,12 +256,18 @@ class SessionProcess:
     def _call(self, op: str, *args) -> None:
         if self._commands is None or self._ended or not self._process.is_alive():
             raise TanksideError("the session has ended")
+        self._serial += 1
+        deadline = time.monotonic() + ANSWER_WAIT_S
         try:
-            self._commands.send((op, args))
-            if not self._commands.poll(ANSWER_WAIT_S):
-                raise TanksideError(f"the session did not answer {op} within "
-                                    f"{ANSWER_WAIT_S:g} s")
-            kind, payload = self._commands.recv()
+            self._commands.send((self._serial, op, args))
+            while True:   # an answer that came too late for an earlier command is dropped
+                left = deadline - time.monotonic()
+                if left <= 0 or not self._commands.poll(left):
+                    raise TanksideError(f"the session did not answer {op} within "
+                                        f"{ANSWER_WAIT_S:g} s")
+                serial, kind, payload = self._commands.recv()
+                if serial == self._serial:
+                    break
         except (EOFError, OSError) as err:
             raise TanksideError("the session has ended") from err
         if kind == "error":
@@ -349,7 +358,7 @@ def _serve_commands(session, commands) -> None:
         try:
             if not commands.poll(0.2):
                 continue
-            op, args = commands.recv()
+            serial, op, args = commands.recv()
         except (EOFError, OSError):
             session.stop("display closed")     # the parent has gone
             return
@@ -357,11 +366,13 @@ def _serve_commands(session, commands) -> None:
             session.stop(*args)
             continue
         try:
+            if op not in COMMANDS:
+                raise ValueError(f"unknown session command {op!r}")
             getattr(session, op)(*args)
         except (TanksideError, InstrumentError, ValueError) as err:
-            answer = ("error", transferable(err))
+            answer = (serial, "error", transferable(err))
         else:
-            answer = ("ok", None)
+            answer = (serial, "ok", None)
         if not _send_quietly(commands, answer):
             session.stop("display closed")
             return

@@ -269,6 +269,32 @@ def test_what_the_child_prints_is_reported_after_the_display(sim, tmp_path, capf
     assert session.child_output() == ""      # reported once, then removed
 
 
+def test_an_answer_too_late_for_an_earlier_command_is_not_taken_for_the_next(tmp_path):
+    # The command protocol alone, with a thread playing the child: it answers an
+    # earlier command (serial 6) before the one asked (serial 7), which is an error.
+    import multiprocessing
+    import threading
+    import types
+
+    parent_end, child_end = multiprocessing.Pipe()
+    session = SessionProcess(SessionSpec(bench=None, session_path=tmp_path / "x.db"))
+    session._process = types.SimpleNamespace(is_alive=lambda: True)
+    session._commands, session._serial = parent_end, 6
+
+    def child():
+        serial, op, args = child_end.recv()
+        child_end.send((serial - 1, "ok", None))
+        child_end.send((serial, "error", ValueError(f"{op} {args[0]} refused")))
+
+    thread = threading.Thread(target=child)
+    thread.start()
+    with pytest.raises(ValueError, match="set_method fastest refused"):
+        session.set_method("fastest")
+    thread.join(5)
+    parent_end.close()
+    child_end.close()
+
+
 class TestTransferable:
     def test_single_message_errors_cross_unchanged(self):
         err = transferable(ConnectionLost("link lost", resource="TCPIP0::x::1::SOCKET"))
