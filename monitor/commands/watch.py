@@ -27,9 +27,11 @@ was not stopped cleanly (killed or crashed), and every committed trace in it is 
 def add_parser(subparsers) -> None:
     p = subparsers.add_parser(
         "watch", help="live session: acquire, convert to pressure, alert, record",
-        description=("Acquire every trace from the digitiser of a bench file, convert it to "
-                     "pressure, check the alert rules, carry out their actions and record "
-                     "everything in a session file. Shows the dashboard unless --headless."),
+        description=("Acquire every trace from the digitiser of a bench file, convert it to\n"
+                     "pressure, check the alert rules, carry out their actions and record\n"
+                     "everything in a session file. Shows the dashboard unless --headless;\n"
+                     "with the dashboard the session runs in a process of its own and\n"
+                     "stops cleanly if the dashboard goes away."),
         epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("--bench", required=True, metavar="BENCH.toml",
                    help="bench file describing instruments, calibration, limits and the "
