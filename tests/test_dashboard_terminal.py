@@ -20,6 +20,7 @@ import threading
 import time
 
 import pytest
+from polling import committed_traces, wait_for
 
 from tankside.monitor.store import SessionReader
 
@@ -62,15 +63,11 @@ class Terminal:
         os.write(self.master, keys.encode())
 
     def wait_for(self, condition, timeout_s: float, what: str):
-        deadline = time.monotonic() + timeout_s
-        while time.monotonic() < deadline:
-            value = condition()
-            if value:
-                return value
-            if self.proc.poll() is not None:
-                break
-            time.sleep(0.1)
-        raise AssertionError(f"{what}: not seen in {timeout_s} s; terminal:\n{self.text[-3000:]}")
+        try:
+            return wait_for(condition, timeout_s, what, every_s=0.1,
+                            give_up=lambda: self.proc.poll() is not None)
+        except AssertionError as err:
+            raise AssertionError(f"{err}; terminal:\n{self.text[-3000:]}") from None
 
     def close(self):
         if self.proc.poll() is None:
@@ -81,13 +78,7 @@ class Terminal:
 
 
 def _committed(folder) -> int:
-    for db in folder.glob("session-*.db"):
-        try:
-            with SessionReader(db) as reader:
-                return reader.trace_count()
-        except Exception:  # noqa: BLE001 - the file may be mid-creation
-            return 0
-    return 0
+    return sum(committed_traces(db) for db in folder.glob("session-*.db"))
 
 
 def test_demo_in_a_terminal_caution_keys_and_clean_quit(tmp_path):

@@ -14,6 +14,7 @@ import time
 
 import numpy as np
 import pytest
+from polling import wait_for
 
 from tankside.monitor.benchfile import load_bench
 from tankside.monitor.headless import status_line
@@ -46,16 +47,6 @@ def scpi(port: int, *lines: str) -> str:
                 break
             reply += chunk
     return reply.decode("ascii").strip()
-
-
-def wait_for(predicate, timeout_s: float, what: str):
-    deadline = time.monotonic() + timeout_s
-    while time.monotonic() < deadline:
-        value = predicate()
-        if value:
-            return value
-        time.sleep(0.01)
-    raise AssertionError(f"timed out waiting for {what}")
 
 
 def test_noise_after_safe_off_then_drive_back_on(sim, tmp_path):

@@ -16,9 +16,9 @@ import socket
 import subprocess
 import sys
 import textwrap
-import time
 
 import pytest
+from polling import committed_traces, wait_for
 
 from tankside.drivers.errors import ConnectionLost, InstrumentError, InstrumentReportedError
 from tankside.monitor.benchfile import BenchConfig, load_bench
@@ -48,16 +48,6 @@ def _bench(sim, tmp_path, overrides=None):
     return load_bench(path, {**FAST, **(overrides or {})})
 
 
-def _until(condition, timeout_s: float = 20.0, what: str = "condition"):
-    deadline = time.monotonic() + timeout_s
-    while time.monotonic() < deadline:
-        value = condition()
-        if value:
-            return value
-        time.sleep(0.05)
-    raise AssertionError(f"{what} not reached in {timeout_s} s")
-
-
 @pytest.fixture
 def child(sim, tmp_path):
     session = SessionProcess(SessionSpec(_bench(sim, tmp_path), tmp_path / "c.db"))
@@ -73,14 +63,14 @@ def child(sim, tmp_path):
 class TestCommandsAndSnapshots:
     def test_snapshots_advance_and_commands_reach_the_file(self, child):
         assert child.pid != os.getpid() and child.running
-        first = _until(lambda: child.snapshot().seq >= 3 and child.snapshot(), what="traces")
-        later = _until(lambda: child.snapshot().seq >= first.seq + 10 and child.snapshot(),
+        first = wait_for(lambda: child.snapshot().seq >= 3 and child.snapshot(), what="traces")
+        later = wait_for(lambda: child.snapshot().seq >= first.seq + 10 and child.snapshot(),
                        what="more traces")
         assert later.state == "running" and later.pressure_pa.size == 2000
         assert later.converted >= later.seq and later.session_path == str(child.session_path)
         child.mark("probe at focus")
         child.set_method("deconvolve")
-        _until(lambda: child.snapshot().method == "deconvolve", what="method switched")
+        wait_for(lambda: child.snapshot().method == "deconvolve", what="method switched")
         child.stop("operator done")
         assert child.wait(30)
         assert not child.running
@@ -101,16 +91,16 @@ class TestCommandsAndSnapshots:
         with pytest.raises(ValueError, match="method must be one of"):
             child.set_method("fastest")
         seq = child.snapshot().seq
-        _until(lambda: child.snapshot().seq > seq + 5, what="traces after the error")
+        wait_for(lambda: child.snapshot().seq > seq + 5, what="traces after the error")
         assert child.running
 
     def test_acknowledge_reaches_the_session(self, sim, child):
         sim.faults.drop_connection()
-        alert = _until(lambda: next((a for a in child.snapshot().alerts
+        alert = wait_for(lambda: next((a for a in child.snapshot().alerts
                                      if a.rule == "instrument-fault"), None),
                        what="instrument-fault alert")
         child.acknowledge(alert.alert_id)
-        _until(lambda: any(a.alert_id == alert.alert_id and a.acknowledged
+        wait_for(lambda: any(a.alert_id == alert.alert_id and a.acknowledged
                            for a in child.snapshot().alerts), what="acknowledged")
         child.stop()
         assert child.wait(30)
@@ -158,7 +148,7 @@ class TestStart:
 
 class TestEndings:
     def test_sigterm_to_the_child_is_a_clean_stop(self, child):
-        _until(lambda: child.snapshot().seq >= 3, what="traces")
+        wait_for(lambda: child.snapshot().seq >= 3, what="traces")
         os.kill(child.pid, signal.SIGTERM)
         assert child.wait(30)
         assert child.exit_code == EXIT_OK and "SIGTERM" in child.stop_reason
@@ -168,13 +158,13 @@ class TestEndings:
     def test_ctrl_c_reaches_only_the_parent(self, child):
         # A terminal sends SIGINT to the whole foreground process group; the child
         # leaves the decision to the parent and goes on.
-        seq = _until(lambda: child.snapshot().seq >= 3 and child.snapshot().seq)
+        seq = wait_for(lambda: child.snapshot().seq >= 3 and child.snapshot().seq)
         os.kill(child.pid, signal.SIGINT)
-        _until(lambda: child.snapshot().seq > seq + 10, what="traces after SIGINT")
+        wait_for(lambda: child.snapshot().seq > seq + 10, what="traces after SIGINT")
         assert child.running
 
     def test_a_killed_child_is_reported_not_awaited(self, child):
-        committed = _until(lambda: _committed(child.session_path) >= 5, what="commits")
+        committed = wait_for(lambda: committed_traces(child.session_path) >= 5, what="commits")
         os.kill(child.pid, signal.SIGKILL)
         assert child.wait(10)
         snap = child.snapshot()
@@ -208,25 +198,17 @@ class TestEndings:
                                   env=dict(os.environ, TMPDIR=str(tmp_path)))
         try:
             child_pid = int(parent.stdout.readline())
-            _until(lambda: db.exists() and _committed(db) >= 5, what="committed traces")
+            wait_for(lambda: db.exists() and committed_traces(db) >= 5, what="committed traces")
         finally:
             parent.kill()
             parent.wait(10)
             parent.stdout.close()
-        _until(lambda: not _alive(child_pid), timeout_s=30, what="the orphan's exit")
+        wait_for(lambda: not _alive(child_pid), timeout_s=30, what="the orphan's exit")
         assert not list(tmp_path.glob("tankside-session-*.log"))   # empty: removed
         with SessionReader(db) as reader:
             assert reader.stopped_cleanly
             assert reader.stop["reason"] == "display closed"
             assert reader.stop["counts"]["stored"] == len(reader.seqs()) > 0
-
-
-def _committed(db) -> int:
-    try:
-        with SessionReader(db) as reader:
-            return reader.trace_count()
-    except Exception:  # noqa: BLE001 - the file may be mid-creation
-        return 0
 
 
 def _alive(pid: int) -> bool:
@@ -257,7 +239,7 @@ def test_what_the_child_prints_is_reported_after_the_display(sim, tmp_path, capf
     bench = NoisyBench(**{f.name: getattr(plain, f.name) for f in dataclasses.fields(plain)})
     session = SessionProcess(SessionSpec(bench, tmp_path / "n.db"))
     session.start()
-    _until(lambda: session.snapshot().seq >= 2, what="traces")
+    wait_for(lambda: session.snapshot().seq >= 2, what="traces")
     session.stop()
     assert session.wait(30)
     out, err = capfd.readouterr()            # nothing reached this process's terminal
