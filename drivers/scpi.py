@@ -164,10 +164,10 @@ class ScpiSession:
             raise ProtocolError(f"non-ASCII reply during {doing}: {raw[:24]!r}",
                                 resource=self.name) from err
 
-    def _read_exactly(self, count: int, doing: str) -> bytes | bytearray:
+    def _read_exactly(self, count: int, doing: str, timeout_s: float) -> bytes | bytearray:
         try:
             if self._direct is not None:
-                return self._direct.read_exactly(count, self.resource.timeout / 1000.0)
+                return self._direct.read_exactly(count, timeout_s)
             data = self.resource.read_bytes(count, chunk_size=count)
         except Exception as err:  # noqa: BLE001 - translated and chained
             raise self._fail(err, doing) from err
@@ -217,13 +217,14 @@ class ScpiSession:
         self._ensure_in_step()
         self._write(command)
         doing = f"block reply to {command!r}"
+        timeout_s = self.timeout_s           # each of the four reads below may take it all
         self._termchar(False)
         try:
-            n = ieee488.header_digit_count(self._read_exactly(2, doing))
-            count = ieee488.payload_length(self._read_exactly(n, doing), n)
-            payload = self._read_exactly(count, doing) if count else b""
+            n = ieee488.header_digit_count(self._read_exactly(2, doing, timeout_s))
+            count = ieee488.payload_length(self._read_exactly(n, doing, timeout_s), n)
+            payload = self._read_exactly(count, doing, timeout_s) if count else b""
             if self._rterm:
-                tail = self._read_exactly(len(self._rterm), doing)
+                tail = self._read_exactly(len(self._rterm), doing, timeout_s)
                 if tail != self._rterm:
                     raise ProtocolError(f"{doing}: expected {self._rterm!r} after {count} "
                                         f"bytes, got {tail!r}")

@@ -76,6 +76,16 @@ def backend_session(res):
     return sessions.get(getattr(res, "session", None))
 
 
+def _buffered_socket(res):
+    """``(backend, socket)`` of a pyvisa-py SOCKET resource that keeps its own receive
+    buffer (``_pending_buffer``, pyvisa-py 0.7 and 0.8), or None for anything else."""
+    backend = backend_session(res)
+    sock = backend_socket(res)
+    if sock is None or not isinstance(getattr(backend, "_pending_buffer", None), bytearray):
+        return None
+    return backend, sock
+
+
 class DirectReader:
     """Exact byte counts read straight from the socket under a pyvisa-py SOCKET resource.
 
@@ -95,12 +105,10 @@ class DirectReader:
     @classmethod
     def for_resource(cls, res) -> DirectReader | None:
         """A reader for ``res``, or None when it is not a pyvisa-py socket resource."""
-        backend = backend_session(res)
-        sock = backend_socket(res)
-        if (sock is None or not hasattr(socket, "MSG_DONTWAIT")   # not on Windows
-                or not isinstance(getattr(backend, "_pending_buffer", None), bytearray)):
+        found = _buffered_socket(res)
+        if found is None or not hasattr(socket, "MSG_DONTWAIT"):   # not on Windows
             return None
-        return cls(backend, sock)
+        return cls(*found)
 
     def read_exactly(self, count: int, timeout_s: float | None) -> bytearray:
         """Exactly ``count`` bytes, waiting at most ``timeout_s`` s in all (None: no limit).
@@ -128,11 +136,8 @@ class DirectReader:
                 try:
                     n = sock.recv_into(view[got:], count - got, socket.MSG_DONTWAIT)
                 except (BlockingIOError, InterruptedError):
-                    wait = None if deadline is None else deadline - time.monotonic()
-                    if wait is not None and wait <= 0:
-                        raise TimeoutError(f"{got} of {count} bytes arrived in time") from None
-                    readable, _, _ = select.select([sock], [], [], wait)
-                    if not readable:
+                    wait = None if deadline is None else max(0.0, deadline - time.monotonic())
+                    if not select.select([sock], [], [], wait)[0]:
                         raise TimeoutError(f"{got} of {count} bytes arrived in time") from None
                     continue
                 if n == 0:
@@ -255,13 +260,12 @@ def flush_input(res, *, quiet_s: float = 0.05, limit_s: float = 2.0) -> None:
     ConnectionLost
         The peer has closed the connection.
     """
-    backend = backend_session(res)
-    sock = backend_socket(res)
-    pending = getattr(backend, "_pending_buffer", None)
-    if sock is None or not isinstance(pending, bytearray):
+    found = _buffered_socket(res)
+    if found is None:
         res.clear()
         return
-    pending.clear()
+    backend, sock = found
+    backend._pending_buffer.clear()
     deadline = time.monotonic() + limit_s
     while time.monotonic() < deadline:
         readable, _, _ = select.select([sock], [], [], quiet_s)
