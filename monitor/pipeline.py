@@ -241,7 +241,11 @@ class LiveSession:
         if self._started:
             raise RuntimeError("session already started")
         self._started = True
-        self._acq.connect()
+        try:
+            self._acq.connect()
+        except BaseException:
+            self._done.set()        # never ran: not running, nothing to wait for
+            raise
         identities = {}
         for name, link in (("digitiser", self._acq.digitiser), ("generator", self._acq.generator)):
             if link is not None:
@@ -256,6 +260,7 @@ class LiveSession:
                 raise self._writer.open_error
         except BaseException:
             self._acq.close_links()
+            self._done.set()
             raise
         self._range_v = self._acq.current_range_v()
         self._t_start_mono = time.monotonic()

@@ -328,6 +328,15 @@ class TestActions:
 
 
 class TestFaults:
+    def test_a_start_that_fails_leaves_nothing_running(self, tmp_path):
+        s = make_session(tmp_path, Scene(), opener_failures=lambda: True)
+        with pytest.raises(ConnectionLost):
+            s.start()
+        assert not s.running
+        assert s.wait(0)                      # nothing to wait for
+        assert s.snapshot().state == "stopped"
+        assert not (tmp_path / "s.db").exists()
+
     def test_reconnect_continues_sequence(self, tmp_path):
         scene = Scene()
         scene.faults = {10: [ConnectionLost("peer closed")],
