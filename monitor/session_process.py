@@ -17,8 +17,9 @@ and the display in the parent, joined by two pipes:
 
 The child ignores Ctrl-C and hangups (the parent decides when to stop), ends its
 session cleanly when the parent goes away (its end of the pipes closes), and exits
-with the session's exit code. What it prints goes to a temporary file, copied to the
-parent's stderr once the display is closed, so it never lands on the dashboard.
+with the session's exit code. What it prints goes to a temporary file, which
+:meth:`SessionProcess.wait` copies to the parent's stderr once the child has exited
+(the display is closed by then), so it never lands on the dashboard.
 """
 
 from __future__ import annotations
@@ -26,6 +27,7 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import multiprocessing
+import multiprocessing.connection
 import os
 import pickle
 import signal
@@ -34,11 +36,15 @@ import tempfile
 import threading
 import time
 from pathlib import Path
+from typing import TYPE_CHECKING, TextIO
 
 from tankside.drivers.errors import InstrumentError
 from tankside.monitor.cli import EXIT_INSTRUMENT
 from tankside.monitor.errors import StoreError, TanksideError
 from tankside.monitor.snapshot import Snapshot
+
+if TYPE_CHECKING:
+    from tankside.monitor.benchfile import BenchConfig
 
 #: The session methods the parent may call in the child (stop has no answer).
 COMMANDS = ("mark", "acknowledge", "set_method")
@@ -53,7 +59,7 @@ FINAL_SNAPSHOT_WAIT_S = 5.0
 class SessionSpec:
     """What the child needs to build the session (all of it picklable)."""
 
-    bench: object                     # a tankside.monitor.benchfile.BenchConfig
+    bench: BenchConfig
     session_path: Path
     max_traces: int | None = None
     duration_s: float | None = None
@@ -61,9 +67,9 @@ class SessionSpec:
 
 @dataclasses.dataclass
 class SessionStatus:
-    """The parts of a session's state that are not in its snapshot."""
+    """The parts of a session's state that are not in its snapshot (final once
+    ``exit_status`` is set)."""
 
-    running: bool = False
     exit_code: int = 0
     exit_status: str = ""
     stop_reason: str = ""
@@ -78,14 +84,17 @@ class SessionProcess:
     ----------
     spec : SessionSpec
         The bench and session file; the file must not exist yet.
+    report : text stream, optional
+        Where what the child printed is copied once it has exited (default stderr).
 
     A snapshot read returns the answer to the request made by the read before it, so
     a display reading ten times a second shows the session as it was at most about
     0.1 s earlier.
     """
 
-    def __init__(self, spec: SessionSpec):
+    def __init__(self, spec: SessionSpec, *, report: TextIO | None = None):
         self.spec = spec
+        self.report = report
         self.session_path = Path(spec.session_path)
         self._status = SessionStatus()
         self._snap = Snapshot(session_path=str(self.session_path), state="starting")
@@ -96,6 +105,7 @@ class SessionProcess:
         self._serial = 0               # of the last command sent
         self._ended = False            # the child has exited (or was never started)
         self._log_path: Path | None = None
+        self._reported = ""            # what the child printed, once copied to report
 
     # ---------------------------------------------------------------- start
     def start(self) -> None:
@@ -123,29 +133,22 @@ class SessionProcess:
         child_commands.close()
         child_snapshots.close()
         self._commands, self._snapshots = commands, snapshots
-        while True:
-            try:
-                if commands.poll(0.1):
-                    kind, payload = commands.recv()
-                    break
-            except (EOFError, OSError):
-                kind, payload = "gone", None
-                break
-            if not self._process.is_alive():
-                kind, payload = "gone", None
-                break
+        # the child's first word, or its exit; its last word before exiting comes first
+        multiprocessing.connection.wait([commands, self._process.sentinel])
+        try:
+            kind, payload = commands.recv() if commands.poll() else ("gone", None)
+        except (EOFError, OSError):
+            kind, payload = "gone", None
         if kind == "started":
             self._status = payload
-            self._status.running = True
             self._snap = dataclasses.replace(self._snap, state="running")
             self._drain()                       # the first request
             return
-        self._process.join(10)
-        self._finish()
+        self.wait(10)
         if kind == "failed":
             raise payload
         raise TanksideError(f"the session process ended while starting (exit code "
-                            f"{self._process.exitcode}){self._log_hint()}")
+                            f"{self._process.exitcode}){self._output_hint()}")
 
     # ---------------------------------------------------------------- the session's methods
     def snapshot(self) -> Snapshot:
@@ -181,7 +184,11 @@ class SessionProcess:
             self._commands.send((None, "stop", (str(reason),)))
 
     def wait(self, timeout_s: float | None = None) -> bool:
-        """Wait until the child has ended its session and exited; True when it has."""
+        """Wait until the child has ended its session and exited; True when it has.
+
+        Once it has, what the child printed is copied to :attr:`report` (once) and its
+        log file removed.
+        """
         if self._process is None:
             return True
         deadline = None if timeout_s is None else time.monotonic() + timeout_s
@@ -193,6 +200,7 @@ class SessionProcess:
                 return False
             self._process.join(left)
         self._finish()
+        self._report_output()
         return True
 
     @property
@@ -230,27 +238,11 @@ class SessionProcess:
     def child_output(self) -> str:
         """What the child printed (tracebacks of a bug, warnings); "" when nothing."""
         if self._log_path is None:
-            return ""
+            return self._reported
         try:
             return self._log_path.read_text(errors="replace")
         except OSError:
             return ""
-
-    def close(self, *, report=None) -> None:
-        """After the child has exited: copy what it printed to ``report`` (default
-        stderr), then remove its log file."""
-        if self._log_path is None or (self._process is not None and self._process.is_alive()):
-            return
-        text = self.child_output()
-        if text:
-            out = report if report is not None else sys.stderr
-            out.write(f"tankside: the session process wrote:\n{text}")
-            if not text.endswith("\n"):
-                out.write("\n")
-            out.flush()
-        with contextlib.suppress(OSError):
-            self._log_path.unlink()
-        self._log_path = None
 
     # ---------------------------------------------------------------- internals
     def _call(self, op: str, *args) -> None:
@@ -301,19 +293,33 @@ class SessionProcess:
         self._commands = self._snapshots = None
         code = self._process.exitcode if self._process is not None else 0
         status = self._status
-        status.running = False
         if status.exit_status or code == status.exit_code:
             return
         # the child died without a clean end of its session: say so, with its code
         status.exit_code = EXIT_INSTRUMENT
         status.exit_status = "internal-error"
         status.stop_reason = f"session process ended unexpectedly (exit code {code})"
-        status.message_for_operator = status.stop_reason + self._log_hint()
+        status.message_for_operator = status.stop_reason + self._output_hint()
         self._snap = dataclasses.replace(self._snap, state="stopped",
                                          stop_reason=status.stop_reason)
 
-    def _log_hint(self) -> str:
-        return f"; its output: {self._log_path}" if self.child_output() else ""
+    def _output_hint(self) -> str:
+        return "; what it printed is shown above" if self.child_output() else ""
+
+    def _report_output(self) -> None:
+        """Copy what the exited child printed to :attr:`report`, then remove its log."""
+        if self._log_path is None:
+            return
+        text = self.child_output()
+        if text:
+            out = self.report if self.report is not None else sys.stderr
+            out.write(f"tankside: the session process wrote:\n{text}")
+            if not text.endswith("\n"):
+                out.write("\n")
+            out.flush()
+        with contextlib.suppress(OSError):
+            self._log_path.unlink()
+        self._log_path, self._reported = None, text
 
 
 # -------------------------------------------------------------------- the child
@@ -394,7 +400,7 @@ def _answer_snapshots(session, snapshots) -> None:
 
 def _status_of(session) -> SessionStatus:
     running = session.running
-    return SessionStatus(running=running, exit_code=0 if running else session.exit_code,
+    return SessionStatus(exit_code=0 if running else session.exit_code,
                          exit_status="" if running else (session.exit_status or "completed"),
                          stop_reason=session.stop_reason,
                          message_for_operator=session.message_for_operator,

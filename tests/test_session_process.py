@@ -50,14 +50,14 @@ def _bench(sim, tmp_path, overrides=None):
 
 @pytest.fixture
 def child(sim, tmp_path):
-    session = SessionProcess(SessionSpec(_bench(sim, tmp_path), tmp_path / "c.db"))
+    session = SessionProcess(SessionSpec(_bench(sim, tmp_path), tmp_path / "c.db"),
+                             report=io.StringIO())
     session.start()
     try:
         yield session
     finally:
         session.stop("test teardown")
         session.wait(30)
-        session.close(report=io.StringIO())
 
 
 class TestCommandsAndSnapshots:
@@ -122,22 +122,22 @@ class TestStart:
             s.bind(("127.0.0.1", 0))
             port = s.getsockname()[1]
         bench = _bench(sim, tmp_path, {"digitiser.resource": f"TCPIP0::127.0.0.1::{port}::SOCKET"})
-        session = SessionProcess(SessionSpec(bench, tmp_path / "never.db"))
+        session = SessionProcess(SessionSpec(bench, tmp_path / "never.db"),
+                                 report=io.StringIO())
         with pytest.raises(ConnectionLost, match=str(port)):
             session.start()
         assert not session.running and session.wait(5)
         assert not (tmp_path / "never.db").exists()
-        session.close(report=io.StringIO())
 
     def test_bad_calibration_keeps_its_message(self, sim, tmp_path):
         bad = tmp_path / "bad-cal.csv"
         bad.write_text("frequency_hz,sensitivity_v_per_pa\n1e6,abc\n")
         bench = _bench(sim, tmp_path, {"calibration.file": str(bad)})
-        session = SessionProcess(SessionSpec(bench, tmp_path / "never.db"))
+        session = SessionProcess(SessionSpec(bench, tmp_path / "never.db"),
+                                 report=io.StringIO())
         with pytest.raises(TanksideError) as info:
             session.start()
         assert "bad-cal.csv" in str(info.value) and "line 2" in str(info.value)
-        session.close(report=io.StringIO())
 
     def test_existing_session_file_is_refused_before_any_process(self, sim, tmp_path):
         (tmp_path / "taken.db").write_bytes(b"")
@@ -234,21 +234,27 @@ class NoisyBench(BenchConfig):
         return super().calibration()
 
 
-def test_what_the_child_prints_is_reported_after_the_display(sim, tmp_path, capfd):
+def test_what_the_child_prints_is_reported_after_the_display(sim, tmp_path, capfd,
+                                                              monkeypatch):
+    import tempfile
+
+    monkeypatch.setattr(tempfile, "tempdir", str(tmp_path))   # where the child's log goes
     plain = _bench(sim, tmp_path)
     bench = NoisyBench(**{f.name: getattr(plain, f.name) for f in dataclasses.fields(plain)})
-    session = SessionProcess(SessionSpec(bench, tmp_path / "n.db"))
+    report = io.StringIO()
+    session = SessionProcess(SessionSpec(bench, tmp_path / "n.db"), report=report)
     session.start()
     wait_for(lambda: session.snapshot().seq >= 2, what="traces")
-    session.stop()
-    assert session.wait(30)
+    assert list(tmp_path.glob("tankside-session-*.log"))
     out, err = capfd.readouterr()            # nothing reached this process's terminal
     assert "noisy bench" not in out + err
-    report = io.StringIO()
-    session.close(report=report)
+    assert report.getvalue() == ""           # nor the report, while the session runs
+    session.stop()
+    assert session.wait(30)
     assert "loading the calibration" in report.getvalue()
     assert "a warning" in report.getvalue()
-    assert session.child_output() == ""      # reported once, then removed
+    assert session.wait(1) and report.getvalue().count("a warning") == 1   # once
+    assert not list(tmp_path.glob("tankside-session-*.log"))              # then removed
 
 
 def test_an_answer_too_late_for_an_earlier_command_is_not_taken_for_the_next(tmp_path):

@@ -9,10 +9,10 @@ shows is invented: no real transducer, hydrophone or calibration is involved.
 from __future__ import annotations
 
 import argparse
-import signal
 import sys
 from pathlib import Path
 
+from tankside.monitor.commands.running import run_to_end
 from tankside.monitor.errors import ConfigError
 
 CAUTION = """\
@@ -94,14 +94,7 @@ def _watch(session, bench_path: Path, *, headless: bool, first_run: bool, run_he
     if not headless:
         from tankside.monitor.dashboard.app import run_dashboard as dashboard
 
-    def on_term(signum, frame):
-        session.stop(f"signal {signal.Signals(signum).name}")
-
-    try:
-        previous = signal.signal(signal.SIGTERM, on_term)
-    except ValueError:          # not the main thread: no handler to install
-        previous = None
-    try:
+    def show() -> int:
         if first_run or headless:
             print(CAUTION, file=sys.stderr, flush=True)
         print(f"tankside demo: simulated bench on 127.0.0.1 (bench file {bench_path})",
@@ -110,27 +103,14 @@ def _watch(session, bench_path: Path, *, headless: bool, first_run: bool, run_he
         print(f"tankside demo: recording to {session.session_path}", file=sys.stderr,
               flush=True)
         if dashboard is None:
-            code = run_headless(session)
-        else:
-            code = dashboard(session, first_run_notice=first_run)
-            snap = session.snapshot()
-            status = session.exit_status or "completed"
-            why = status if session.stop_reason in ("", status) else \
-                f"{status}: {session.stop_reason}"
-            print(f"tankside demo: session stopped ({why}); {snap.stored} traces in "
-                  f"{session.session_path}", file=sys.stderr)
-    except KeyboardInterrupt:
-        session.stop("interrupted (Ctrl-C)")
-        session.wait()
-        code = session.exit_code
-    finally:
-        if session.running:
-            session.stop("demo ended")
-            session.wait(30)
-        if previous is not None:
-            signal.signal(signal.SIGTERM, previous)
-        if hasattr(session, "close"):
-            session.close()     # what the session process printed, if anything
-    if session.message_for_operator:
-        print(f"tankside: {session.message_for_operator}", file=sys.stderr)
-    return int(code)
+            return run_headless(session)
+        code = dashboard(session, first_run_notice=first_run)
+        snap = session.snapshot()
+        status = session.exit_status or "completed"
+        why = status if session.stop_reason in ("", status) else \
+            f"{status}: {session.stop_reason}"
+        print(f"tankside demo: session stopped ({why}); {snap.stored} traces in "
+              f"{session.session_path}", file=sys.stderr)
+        return code
+
+    return run_to_end(session, show, leftover_reason="demo ended")

@@ -3,12 +3,12 @@
 from __future__ import annotations
 
 import argparse
-import signal
 import sys
 import tomllib
 from pathlib import Path
 
 from tankside.monitor.commands.options import add_loading_options, loading_overrides
+from tankside.monitor.commands.running import run_to_end
 from tankside.monitor.errors import ConfigError
 
 EPILOG = """\
@@ -172,14 +172,7 @@ def run(args) -> int:
         max_traces=args.traces, duration_s=args.duration, bell=bell if headless else None)
     first_run = _first_run(session.session_path.parent, session.session_path)
 
-    def on_term(signum, frame):
-        session.stop(f"signal {signal.Signals(signum).name}")
-
-    try:
-        previous = signal.signal(signal.SIGTERM, on_term)
-    except ValueError:          # not the main thread (embedded use): no handler to install
-        previous = None
-    try:
+    def show() -> int:
         session.start()
         print(f"tankside: recording to {session.session_path}", file=sys.stderr, flush=True)
         if headless:
@@ -188,24 +181,8 @@ def run(args) -> int:
                       "hurt people and destroy hydrophones; safe-off is a convenience, never "
                       "the only interlock. tankside does not replace calibrated compliance "
                       "measurements, local rules or licensed practice.", flush=True)
-            code = run_headless(session, status_every_s=args.status_every)
-        else:
-            try:
-                code = dashboard(session, first_run_notice=first_run)
-            finally:
-                if session.running:
-                    session.stop("dashboard closed")
-                session.wait()
-            code = session.exit_code if session.exit_code else code
-    except KeyboardInterrupt:
-        session.stop("interrupted (Ctrl-C)")
-        session.wait()
-        code = session.exit_code
-    finally:
-        if previous is not None:
-            signal.signal(signal.SIGTERM, previous)
-        if hasattr(session, "close"):
-            session.close()     # what the session process printed, if anything
-    if session.message_for_operator:
-        print(f"tankside: {session.message_for_operator}", file=sys.stderr)
-    return int(code)
+            return run_headless(session, status_every_s=args.status_every)
+        code = dashboard(session, first_run_notice=first_run)
+        return session.exit_code if session.exit_code else code
+
+    return run_to_end(session, show, leftover_reason="dashboard closed")

@@ -76,7 +76,7 @@ async def _window(sleep) -> tuple[float, float]:
 def run_phase(phase: str, bench_path: str, db: Path) -> float:
     bench = load_bench(bench_path, {})
     in_child = phase in ("dashboard", "child, no display")
-    session = (SessionProcess(SessionSpec(bench, db)) if in_child
+    session = (SessionProcess(SessionSpec(bench, db), report=io.StringIO()) if in_child
                else LiveSession.from_bench(bench, session_path=db))
     session.start()
 
@@ -104,8 +104,6 @@ def run_phase(phase: str, bench_path: str, db: Path) -> float:
         if session.running:
             session.stop("benchmark")
         session.wait(30)
-        if in_child:
-            session.close(report=io.StringIO())
     return _converted_in(db, window)
 
 
