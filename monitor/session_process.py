@@ -133,7 +133,7 @@ class SessionProcess:
         child_commands.close()
         child_snapshots.close()
         self._commands, self._snapshots = commands, snapshots
-        # the child's first word, or its exit; its last word before exiting comes first
+        # until the child's first message or its exit (a message sent before exiting is read)
         multiprocessing.connection.wait([commands, self._process.sentinel])
         try:
             kind, payload = commands.recv() if commands.poll() else ("gone", None)
