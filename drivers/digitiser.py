@@ -14,11 +14,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from tankside.drivers import ieee488
-from tankside.drivers.errors import InstrumentTimeout, NoTrigger, ProtocolError, SettingError
-from tankside.drivers.profile import Profile
-from tankside.drivers.scpi import ScpiSession
-from tankside.drivers.trace import RawTrace, count_at_rails
+from . import ieee488
+from .errors import InstrumentTimeout, NoTrigger, ProtocolError, SettingError
+from .profile import Profile
+from .scpi import ScpiSession
+from .trace import RawTrace, count_at_rails
 
 
 @dataclass(frozen=True)

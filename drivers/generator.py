@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import math
 
-from tankside.drivers import ieee488
-from tankside.drivers.errors import ProtocolError, SettingError
-from tankside.drivers.profile import Profile
-from tankside.drivers.scpi import ScpiSession
+from . import ieee488
+from .errors import ProtocolError, SettingError
+from .profile import Profile
+from .scpi import ScpiSession
 
 
 def _positive(name: str, value) -> float:

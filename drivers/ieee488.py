@@ -16,7 +16,7 @@ from __future__ import annotations
 import math
 import re
 
-from tankside.drivers.errors import ProtocolError
+from .errors import ProtocolError
 
 #: Longest payload length a header may announce (9 digits) - IEEE 488.2 8.7.9.
 MAX_HEADER_DIGITS = 9

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from tankside.drivers.errors import ProfileError
+from .errors import ProfileError
 
 PROFILE_DIR = Path(__file__).with_name("profiles")
 

@@ -19,15 +19,15 @@ from collections.abc import Callable
 
 from pyvisa import constants
 
-from tankside.drivers import ieee488
-from tankside.drivers.errors import (
+from . import ieee488
+from .errors import (
     ConnectionLost,
     InstrumentError,
     InstrumentReportedError,
     InstrumentTimeout,
     ProtocolError,
 )
-from tankside.drivers.visa import (
+from .visa import (
     DirectReader,
     backend_session,
     flush_input,

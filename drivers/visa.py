@@ -15,7 +15,7 @@ import time
 import pyvisa
 from pyvisa import constants
 
-from tankside.drivers.errors import ConnectionLost, InstrumentError, InstrumentTimeout
+from .errors import ConnectionLost, InstrumentError, InstrumentTimeout
 
 # VISA status codes that mean the link itself is gone (VPP-4.3 status names).
 _LINK_GONE = {

@@ -15,9 +15,9 @@ import argparse
 import importlib
 import sys
 
-from tankside.drivers.errors import InstrumentError
-from tankside.monitor import __version__
-from tankside.monitor.errors import StoreError, TanksideError
+from ..drivers.errors import InstrumentError
+from . import __version__
+from .errors import StoreError, TanksideError
 
 EXIT_OK = 0
 EXIT_STOPPED_BY_RULE = 1

@@ -12,7 +12,7 @@ import sys
 import time
 from typing import TextIO
 
-from tankside.monitor.snapshot import AlertView, Snapshot
+from .live.snapshot import AlertView, Snapshot
 
 
 def fmt_si(value: float, unit: str) -> str:

@@ -16,12 +16,12 @@ import threading
 import time
 from pathlib import Path
 
-from tankside.simulators.digitiser import SimulatedDigitiser
-from tankside.simulators.faults import FaultPlan
-from tankside.simulators.generator import SimulatedGenerator
-from tankside.simulators.hydrophone import DEMO_CALIBRATION_PATH
-from tankside.simulators.scene import Drive, Scene, SceneParameters
-from tankside.simulators.server import LOOPBACK, InstrumentServer
+from .digitiser import SimulatedDigitiser
+from .faults import FaultPlan
+from .generator import SimulatedGenerator
+from .hydrophone import DEMO_CALIBRATION_PATH
+from .scene import Drive, Scene, SceneParameters
+from .server import LOOPBACK, InstrumentServer
 
 PROFILE_DIR = Path(__file__).resolve().parent / "profiles"
 DIGITISER_PROFILE_PATH = PROFILE_DIR / "sim-digitiser.toml"
@@ -142,7 +142,7 @@ class SimulatedBench:
 
     # ------------------------------------------------------------ bench file
     def bench_file_text(self, *, session_folder: str = "sessions") -> str:
-        """The bench TOML (the layout tankside.monitor.benchfile reads) for this bench, as text."""
+        """The bench TOML (the layout tankside.monitor.live.benchfile reads) for this bench, as text."""
         d = self.scene.drive
         s = BENCH_DEFAULTS
         return "\n".join([

@@ -47,8 +47,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from tankside.simulators.scene import Scene
-from tankside.simulators.scpi import (
+from .scene import Scene
+from .scpi import (
     ScpiDevice,
     ScpiError,
     expect_args,

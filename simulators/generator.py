@@ -19,8 +19,8 @@ than its period gives -221 (settings conflict).
 
 from __future__ import annotations
 
-from tankside.simulators.scene import Drive, Scene
-from tankside.simulators.scpi import (
+from .scene import Drive, Scene
+from .scpi import (
     ScpiDevice,
     ScpiError,
     expect_args,

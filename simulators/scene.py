@@ -43,7 +43,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.special import jv
 
-from tankside.simulators.hydrophone import HydrophoneModel
+from .hydrophone import HydrophoneModel
 
 
 @dataclass(frozen=True)

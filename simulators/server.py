@@ -15,8 +15,8 @@ import socket
 import threading
 from collections.abc import Iterable
 
-from tankside.simulators.faults import FaultPlan, apply_block_fault
-from tankside.simulators.scpi import ScpiDevice
+from .faults import FaultPlan, apply_block_fault
+from .scpi import ScpiDevice
 
 LOOPBACK = "127.0.0.1"
 MAX_LINE_BYTES = 1 << 20

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from tankside.monitor.alerts import AlertConfig, RuleEngine, TraceObservation
+from tankside.monitor.live.rules import AlertConfig, RuleEngine, TraceObservation
 
 
 def result(p_c=1.0e6, p_r=0.8e6, **extra):

@@ -1,4 +1,4 @@
-"""A deterministic stand-in for tankside.monitor.pipeline.LiveSession that feeds the dashboard.
+"""A deterministic stand-in for tankside.monitor.live.session.LiveSession that feeds the dashboard.
 
 Data are invented for tests only: a 2.5 MHz tone burst with a little asymmetry (as a
 mildly nonlinear field would show), its spectrum, an invented smooth hydrophone
@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from tankside.monitor.snapshot import (
+from tankside.monitor.live.snapshot import (
     FIGURES,
     AlertView,
     InstrumentView,

@@ -5,7 +5,7 @@ from __future__ import annotations
 import time
 from pathlib import Path
 
-from tankside.monitor.store import SessionReader
+from tankside.monitor.record.store import SessionReader
 
 
 def wait_for(predicate, timeout_s: float = 20.0, what: str = "a condition", *,

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from tankside.drivers.trace import RawTrace, count_at_rails
-from tankside.monitor.store import SessionStore, session_metadata
+from tankside.monitor.record.store import SessionStore, session_metadata
 
 RAILS = {"int8": (-128, 127), "int16": (-32768, 32767), "float32": (-1.0, 1.0)}
 

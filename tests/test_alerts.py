@@ -16,15 +16,15 @@ import pytest
 from alert_samples import engine, obs, result
 
 from tankside.drivers.trace import RawTrace, count_at_rails
-from tankside.monitor import alerts
-from tankside.monitor.alerts import (
+from tankside.monitor.errors import ConfigError, TanksideError
+from tankside.monitor.live import rules as alerts
+from tankside.monitor.live.autorange import range_after
+from tankside.monitor.live.rules import (
     RULES,
     AlertConfig,
     TickObservation,
     observation_from_trace,
 )
-from tankside.monitor.autorange import range_after
-from tankside.monitor.errors import ConfigError, TanksideError
 
 
 def fired(firings, rule):

@@ -7,8 +7,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from tankside.monitor.alerts import Firing
-from tankside.monitor.autorange import next_range, range_after
+from tankside.monitor.live.autorange import next_range, range_after
+from tankside.monitor.live.rules import Firing
 
 # A 1-2-5 sequence of full-scale spans (common practice for digitiser front ends).
 RANGES_V = [0.02, 0.05, 0.1, 0.2, 0.5, 1.0, 2.0, 5.0]

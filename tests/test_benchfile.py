@@ -6,8 +6,8 @@ from pathlib import Path
 
 import pytest
 
-from tankside.monitor.benchfile import load_bench, merge_overrides
 from tankside.monitor.errors import ConfigError
+from tankside.monitor.live.benchfile import load_bench, merge_overrides
 
 CAL_TEXT = Path(__file__).resolve().parents[1] / "simulators" / "data" / "demo-hydrophone.csv"
 

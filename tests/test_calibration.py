@@ -8,7 +8,7 @@ import scipy.signal
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from tankside.monitor.calibration import (
+from tankside.monitor.acoustics.calibration import (
     db_re_1v_per_upa_to_v_per_pa,
     load_calibration,
     minimum_phase_rad,

@@ -8,7 +8,7 @@ import scipy.signal
 
 from tankside.monitor.cli import main
 from tankside.monitor.errors import TraceFileError
-from tankside.monitor.tracefile import parse_trace, read_trace, write_trace
+from tankside.monitor.record.tracefile import parse_trace, read_trace, write_trace
 
 DT = 4e-9
 M0 = 1e-7

@@ -366,8 +366,8 @@ def quick_keys(monkeypatch):
 
 @pytest.fixture
 def live(tmp_path, quick_keys):
-    from tankside.monitor.benchfile import load_bench
-    from tankside.monitor.pipeline import LiveSession
+    from tankside.monitor.live.benchfile import load_bench
+    from tankside.monitor.live.session import LiveSession
     from tankside.simulators.bench import SimulatedBench
 
     with SimulatedBench(seed=5, trigger_period_s=0.02) as bench:
@@ -393,7 +393,7 @@ async def _until(pilot, condition, timeout_s: float = 10.0) -> None:
 
 @sync
 async def test_live_bench_keys_reach_the_session_and_its_file(live, tmp_path):
-    from tankside.monitor.store import SessionReader
+    from tankside.monitor.record.store import SessionReader
 
     bench, session = live
     app = DashboardApp(session, first_run_notice=False, snapshot_dir=tmp_path / "snaps")

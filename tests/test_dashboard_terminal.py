@@ -22,7 +22,7 @@ import time
 import pytest
 from polling import committed_traces, wait_for
 
-from tankside.monitor.store import SessionReader
+from tankside.monitor.record.store import SessionReader
 
 pytestmark = pytest.mark.skipif(sys.platform == "win32", reason="POSIX pseudo-terminals")
 

@@ -4,13 +4,13 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from tankside.monitor.calibration import parse_calibration
-from tankside.monitor.chain import RESULT_FIELDS, Converter, UnusableTraceError
-from tankside.monitor.deconvolve import band_window
+from tankside.monitor.acoustics.calibration import parse_calibration
+from tankside.monitor.acoustics.converter import RESULT_FIELDS, Converter, UnusableTraceError
+from tankside.monitor.acoustics.deconvolve import band_window
+from tankside.monitor.acoustics.loading import Loading
+from tankside.monitor.acoustics.pulse import pulse_parameters
+from tankside.monitor.acoustics.settings import ConversionSettings
 from tankside.monitor.errors import OutOfBandError, TanksideError
-from tankside.monitor.loading import Loading
-from tankside.monitor.pulse import pulse_parameters
-from tankside.monitor.settings import ConversionSettings
 
 DT = 4e-9
 N = 4096

@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 
 from tankside.monitor.cli import EXIT_USAGE, main
-from tankside.monitor.store import SessionReader
+from tankside.monitor.record.store import SessionReader
 from tankside.simulators.hydrophone import DEMO_CALIBRATION_PATH
 
 

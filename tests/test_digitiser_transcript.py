@@ -12,7 +12,7 @@ from tankside.drivers.digitiser import Digitiser, DigitiserSettings, decode_code
 from tankside.drivers.errors import NoTrigger, ProtocolError, SettingError
 from tankside.drivers.profile import load_profile
 from tankside.drivers.scpi import ScpiSession
-from tests.transcript import CLEAR, FakeResource
+from transcript import CLEAR, FakeResource
 
 PROFILE = load_profile("generic-scpi-digitiser")
 OK = (b"SYST:ERR?\n", b'0,"No error"\n')

@@ -24,8 +24,8 @@ from tankside.drivers.generator import Generator
 from tankside.drivers.profile import load_profile
 from tankside.drivers.scpi import ScpiSession
 from tankside.drivers.visa import backend_socket, open_resource
-from tankside.monitor.benchfile import InstrumentConfig
-from tankside.monitor.instruments import digitiser_opener
+from tankside.monitor.live.benchfile import InstrumentConfig
+from tankside.monitor.live.instruments import digitiser_opener
 from tankside.simulators.bench import SimulatedBench
 
 SETTINGS = DigitiserSettings(record_length=2000, sample_rate_hz=250e6, range_v=0.1,

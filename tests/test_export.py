@@ -13,10 +13,10 @@ import pytest
 from session_samples import CAL_TEXT, fake_result, make_raw, write_session
 
 from tankside.monitor.cli import EXIT_OK, EXIT_USAGE, main
-from tankside.monitor.export import RESULTS_CSV_COLUMNS
-from tankside.monitor.store import SessionReader, SessionStore, session_metadata
-from tankside.monitor.store_schema import RESULT_NAMES
-from tankside.monitor.tracefile import read_trace
+from tankside.monitor.record.export import RESULTS_CSV_COLUMNS
+from tankside.monitor.record.schema import RESULT_NAMES
+from tankside.monitor.record.store import SessionReader, SessionStore, session_metadata
+from tankside.monitor.record.tracefile import read_trace
 
 
 @pytest.fixture

@@ -6,7 +6,7 @@ from tankside.drivers.errors import InstrumentReportedError, ProtocolError, Sett
 from tankside.drivers.generator import Generator
 from tankside.drivers.profile import parse_profile
 from tankside.drivers.scpi import ScpiSession
-from tests.transcript import FakeResource
+from transcript import FakeResource
 
 PROFILE = parse_profile("""
 [instrument]

@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 from tankside.drivers import ieee488
 from tankside.drivers.errors import InstrumentTimeout, ProtocolError
 from tankside.drivers.scpi import ScpiSession
-from tests.transcript import FakeResource
+from transcript import FakeResource
 
 
 class TestBlockHeader:

@@ -6,8 +6,8 @@ import math
 import numpy as np
 import pytest
 
+from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.errors import ConfigError
-from tankside.monitor.loading import Loading
 
 
 class TestWorkedValues:

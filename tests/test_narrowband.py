@@ -4,11 +4,15 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from tankside.monitor.calibration import parse_calibration
-from tankside.monitor.chain import Converter
-from tankside.monitor.loading import Loading
-from tankside.monitor.narrowband import SensitivityProfile, check_band_hz, narrowband_check
-from tankside.monitor.settings import ConversionSettings
+from tankside.monitor.acoustics.calibration import parse_calibration
+from tankside.monitor.acoustics.converter import Converter
+from tankside.monitor.acoustics.loading import Loading
+from tankside.monitor.acoustics.narrowband import (
+    SensitivityProfile,
+    check_band_hz,
+    narrowband_check,
+)
+from tankside.monitor.acoustics.settings import ConversionSettings
 
 M0 = 1e-7
 F = np.arange(0.5e6, 45e6 + 1, 0.1e6)

@@ -16,10 +16,10 @@ import numpy as np
 import pytest
 from polling import wait_for
 
-from tankside.monitor.benchfile import load_bench
 from tankside.monitor.headless import status_line
-from tankside.monitor.pipeline import LiveSession
-from tankside.monitor.store import SessionReader
+from tankside.monitor.live.benchfile import load_bench
+from tankside.monitor.live.session import LiveSession
+from tankside.monitor.record.store import SessionReader
 from tankside.simulators.bench import SimulatedBench
 
 FAST = {"digitiser.record_length": 2000, "digitiser.trigger_timeout_s": 0.5,

@@ -12,7 +12,7 @@ import pytest
 from alert_samples import engine, obs, result
 
 from tankside.drivers.trace import RawTrace, count_at_rails
-from tankside.monitor.alerts import TickObservation, observation_from_trace
+from tankside.monitor.live.rules import TickObservation, observation_from_trace
 
 SUPPRESSED = ("pr_drift", "conversion_failed", "narrowband_fail", "range_under_use")
 

@@ -16,13 +16,13 @@ import pytest
 from tankside.drivers.digitiser import DigitiserSettings
 from tankside.drivers.errors import ConnectionLost, InstrumentTimeout, NoTrigger
 from tankside.drivers.trace import RawTrace, count_at_rails
-from tankside.monitor.acquire import Link
-from tankside.monitor.alerts import AlertConfig, RuleEngine
 from tankside.monitor.cli import EXIT_INSTRUMENT, EXIT_OK, EXIT_STOPPED_BY_RULE, EXIT_STORE
 from tankside.monitor.errors import DiskFullError, OutOfBandError
-from tankside.monitor.pipeline import LiveSession
-from tankside.monitor.store import SessionReader, SessionStore
-from tankside.monitor.store_schema import RESULT_NAMES
+from tankside.monitor.live.acquisition import Link
+from tankside.monitor.live.rules import AlertConfig, RuleEngine
+from tankside.monitor.live.session import LiveSession
+from tankside.monitor.record.schema import RESULT_NAMES
+from tankside.monitor.record.store import SessionReader, SessionStore
 
 SENSITIVITY_V_PER_PA = 1e-7      # fake hydrophone: 0.1 V per MPa
 RANGES_V = (0.1, 0.2, 0.5, 1.0, 2.0)

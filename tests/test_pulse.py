@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from tankside.monitor.pulse import (
+from tankside.monitor.acoustics.pulse import (
     UnusableTraceError,
     awf_spectrum_hz,
     awf_zero_crossing_hz,

@@ -10,15 +10,15 @@ import numpy as np
 import pytest
 from session_samples import calibration_text, make_raw, zero_trace
 
-from tankside.monitor.calibration import load_calibration, parse_calibration
-from tankside.monitor.chain import RESULT_FIELDS, Converter
+from tankside.monitor.acoustics.calibration import load_calibration, parse_calibration
+from tankside.monitor.acoustics.converter import RESULT_FIELDS, Converter
+from tankside.monitor.acoustics.loading import Loading
+from tankside.monitor.acoustics.settings import ConversionSettings
 from tankside.monitor.cli import EXIT_OK, EXIT_USAGE, main
 from tankside.monitor.errors import ConfigError, TanksideError
-from tankside.monitor.loading import Loading
-from tankside.monitor.replay import conversion_inputs, replay_session, result_differences
-from tankside.monitor.settings import ConversionSettings
-from tankside.monitor.store import SessionReader, SessionStore, session_metadata
-from tankside.monitor.store_schema import EVENT_METHOD_CHANGE, META_REPLAY_OF
+from tankside.monitor.record.replay import conversion_inputs, replay_session, result_differences
+from tankside.monitor.record.schema import EVENT_METHOD_CHANGE, META_REPLAY_OF
+from tankside.monitor.record.store import SessionReader, SessionStore, session_metadata
 
 LOADING = Loading(hydrophone_capacitance_f=50e-12, cable_capacitance_f=100e-12,
                   input_capacitance_f=15e-12, preamp_gain_db=6.0)
@@ -114,7 +114,7 @@ class TestExactReplay:
 
 
 def test_method_schedule_by_seq_or_time():
-    from tankside.monitor.replay import _method_schedule, _requested_method
+    from tankside.monitor.record.replay import _method_schedule, _requested_method
 
     events = [
         {"kind": "mark", "seq": 1, "time_s": 10.0, "detail": {"note": "x"}},

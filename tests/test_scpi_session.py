@@ -20,8 +20,8 @@ from tankside.drivers.errors import (
 )
 from tankside.drivers.scpi import ScpiSession
 from tankside.drivers.visa import open_resource
-from tests.tcp_fixture import LineServer
-from tests.transcript import CLEAR, FakeResource, Late
+from tcp_fixture import LineServer
+from transcript import CLEAR, FakeResource, Late
 
 IDN = b"Tankside Labs,Bench Digitiser,0001,1.0\n"
 NO_ERROR = (b"SYST:ERR?\n", b'0,"No error"\n')

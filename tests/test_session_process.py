@@ -21,16 +21,16 @@ import pytest
 from polling import committed_traces, wait_for
 
 from tankside.drivers.errors import ConnectionLost, InstrumentError, InstrumentReportedError
-from tankside.monitor.benchfile import BenchConfig, load_bench
 from tankside.monitor.cli import EXIT_INSTRUMENT, EXIT_OK
 from tankside.monitor.errors import CalibrationError, ConfigError, TanksideError
-from tankside.monitor.session_process import (
+from tankside.monitor.live.benchfile import BenchConfig, load_bench
+from tankside.monitor.live.child import (
     SessionProcess,
     SessionSpec,
     session_for_display,
     transferable,
 )
-from tankside.monitor.store import SessionReader
+from tankside.monitor.record.store import SessionReader
 from tankside.simulators.bench import SimulatedBench
 
 FAST = {"digitiser.record_length": 2000, "digitiser.trigger_timeout_s": 0.5,
@@ -182,8 +182,8 @@ class TestEndings:
         script = textwrap.dedent(f"""
             import sys, time
             from pathlib import Path
-            from tankside.monitor.benchfile import BenchConfig, load_bench
-            from tankside.monitor.session_process import SessionProcess, SessionSpec
+            from tankside.monitor.live.benchfile import BenchConfig, load_bench
+            from tankside.monitor.live.child import SessionProcess, SessionSpec
             if __name__ == "__main__":
                 bench = load_bench({str(bench_path)!r}, {FAST!r})
                 session = SessionProcess(SessionSpec(bench, Path({str(db)!r})))

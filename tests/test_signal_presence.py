@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 import scipy.stats
 
-from tankside.monitor.signal_presence import (
+from tankside.monitor.acoustics.presence import (
     MAD_TO_SIGMA,
     pulse_presence,
     robust_sigma,

@@ -346,8 +346,8 @@ class TestAgainstTheSignalChain:
 
     @pytest.mark.parametrize("vpp, range_v, tolerance", [(2.0, 0.1, 0.01), (6.0, 0.5, 0.02)])
     def test_deconvolved_peaks_match_the_scene(self, vpp, range_v, tolerance):
-        from tankside.monitor.calibration import load_calibration
-        from tankside.monitor.chain import Converter
+        from tankside.monitor.acoustics.calibration import load_calibration
+        from tankside.monitor.acoustics.converter import Converter
         from tankside.simulators.hydrophone import DEMO_CALIBRATION_PATH
 
         clock = FakeClock()

@@ -82,7 +82,7 @@ class TestModel:
 
     def test_both_magnitude_forms_load_to_the_same_sensitivity(self, tmp_path):
         # Cross-check with the monitor's own calibration loader (written independently).
-        from tankside.monitor.calibration import load_calibration
+        from tankside.monitor.acoustics.calibration import load_calibration
 
         db = load_calibration(write_calibration_csv(tmp_path / "db.csv"))
         vpa = load_calibration(write_calibration_csv(tmp_path / "v.csv", magnitude="v_per_pa"))

@@ -19,15 +19,15 @@ import numpy as np
 import pytest
 from session_samples import CAL_TEXT, fake_result, make_raw, write_session
 
+from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.errors import DiskFullError, SessionFileError, StoreError
-from tankside.monitor.loading import Loading
-from tankside.monitor.store import SessionReader, SessionStore, session_metadata
-from tankside.monitor.store_schema import (
+from tankside.monitor.record.schema import (
     META_CALIBRATION_SHA256,
     META_CALIBRATION_TEXT,
     RESULT_NAMES,
     units_of,
 )
+from tankside.monitor.record.store import SessionReader, SessionStore, session_metadata
 
 TESTS = Path(__file__).parent
 
@@ -129,7 +129,7 @@ class TestRoundTrip:
         assert units_of("mechanical_index") == ""
 
     def test_result_columns_match_the_signal_chain(self):
-        chain = pytest.importorskip("tankside.monitor.chain")
+        chain = pytest.importorskip("tankside.monitor.acoustics.converter")
         assert tuple(chain.RESULT_FIELDS) == RESULT_NAMES
 
 
@@ -279,7 +279,7 @@ _WRITER = textwrap.dedent("""
     sys.path.insert(0, {tests!r})
     from session_samples import make_raw, fake_result
     from tankside.monitor.errors import DiskFullError, SessionFileError, StoreError
-    from tankside.monitor.store import SessionStore, session_metadata
+    from tankside.monitor.record.store import SessionStore, session_metadata
     mode, path = sys.argv[1], sys.argv[2]
     store = SessionStore.create(path, session_metadata(configuration={{}}, instruments={{}}))
     if mode == "fsize":

@@ -18,12 +18,12 @@ import time
 import numpy as np
 import pytest
 
-from tankside.monitor.benchfile import load_bench
-from tankside.monitor.chain import RESULT_FIELDS
+from tankside.monitor.acoustics.converter import RESULT_FIELDS
 from tankside.monitor.cli import EXIT_OK, EXIT_STORE, EXIT_USAGE, main
-from tankside.monitor.pipeline import LiveSession
-from tankside.monitor.store import SessionReader
-from tankside.monitor.tracefile import read_trace
+from tankside.monitor.live.benchfile import load_bench
+from tankside.monitor.live.session import LiveSession
+from tankside.monitor.record.store import SessionReader
+from tankside.monitor.record.tracefile import read_trace
 from tankside.simulators.bench import SimulatedBench
 
 FAST = {"digitiser.record_length": 2000, "digitiser.trigger_timeout_s": 0.5,

@@ -2,8 +2,8 @@
 
 import pytest
 
+from tankside.monitor.acoustics.water import Water, density_kg_per_m3, sound_speed_m_per_s
 from tankside.monitor.errors import ConfigError
-from tankside.monitor.water import Water, density_kg_per_m3, sound_speed_m_per_s
 
 
 def del_grosso_mader_1972(t):

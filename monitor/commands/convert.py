@@ -5,12 +5,12 @@ from __future__ import annotations
 import argparse
 import json
 
-from tankside.monitor.calibration import load_calibration
-from tankside.monitor.chain import Converter, TraceResult
-from tankside.monitor.commands.options import add_loading_options, loading_overrides
-from tankside.monitor.loading import Loading
-from tankside.monitor.settings import AWF_METHODS, METHODS, ConversionSettings
-from tankside.monitor.tracefile import read_trace, write_pressure
+from ..acoustics.calibration import load_calibration
+from ..acoustics.converter import Converter, TraceResult
+from ..acoustics.loading import Loading
+from ..acoustics.settings import AWF_METHODS, METHODS, ConversionSettings
+from ..record.tracefile import read_trace, write_pressure
+from .options import add_loading_options, loading_overrides
 
 
 def add_parser(subparsers) -> None:

@@ -12,8 +12,8 @@ import argparse
 import sys
 from pathlib import Path
 
-from tankside.monitor.commands.running import run_to_end
-from tankside.monitor.errors import ConfigError
+from ..errors import ConfigError
+from .running import run_to_end
 
 CAUTION = """\
 CAUTION: this demo drives a simulated bench with invented data. On a real bench,
@@ -57,10 +57,10 @@ def _first_run(folder: Path) -> bool:
 
 
 def run(args) -> int:
-    from tankside.monitor.benchfile import load_bench
-    from tankside.monitor.headless import run_headless
-    from tankside.monitor.session_process import session_for_display
-    from tankside.simulators.bench import SimulatedBench
+    from ...simulators.bench import SimulatedBench
+    from ..headless import run_headless
+    from ..live.benchfile import load_bench
+    from ..live.child import session_for_display
 
     if args.duration is not None and args.duration <= 0:
         raise ConfigError("--duration must be above 0 s")
@@ -92,7 +92,7 @@ def run(args) -> int:
 def _watch(session, bench_path: Path, *, headless: bool, first_run: bool, run_headless) -> int:
     dashboard = None
     if not headless:
-        from tankside.monitor.dashboard.app import run_dashboard as dashboard
+        from ..dashboard.app import run_dashboard as dashboard
 
     def show() -> int:
         if first_run or headless:

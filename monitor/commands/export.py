@@ -5,8 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 
-from tankside.monitor.commands.options import add_progress_options
-from tankside.monitor.errors import ConfigError
+from ..errors import ConfigError
+from .options import add_progress_options
 
 
 def add_parser(subparsers) -> argparse.ArgumentParser:
@@ -35,8 +35,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def run(args) -> int:
-    from tankside.monitor import export
-    from tankside.monitor.store import SessionReader
+    from ..record import export
+    from ..record.store import SessionReader
 
     if (args.trace is None) != (args.out is None):
         raise ConfigError("--trace SEQ and --out TRACE.csv go together")

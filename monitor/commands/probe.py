@@ -13,10 +13,10 @@ import argparse
 import time
 from dataclasses import dataclass
 
-from tankside.drivers import ieee488
-from tankside.drivers.errors import ConnectionLost, InstrumentError, NoTrigger
-from tankside.drivers.profile import Profile, load_profile
-from tankside.drivers.scpi import ScpiSession
+from ...drivers import ieee488
+from ...drivers.errors import ConnectionLost, InstrumentError, NoTrigger
+from ...drivers.profile import Profile, load_profile
+from ...drivers.scpi import ScpiSession
 
 EPILOG = """\
 results:
@@ -207,7 +207,7 @@ class _Prober:
                     self.rows.append(Row(key, self.profile.commands[key], "not tried",
                                          "use --acquire"))
             return
-        from tankside.drivers.digitiser import decode_codes
+        from ...drivers.digitiser import decode_codes
 
         arm = self.profile.command("arm_single", channel=1)
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from tankside.monitor.commands.options import add_progress_options
+from .options import add_progress_options
 
 METHODS = ("auto", "deconvolve", "narrowband")
 
@@ -35,7 +35,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def run(args) -> int:
-    from tankside.monitor.replay import replay_session
+    from ..record.replay import replay_session
 
     summary = replay_session(args.session, args.out, calibration_path=args.calibration,
                              method=args.method, force=args.force, check=args.check,

@@ -9,7 +9,7 @@ import sys
 import threading
 import time
 
-from tankside.monitor.errors import ConfigError
+from ..errors import ConfigError
 
 FAULT_KINDS = ("drop", "stall", "bad-block", "short-block", "miss", "error")
 
@@ -117,7 +117,7 @@ def arm(faults, parsed: list[tuple[str, str]], device: str) -> None:
 
 
 def run(args) -> int:
-    from tankside.simulators.bench import SimulatedBench
+    from ...simulators.bench import SimulatedBench
 
     parsed = [parse_fault(text) for text in args.inject]
     position = parse_position_mm(args.position_mm) if args.position_mm else None

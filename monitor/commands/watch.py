@@ -7,9 +7,9 @@ import sys
 import tomllib
 from pathlib import Path
 
-from tankside.monitor.commands.options import add_loading_options, loading_overrides
-from tankside.monitor.commands.running import run_to_end
-from tankside.monitor.errors import ConfigError
+from ..errors import ConfigError
+from .options import add_loading_options, loading_overrides
+from .running import run_to_end
 
 EPILOG = """\
 exit codes:
@@ -141,9 +141,9 @@ def _first_run(folder: Path, current: Path) -> bool:
 
 
 def run(args) -> int:
-    from tankside.monitor.benchfile import load_bench
-    from tankside.monitor.headless import run_headless
-    from tankside.monitor.session_process import session_for_display
+    from ..headless import run_headless
+    from ..live.benchfile import load_bench
+    from ..live.child import session_for_display
 
     if args.duration is not None and args.duration <= 0:
         raise ConfigError("--duration must be above 0 s")
@@ -154,7 +154,7 @@ def run(args) -> int:
     dashboard = None
     if not args.headless:
         try:
-            from tankside.monitor.dashboard.app import run_dashboard as dashboard
+            from ..dashboard.app import run_dashboard as dashboard
         except ImportError as err:
             print(f"tankside: dashboard not available ({err}); running headless",
                   file=sys.stderr)

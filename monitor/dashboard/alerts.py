@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from textual.strip import Strip
 
-from tankside.monitor.dashboard.panel import LinePanel, text_strips
-from tankside.monitor.dashboard.units import wall_time
-from tankside.monitor.snapshot import AlertView, Snapshot
+from ..live.snapshot import AlertView, Snapshot
+from .panel import LinePanel, text_strips
+from .units import wall_time
 
 SEVERITY_STYLE = {
     "info": ("·", "#87b8d8"),

@@ -15,19 +15,19 @@ from textual.binding import Binding
 from textual.containers import Horizontal
 from textual.widgets import Footer
 
-from tankside.drivers.errors import InstrumentError
-from tankside.monitor.dashboard.alerts import AlertList, open_alerts
-from tankside.monitor.dashboard.banner import Banner
-from tankside.monitor.dashboard.caution import CautionScreen
-from tankside.monitor.dashboard.figures import RunningFigures
-from tankside.monitor.dashboard.marknote import MarkNoteScreen
-from tankside.monitor.dashboard.saving import write_columns_csv
-from tankside.monitor.dashboard.spectrum import SpectrumView
-from tankside.monitor.dashboard.status import BenchStatus
-from tankside.monitor.dashboard.units import clock
-from tankside.monitor.dashboard.waveform import PressureTrace
-from tankside.monitor.errors import TanksideError
-from tankside.monitor.snapshot import Snapshot
+from ...drivers.errors import InstrumentError
+from ..errors import TanksideError
+from ..live.snapshot import Snapshot
+from .alerts import AlertList, open_alerts
+from .banner import Banner
+from .caution import CautionScreen
+from .figures import RunningFigures
+from .marknote import MarkNoteScreen
+from .saving import write_columns_csv
+from .spectrum import SpectrumView
+from .status import BenchStatus
+from .units import clock
+from .waveform import PressureTrace
 
 REFRESH_HZ = 10.0
 METHODS = ("auto", "deconvolve", "narrowband")
@@ -37,7 +37,7 @@ STATE_STYLE = {
 }
 STOP_WAIT_S = 30.0
 # `watch` and `demo` run the session in a process of its own
-# (tankside.monitor.session_process). Where threads that answer instruments share
+# (tankside.monitor.live.child). Where threads that answer instruments share
 # this process with the display (a LiveSession given directly, the demo's simulated
 # instruments), each blocking read that returns while the display is drawing waits
 # up to the switch interval for the GIL: 1 ms instead of the default 5 ms.

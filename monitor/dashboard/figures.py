@@ -5,10 +5,10 @@ from __future__ import annotations
 import numpy as np
 from textual.strip import Strip
 
-from tankside.monitor.dashboard.panel import LinePanel, text_strips
-from tankside.monitor.dashboard.plotgrid import column_extents
-from tankside.monitor.dashboard.units import DISPLAY_UNITS, in_display_unit, number
-from tankside.monitor.snapshot import FIGURES, RunningFigure, Snapshot
+from ..live.snapshot import FIGURES, RunningFigure, Snapshot
+from .panel import LinePanel, text_strips
+from .plotgrid import column_extents
+from .units import DISPLAY_UNITS, in_display_unit, number
 
 _LEVELS = " ▁▂▃▄▅▆▇█"
 HEAD = "#8a9aa6"

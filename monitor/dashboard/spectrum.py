@@ -6,14 +6,14 @@ import math
 
 import numpy as np
 
-from tankside.monitor.dashboard.panel import LinePanel
-from tankside.monitor.dashboard.plotgrid import (
+from ..live.snapshot import Snapshot
+from .panel import LinePanel
+from .plotgrid import (
     PlotGrid,
     column_extents,
     message_strips,
     to_steps,
 )
-from tankside.monitor.snapshot import Snapshot
 
 BARS = "#b48ee0"
 SENSITIVITY = "#e6d36a"

@@ -7,9 +7,9 @@ import os
 
 from textual.strip import Strip
 
-from tankside.monitor.dashboard.panel import LinePanel, text_strips
-from tankside.monitor.dashboard.units import size, volts
-from tankside.monitor.snapshot import Snapshot
+from ..live.snapshot import Snapshot
+from .panel import LinePanel, text_strips
+from .units import size, volts
 
 KEY = "#8a9aa6"
 VALUE = "#d7dde2"

@@ -6,15 +6,15 @@ import math
 
 import numpy as np
 
-from tankside.monitor.dashboard.panel import LinePanel
-from tankside.monitor.dashboard.plotgrid import (
+from ..live.snapshot import Snapshot
+from .panel import LinePanel
+from .plotgrid import (
     PlotGrid,
     column_extents,
     message_strips,
     to_steps,
 )
-from tankside.monitor.dashboard.units import number
-from tankside.monitor.snapshot import Snapshot
+from .units import number
 
 TRACE = "#6fd3b8"
 COMPRESSION = "#ff9466"

@@ -36,11 +36,11 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from tankside.monitor.benchfile import load_bench  # noqa: E402
 from tankside.monitor.dashboard.app import DashboardApp  # noqa: E402
-from tankside.monitor.pipeline import LiveSession  # noqa: E402
-from tankside.monitor.session_process import SessionProcess, SessionSpec  # noqa: E402
-from tankside.monitor.store import SessionReader  # noqa: E402
+from tankside.monitor.live.benchfile import load_bench  # noqa: E402
+from tankside.monitor.live.child import SessionProcess, SessionSpec  # noqa: E402
+from tankside.monitor.live.session import LiveSession  # noqa: E402
+from tankside.monitor.record.store import SessionReader  # noqa: E402
 from tankside.simulators.bench import SimulatedBench  # noqa: E402
 
 WARMUP_S = 2.0

@@ -29,10 +29,10 @@ from pathlib import Path
 
 import numpy as np
 
-from tankside.monitor.benchfile import load_bench
 from tankside.monitor.headless import run_headless
-from tankside.monitor.pipeline import LiveSession
-from tankside.monitor.store import SessionReader
+from tankside.monitor.live.benchfile import load_bench
+from tankside.monitor.live.session import LiveSession
+from tankside.monitor.record.store import SessionReader
 from tankside.simulators.bench import SimulatedBench
 
 N_SAMPLES = 10_000

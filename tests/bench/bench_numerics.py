@@ -13,11 +13,11 @@ import time
 import numpy as np
 import scipy.fft
 
-from tankside.monitor.calibration import parse_calibration
-from tankside.monitor.chain import Converter
-from tankside.monitor.deconvolve import deconvolve
-from tankside.monitor.loading import Loading
-from tankside.monitor.settings import ConversionSettings
+from tankside.monitor.acoustics.calibration import parse_calibration
+from tankside.monitor.acoustics.converter import Converter
+from tankside.monitor.acoustics.deconvolve import deconvolve
+from tankside.monitor.acoustics.loading import Loading
+from tankside.monitor.acoustics.settings import ConversionSettings
 
 DT_S = 4e-9
 

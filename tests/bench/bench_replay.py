@@ -18,12 +18,12 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from session_samples import calibration_text, make_raw  # noqa: E402
 
-from tankside.monitor.calibration import load_calibration  # noqa: E402
-from tankside.monitor.chain import Converter  # noqa: E402
-from tankside.monitor.export import export_hdf5, export_results_csv  # noqa: E402
-from tankside.monitor.replay import replay_session  # noqa: E402
-from tankside.monitor.settings import ConversionSettings  # noqa: E402
-from tankside.monitor.store import SessionReader, SessionStore, session_metadata  # noqa: E402
+from tankside.monitor.acoustics.calibration import load_calibration  # noqa: E402
+from tankside.monitor.acoustics.converter import Converter  # noqa: E402
+from tankside.monitor.acoustics.settings import ConversionSettings  # noqa: E402
+from tankside.monitor.record.export import export_hdf5, export_results_csv  # noqa: E402
+from tankside.monitor.record.replay import replay_session  # noqa: E402
+from tankside.monitor.record.store import SessionReader, SessionStore, session_metadata  # noqa: E402
 
 RATE_HZ = 50.0
 N_SAMPLES = 10_000

@@ -1,5 +1,5 @@
 """Reading a session file back: :class:`SessionReader` (also importable from
-:mod:`tankside.monitor.store`).
+:mod:`tankside.monitor.record.store`).
 
 The file is opened read-only (``mode=ro``), so a session can be read while another
 process is still writing it; traces are read lazily in small chunks.
@@ -17,9 +17,9 @@ from pathlib import Path
 
 import numpy as np
 
-from tankside.drivers.trace import RawTrace
-from tankside.monitor.errors import SessionFileError, StoreError
-from tankside.monitor.store_schema import (
+from ...drivers.trace import RawTrace
+from ..errors import SessionFileError, StoreError
+from .schema import (
     BOOL_RESULTS,
     FORMAT_TAG,
     LAYOUT_VERSION,

@@ -2,7 +2,7 @@
 
 :class:`SessionStore` records a live session (or a replay) as it happens;
 :class:`SessionReader` reads one back, also while another process is still writing
-it. The file layout and the metadata keys are in :mod:`tankside.monitor.store_schema`.
+it. The file layout and the metadata keys are in :mod:`tankside.monitor.record.schema`.
 
 Durability
 ----------
@@ -28,11 +28,11 @@ from pathlib import Path
 
 import numpy as np
 
-from tankside.drivers.trace import RawTrace
-from tankside.monitor import __version__
-from tankside.monitor.errors import DiskFullError, SessionFileError, StoreError
-from tankside.monitor.store_reader import SessionReader, StoredTrace, session_size_bytes
-from tankside.monitor.store_schema import (
+from ...drivers.trace import RawTrace
+from .. import __version__
+from ..errors import DiskFullError, SessionFileError, StoreError
+from .reader import SessionReader, StoredTrace, session_size_bytes
+from .schema import (
     BOOL_RESULTS,
     DDL,
     FORMAT_TAG,

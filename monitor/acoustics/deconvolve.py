@@ -11,7 +11,7 @@ is 0 outside; the band is always inside the calibrated band, so no extrapolated
 sensitivity is ever divided by. ``eps`` is the Tikhonov (Wiener-type) weight.
 
 Time dependence ``exp(+j 2 pi f t)`` as :func:`numpy.fft.rfft`; see
-:mod:`tankside.monitor.calibration`.
+:mod:`tankside.monitor.acoustics.calibration`.
 
 References
 ----------
@@ -30,10 +30,10 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.fft
 
-from tankside.monitor.calibration import Calibration
-from tankside.monitor.errors import ConfigError
-from tankside.monitor.loading import Loading
-from tankside.monitor.settings import ConversionSettings
+from ..errors import ConfigError
+from .calibration import Calibration
+from .loading import Loading
+from .settings import ConversionSettings
 
 
 def loaded_sensitivity(calibration: Calibration, loading: Loading,

@@ -30,7 +30,7 @@ Layout (every section except ``[digitiser]`` and ``[calibration]`` is optional):
     [water]
     temperature_c = 20.0
 
-    [alerts]               # rule thresholds and actions (tankside.monitor.alerts)
+    [alerts]               # rule thresholds and actions (tankside.monitor.live.rules)
 
     [session]
     folder = "sessions"
@@ -52,7 +52,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from tankside.monitor.errors import ConfigError
+from ..errors import ConfigError
 
 # Keys of [digitiser] and [generator] that are about the connection, not instrument settings.
 _CONNECTION_KEYS = {"resource": str, "profile": str, "visa_library": str, "timeout_s": float}
@@ -121,13 +121,13 @@ class BenchConfig:
 
     def digitiser_settings(self):
         """The :class:`tankside.drivers.digitiser.DigitiserSettings` of ``[digitiser]``."""
-        from tankside.drivers.digitiser import DigitiserSettings
+        from ...drivers.digitiser import DigitiserSettings
 
         return _build(DigitiserSettings, self.digitiser_table, self.source, "digitiser")
 
     def calibration(self):
         """Load the calibration file (raises CalibrationError naming file and line)."""
-        from tankside.monitor.calibration import load_calibration
+        from ..acoustics.calibration import load_calibration
 
         if not self.calibration_path.is_file():
             raise ConfigError(f"{self.source}: [calibration] file: no such file "
@@ -135,17 +135,17 @@ class BenchConfig:
         return load_calibration(self.calibration_path)
 
     def loading(self):
-        from tankside.monitor.loading import Loading
+        from ..acoustics.loading import Loading
 
         return _build(Loading, self.loading_table, self.source, "loading")
 
     def conversion_settings(self):
-        from tankside.monitor.settings import ConversionSettings
+        from ..acoustics.settings import ConversionSettings
 
         return _build(ConversionSettings, self.conversion_table, self.source, "conversion")
 
     def alert_config(self):
-        from tankside.monitor.alerts import AlertConfig
+        from .rules import AlertConfig
 
         try:
             return AlertConfig.from_table(copy.deepcopy(self.alerts_table))
@@ -153,8 +153,8 @@ class BenchConfig:
             raise ConfigError(f"{self.source}: [alerts] {err}") from err
 
     def converter(self):
-        """A :class:`tankside.monitor.chain.Converter` for this bench."""
-        from tankside.monitor.chain import Converter
+        """A :class:`tankside.monitor.acoustics.converter.Converter` for this bench."""
+        from ..acoustics.converter import Converter
 
         return Converter(self.calibration(), loading=self.loading(),
                          settings=self.conversion_settings(), temperature_c=self.temperature_c)

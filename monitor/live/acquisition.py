@@ -23,14 +23,14 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
-from tankside.drivers.errors import (
+from ...drivers.errors import (
     ConnectionLost,
     InstrumentError,
     InstrumentTimeout,
     NoTrigger,
     ProtocolError,
 )
-from tankside.monitor.store_schema import EVENT_DRIVE_OFF, EVENT_DRIVE_ON
+from ..record.schema import EVENT_DRIVE_OFF, EVENT_DRIVE_ON
 
 BACKOFF_S = (0.1, 0.2, 0.5, 1.0, 2.0, 5.0)
 DRIVE_POLL_S = 1.0          # output-state query interval (cheap; not one per trace)

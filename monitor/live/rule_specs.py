@@ -1,7 +1,7 @@
 """The alert rules' settings: names, defaults, units, and parsing of the ``[alerts]`` table.
 
 :data:`RULES` is the single source of truth for every rule's default severity,
-actions and thresholds; the table in :mod:`tankside.monitor.alerts` documents it
+actions and thresholds; the table in :mod:`tankside.monitor.live.rules` documents it
 (and a test keeps the two equal). :meth:`AlertConfig.from_table` turns the bench
 file's ``[alerts]`` table into an :class:`AlertConfig`, naming the key of anything
 it cannot use.
@@ -13,8 +13,8 @@ import math
 from dataclasses import dataclass, field
 from types import MappingProxyType
 
-from tankside.monitor.errors import ConfigError
-from tankside.monitor.signal_presence import DEFAULT_EDGE_FRACTION, DEFAULT_FACTOR
+from ..acoustics.presence import DEFAULT_EDGE_FRACTION, DEFAULT_FACTOR
+from ..errors import ConfigError
 
 SEVERITIES = ("info", "warning", "critical")
 ACTIONS = ("record", "bell", "auto-range", "safe-off", "stop")

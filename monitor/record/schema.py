@@ -8,7 +8,7 @@ A session file is a run record in five parts:
     everything needed to reproduce the run: the full configuration, instrument
     identities, the calibration file verbatim with its sha256, the electrical loading,
     the conversion settings and the water temperature. Keys are the ``META_*`` names
-    below; :func:`tankside.monitor.store.session_metadata` builds the dict.
+    below; :func:`tankside.monitor.record.store.session_metadata` builds the dict.
     This and every other ``*_json`` column is strict JSON: a NaN or infinity in a
     recorded value is written as null.
 ``descriptors`` (one row per recorded quantity)
@@ -64,7 +64,7 @@ EVENT_SAFE_OFF = "safe-off"
 EVENT_DRIVE_ON = "drive-on"
 EVENT_DRIVE_OFF = "drive-off"
 
-# -- result columns, in the order of tankside.monitor.chain.RESULT_FIELDS ---------------
+# -- result columns, in the order of tankside.monitor.acoustics.converter.RESULT_FIELDS ---------------
 RESULT_COLUMNS: tuple[tuple[str, str], ...] = (
     ("method", "TEXT"),
     ("peak_compressional_pa", "REAL"),

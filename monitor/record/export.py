@@ -9,7 +9,7 @@ Results CSV
 
 Trace CSV
     ``time_s,voltage_v``, the form ``tankside convert`` reads, written by
-    :func:`tankside.monitor.tracefile.write_trace`: sample times relative to the trigger
+    :func:`tankside.monitor.record.tracefile.write_trace`: sample times relative to the trigger
     and volts (``codes * volts_per_code + offset_v``), with ``#`` comment lines naming
     the session, the trace and its exact time step.
 
@@ -51,15 +51,15 @@ from pathlib import Path
 
 import numpy as np
 
-from tankside.monitor.errors import ConfigError
-from tankside.monitor.progress import Progress
-from tankside.monitor.store import SessionReader, strict_json
-from tankside.monitor.store_schema import (
+from ..errors import ConfigError
+from ..progress import Progress
+from .schema import (
     META_CALIBRATION_SHA256,
     RESULT_COLUMNS,
     RESULT_NAMES,
     units_of,
 )
+from .store import SessionReader, strict_json
 
 __all__ = ["export_results_csv", "export_trace_csv", "export_calibration", "export_hdf5",
            "RESULTS_CSV_COLUMNS"]
@@ -97,7 +97,7 @@ def export_results_csv(reader: SessionReader, out, *, progress: bool | None = No
 
 def export_trace_csv(reader: SessionReader, seq: int, out) -> int:
     """Write trace ``seq`` in volts as ``time_s,voltage_v``; returns the sample count."""
-    from tankside.monitor.tracefile import write_trace
+    from .tracefile import write_trace
 
     raw = reader.trace(seq).raw
     write_trace(out, raw.volts(), raw.dt_s, raw.t0_s, comments=[

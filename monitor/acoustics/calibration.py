@@ -31,7 +31,7 @@ from pathlib import Path
 
 import numpy as np
 
-from tankside.monitor.errors import CalibrationError
+from ..errors import CalibrationError
 
 #: Fewest calibration points accepted (interpolation and the phase estimate need a band).
 MIN_POINTS = 3

@@ -9,8 +9,8 @@ Three threads, joined by bounded queues::
 * Processing converts each trace (``Converter.process``), asks the rules
   (``RuleEngine.on_trace``, and ``on_tick`` about once a second), hands the actions
   to the acquisition thread, updates the running figures and publishes a new
-  :class:`~tankside.monitor.snapshot.Snapshot` (one reference assignment).
-* The writer owns the :class:`~tankside.monitor.store.SessionStore`.
+  :class:`~tankside.monitor.live.snapshot.Snapshot` (one reference assignment).
+* The writer owns the :class:`~tankside.monitor.record.store.SessionStore`.
 
 Safe-off ordering: after putting trace N in the queue, the acquisition thread waits
 until processing has judged trace N (and queued its actions) before it acquires
@@ -19,10 +19,10 @@ this costs little, and a safe-off decided on trace N always comes before trace N
 
 No pulse, drive off: the generator's output state arrives as ``drive-on`` /
 ``drive-off`` events in order with the traces, and each trace gets a pulse-presence
-verdict (:mod:`tankside.monitor.signal_presence`). A trace with no pulse, or acquired
+verdict (:mod:`tankside.monitor.acoustics.presence`). A trace with no pulse, or acquired
 with the output off, is still stored and converted, flagged (``no_pulse``,
 ``drive_off``) and shown, but kept out of the running figures; the rules do not judge
-drift, conversion, narrowband or range use on it (see :mod:`tankside.monitor.alerts`).
+drift, conversion, narrowband or range use on it (see :mod:`tankside.monitor.live.rules`).
 
 Displays (the dashboard, :mod:`tankside.monitor.headless`) call only the public
 methods of :class:`LiveSession`; they never touch a driver.
@@ -43,7 +43,14 @@ from typing import Any
 
 import numpy as np
 
-from tankside.monitor.acquire import (
+from ..cli import (
+    EXIT_INSTRUMENT,
+    EXIT_OK,
+    EXIT_STOPPED_BY_RULE,
+    EXIT_STORE,
+)
+from ..errors import TanksideError
+from .acquisition import (
     EVENT_DRIVE_OFF,
     EVENT_DRIVE_ON,
     AcqEvent,
@@ -51,18 +58,9 @@ from tankside.monitor.acquire import (
     AcquisitionLoop,
     Link,
 )
-from tankside.monitor.alerts import Firing, TickObservation, observation_from_trace
-from tankside.monitor.autorange import range_after
-from tankside.monitor.cli import (
-    EXIT_INSTRUMENT,
-    EXIT_OK,
-    EXIT_STOPPED_BY_RULE,
-    EXIT_STORE,
-)
-from tankside.monitor.errors import TanksideError
-from tankside.monitor.snapshot import AlertView, InstrumentView, Snapshot
-from tankside.monitor.stats import FigureSet, RateMeter
-from tankside.monitor.writer import (
+from .autorange import range_after
+from .figures import FigureSet, RateMeter
+from .recorder import (
     END,
     AckItem,
     AlertItem,
@@ -71,6 +69,8 @@ from tankside.monitor.writer import (
     TraceItem,
     Writer,
 )
+from .rules import Firing, TickObservation, observation_from_trace
+from .snapshot import AlertView, InstrumentView, Snapshot
 
 METHODS = ("auto", "deconvolve", "narrowband")
 MAX_ALERTS_SHOWN = 300
@@ -120,7 +120,7 @@ class LiveSession:
     gate : bool
         Judge trace N before acquiring N+1 (see the module docstring).
     autorange_options : dict, optional
-        Keywords for :func:`tankside.monitor.autorange.range_after` (``fit_below``,
+        Keywords for :func:`tankside.monitor.live.autorange.range_after` (``fit_below``,
         ``up_on_clip``).
     resources : dict, optional
         Name -> resource string, for the instrument status view.
@@ -189,19 +189,19 @@ class LiveSession:
     def from_bench(cls, bench, *, session_path: str | Path | None = None,
                    max_traces: int | None = None, duration_s: float | None = None,
                    bell: Callable[[], None] | None = None) -> LiveSession:
-        """A session on the instruments of a :class:`~tankside.monitor.benchfile.BenchConfig`.
+        """A session on the instruments of a :class:`~tankside.monitor.live.benchfile.BenchConfig`.
 
         Loads the calibration and builds the converter and rules here, so that a bad
         file is reported before any instrument is touched.
         """
-        from tankside.monitor import instruments
-        from tankside.monitor.alerts import RuleEngine
-        from tankside.monitor.store import SessionStore, session_metadata
+        from ..record.store import SessionStore, session_metadata
+        from . import instruments
+        from .rules import RuleEngine
 
         calibration = bench.calibration()
         loading = bench.loading()
         settings = bench.conversion_settings()
-        from tankside.monitor.chain import Converter
+        from ..acoustics.converter import Converter
 
         converter = Converter(calibration, loading=loading, settings=settings,
                               temperature_c=bench.temperature_c)
@@ -711,7 +711,7 @@ def new_session_path(folder: str | Path, session_path: str | Path | None = None)
     ConfigError
         The file exists already, or its folder cannot be made.
     """
-    from tankside.monitor.errors import ConfigError
+    from ..errors import ConfigError
 
     path = Path(session_path) if session_path is not None else default_session_path(folder)
     if path.exists():

@@ -10,7 +10,7 @@ hydrophone, not part of the source, so::
 
     Z_L / (Z_L + Z_H) = 1 / (1 + (C_c + C_in) / C_h + 1 / (j w R C_h))
 
-Time dependence ``exp(+j w t)``, as in :mod:`tankside.monitor.calibration`.
+Time dependence ``exp(+j w t)``, as in :mod:`tankside.monitor.acoustics.calibration`.
 """
 
 from __future__ import annotations
@@ -20,7 +20,7 @@ from dataclasses import asdict, dataclass, fields
 
 import numpy as np
 
-from tankside.monitor.errors import ConfigError
+from ..errors import ConfigError
 
 
 @dataclass(frozen=True)

@@ -87,7 +87,7 @@ left out of it (their p_r is a floor, not a measurement). A rule that cannot be 
 
 No pulse, drive off
 -------------------
-A trace with no pulse (see :mod:`tankside.monitor.signal_presence`; decided by
+A trace with no pulse (see :mod:`tankside.monitor.acoustics.presence`; decided by
 :func:`observation_from_trace` with the no_pulse thresholds), or one acquired while
 the generator output is known to be off, is noise: range_under_use, pr_drift,
 narrowband_fail and conversion_failed keep their state and do not fire on it, its
@@ -105,17 +105,17 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from tankside.monitor.alert_rules import (
+from ..acoustics.presence import (
+    DEFAULT_EDGE_FRACTION,
+    DEFAULT_FACTOR,
+    pulse_presence,
+)
+from .rule_specs import (
     AUTO_RANGE_RULES,
     RULES,
     SEVERITIES,
     AlertConfig,
     RuleConfig,
-)
-from tankside.monitor.signal_presence import (
-    DEFAULT_EDGE_FRACTION,
-    DEFAULT_FACTOR,
-    pulse_presence,
 )
 
 __all__ = [
@@ -160,7 +160,7 @@ class TraceObservation:
         Stage position, or None without a stage (treated as one fixed position).
     pulse_present : bool
         The trace holds a pulse above its noise (see
-        :mod:`tankside.monitor.signal_presence`).
+        :mod:`tankside.monitor.acoustics.presence`).
     drive_on : bool or None
         Generator output state when the trace was acquired; None when unknown
         (no generator, or it did not answer).

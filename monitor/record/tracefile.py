@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from tankside.monitor.errors import TraceFileError
+from ..errors import TraceFileError
 
 #: Allowed departure of each time from the uniform grid, as a fraction of the step.
 STEP_TOLERANCE = 0.01

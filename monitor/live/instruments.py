@@ -7,12 +7,12 @@ so that a bad profile is reported before anything is opened.
 
 from __future__ import annotations
 
-from tankside.drivers.digitiser import Digitiser
-from tankside.drivers.errors import InstrumentError
-from tankside.drivers.generator import Generator
-from tankside.drivers.profile import load_profile
-from tankside.drivers.scpi import ScpiSession
-from tankside.monitor.acquire import Link
+from ...drivers.digitiser import Digitiser
+from ...drivers.errors import InstrumentError
+from ...drivers.generator import Generator
+from ...drivers.profile import load_profile
+from ...drivers.scpi import ScpiSession
+from .acquisition import Link
 
 
 def _session(config, profile, name: str) -> ScpiSession:
@@ -30,7 +30,7 @@ def digitiser_opener(config, settings):
 
     Parameters
     ----------
-    config : tankside.monitor.benchfile.InstrumentConfig
+    config : tankside.monitor.live.benchfile.InstrumentConfig
     settings : tankside.drivers.digitiser.DigitiserSettings
     """
     profile = load_profile(config.profile)

@@ -21,12 +21,12 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.fft
 
-from tankside.monitor.calibration import Calibration
-from tankside.monitor.deconvolve import Plan, deconvolution_band_hz, make_plan
-from tankside.monitor.errors import OutOfBandError
-from tankside.monitor.loading import Loading
-from tankside.monitor.narrowband import NarrowbandCheck, SensitivityProfile, narrowband_check
-from tankside.monitor.pulse import (
+from ..errors import OutOfBandError
+from .calibration import Calibration
+from .deconvolve import Plan, deconvolution_band_hz, make_plan
+from .loading import Loading
+from .narrowband import NarrowbandCheck, SensitivityProfile, narrowband_check
+from .pulse import (
     PulseParameters,
     UnusableTraceError,
     awf_spectrum_hz,
@@ -34,8 +34,8 @@ from tankside.monitor.pulse import (
     pulse_bounds_s,
     pulse_parameters,
 )
-from tankside.monitor.settings import ConversionSettings
-from tankside.monitor.water import Water
+from .settings import ConversionSettings
+from .water import Water
 
 __all__ = ["Converter", "TraceResult", "RESULT_FIELDS", "OutOfBandError", "UnusableTraceError"]
 

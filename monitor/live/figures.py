@@ -7,7 +7,7 @@ from collections import deque
 
 import numpy as np
 
-from tankside.monitor.snapshot import FIGURES, RunningFigure
+from .snapshot import FIGURES, RunningFigure
 
 TREND_LENGTH = 300
 
@@ -45,7 +45,7 @@ class FigureTracker:
 
 
 class FigureSet:
-    """One :class:`FigureTracker` per name in :data:`tankside.monitor.snapshot.FIGURES`."""
+    """One :class:`FigureTracker` per name in :data:`tankside.monitor.live.snapshot.FIGURES`."""
 
     def __init__(self, trend_length: int = TREND_LENGTH):
         self.trackers = {name: FigureTracker(trend_length) for name, _, _ in FIGURES}

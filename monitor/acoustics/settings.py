@@ -6,7 +6,7 @@ import dataclasses
 import math
 from dataclasses import dataclass, fields
 
-from tankside.monitor.errors import ConfigError
+from ..errors import ConfigError
 
 METHODS = ("auto", "deconvolve", "narrowband")
 AWF_METHODS = ("spectrum", "zero-crossing")

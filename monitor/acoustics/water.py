@@ -15,7 +15,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from tankside.monitor.errors import ConfigError
+from ..errors import ConfigError
 
 _MARCZAK = (1.402385e3, 5.038813, -5.799136e-2, 3.287156e-4, -1.398845e-6, 2.787860e-9)
 _TANAKA = (-3.983035, 301.797, 522528.9, 69.34881, 999.974950)

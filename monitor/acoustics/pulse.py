@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from tankside.monitor.errors import TanksideError
+from ..errors import TanksideError
 
 _SQRT_HALF = math.sqrt(0.5)
 

@@ -4,7 +4,7 @@ The dashboard redraws ten times a second. In the live chain's own process every 
 holds the interpreter lock that acquisition, conversion and the store need: about
 11 ms a frame at 160x48, which cost the chain some 15 % of its trace rate when it ran
 flat out (tests/bench/bench_dashboard.py). So ``watch`` and ``demo`` with the
-dashboard run the :class:`~tankside.monitor.pipeline.LiveSession` in a child process
+dashboard run the :class:`~tankside.monitor.live.session.LiveSession` in a child process
 and the display in the parent, joined by two pipes:
 
 * snapshots: the parent asks for one and collects the answer on its next read, so at
@@ -38,13 +38,13 @@ import time
 from pathlib import Path
 from typing import TYPE_CHECKING, TextIO
 
-from tankside.drivers.errors import InstrumentError
-from tankside.monitor.cli import EXIT_INSTRUMENT
-from tankside.monitor.errors import StoreError, TanksideError
-from tankside.monitor.snapshot import Snapshot
+from ...drivers.errors import InstrumentError
+from ..cli import EXIT_INSTRUMENT
+from ..errors import StoreError, TanksideError
+from .snapshot import Snapshot
 
 if TYPE_CHECKING:
-    from tankside.monitor.benchfile import BenchConfig
+    from .benchfile import BenchConfig
 
 #: The session methods the parent may call in the child (stop has no answer).
 COMMANDS = ("mark", "acknowledge", "set_method")
@@ -329,7 +329,7 @@ def child_main(spec: SessionSpec, commands, snapshots, log_path: str) -> None:
     if hasattr(signal, "SIGHUP"):
         signal.signal(signal.SIGHUP, signal.SIG_IGN)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    from tankside.monitor.pipeline import LiveSession
+    from .session import LiveSession
 
     try:
         session = LiveSession.from_bench(spec.bench, session_path=spec.session_path,
@@ -457,11 +457,11 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
     bench : BenchConfig
     own_process : bool
         Run the session in a child process (:class:`SessionProcess`); False builds a
-        :class:`~tankside.monitor.pipeline.LiveSession` here (``bell`` rings on alerts).
+        :class:`~tankside.monitor.live.session.LiveSession` here (``bell`` rings on alerts).
     session_path, max_traces, duration_s
         As for :meth:`LiveSession.from_bench`.
     """
-    from tankside.monitor.pipeline import LiveSession, new_session_path
+    from .session import LiveSession, new_session_path
 
     if not own_process:
         return LiveSession.from_bench(bench, session_path=session_path, max_traces=max_traces,

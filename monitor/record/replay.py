@@ -1,7 +1,7 @@
 """Re-run the signal chain on a stored session, into a new session file.
 
 The raw traces are copied exactly as recorded; every result is recomputed with
-:class:`tankside.monitor.chain.Converter`, built from the calibration text, loading,
+:class:`tankside.monitor.acoustics.converter.Converter`, built from the calibration text, loading,
 conversion settings and water temperature stored in the session (or another
 calibration file or method when asked). With the session's own settings the new
 results equal the stored ones bit for bit: the same code runs on the same float64
@@ -29,11 +29,10 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from tankside.monitor import __version__
-from tankside.monitor.errors import ConfigError, SessionFileError, TanksideError
-from tankside.monitor.progress import Progress
-from tankside.monitor.store import SessionReader, SessionStore
-from tankside.monitor.store_schema import (
+from .. import __version__
+from ..errors import ConfigError, SessionFileError, TanksideError
+from ..progress import Progress
+from .schema import (
     EVENT_METHOD_CHANGE,
     META_CALIBRATION_SHA256,
     META_CALIBRATION_SOURCE,
@@ -47,6 +46,7 @@ from tankside.monitor.store_schema import (
     REQUIRED_FOR_REPLAY,
     RESULT_NAMES,
 )
+from .store import SessionReader, SessionStore
 
 __all__ = ["ReplaySummary", "build_converter", "conversion_inputs", "replay_session",
            "result_differences"]
@@ -66,9 +66,9 @@ class ReplaySummary:
 
 def _settings_class():
     try:
-        from tankside.monitor.settings import ConversionSettings
+        from ..acoustics.settings import ConversionSettings
     except ImportError:
-        from tankside.monitor.deconvolve import ConversionSettings
+        from ..acoustics.deconvolve import ConversionSettings
     return ConversionSettings
 
 
@@ -105,8 +105,8 @@ def conversion_inputs(metadata: dict, *, calibration=None, method: str | None = 
     method : str, optional
         Override the recorded conversion method.
     """
-    from tankside.monitor.calibration import parse_calibration
-    from tankside.monitor.loading import Loading
+    from ..acoustics.calibration import parse_calibration
+    from ..acoustics.loading import Loading
 
     missing = [key for key in REQUIRED_FOR_REPLAY if metadata.get(key) is None
                and not (key == META_CALIBRATION_TEXT and calibration is not None)]
@@ -127,7 +127,7 @@ def build_converter(metadata: dict, *, calibration=None, method: str | None = No
                     temperature_c: float | None = None):
     """The Converter a session's metadata describes (arguments as :func:`conversion_inputs`;
     ``temperature_c`` overrides the recorded water temperature, degC)."""
-    from tankside.monitor.chain import Converter
+    from ..acoustics.converter import Converter
 
     cal, loading, settings, temp = conversion_inputs(metadata, calibration=calibration,
                                                      method=method)
@@ -184,7 +184,7 @@ def replay_session(src, out, *, calibration_path=None, method: str | None = None
     progress : bool or None
         Progress bar on stderr: None = only on a terminal.
     """
-    from tankside.monitor.calibration import load_calibration
+    from ..acoustics.calibration import load_calibration
 
     src, out = Path(src), Path(out)
     _check_paths(src, out, force)
@@ -192,7 +192,7 @@ def replay_session(src, out, *, calibration_path=None, method: str | None = None
     with SessionReader(src) as reader:
         meta = reader.metadata
         calibration = load_calibration(calibration_path) if calibration_path else None
-        from tankside.monitor.chain import Converter
+        from ..acoustics.converter import Converter
 
         cal, loading, settings, temp0 = conversion_inputs(meta, calibration=calibration,
                                                           method=method)

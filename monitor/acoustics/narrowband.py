@@ -4,7 +4,7 @@ The narrowband approximation (pressure = voltage / |M_L(f_awf)|) is acceptable w
 ``|M_L|`` stays within +/-3 dB of its value at the acoustic working frequency from
 ``f_awf / 2`` to ``min(40 MHz, 8 f_awf)``. Later editions revise these limits, so the
 band factors, upper limit and tolerance are settings
-(:class:`tankside.monitor.settings.ConversionSettings`) with these defaults.
+(:class:`tankside.monitor.acoustics.settings.ConversionSettings`) with these defaults.
 
 Where the check band reaches beyond the calibrated band the sensitivity there is
 unknown, so the check fails (the safe choice: ``auto`` then deconvolves). The worst
@@ -18,9 +18,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from tankside.monitor.calibration import Calibration
-from tankside.monitor.loading import Loading
-from tankside.monitor.settings import ConversionSettings
+from .calibration import Calibration
+from .loading import Loading
+from .settings import ConversionSettings
 
 # Points of the dense grid laid across the calibrated band, on top of the calibration
 # frequencies themselves (where the piecewise-linear interpolation has its extremes).

@@ -13,7 +13,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from tankside.monitor.errors import StoreError
+from ..errors import StoreError
 
 END = object()
 

@@ -104,7 +104,7 @@ def range_after(firing, ranges_v, *, current_v: float | None = None,
 
     Parameters
     ----------
-    firing : tankside.monitor.alerts.Firing
+    firing : tankside.monitor.live.rules.Firing
         Its ``detail`` carries the trace's range, fraction used and, for under-use,
         the count of under-used traces and the rule's thresholds.
     ranges_v : sequence of float
