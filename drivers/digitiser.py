@@ -1,6 +1,6 @@
 """Profile-driven digitiser driver: configure, arm, wait for the trigger, fetch a trace.
 
-The driver is given its :class:`~tankside.drivers.scpi.ScpiSession`; every command it
+The driver is given its :class:`~tankside.drivers.scpi.ScpiLink`; every command it
 sends comes from the profile, so the same code drives any instrument a profile
 describes.
 """
@@ -17,7 +17,7 @@ import numpy as np
 from . import ieee488
 from .errors import InstrumentTimeout, NoTrigger, ProtocolError, SettingError
 from .profile import Profile
-from .scpi import ScpiSession
+from .scpi import ScpiLink
 from .trace import RawTrace, count_at_rails
 
 
@@ -128,28 +128,28 @@ class Digitiser:
 
     Parameters
     ----------
-    session : ScpiSession
+    link : ScpiLink
     profile : Profile
         A ``kind = "digitiser"`` profile.
     poll_interval_s : float
         Pause between ``acquisition_done`` polls, s.
     check_errors_each_trace : bool
-        Drain the error queue after each trace (policy of the session applies).
+        Drain the error queue after each trace (policy of the link applies).
 
     Notes
     -----
     The scaling (time step, origin, volts per code, offset) is read after each
     :meth:`configure` or :meth:`set_range` and reused until the next one, since it
-    only changes with the settings. The last settings are re-applied when the session
+    only changes with the settings. The last settings are re-applied when the link
     is reopened.
     """
 
-    def __init__(self, session: ScpiSession, profile: Profile, *, poll_interval_s: float = 0.002,
+    def __init__(self, link: ScpiLink, profile: Profile, *, poll_interval_s: float = 0.002,
                  check_errors_each_trace: bool = True):
         if profile.kind != "digitiser":
             raise SettingError(f"{profile.source}: profile is for a {profile.kind}, "
                                "not a digitiser")
-        self.session = session
+        self.link = link
         self.profile = profile
         self.poll_interval_s = poll_interval_s
         self.check_errors_each_trace = check_errors_each_trace
@@ -157,15 +157,15 @@ class Digitiser:
         self._settings: DigitiserSettings | None = None
         self._scaling: dict | None = None
         if profile.has("get_error"):
-            session.error_query = profile.command("get_error")
-        session.add_reopen_hook(self._reapply)
+            link.error_query = profile.command("get_error")
+        link.add_reopen_hook(self._reapply)
 
     @property
     def identity(self) -> str:
         """The ``identify`` reply (queried once)."""
-        if self.session.identity is None:
-            self.session.identity = self.session.query(self.profile.command("identify")).strip()
-        return self.session.identity
+        if self.link.identity is None:
+            self.link.identity = self.link.query(self.profile.command("identify")).strip()
+        return self.link.identity
 
     @property
     def settings(self) -> DigitiserSettings | None:
@@ -179,7 +179,7 @@ class Digitiser:
 
     def reset(self) -> None:
         """Send the profile's ``reset`` command and forget the applied settings."""
-        self.session.write_step(self.profile.command("reset"))
+        self.link.write_step(self.profile.command("reset"))
         self._settings = None
         self._scaling = None
 
@@ -196,7 +196,7 @@ class Digitiser:
                 skipped.append(name)
                 continue
             value = getattr(settings, name)
-            self.session.write_step(self.profile.command(key, channel=settings.channel,
+            self.link.write_step(self.profile.command(key, channel=settings.channel,
                                                          **{placeholder: value}))
         self.skipped = tuple(skipped)
         self._settings = settings
@@ -206,14 +206,14 @@ class Digitiser:
         current = self._require_settings()
         range_v = _match_range(self.ranges_v, range_v)
         self._scaling = None
-        self.session.write_step(self.profile.command("set_range", channel=current.channel,
+        self.link.write_step(self.profile.command("set_range", channel=current.channel,
                                                      range_v=range_v))
         self._settings = current.replace(range_v=range_v)
 
     def _require_settings(self) -> DigitiserSettings:
         if self._settings is None:
             raise SettingError("digitiser not configured: call configure() first",
-                               resource=self.session.name)
+                               resource=self.link.name)
         return self._settings
 
     def _reapply(self) -> None:
@@ -228,19 +228,19 @@ class Digitiser:
             def number(key: str, default: float | None = None) -> float:
                 if default is not None and not self.profile.has(key):
                     return default
-                reply = self.session.query(self.profile.command(key, channel=ch))
+                reply = self.link.query(self.profile.command(key, channel=ch))
                 try:
                     return ieee488.parse_number(reply)
                 except ProtocolError as err:
                     raise ProtocolError(f"{key}: {err.message}",
-                                        resource=self.session.name) from err
+                                        resource=self.link.name) from err
 
             scaling = {"dt_s": number("get_time_step"), "t0_s": number("get_time_origin", 0.0),
                        "volts_per_code": number("get_volts_per_code"),
                        "offset_v": number("get_offset", 0.0)}
             if not scaling["dt_s"] > 0:
                 raise ProtocolError(f"time step must be positive, got {scaling['dt_s']!r}",
-                                    resource=self.session.name)
+                                    resource=self.link.name)
             self._scaling = scaling
         return self._scaling
 
@@ -249,26 +249,26 @@ class Digitiser:
         if self.profile.has("acquisition_done"):
             command = self.profile.command("acquisition_done", channel=channel)
             while True:
-                if ieee488.parse_bool(self.session.query(command)):
+                if ieee488.parse_bool(self.link.query(command)):
                     return
                 if time.monotonic() >= deadline:
                     raise NoTrigger(f"no trigger within {trigger_timeout_s:g} s",
-                                    resource=self.session.name)
+                                    resource=self.link.name)
                 time.sleep(self.poll_interval_s)
-        saved = self.session.timeout_s
-        self.session.timeout_s = trigger_timeout_s
+        saved = self.link.timeout_s
+        self.link.timeout_s = trigger_timeout_s
         try:
-            reply = self.session.query(self.profile.command("wait_complete"))
+            reply = self.link.query(self.profile.command("wait_complete"))
         except NoTrigger:
             raise
         except InstrumentTimeout as err:
             raise NoTrigger(f"no trigger within {trigger_timeout_s:g} s",
-                            resource=self.session.name) from err
+                            resource=self.link.name) from err
         finally:
-            self.session.timeout_s = saved
+            self.link.timeout_s = saved
         if reply.strip() != "1":
             raise ProtocolError(f"wait_complete: expected '1', got {reply!r}",
-                                resource=self.session.name)
+                                resource=self.link.name)
 
     def acquire(self, seq: int, *, trigger_timeout_s: float) -> RawTrace:
         """Arm a single acquisition, wait for the trigger, and fetch the trace.
@@ -288,20 +288,20 @@ class Digitiser:
         """
         settings = self._require_settings()
         ch = settings.channel
-        self.session.write(self.profile.command("arm_single", channel=ch))
+        self.link.write(self.profile.command("arm_single", channel=ch))
         self._wait_for_trigger(ch, trigger_timeout_s)
-        payload = self.session.query_block(self.profile.command("fetch_waveform", channel=ch))
+        payload = self.link.query_block(self.profile.command("fetch_waveform", channel=ch))
         time_s = time.time()
         try:
             codes = decode_codes(payload, self.profile.dtype)
         except ProtocolError as err:
-            raise ProtocolError(err.message, resource=self.session.name) from err
+            raise ProtocolError(err.message, resource=self.link.name) from err
         scaling = self.fetch_scaling()
         if self.check_errors_each_trace:
-            self.session.check_errors("acquire")
+            self.link.check_errors("acquire")
         low, high = count_at_rails(codes, self.profile.code_min, self.profile.code_max)
         state = settings.as_dict()
-        state["identity"] = self.session.identity
+        state["identity"] = self.link.identity
         return RawTrace(codes=codes, volts_per_code=scaling["volts_per_code"],
                         offset_v=scaling["offset_v"], dt_s=scaling["dt_s"],
                         t0_s=scaling["t0_s"], seq=int(seq), time_s=time_s,
@@ -316,10 +316,10 @@ class Digitiser:
         for name, key, _ in _STEPS:
             qkey = "query_" + key[len("set_"):]
             if self.profile.has(qkey):
-                out[name] = self.session.query(self.profile.command(qkey, channel=ch)).strip()
+                out[name] = self.link.query(self.profile.command(qkey, channel=ch)).strip()
         return out
 
     def recover(self) -> str:
-        """Resynchronise the session, or reopen it and re-apply the settings."""
+        """Resynchronise the link, or reopen it and re-apply the settings."""
         self._scaling = None
-        return self.session.recover()
+        return self.link.recover()

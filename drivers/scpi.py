@@ -1,7 +1,7 @@
-"""A small SCPI session over a pyvisa message-based resource.
+"""A small SCPI link over a pyvisa message-based resource.
 
-The session is given its resource (it does not open one unless built with
-:meth:`ScpiSession.open`). Every pyvisa failure leaves as a
+The link is given its resource (it does not open one unless built with
+:meth:`ScpiLink.open`). Every pyvisa failure leaves as a
 :mod:`tankside.drivers.errors` type, chained from the original.
 
 Block replies are read as IEEE 488.2 definite-length blocks: the header first, then
@@ -43,7 +43,7 @@ ERROR_POLICIES = ("raise", "record", "ignore")
 BLOCK_RECV_SIZE = 1 << 20
 
 
-class ScpiSession:
+class ScpiLink:
     """SCPI commands, queries and block reads on one instrument.
 
     Parameters
@@ -96,8 +96,8 @@ class ScpiSession:
     @classmethod
     def open(cls, resource_name: str, *, visa_library: str = "@py", timeout_s: float = 5.0,
              read_termination: str = "\n", write_termination: str = "\n",
-             **kwargs) -> ScpiSession:
-        """Open ``resource_name`` and return a session that can reopen it the same way."""
+             **kwargs) -> ScpiLink:
+        """Open ``resource_name`` and return a link that can reopen it the same way."""
         def factory():
             return open_resource(resource_name, visa_library=visa_library, timeout_s=timeout_s,
                                  read_termination=read_termination,
@@ -343,7 +343,7 @@ class ScpiSession:
     def reopen(self) -> None:
         """Last resort: close the link, open it again, and run the reopen hooks."""
         if self._reopen is None:
-            raise ConnectionLost("cannot reopen: session was given a resource without a "
+            raise ConnectionLost("cannot reopen: link was given a resource without a "
                                  "way to open it again", resource=self.name)
         self.counts["reopens"] += 1
         self._close_quietly()
@@ -377,7 +377,7 @@ class ScpiSession:
         except Exception as err:  # noqa: BLE001 - translated and chained
             raise self._fail(err, "close") from err
 
-    def __enter__(self) -> ScpiSession:
+    def __enter__(self) -> ScpiLink:
         return self
 
     def __exit__(self, *exc) -> None:

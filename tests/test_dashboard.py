@@ -255,7 +255,7 @@ async def test_zoom_key_switches_pulse_and_whole_record():
 @sync
 async def test_save_writes_screenshot_and_trace_csvs(tmp_path):
     fake = started_fake()
-    app = DashboardApp(fake, first_run_notice=False, snapshot_dir=tmp_path / "snaps")
+    app = DashboardApp(fake, first_run_notice=False, capture_dir=tmp_path / "snaps")
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause(0.1)
         await pilot.press("s")
@@ -396,7 +396,7 @@ async def test_live_bench_keys_reach_the_session_and_its_file(live, tmp_path):
     from tankside.monitor.record.store import SessionReader
 
     bench, session = live
-    app = DashboardApp(session, first_run_notice=False, snapshot_dir=tmp_path / "snaps")
+    app = DashboardApp(session, first_run_notice=False, capture_dir=tmp_path / "snaps")
     async with app.run_test(size=(80, 24)) as pilot:
         await _until(pilot, lambda: app.shown is not None and app.shown.pressure_pa.size > 0)
         assert "SIMDIG" in screen_text(app)

@@ -6,13 +6,13 @@ waveform-preamble convention of SCPI digitisers (common practice).
 
 import numpy as np
 import pytest
+from transcript import CLEAR, FakeResource
 
 from tankside.drivers import ieee488
 from tankside.drivers.digitiser import Digitiser, DigitiserSettings, decode_codes
 from tankside.drivers.errors import NoTrigger, ProtocolError, SettingError
 from tankside.drivers.profile import load_profile
-from tankside.drivers.scpi import ScpiSession
-from transcript import CLEAR, FakeResource
+from tankside.drivers.scpi import ScpiLink
 
 PROFILE = load_profile("generic-scpi-digitiser")
 OK = (b"SYST:ERR?\n", b'0,"No error"\n')
@@ -45,14 +45,14 @@ def acquire_steps(payload=None, polls=(b"0\n", b"1\n"), scaling=True):
 
 def test_configure_exact_bytes():
     with FakeResource(configure_steps(SETTINGS)) as fake:
-        dig = Digitiser(ScpiSession(fake), PROFILE)
+        dig = Digitiser(ScpiLink(fake), PROFILE)
         dig.configure(SETTINGS)
     assert dig.settings == SETTINGS and dig.skipped == ()
 
 
 def test_acquire_record():
     with FakeResource(configure_steps(SETTINGS) + acquire_steps()) as fake:
-        dig = Digitiser(ScpiSession(fake), PROFILE, poll_interval_s=0)
+        dig = Digitiser(ScpiLink(fake), PROFILE, poll_interval_s=0)
         dig.configure(SETTINGS)
         raw = dig.acquire(5, trigger_timeout_s=1.0)
     assert np.array_equal(raw.codes, CODES) and raw.codes.dtype == np.dtype("=i2")
@@ -69,7 +69,7 @@ def test_scaling_reused_until_range_changes():
              + acquire_steps(polls=(b"1\n",), scaling=False)
              + [(b"CHAN1:RANG 1.0\n", None), OK] + acquire_steps(polls=(b"1\n",)))
     with FakeResource(steps) as fake:
-        dig = Digitiser(ScpiSession(fake), PROFILE)
+        dig = Digitiser(ScpiLink(fake), PROFILE)
         dig.configure(SETTINGS)
         dig.acquire(0, trigger_timeout_s=1.0)
         dig.acquire(1, trigger_timeout_s=1.0)
@@ -85,7 +85,7 @@ def test_big_endian_codes(tmp_path):
     profile = load_profile(path)
     with FakeResource(configure_steps(SETTINGS)
                       + acquire_steps(payload=CODES.astype(">i2").tobytes())) as fake:
-        dig = Digitiser(ScpiSession(fake), profile, poll_interval_s=0)
+        dig = Digitiser(ScpiLink(fake), profile, poll_interval_s=0)
         dig.configure(SETTINGS)
         raw = dig.acquire(0, trigger_timeout_s=1.0)
     assert np.array_equal(raw.codes, CODES)
@@ -94,7 +94,7 @@ def test_big_endian_codes(tmp_path):
 def test_no_trigger():
     steps = configure_steps(SETTINGS) + [(b"INIT\n", None)] + [(b"ACQ:DONE?\n", b"0\n")] * 200
     fake = FakeResource(steps)
-    dig = Digitiser(ScpiSession(fake), PROFILE, poll_interval_s=0.01)
+    dig = Digitiser(ScpiLink(fake), PROFILE, poll_interval_s=0.01)
     dig.configure(SETTINGS)
     with pytest.raises(NoTrigger):
         dig.acquire(0, trigger_timeout_s=0.05)
@@ -108,7 +108,7 @@ def test_wait_complete_timeout_is_no_trigger(tmp_path):
     steps = configure_steps(SETTINGS) + [(b"INIT\n", None), (b"*OPC?\n", None),
                                          CLEAR, (b"*IDN?\n", IDN), (b"*OPC?\n", b"1\n")]
     with FakeResource(steps) as fake:
-        session = ScpiSession(fake)
+        session = ScpiLink(fake)
         dig = Digitiser(session, load_profile(path))
         dig.configure(SETTINGS)
         with pytest.raises(NoTrigger):
@@ -118,7 +118,7 @@ def test_wait_complete_timeout_is_no_trigger(tmp_path):
 
 
 def test_range_not_in_profile():
-    dig = Digitiser(ScpiSession(FakeResource([])), PROFILE)
+    dig = Digitiser(ScpiLink(FakeResource([])), PROFILE)
     with pytest.raises(SettingError, match="not one of"):
         dig.configure(SETTINGS.replace(range_v=0.3))
     with pytest.raises(SettingError, match="configure"):
@@ -133,7 +133,7 @@ def test_odd_payload_is_protocol_error():
 def test_reopen_reapplies_settings():
     first = FakeResource(configure_steps(SETTINGS))
     second = FakeResource(configure_steps(SETTINGS))
-    session = ScpiSession(first, reopen=lambda: second)
+    session = ScpiLink(first, reopen=lambda: second)
     dig = Digitiser(session, PROFILE)
     dig.configure(SETTINGS)
     session.reopen()

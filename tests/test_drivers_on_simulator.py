@@ -22,7 +22,7 @@ from tankside.drivers.errors import (
 )
 from tankside.drivers.generator import Generator
 from tankside.drivers.profile import load_profile
-from tankside.drivers.scpi import ScpiSession
+from tankside.drivers.scpi import ScpiLink
 from tankside.drivers.visa import backend_socket, open_resource
 from tankside.monitor.live.benchfile import InstrumentConfig
 from tankside.monitor.live.instruments import digitiser_opener
@@ -39,7 +39,7 @@ def bench():
 
 
 def _digitiser(bench, *, timeout_s=2.0, **kw):
-    session = ScpiSession.open(bench.digitiser_resource, timeout_s=timeout_s,
+    session = ScpiLink.open(bench.digitiser_resource, timeout_s=timeout_s,
                                resync_timeout_s=5.0, **kw)
     dig = Digitiser(session, load_profile(bench.digitiser_profile_path))
     dig.configure(SETTINGS)
@@ -55,7 +55,7 @@ def _seconds_to_fail(dig, error, *, trigger_timeout_s=1.0) -> float:
 
 
 def _generator(bench):
-    session = ScpiSession.open(bench.generator_resource, timeout_s=2.0)
+    session = ScpiLink.open(bench.generator_resource, timeout_s=2.0)
     return Generator(session, load_profile(bench.generator_profile_path))
 
 
@@ -82,9 +82,9 @@ class TestTransport:
                                   profile=str(bench.digitiser_profile_path), timeout_s=2.0)
         link = digitiser_opener(config, SETTINGS)()
         try:
-            assert _nodelay(backend_socket(link.session.resource)) != 0
+            assert _nodelay(backend_socket(link.link.resource)) != 0
         finally:
-            link.session.close()
+            link.link.close()
 
 
 class TestDigitiser:
@@ -102,14 +102,14 @@ class TestDigitiser:
         assert 0.01 < np.abs(raw.volts()).max() < 0.05
         assert raw.clipped == 0 and raw.range_v == pytest.approx(0.1)
         assert abs(raw.time_s - time.time()) < 5
-        dig.session.close()
+        dig.link.close()
 
     def test_codes_exactly_as_served(self, bench):
         dig = _digitiser(bench)
         raw = dig.acquire(0, trigger_timeout_s=1.0)
         served = bench.digitiser._trace[0]  # the codes the model encoded for this block
         assert np.array_equal(raw.codes, served)
-        dig.session.close()
+        dig.link.close()
 
     def test_set_range_rescales_and_clips(self, bench):
         dig = _digitiser(bench)
@@ -121,7 +121,7 @@ class TestDigitiser:
         assert narrow.clipped > 0 and narrow.range_v == pytest.approx(0.02)
         with pytest.raises(SettingError):
             dig.set_range(0.03)
-        dig.session.close()
+        dig.link.close()
 
     def test_reset(self, bench):
         dig = _digitiser(bench)
@@ -129,7 +129,7 @@ class TestDigitiser:
         assert dig.settings is None
         with pytest.raises(SettingError):
             dig.acquire(0, trigger_timeout_s=0.1)
-        dig.session.close()
+        dig.link.close()
 
     def test_big_endian_profile(self, bench, tmp_path):
         # The same instrument set to send MSB first, described by a profile that says so.
@@ -137,7 +137,7 @@ class TestDigitiser:
             'byte_order = "little"', 'byte_order = "big"')
         path = tmp_path / "sim-big.toml"
         path.write_text(text)
-        session = ScpiSession.open(bench.digitiser_resource, timeout_s=2.0)
+        session = ScpiLink.open(bench.digitiser_resource, timeout_s=2.0)
         session.write_step("WAV:BORD MSBF")
         dig = Digitiser(session, load_profile(path))
         dig.configure(SETTINGS)
@@ -162,14 +162,14 @@ class TestGenerator:
         gen.set_output(True)
         assert gen.output_is_on()
         gen.reset()
-        gen.session.close()
+        gen.link.close()
 
     def test_out_of_range_amplitude_is_reported(self, bench):
         gen = _generator(bench)
         with pytest.raises(InstrumentReportedError) as info:
             gen.set_amplitude(1000.0)
         assert info.value.code == -222  # SCPI-1999 Vol. 2, 21.8: data out of range
-        gen.session.close()
+        gen.link.close()
 
 
 class TestFaults:
@@ -182,17 +182,17 @@ class TestFaults:
         assert dig.recover() == "reopen"
         assert bench.digitiser.state.points == 2000
         assert dig.acquire(1, trigger_timeout_s=1.0).n == 2000
-        dig.session.close()
+        dig.link.close()
 
     def test_stall_then_resync(self, bench):
         dig = _digitiser(bench, timeout_s=0.3)
         bench.faults.stall_next_reply(0.8)
         assert _seconds_to_fail(dig, InstrumentTimeout) < 1.0
-        assert dig.session.needs_resync
+        assert dig.link.needs_resync
         raw = dig.acquire(1, trigger_timeout_s=1.0)  # resynchronises first
-        assert raw.n == 2000 and dig.session.counts["resyncs"] == 1
+        assert raw.n == 2000 and dig.link.counts["resyncs"] == 1
         assert np.array_equal(raw.codes, bench.digitiser._trace[0])
-        dig.session.close()
+        dig.link.close()
 
     @pytest.mark.parametrize("kind", ["bad-digit", "bad-length"])
     def test_malformed_block(self, bench, kind):
@@ -201,14 +201,14 @@ class TestFaults:
         with pytest.raises(ProtocolError):
             dig.acquire(0, trigger_timeout_s=1.0)
         assert dig.acquire(1, trigger_timeout_s=1.0).n == 2000
-        dig.session.close()
+        dig.link.close()
 
     def test_short_block_times_out_within_timeout(self, bench):
         dig = _digitiser(bench, timeout_s=0.3)
         bench.faults.short_next_block(100)
         assert _seconds_to_fail(dig, InstrumentTimeout) < 1.5
         assert dig.acquire(1, trigger_timeout_s=1.0).n == 2000
-        dig.session.close()
+        dig.link.close()
 
     def test_short_block_then_close(self, bench):
         dig = _digitiser(bench, timeout_s=0.3)
@@ -217,17 +217,17 @@ class TestFaults:
             dig.acquire(0, trigger_timeout_s=1.0)
         assert dig.recover() == "reopen"
         assert dig.acquire(1, trigger_timeout_s=1.0).n == 2000
-        dig.session.close()
+        dig.link.close()
 
     def test_missed_triggers(self, bench):
         dig = _digitiser(bench)
         bench.faults.miss_triggers(100)  # 100 periods of 5 ms = 0.5 s
         assert 0.2 <= _seconds_to_fail(dig, NoTrigger, trigger_timeout_s=0.2) < 1.0
-        dig.session.close()
+        dig.link.close()
 
     def test_error_for_a_command_raise(self, bench):
         bench.faults.report_error("ACQ:POIN", -222)
-        session = ScpiSession.open(bench.digitiser_resource, timeout_s=2.0)
+        session = ScpiLink.open(bench.digitiser_resource, timeout_s=2.0)
         dig = Digitiser(session, load_profile(bench.digitiser_profile_path))
         with pytest.raises(InstrumentReportedError) as info:
             dig.configure(SETTINGS)
@@ -237,9 +237,9 @@ class TestFaults:
     def test_error_for_a_command_record(self, bench):
         bench.faults.report_error("TRIG:SOUR", -224, execute=True)
         dig = _digitiser(bench, error_policy="record")
-        assert [(e.code, e.command) for e in dig.session.recorded_errors] == [
+        assert [(e.code, e.command) for e in dig.link.recorded_errors] == [
             (-224, "TRIG:SOUR EXT")]
-        dig.session.close()
+        dig.link.close()
 
     def test_error_for_a_query_times_out_and_recovers(self, bench):
         # An unexecuted query gets no reply: a timeout, then the error in the queue.
@@ -247,6 +247,6 @@ class TestFaults:
         bench.faults.report_error("WAV:DATA?", -230)
         with pytest.raises(InstrumentTimeout):
             dig.acquire(0, trigger_timeout_s=1.0)
-        assert [code for code, _ in dig.session.drain_errors()] == [-230]
+        assert [code for code, _ in dig.link.drain_errors()] == [-230]
         assert dig.acquire(1, trigger_timeout_s=1.0).n == 2000
-        dig.session.close()
+        dig.link.close()

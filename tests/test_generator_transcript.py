@@ -1,12 +1,12 @@
 """Generator driver: the exact bytes each operation writes and the replies it accepts."""
 
 import pytest
+from transcript import FakeResource
 
 from tankside.drivers.errors import InstrumentReportedError, ProtocolError, SettingError
 from tankside.drivers.generator import Generator
 from tankside.drivers.profile import parse_profile
-from tankside.drivers.scpi import ScpiSession
-from transcript import FakeResource
+from tankside.drivers.scpi import ScpiLink
 
 PROFILE = parse_profile("""
 [instrument]
@@ -42,7 +42,7 @@ def test_every_operation_exact_bytes():
              (b"SOUR1:BURS:NCYC?\n", b"5\n"), (b"SOUR1:BURS:INT:PER?\n", b"5.0E-02\n"),
              (b"*RST\n", None), OK]
     with FakeResource(steps) as fake:
-        gen = Generator(ScpiSession(fake), PROFILE)
+        gen = Generator(ScpiLink(fake), PROFILE)
         assert gen.identity == "Tankside Labs,Burst Source,7,2.1"
         gen.set_output(True)
         assert gen.output_is_on() is True
@@ -60,14 +60,14 @@ def test_every_operation_exact_bytes():
 def test_unknown_output_reply():
     with FakeResource([(b"OUTP1?\n", b"MAYBE\n")]) as fake:
         with pytest.raises(ProtocolError, match="get_output"):
-            Generator(ScpiSession(fake), PROFILE).output_is_on()
+            Generator(ScpiLink(fake), PROFILE).output_is_on()
 
 
 def test_amplitude_error_raised():
     steps = [(b"SOUR1:VOLT 99\n", None), (b"SYST:ERR?\n", b'-222,"Data out of range"\n'), OK]
     with FakeResource(steps) as fake:
         with pytest.raises(InstrumentReportedError) as info:
-            Generator(ScpiSession(fake), PROFILE).set_amplitude(99)
+            Generator(ScpiLink(fake), PROFILE).set_amplitude(99)
     assert info.value.code == -222
 
 
@@ -76,4 +76,4 @@ def test_amplitude_error_raised():
 def test_bad_values_sent_nowhere(call):
     with FakeResource([]) as fake:
         with pytest.raises(SettingError):
-            call(Generator(ScpiSession(fake), PROFILE))
+            call(Generator(ScpiLink(fake), PROFILE))

@@ -9,11 +9,11 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from transcript import FakeResource
 
 from tankside.drivers import ieee488
 from tankside.drivers.errors import InstrumentTimeout, ProtocolError
-from tankside.drivers.scpi import ScpiSession
-from transcript import FakeResource
+from tankside.drivers.scpi import ScpiLink
 
 
 class TestBlockHeader:
@@ -87,9 +87,9 @@ class TestErrorReply:
             ieee488.parse_error_reply(text)
 
 
-def _block_session(reply: bytes) -> tuple[ScpiSession, FakeResource]:
+def _block_session(reply: bytes) -> tuple[ScpiLink, FakeResource]:
     fake = FakeResource([(b"WAV?\n", reply)], timeout_ms=50)
-    return ScpiSession(fake), fake
+    return ScpiLink(fake), fake
 
 
 @settings(max_examples=300, suppress_health_check=[HealthCheck.too_slow], deadline=None)

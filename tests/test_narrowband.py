@@ -8,7 +8,7 @@ from tankside.monitor.acoustics.calibration import parse_calibration
 from tankside.monitor.acoustics.converter import Converter
 from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.acoustics.narrowband import (
-    SensitivityProfile,
+    SensitivityCurve,
     check_band_hz,
     narrowband_check,
 )
@@ -49,13 +49,13 @@ def test_check_band(f_awf, band):
 
 
 def test_flat_response_passes():
-    check = narrowband_check(5e6, SensitivityProfile.build(flat(), Loading()), S)
+    check = narrowband_check(5e6, SensitivityCurve.build(flat(), Loading()), S)
     assert check.ok and check.covered
     assert check.max_deviation_db == pytest.approx(0.0, abs=1e-9)
 
 
 def test_resonant_response_fails_with_the_right_deviation():
-    check = narrowband_check(10e6, SensitivityProfile.build(resonant(), Loading()), S)
+    check = narrowband_check(10e6, SensitivityCurve.build(resonant(), Loading()), S)
     # reference deviation straight from scipy.signal.freqs over the check band
     f = np.linspace(5e6, 40e6, 20001)
     _, h = scipy.signal.freqs(B, A, worN=2 * np.pi * np.append(f, 10e6))
@@ -67,7 +67,7 @@ def test_resonant_response_fails_with_the_right_deviation():
 
 
 def test_tolerance_is_a_setting():
-    prof = SensitivityProfile.build(resonant(), Loading())
+    prof = SensitivityCurve.build(resonant(), Loading())
     dev = narrowband_check(10e6, prof, S).max_deviation_db
     assert narrowband_check(10e6, prof, S.replace(narrowband_tolerance_db=dev + 0.1)).ok
     assert not narrowband_check(10e6, prof, S.replace(narrowband_tolerance_db=dev - 0.1)).ok
@@ -76,7 +76,7 @@ def test_tolerance_is_a_setting():
 def test_band_beyond_calibration_fails():
     # the sensitivity beyond the calibration is unknown: failing is the safe verdict
     cal = flat(np.arange(1e6, 20e6 + 1, 0.5e6))
-    check = narrowband_check(5e6, SensitivityProfile.build(cal, Loading()), S)
+    check = narrowband_check(5e6, SensitivityCurve.build(cal, Loading()), S)
     assert not check.ok and not check.covered
     assert check.max_deviation_db == pytest.approx(0.0, abs=1e-9)
     assert "beyond the calibration" in check.reason
@@ -84,7 +84,7 @@ def test_band_beyond_calibration_fails():
 
 def test_loading_counts_in_the_check():
     # 100 pF into 50 ohm is a strong high-pass: |M_L| rises ~ f across 2.5-20 MHz
-    prof = SensitivityProfile.build(flat(), Loading(100e-12, input_resistance_ohm=50.0))
+    prof = SensitivityCurve.build(flat(), Loading(100e-12, input_resistance_ohm=50.0))
     assert not narrowband_check(5e6, prof, S).ok
 
 

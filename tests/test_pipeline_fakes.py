@@ -18,7 +18,7 @@ from tankside.drivers.errors import ConnectionLost, InstrumentTimeout, NoTrigger
 from tankside.drivers.trace import RawTrace, count_at_rails
 from tankside.monitor.cli import EXIT_INSTRUMENT, EXIT_OK, EXIT_STOPPED_BY_RULE, EXIT_STORE
 from tankside.monitor.errors import DiskFullError, OutOfBandError
-from tankside.monitor.live.acquisition import Link
+from tankside.monitor.live.acquisition import OpenInstrument
 from tankside.monitor.live.rules import AlertConfig, RuleEngine
 from tankside.monitor.live.session import LiveSession
 from tankside.monitor.record.schema import RESULT_NAMES
@@ -180,10 +180,10 @@ def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, st
             raise ConnectionLost("connection refused")
         dev = FakeDigitiser(scene, settings)
         dev.configure(settings)
-        return Link(dev, FakeSession(scene, resync_ok), identity="FAKE,DIGITISER,0,1")
+        return OpenInstrument(dev, FakeSession(scene, resync_ok), identity="FAKE,DIGITISER,0,1")
 
     def open_generator():
-        return Link(FakeGenerator(scene), FakeSession(scene), identity="FAKE,GENERATOR,0,1")
+        return OpenInstrument(FakeGenerator(scene), FakeSession(scene), identity="FAKE,GENERATOR,0,1")
 
     def open_store(path, meta):
         store = SessionStore.create(path, meta, commit_interval_s=commit_interval_s)

@@ -25,7 +25,7 @@ from ..errors import OutOfBandError
 from .calibration import Calibration
 from .deconvolve import Plan, deconvolution_band_hz, make_plan
 from .loading import Loading
-from .narrowband import NarrowbandCheck, SensitivityProfile, narrowband_check
+from .narrowband import NarrowbandCheck, SensitivityCurve, narrowband_check
 from .pulse import (
     PulseParameters,
     UnusableTraceError,
@@ -180,7 +180,7 @@ class Converter:
         self.settings = ConversionSettings() if settings is None else settings
         self.temperature_c = float(temperature_c)
         self.water = Water.at(temperature_c)
-        self.profile = SensitivityProfile.build(calibration, self.loading)
+        self.profile = SensitivityCurve.build(calibration, self.loading)
         self.band_hz = deconvolution_band_hz(calibration, self.settings)
         lo, hi = self.band_hz
         f = self.profile.freqs_hz

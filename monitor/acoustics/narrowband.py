@@ -28,14 +28,14 @@ _PROFILE_POINTS = 4096
 
 
 @dataclass(frozen=True, eq=False)
-class SensitivityProfile:
+class SensitivityCurve:
     """``|M_L|`` in dB on a dense grid over the calibrated band (arrays read-only)."""
 
     freqs_hz: np.ndarray
     level_db: np.ndarray
 
     @classmethod
-    def build(cls, calibration: Calibration, loading: Loading) -> SensitivityProfile:
+    def build(cls, calibration: Calibration, loading: Loading) -> SensitivityCurve:
         lo, hi = calibration.band_hz
         grid = np.union1d(np.linspace(lo, hi, _PROFILE_POINTS), calibration.frequency_hz)
         mag = np.abs(calibration.interpolate(grid) * loading.factor(grid))
@@ -114,7 +114,7 @@ def check_band_hz(awf_hz: float, settings: ConversionSettings) -> tuple[float, f
     return lo, max(lo, hi)
 
 
-def narrowband_check(awf_hz: float, profile: SensitivityProfile,
+def narrowband_check(awf_hz: float, profile: SensitivityCurve,
                      settings: ConversionSettings) -> NarrowbandCheck:
     """Check the narrowband condition at ``awf_hz`` (Hz) against ``|M_L|``.
 

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 from ...drivers import ieee488
 from ...drivers.errors import ConnectionLost, InstrumentError, NoTrigger
 from ...drivers.profile import Profile, load_profile
-from ...drivers.scpi import ScpiSession
+from ...drivers.scpi import ScpiLink
 
 EPILOG = """\
 results:
@@ -88,9 +88,9 @@ def add_parser(subparsers) -> None:
 
 
 class _Prober:
-    def __init__(self, session: ScpiSession, profile: Profile | None,
+    def __init__(self, link: ScpiLink, profile: Profile | None,
                  trigger_timeout_s: float = 5.0):
-        self.session = session
+        self.link = link
         self.trigger_timeout_s = trigger_timeout_s
         self.profile = profile
         self.rows: list[Row] = []
@@ -113,7 +113,7 @@ class _Prober:
         """What the instrument queued about a failed operation, so the error is charged
         to it and not to the next one (resynchronising first after a timeout)."""
         try:
-            errors = self.session.drain_errors()
+            errors = self.link.drain_errors()
         except ConnectionLost:
             raise
         except InstrumentError as err:
@@ -121,15 +121,15 @@ class _Prober:
         return "".join(f"; queued {code}, {text!r}" for code, text in errors)
 
     def _query(self, command: str) -> str:
-        reply = self.session.query(command).strip()
-        self.session.check_errors(command)
+        reply = self.link.query(command).strip()
+        self.link.check_errors(command)
         return reply
 
     def common(self) -> None:
-        self._try("identify", "*IDN?", self.session.identify)
-        self._try("error queue", self.session.error_query,
-                  lambda: f"{len(self.session.drain_errors())} queued error(s) read")
-        self._try("wait complete", "*OPC?", self.session.opc)
+        self._try("identify", "*IDN?", self.link.identify)
+        self._try("error queue", self.link.error_query,
+                  lambda: f"{len(self.link.drain_errors())} queued error(s) read")
+        self._try("wait complete", "*OPC?", self.link.opc)
 
     def queries(self, keys, parse=None) -> None:
         for key in keys:
@@ -170,10 +170,10 @@ class _Prober:
                 continue
 
             def action(command=command, read_cmd=read_cmd, before=before):
-                self.session.write_step(command)
+                self.link.write_step(command)
                 after = self._query(read_cmd)
                 if after != before:
-                    self.session.write_step(command)
+                    self.link.write_step(command)
                     raise InstrumentError(f"read back {after!r} after writing {before!r}; "
                                           "written again")
                 return f"unchanged: {before}"
@@ -195,7 +195,7 @@ class _Prober:
                                        state=values["output_on" if on else "output_off"])
 
         def action():
-            self.session.write_step(command)
+            self.link.write_step(command)
             return f"unchanged: {'on' if on else 'off'}"
         self._try("set_output", command, action)
 
@@ -212,7 +212,7 @@ class _Prober:
         arm = self.profile.command("arm_single", channel=1)
 
         def arm_action():
-            self.session.write_step(arm)
+            self.link.write_step(arm)
         self._try("arm_single", arm, arm_action)
         if self.profile.has("acquisition_done"):
             done = self.profile.command("acquisition_done", channel=1)
@@ -229,7 +229,7 @@ class _Prober:
         fetch = self.profile.command("fetch_waveform", channel=1)
 
         def fetch_action():
-            codes = decode_codes(self.session.query_block(fetch), self.profile.dtype)
+            codes = decode_codes(self.link.query_block(fetch), self.profile.dtype)
             return f"{codes.size} samples ({self.profile.data_format})"
         self._try("fetch_waveform", fetch, fetch_action)
 
@@ -270,20 +270,20 @@ def run(args) -> int:
     timeout_s = args.timeout or (profile.timeout_s if profile else 5.0)
     terms = ({"read_termination": profile.read_termination,
               "write_termination": profile.write_termination} if profile else {})
-    session = ScpiSession.open(args.resource, visa_library=args.visa_library,
+    link = ScpiLink.open(args.resource, visa_library=args.visa_library,
                                timeout_s=timeout_s, error_policy="raise",
                                resync_timeout_s=max(2.0, 3 * timeout_s), **terms)
     if profile is not None and profile.has("get_error"):
-        session.error_query = profile.command("get_error")
-    prober = _Prober(session, profile, trigger_timeout_s=args.trigger_timeout)
+        link.error_query = profile.command("get_error")
+    prober = _Prober(link, profile, trigger_timeout_s=args.trigger_timeout)
     try:
         prober.run(args.acquire)
     except ConnectionLost:
         print(format_table(prober.rows))
         raise
     finally:
-        session.close(quiet=True)
-    print(f"{args.resource}: {session.identity or 'no identity'}")
+        link.close(quiet=True)
+    print(f"{args.resource}: {link.identity or 'no identity'}")
     if profile is not None:
         print(f"profile: {profile.source} ({profile.kind})")
     print(format_table(prober.rows))

@@ -20,10 +20,10 @@ from ..errors import TanksideError
 from ..live.snapshot import Snapshot
 from .alerts import AlertList, open_alerts
 from .banner import Banner
+from .capture import write_columns_csv
 from .caution import CautionScreen
 from .figures import RunningFigures
 from .marknote import MarkNoteScreen
-from .saving import write_columns_csv
 from .spectrum import SpectrumView
 from .status import BenchStatus
 from .units import clock
@@ -58,16 +58,16 @@ class DashboardApp(App[None]):
         Binding("c", "cycle_method", "method"),
         Binding("l", "toggle_scale", "dB/lin"),
         Binding("z", "toggle_zoom", "zoom"),
-        Binding("s", "save_snapshot", "save"),
+        Binding("s", "save_capture", "save"),
         Binding("q", "quit_session", "quit"),
     ]
 
     def __init__(self, session, *, first_run_notice: bool = True,
-                 snapshot_dir: str | Path | None = None, refresh_hz: float = REFRESH_HZ):
+                 capture_dir: str | Path | None = None, refresh_hz: float = REFRESH_HZ):
         super().__init__()
         self.session = session
         self.first_run_notice = first_run_notice
-        self.snapshot_dir = Path(snapshot_dir) if snapshot_dir is not None else None
+        self.capture_dir = Path(capture_dir) if capture_dir is not None else None
         self.refresh_hz = refresh_hz
         self.held = False
         self.latest: Snapshot | None = None     # the newest snapshot read
@@ -218,16 +218,16 @@ class DashboardApp(App[None]):
         """The trace panel shows the pulse, or the whole record."""
         self.trace.set_zoom(not self.trace.zoomed)
 
-    def action_save_snapshot(self) -> None:
+    def action_save_capture(self) -> None:
         """Save the screen as SVG, and the shown trace in volts and in pascals as CSV."""
         snap = self.shown or self.latest
         if snap is None:
             return
-        folder = self.snapshot_dir
+        folder = self.capture_dir
         if folder is None:
             base = Path(snap.session_path).parent if snap.session_path else Path.cwd()
-            folder = base / "snapshots"
-        stem = f"snapshot-{time.strftime('%Y%m%d-%H%M%S')}-seq{snap.seq}"
+            folder = base / "captures"
+        stem = f"capture-{time.strftime('%Y%m%d-%H%M%S')}-seq{snap.seq}"
         try:
             folder.mkdir(parents=True, exist_ok=True)
             saved = [Path(self.save_screenshot(filename=f"{stem}.svg", path=str(folder)))]
@@ -239,7 +239,7 @@ class DashboardApp(App[None]):
                                                ("time_s", "pressure_pa"), snap.times_s,
                                                snap.pressure_pa))
         except OSError as err:
-            self.notify(f"snapshot not saved: {err}", severity="error", timeout=6)
+            self.notify(f"capture not saved: {err}", severity="error", timeout=6)
             return
         self.saved = saved
         self.notify(f"saved {len(saved)} files in {folder}", timeout=4)
@@ -269,7 +269,7 @@ def _initial_method(session) -> str:
 
 
 def run_dashboard(session, *, first_run_notice: bool = True,
-                  snapshot_dir: str | Path | None = None) -> int:
+                  capture_dir: str | Path | None = None) -> int:
     """Show the dashboard on a started live session until the operator quits.
 
     Parameters
@@ -279,15 +279,15 @@ def run_dashboard(session, *, first_run_notice: bool = True,
         set_method/stop/wait methods and its ``exit_code`` and ``running`` attributes.
     first_run_notice : bool
         Show the caution about high-power ultrasound before the live view.
-    snapshot_dir : path, optional
-        Where the save key writes; default ``snapshots/`` beside the session file.
+    capture_dir : path, optional
+        Where the save key writes; default ``captures/`` beside the session file.
 
     Returns
     -------
     int
         The session's exit code (see :mod:`tankside.monitor.cli`).
     """
-    app = DashboardApp(session, first_run_notice=first_run_notice, snapshot_dir=snapshot_dir)
+    app = DashboardApp(session, first_run_notice=first_run_notice, capture_dir=capture_dir)
     try:
         app.run()
     finally:

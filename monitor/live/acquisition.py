@@ -38,11 +38,11 @@ DRIVE_RETRY_S = 5.0         # after a failed query: do not stall acquisition eve
 
 
 @dataclass
-class Link:
+class OpenInstrument:
     """A connected instrument: the driver object and its SCPI session (resync, close)."""
 
     device: Any
-    session: Any
+    link: Any
     identity: str = ""
 
 
@@ -77,9 +77,9 @@ class AcquisitionLoop:
 
     Parameters
     ----------
-    open_digitiser : callable () -> Link
+    open_digitiser : callable () -> OpenInstrument
         Opens, identifies and configures the digitiser (settings applied).
-    open_generator : callable () -> Link, or None
+    open_generator : callable () -> OpenInstrument, or None
     out : queue.Queue
         Bounded queue of :class:`Acquired` and :class:`AcqEvent` items.
     stop : threading.Event
@@ -91,8 +91,8 @@ class AcquisitionLoop:
     first_seq : int
     """
 
-    def __init__(self, *, open_digitiser: Callable[[], Link],
-                 open_generator: Callable[[], Link] | None, out: queue.Queue,
+    def __init__(self, *, open_digitiser: Callable[[], OpenInstrument],
+                 open_generator: Callable[[], OpenInstrument] | None, out: queue.Queue,
                  stop: threading.Event, trigger_timeout_s: float, give_up_s: float = 60.0,
                  max_traces: int | None = None, first_seq: int = 0, gate: bool = True,
                  clock: Callable[[], float] = time.time):
@@ -106,8 +106,8 @@ class AcquisitionLoop:
         self.seq = first_seq
         self.gate = gate
         self.clock = clock
-        self.digitiser: Link | None = None
-        self.generator: Link | None = None
+        self.digitiser: OpenInstrument | None = None
+        self.generator: OpenInstrument | None = None
         self.commands: queue.Queue = queue.Queue()
         # Set only when nothing downstream reads the queue any more (a fatal error there).
         self.abandon = threading.Event()
@@ -242,7 +242,7 @@ class AcquisitionLoop:
 
     def _recover(self, err: Exception) -> None:
         try:
-            self.digitiser.session.resync()
+            self.digitiser.link.resync()
         except InstrumentError:
             self._reconnect(err)
             return
@@ -354,7 +354,7 @@ class AcquisitionLoop:
             self._next_drive_poll = now + DRIVE_RETRY_S
             try:
                 # a late reply must not be read as the answer to the next query
-                self.generator.session.resync()
+                self.generator.link.resync()
             except InstrumentError:
                 pass  # the link is gone; safe-off reopens it when it is needed
             if self._drive_fault is None:
@@ -384,10 +384,10 @@ class AcquisitionLoop:
                                      "before_seq": self.seq, **cause})
 
 
-def _close(link: Link | None) -> None:
-    if link is None:
+def _close(inst: OpenInstrument | None) -> None:
+    if inst is None:
         return
     try:
-        link.session.close()
+        inst.link.close()
     except InstrumentError:
         pass  # closing a transport that is already gone: nothing left to release

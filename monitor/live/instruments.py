@@ -1,4 +1,4 @@
-"""Opening the bench's instruments: resource -> SCPI session -> profile-driven driver.
+"""Opening the bench's instruments: resource -> SCPI link -> profile-driven driver.
 
 Each opener is a function of no arguments, so the acquisition thread can call it
 again to reconnect after a lost instrument. The profile is loaded once, up front,
@@ -11,14 +11,14 @@ from ...drivers.digitiser import Digitiser
 from ...drivers.errors import InstrumentError
 from ...drivers.generator import Generator
 from ...drivers.profile import load_profile
-from ...drivers.scpi import ScpiSession
-from .acquisition import Link
+from ...drivers.scpi import ScpiLink
+from .acquisition import OpenInstrument
 
 
-def _session(config, profile, name: str) -> ScpiSession:
-    # open_resource (under ScpiSession.open) already switches Nagle's algorithm off.
+def _open_link(config, profile, name: str) -> ScpiLink:
+    # open_resource (under ScpiLink.open) already switches Nagle's algorithm off.
     timeout_s = config.timeout_s if config.timeout_s else profile.timeout_s
-    return ScpiSession.open(config.resource, visa_library=config.visa_library,
+    return ScpiLink.open(config.resource, visa_library=config.visa_library,
                             timeout_s=timeout_s, read_termination=profile.read_termination,
                             write_termination=profile.write_termination,
                             name=f"{name} {config.resource}",
@@ -26,7 +26,7 @@ def _session(config, profile, name: str) -> ScpiSession:
 
 
 def digitiser_opener(config, settings):
-    """Returns ``open() -> Link``: connect, identify and configure the digitiser.
+    """Returns ``open() -> OpenInstrument``: connect, identify and configure the digitiser.
 
     Parameters
     ----------
@@ -35,34 +35,34 @@ def digitiser_opener(config, settings):
     """
     profile = load_profile(config.profile)
 
-    def open_digitiser() -> Link:
-        session = _session(config, profile, "digitiser")
+    def open_digitiser() -> OpenInstrument:
+        link = _open_link(config, profile, "digitiser")
         try:
-            device = Digitiser(session, profile)
+            device = Digitiser(link, profile)
             identity = device.identity
             device.configure(settings)
         except InstrumentError:
-            _close_quietly(session)
+            _close_quietly(link)
             raise
-        return Link(device=device, session=session, identity=identity)
+        return OpenInstrument(device=device, link=link, identity=identity)
 
     return open_digitiser
 
 
 def generator_opener(config):
-    """Returns ``open() -> Link`` for the generator, applying the bench's settings once.
+    """Returns ``open() -> OpenInstrument`` for the generator, applying the bench's settings once.
 
     Settings given in the bench file (amplitude, frequency, burst, output) are applied
-    at the first opening only: a reconnect during a session must not switch a drive
+    at the first opening only: a reconnect during a link must not switch a drive
     back on that safe-off switched off.
     """
     profile = load_profile(config.profile)
     first = [True]
 
-    def open_generator() -> Link:
-        session = _session(config, profile, "generator")
+    def open_generator() -> OpenInstrument:
+        link = _open_link(config, profile, "generator")
         try:
-            device = Generator(session, profile)
+            device = Generator(link, profile)
             identity = device.identity
             if first[0]:
                 if config.frequency_hz is not None:
@@ -74,16 +74,16 @@ def generator_opener(config):
                 if config.output is not None:
                     device.set_output(config.output)
         except InstrumentError:
-            _close_quietly(session)
+            _close_quietly(link)
             raise
         first[0] = False
-        return Link(device=device, session=session, identity=identity)
+        return OpenInstrument(device=device, link=link, identity=identity)
 
     return open_generator
 
 
-def _close_quietly(session: ScpiSession) -> None:
+def _close_quietly(link: ScpiLink) -> None:
     try:
-        session.close()
+        link.close()
     except InstrumentError:
         pass  # the error that made us give up is the one raised

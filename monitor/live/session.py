@@ -56,7 +56,7 @@ from .acquisition import (
     AcqEvent,
     Acquired,
     AcquisitionLoop,
-    Link,
+    OpenInstrument,
 )
 from .autorange import range_after
 from .figures import FigureSet, RateMeter
@@ -98,9 +98,9 @@ class LiveSession:
 
     Parameters
     ----------
-    open_digitiser : callable () -> Link
+    open_digitiser : callable () -> OpenInstrument
         Opens the digitiser and applies its settings; called again to reconnect.
-    open_generator : callable () -> Link, or None
+    open_generator : callable () -> OpenInstrument, or None
     converter : Converter
         ``.process(voltage_v, dt_s) -> TraceResult`` and ``.with_method(m)``.
     rules : RuleEngine
@@ -126,8 +126,8 @@ class LiveSession:
         Name -> resource string, for the instrument status view.
     """
 
-    def __init__(self, *, open_digitiser: Callable[[], Link],
-                 open_generator: Callable[[], Link] | None, converter, rules,
+    def __init__(self, *, open_digitiser: Callable[[], OpenInstrument],
+                 open_generator: Callable[[], OpenInstrument] | None, converter, rules,
                  open_store: Callable[[Path, dict], Any], metadata: Callable[[dict], dict],
                  session_path: str | Path, trigger_timeout_s: float = 2.0,
                  queue_capacity: int = 64, max_traces: int | None = None,

@@ -1,6 +1,6 @@
 """Fetch rate of int16 waveform blocks from the simulated digitiser, three ways, one run.
 
-1. the driver: ``ScpiSession.query_block`` (header, then exactly the announced count,
+1. the driver: ``ScpiLink.query_block`` (header, then exactly the announced count,
    then the terminator), over pyvisa-py, reading straight from its socket into one
    buffer (the default); the same session reading through pyvisa-py's ``read`` with
    the termination character off (``direct_block_reads=False``, what any other VISA
@@ -28,7 +28,7 @@ import numpy as np
 from tankside.drivers import ieee488
 from tankside.drivers.digitiser import Digitiser, DigitiserSettings
 from tankside.drivers.profile import load_profile
-from tankside.drivers.scpi import ScpiSession
+from tankside.drivers.scpi import ScpiLink
 from tankside.drivers.visa import open_resource
 from tankside.simulators.bench import SimulatedBench
 
@@ -105,7 +105,7 @@ def main() -> None:
             nbytes = 2 * samples
             settings = DigitiserSettings(record_length=samples, sample_rate_hz=250e6,
                                          range_v=0.1, trigger_source="EXT", trigger_level_v=1.0)
-            session = ScpiSession.open(resource, timeout_s=10.0)
+            session = ScpiLink.open(resource, timeout_s=10.0)
             dig = Digitiser(session, profile)
             dig.configure(settings)
             driver = _rate(lambda s=session: s.query_block(FETCH), nbytes)
@@ -115,7 +115,7 @@ def main() -> None:
                             nbytes)
             session.close()
 
-            session = ScpiSession.open(resource, timeout_s=10.0, direct_block_reads=False)
+            session = ScpiLink.open(resource, timeout_s=10.0, direct_block_reads=False)
             via_visa = _rate(lambda s=session: s.query_block(FETCH), nbytes)
             session.close()
 

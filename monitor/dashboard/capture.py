@@ -1,4 +1,4 @@
-"""Writing a dashboard snapshot's trace files (the screenshot itself is Textual's)."""
+"""Writing the trace files of a dashboard capture (the screenshot itself is Textual's)."""
 
 from __future__ import annotations
 

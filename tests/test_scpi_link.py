@@ -1,4 +1,4 @@
-"""ScpiSession: exact bytes, error policies, error translation and recovery.
+"""ScpiLink: exact bytes, error policies, error translation and recovery.
 
 The IEEE 488.2 common commands used (*IDN?, *OPC?, *CLS) are from IEEE Std 488.2-1992,
 clause 10; the error queue query SYST:ERR? and its '0,"No error"' end marker from
@@ -10,6 +10,8 @@ import time
 import numpy as np
 import pytest
 from pyvisa.errors import VisaIOError
+from tcp_fixture import LineServer
+from transcript import CLEAR, FakeResource, Late
 
 from tankside.drivers import ieee488
 from tankside.drivers.errors import (
@@ -18,10 +20,8 @@ from tankside.drivers.errors import (
     InstrumentTimeout,
     ProtocolError,
 )
-from tankside.drivers.scpi import ScpiSession
+from tankside.drivers.scpi import ScpiLink
 from tankside.drivers.visa import open_resource
-from tcp_fixture import LineServer
-from transcript import CLEAR, FakeResource, Late
 
 IDN = b"Tankside Labs,Bench Digitiser,0001,1.0\n"
 NO_ERROR = (b"SYST:ERR?\n", b'0,"No error"\n')
@@ -30,7 +30,7 @@ NO_ERROR = (b"SYST:ERR?\n", b'0,"No error"\n')
 class TestTranscript:
     def test_write_query_identify(self):
         with FakeResource([(b"*RST\n", None), (b"VOLT?\n", b"1.5\n"), (b"*IDN?\n", IDN)]) as fake:
-            s = ScpiSession(fake)
+            s = ScpiLink(fake)
             s.write("*RST")
             assert s.query("VOLT?") == "1.5"
             assert s.identify() == IDN.decode().strip()
@@ -38,56 +38,56 @@ class TestTranscript:
 
     def test_opc_and_clear(self):
         with FakeResource([(b"*OPC?\n", b"1\n"), (b"*CLS\n", None)]) as fake:
-            s = ScpiSession(fake)
+            s = ScpiLink(fake)
             s.opc()
             s.clear()
 
     def test_opc_wrong_reply(self):
         with FakeResource([(b"*OPC?\n", b"0\n")]) as fake, pytest.raises(ProtocolError):
-            ScpiSession(fake).opc()
+            ScpiLink(fake).opc()
 
     def test_drain_errors_reads_until_zero(self):
         steps = [(b"SYST:ERR?\n", b'-113,"Undefined header"\n'),
                  (b"SYST:ERR?\n", b'-222,"Data out of range"\n'), NO_ERROR]
         with FakeResource(steps) as fake:
-            assert ScpiSession(fake).drain_errors() == [(-113, "Undefined header"),
+            assert ScpiLink(fake).drain_errors() == [(-113, "Undefined header"),
                                                         (-222, "Data out of range")]
 
     def test_policy_raise(self):
         steps = [(b"RANG 9\n", None), (b"SYST:ERR?\n", b'-222,"Data out of range"\n'), NO_ERROR]
         with FakeResource(steps) as fake:
             with pytest.raises(InstrumentReportedError) as info:
-                ScpiSession(fake).write_step("RANG 9")
+                ScpiLink(fake).write_step("RANG 9")
         assert (info.value.code, info.value.description, info.value.command) == (
             -222, "Data out of range", "RANG 9")
 
     def test_policy_record(self):
         steps = [(b"RANG 9\n", None), (b"SYST:ERR?\n", b'-222,"Data out of range"\n'), NO_ERROR]
         with FakeResource(steps) as fake:
-            s = ScpiSession(fake, error_policy="record")
+            s = ScpiLink(fake, error_policy="record")
             assert s.write_step("RANG 9") == [(-222, "Data out of range")]
         assert [e.code for e in s.recorded_errors] == [-222]
 
     def test_policy_ignore(self):
         steps = [(b"RANG 9\n", None), (b"SYST:ERR?\n", b'-222,"Data out of range"\n'), NO_ERROR]
         with FakeResource(steps) as fake:
-            s = ScpiSession(fake, error_policy="ignore")
+            s = ScpiLink(fake, error_policy="ignore")
             s.write_step("RANG 9")
         assert s.recorded_errors == []
 
     def test_bad_policy(self):
         with pytest.raises(ValueError):
-            ScpiSession(FakeResource([]), error_policy="log")
+            ScpiLink(FakeResource([]), error_policy="log")
 
     def test_block_with_many_newlines(self):
         payload = np.full(1000, 0x0A0A, dtype="<i2").tobytes()
         with FakeResource([(b"WAV?\n", ieee488.encode_block(payload) + b"\n")]) as fake:
-            assert ScpiSession(fake).query_block("WAV?") == payload
+            assert ScpiLink(fake).query_block("WAV?") == payload
             assert fake.termchar_enabled  # switched back on after the block
 
     def test_timeout_is_typed_and_chained(self):
         with FakeResource([(b"VOLT?\n", None)]) as fake:
-            s = ScpiSession(fake)
+            s = ScpiLink(fake)
             with pytest.raises(InstrumentTimeout) as info:
                 s.query("VOLT?")
         assert isinstance(info.value.__cause__, VisaIOError)
@@ -98,7 +98,7 @@ class TestTranscript:
         steps = [(b"*IDN?\n", IDN), (b"VOLT?\n", Late(b"1.5\n")), CLEAR, (b"*IDN?\n", IDN),
                  (b"FREQ?\n", b"2000000\n")]
         with FakeResource(steps) as fake:
-            s = ScpiSession(fake)
+            s = ScpiLink(fake)
             s.identify()
             with pytest.raises(InstrumentTimeout):
                 s.query("VOLT?")
@@ -108,7 +108,7 @@ class TestTranscript:
     def test_protocol_error_sets_resync(self):
         steps = [(b"WAV?\n", b"garbage\n"), CLEAR, (b"*IDN?\n", IDN), (b"*OPC?\n", b"1\n")]
         with FakeResource(steps) as fake:
-            s = ScpiSession(fake)
+            s = ScpiLink(fake)
             with pytest.raises(ProtocolError):
                 s.query_block("WAV?")
             s.opc()
@@ -118,13 +118,13 @@ class TestTranscript:
         fake = FakeResource([])
         fake.closed = True
         with pytest.raises(ConnectionLost) as info:
-            ScpiSession(fake).write("*RST")
+            ScpiLink(fake).write("*RST")
         assert isinstance(info.value.__cause__, VisaIOError)
 
     def test_reopen_runs_hooks(self):
         first = FakeResource([])
         second = FakeResource([(b"ACQ:POIN 100\n", None)])
-        s = ScpiSession(first, reopen=lambda: second)
+        s = ScpiLink(first, reopen=lambda: second)
         s.add_reopen_hook(lambda: s.write("ACQ:POIN 100"))
         s.reopen()
         assert first.closed and s.resource is second and s.counts["reopens"] == 1
@@ -132,12 +132,12 @@ class TestTranscript:
 
     def test_reopen_without_factory(self):
         with pytest.raises(ConnectionLost):
-            ScpiSession(FakeResource([])).reopen()
+            ScpiLink(FakeResource([])).reopen()
 
     def test_recover_falls_back_to_reopen(self):
         first = FakeResource([CLEAR, (b"*IDN?\n", None)])
         second = FakeResource([])
-        s = ScpiSession(first, reopen=lambda: second, resync_timeout_s=0.2)
+        s = ScpiLink(first, reopen=lambda: second, resync_timeout_s=0.2)
         assert s.recover() == "reopen"
         assert s.resource is second
         first.verify()
@@ -178,7 +178,7 @@ class TestOverTcp:
                     b"SYST:ERR?": b'0,"No error"\n'}.get(line)
 
         with LineServer(handler) as server:
-            s = ScpiSession.open(server.resource, timeout_s=2.0, direct_block_reads=direct)
+            s = ScpiLink.open(server.resource, timeout_s=2.0, direct_block_reads=direct)
             assert s.reads_blocks_directly is direct  # pyvisa-py's socket is reachable
             assert s.identify() == IDN.decode().strip()
             assert s.query_block("WAV?") == payload
@@ -197,7 +197,7 @@ class TestOverTcp:
             return {b"*IDN?": IDN}.get(line)   # "WAIT?" gets no reply of its own
 
         with LineServer(handler) as server:
-            s = ScpiSession.open(server.resource, timeout_s=2.0, direct_block_reads=direct)
+            s = ScpiLink.open(server.resource, timeout_s=2.0, direct_block_reads=direct)
             assert s.query("BOTH?") == "1.25"
             backend = s.resource.visalib.sessions[s.resource.session]
             assert len(backend._pending_buffer) > 0   # one loopback segment, read whole
@@ -214,7 +214,7 @@ class TestOverTcp:
             return {b"*IDN?": IDN, b"WAV?": reply}.get(line)
 
         with LineServer(handler) as server:
-            s = ScpiSession.open(server.resource, timeout_s=0.3, direct_block_reads=direct)
+            s = ScpiLink.open(server.resource, timeout_s=0.3, direct_block_reads=direct)
             t0 = time.monotonic()
             with pytest.raises(error):
                 s.query_block("WAV?")
@@ -232,7 +232,7 @@ class TestOverTcp:
             return {b"*IDN?": IDN, b"VOLT?": stall, b"FREQ?": b"3\n"}.get(line)
 
         with LineServer(handler) as server:
-            s = ScpiSession.open(server.resource, timeout_s=0.2)
+            s = ScpiLink.open(server.resource, timeout_s=0.2)
             s.identify()
             with pytest.raises(InstrumentTimeout):
                 s.query("VOLT?")
@@ -246,7 +246,7 @@ class TestOverTcp:
             return {b"*IDN?": IDN}.get(line)
 
         with LineServer(handler) as server:
-            s = ScpiSession.open(server.resource, timeout_s=0.3)
+            s = ScpiLink.open(server.resource, timeout_s=0.3)
             s.identify()
             with pytest.raises(ConnectionLost):
                 s.query("DROP?")
@@ -284,7 +284,7 @@ class TestBlockPropertyOverTcp:
         )
         timeout_s = 0.15
         with LineServer(handler) as server:
-            session = ScpiSession.open(server.resource, timeout_s=timeout_s,
+            session = ScpiLink.open(server.resource, timeout_s=timeout_s,
                                        resync_timeout_s=2.0, direct_block_reads=direct)
             session.identify()
 
