@@ -7,9 +7,8 @@ float on the safe side (numpy.nextafter).
 
 from __future__ import annotations
 
-import inspect
-import re
 import tomllib
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -17,7 +16,6 @@ from alert_samples import engine, obs, result
 
 from tankside.drivers.trace import RawTrace, count_at_rails
 from tankside.monitor.errors import ConfigError, TanksideError
-from tankside.monitor.live import rules as alerts
 from tankside.monitor.live.autorange import range_after
 from tankside.monitor.live.rules import (
     RULES,
@@ -39,38 +37,33 @@ def above(x):
     return float(np.nextafter(x, np.inf))
 
 
-# -- the documented tables are the code's defaults -----------------------------------
+README = Path(__file__).resolve().parents[1] / "README.md"
 
-def _rst_tables(text):
-    """Rows of every reST simple table in ``text``, continuation lines joined."""
-    lines = text.splitlines()
-    tables, i = [], 0
-    while i < len(lines):
-        if re.fullmatch(r"=+( +=+)+", lines[i].strip()):
-            border = lines[i]
-            spans = [m.span() for m in re.finditer(r"=+", border)]
-            spans[-1] = (spans[-1][0], 10_000)
-            rows, i = [], i + 1
-            borders_seen = 1
-            while borders_seen < 3:
-                line = lines[i]
-                if line.strip() and set(line.strip()) <= {"=", " "}:
-                    borders_seen += 1
-                else:
-                    cells = [line[a:b].strip() for a, b in spans]
-                    if not cells[0] and rows:
-                        rows[-1] = [f"{old} {new}".strip() for old, new in zip(rows[-1], cells, strict=True)]
-                    else:
-                        rows.append(cells)
-                i += 1
-            tables.append(rows)
-        else:
-            i += 1
+
+def _readme_alerts_section() -> str:
+    text = README.read_text(encoding="utf-8")
+    return text.split("### Alerts", 1)[1].split("\n### ", 1)[0]
+
+
+def _markdown_tables(text: str) -> list[list[list[str]]]:
+    """Every pipe table in ``text`` as rows of cells (header first, rule line dropped)."""
+    tables: list[list[list[str]]] = []
+    current: list[list[str]] = []
+    for line in text.splitlines():
+        if line.startswith("|"):
+            cells = [c.strip().strip("`") for c in line.strip().strip("|").split("|")]
+            if not all(set(c) <= {"-", " ", ":"} for c in cells):
+                current.append(cells)
+        elif current:
+            tables.append(current)
+            current = []
+    if current:
+        tables.append(current)
     return tables
 
 
-def test_documented_rule_table_matches_code():
-    rules_table, thresholds_table = _rst_tables(inspect.getdoc(alerts))
+def test_readme_rule_tables_match_code():
+    rules_table, thresholds_table = _markdown_tables(_readme_alerts_section())[:2]
     header, *rows = rules_table
     assert header == ["rule", "fires when", "severity", "default actions"]
     assert [r[0] for r in rows] == list(RULES)
@@ -95,12 +88,9 @@ def test_documented_rule_table_matches_code():
             assert float(default) == param.default, key
 
 
-def test_documented_bench_example_parses():
-    doc = inspect.getdoc(alerts)
-    block = doc.split("Bench file layout (every table and key optional)::", 1)[1]
-    block = block.split("\nLatching", 1)[0]
-    toml_text = "\n".join(line[4:] for line in block.splitlines())
-    config = AlertConfig.from_table(tomllib.loads(toml_text)["alerts"])
+def test_readme_bench_example_parses():
+    block = _readme_alerts_section().split("```toml\n", 1)[1].split("```", 1)[0]
+    config = AlertConfig.from_table(tomllib.loads(block)["alerts"])
     assert config["over_pressure"].params["limit_pa"] == 2.0e6
     assert config["over_pressure"].actions == ("record", "bell", "safe-off", "stop")
     assert config["range_under_use"].params["consecutive_traces"] == 20

@@ -31,6 +31,7 @@ from ...drivers.errors import (
     ProtocolError,
 )
 from ..record.schema import EVENT_DRIVE_OFF, EVENT_DRIVE_ON
+from .actions import InstrumentAction, RaisedAlert, SafeOff, SetRange
 
 BACKOFF_S = (0.1, 0.2, 0.5, 1.0, 2.0, 5.0)
 DRIVE_POLL_S = 1.0          # output-state query interval (cheap; not one per trace)
@@ -58,14 +59,18 @@ class Acquired:
 class AcqEvent:
     """Something that happened at the instruments, in order with the traces.
 
-    ``alert`` is (rule, severity, message) when the event should also raise an alert.
+    ``alert`` is set when the event should also raise an alert.
     """
 
     time_s: float
     kind: str
     detail: dict
     seq: int | None = None
-    alert: tuple[str, str, str] | None = None
+    alert: RaisedAlert | None = None
+
+
+# A verdict beyond any sequence number a session reaches: releases the gate for good.
+_NO_MORE_VERDICTS = 1 << 62
 
 
 class Fatal(Exception):
@@ -108,7 +113,7 @@ class AcquisitionLoop:
         self.clock = clock
         self.digitiser: OpenInstrument | None = None
         self.generator: OpenInstrument | None = None
-        self.commands: queue.Queue = queue.Queue()
+        self.commands: queue.Queue[InstrumentAction] = queue.Queue()
         # Set only when nothing downstream reads the queue any more (a fatal error there).
         self.abandon = threading.Event()
         self.connected = False
@@ -207,7 +212,8 @@ class AcquisitionLoop:
             self.blocked_s += time.monotonic() - t0
             self.blocked_now = False
 
-    def _event(self, kind: str, detail: dict, alert=None, seq=None) -> None:
+    def _event(self, kind: str, detail: dict, alert: RaisedAlert | None = None,
+               seq: int | None = None) -> None:
         self._emit(AcqEvent(self.clock(), kind, detail, seq=seq, alert=alert))
 
     def _acquire_one(self) -> None:
@@ -221,19 +227,19 @@ class AcquisitionLoop:
         except (ProtocolError, InstrumentTimeout) as err:
             kind = "malformed-reply" if isinstance(err, ProtocolError) else "stalled"
             self._event("fault", {"kind": kind, "message": str(err), "at_seq": self.seq},
-                        alert=("instrument-fault", "warning", f"digitiser {kind}: {err}"))
+                        alert=RaisedAlert("instrument-fault", "warning", f"digitiser {kind}: {err}"))
             self._recover(err)
             return
         except ConnectionLost as err:
             self._event("fault", {"kind": "connection-lost", "message": str(err),
                                   "at_seq": self.seq},
-                        alert=("instrument-fault", "warning", f"digitiser lost: {err}"))
+                        alert=RaisedAlert("instrument-fault", "warning", f"digitiser lost: {err}"))
             self._reconnect(err)
             return
         except InstrumentError as err:
             self._event("fault", {"kind": "instrument-error", "message": str(err),
                                   "at_seq": self.seq},
-                        alert=("instrument-fault", "warning", f"digitiser: {err}"))
+                        alert=RaisedAlert("instrument-fault", "warning", f"digitiser: {err}"))
             return
         self.last_trigger_mono = time.monotonic()
         flags, self._next_flags = self._next_flags, {}
@@ -279,15 +285,15 @@ class AcquisitionLoop:
                                           "after_s": round(time.monotonic() - started, 3),
                                           "cause": str(err), "identity": link.identity,
                                           "next_seq": self.seq},
-                            alert=("instrument-reconnected", "info",
-                                   f"digitiser reconnected after {attempt} attempt(s)"))
+                            alert=RaisedAlert("instrument-reconnected", "info",
+f"digitiser reconnected after {attempt} attempt(s)"))
                 return
         finally:
             self.reconnecting = False
 
     # -- actions -----------------------------------------------------------------
     def _apply_commands(self) -> None:
-        pending = []
+        pending: list[InstrumentAction] = []
         while True:
             try:
                 pending.append(self.commands.get_nowait())
@@ -297,17 +303,22 @@ class AcquisitionLoop:
             return
         # Safe-off before anything else, however the requests arrived.
         for cmd in pending:
-            if cmd[0] == "safe-off":
-                self._safe_off(cmd[1])
-        ranges = [cmd for cmd in pending if cmd[0] == "range"]
+            if isinstance(cmd, SafeOff):
+                self._safe_off(cmd.cause.as_detail())
+        ranges = [cmd for cmd in pending if isinstance(cmd, SetRange)]
         if ranges:
-            self._set_range(*ranges[-1][1:])
+            self._set_range(ranges[-1].range_v, ranges[-1].cause.as_detail())
+
+    def release_all(self) -> None:
+        """Nothing downstream judges traces any more: never wait for a verdict again."""
+        self.abandon.set()
+        self.verdict(_NO_MORE_VERDICTS)
 
     def _safe_off(self, cause: dict) -> None:
         if self.generator is None:
             self._event("safe-off", {"done": False, "why": "no generator configured", **cause},
-                        alert=("safe-off-failed", "critical",
-                               "safe-off asked for but no generator is configured"))
+                        alert=RaisedAlert("safe-off-failed", "critical",
+"safe-off asked for but no generator is configured"))
             return
         try:
             self.generator.device.set_output(False)
@@ -320,13 +331,13 @@ class AcquisitionLoop:
                 still_on = self.generator.device.output_is_on()
             except InstrumentError as again:
                 self._event("safe-off", {"done": False, "error": str(again), **cause},
-                            alert=("safe-off-failed", "critical",
-                                   f"generator output could not be switched off: {err}"))
+                            alert=RaisedAlert("safe-off-failed", "critical",
+f"generator output could not be switched off: {err}"))
                 return
         if still_on:
             self._event("safe-off", {"done": False, "error": "output still on", **cause},
-                        alert=("safe-off-failed", "critical",
-                               "generator reports output still on after safe-off"))
+                        alert=RaisedAlert("safe-off-failed", "critical",
+"generator reports output still on after safe-off"))
             return
         self._event("safe-off", {"done": True, "before_seq": self.seq, **cause})
         self._set_drive(False, "safe-off")
@@ -362,8 +373,8 @@ class AcquisitionLoop:
                 self.drive_on = None
                 self._event("fault", {"kind": "generator-query", "message": str(err),
                                       "at_seq": self.seq},
-                            alert=("instrument-fault", "warning",
-                                   f"generator output state unknown: {err}"))
+                            alert=RaisedAlert("instrument-fault", "warning",
+f"generator output state unknown: {err}"))
             return
         self._next_drive_poll = now + DRIVE_POLL_S
         self._set_drive(on, "start" if self.drive_cause == "" else "generator")
@@ -377,7 +388,7 @@ class AcquisitionLoop:
         except InstrumentError as err:
             self._event("range-change", {"done": False, "from_v": old_v, "to_v": new_v,
                                          "error": str(err), **cause},
-                        alert=("auto-range-failed", "warning", f"range change failed: {err}"))
+                        alert=RaisedAlert("auto-range-failed", "warning", f"range change failed: {err}"))
             return
         self._next_flags = {"range_changed": True, "previous_range_v": old_v}
         self._event("range-change", {"done": True, "from_v": old_v, "to_v": new_v,

@@ -461,7 +461,8 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
     session_path, max_traces, duration_s
         As for :meth:`LiveSession.from_bench`.
     """
-    from .session import LiveSession, new_session_path
+    from .build import new_session_path
+    from .session import LiveSession
 
     if not own_process:
         return LiveSession.from_bench(bench, session_path=session_path, max_traces=max_traces,

@@ -11,28 +11,55 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from enum import StrEnum
 from types import MappingProxyType
 
 from ..acoustics.presence import DEFAULT_EDGE_FRACTION, DEFAULT_FACTOR
 from ..errors import ConfigError
 
-SEVERITIES = ("info", "warning", "critical")
-ACTIONS = ("record", "bell", "auto-range", "safe-off", "stop")
+
+class Severity(StrEnum):
+    """How serious an alert is (the display orders and colours by it)."""
+
+    INFO = "info"
+    WARNING = "warning"
+    CRITICAL = "critical"
+
+
+class Action(StrEnum):
+    """What a rule's firing does."""
+
+    RECORD = "record"          # into the session file
+    BELL = "bell"              # the terminal bell
+    AUTO_RANGE = "auto-range"  # step the digitiser's range (clipping, range_under_use)
+    SAFE_OFF = "safe-off"      # switch the generator output off before the next trace
+    STOP = "stop"              # end the session (exit code of a rule stop)
+
+
+class ParamKind(StrEnum):
+    """The kind of value a threshold takes."""
+
+    INT = "int"                        # a whole number
+    FLOAT = "float"
+    OPTIONAL_FLOAT = "optional_float"  # may be left unset (default None)
+
+
+SEVERITIES = tuple(Severity)
+ACTIONS = tuple(Action)
 # Only these rules say which way the vertical range should go.
 AUTO_RANGE_RULES = ("clipping", "range_under_use")
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class Param:
     """One threshold of a rule.
 
-    ``kind`` is "int" (whole number), "float" or "optional_float" (may be left
-    unset: default None). Values must be ``> low`` (``>= low`` when
-    ``low_inclusive``) and, if ``high`` is given, ``<= high``.
+    Values must be ``> low`` (``>= low`` when ``low_inclusive``) and, if ``high`` is
+    given, ``<= high``; ``unit`` is the unit of the value (``"1"`` for a ratio).
     """
 
     key: str
-    kind: str
+    kind: ParamKind
     default: float | int | None
     unit: str
     low: float
@@ -47,48 +74,51 @@ class Param:
 
 @dataclass(frozen=True)
 class RuleSpec:
+    """A rule's name, default severity and actions, and its thresholds."""
+
     name: str
-    severity: str
-    actions: tuple[str, ...]
+    severity: Severity
+    actions: tuple[Action, ...]
     params: tuple[Param, ...] = ()
 
 
 RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for spec in (
-    RuleSpec("clipping", "warning", ("record", "bell", "auto-range"), (
-        Param("min_samples", "int", 1, "samples", 1, True,
+    RuleSpec("clipping", Severity.WARNING, (Action.RECORD, Action.BELL, Action.AUTO_RANGE), (
+        Param(key="min_samples", kind=ParamKind.INT, default=1, unit="samples", low=1, low_inclusive=True,
               meaning="samples at either rail in one trace"),)),
-    RuleSpec("over_pressure", "critical", ("record", "bell", "safe-off"), (
-        Param("rated_max_pa", "float", 1.0e7, "Pa", 0.0,
+    RuleSpec("over_pressure", Severity.CRITICAL, (Action.RECORD, Action.BELL, Action.SAFE_OFF), (
+        Param(key="rated_max_pa", kind=ParamKind.FLOAT, default=1.0e7, unit="Pa", low=0.0,
               meaning="hydrophone's rated maximum pressure"),
-        Param("limit_pa", "optional_float", None, "Pa", 0.0,
+        Param(key="limit_pa", kind=ParamKind.OPTIONAL_FLOAT, default=None, unit="Pa", low=0.0,
               meaning="optional user limit (the lower one applies)"))),
-    RuleSpec("range_under_use", "info", ("record", "auto-range"), (
-        Param("below_fraction", "float", 0.3, "1", 0.0, high=1.0,
+    RuleSpec("range_under_use", Severity.INFO, (Action.RECORD, Action.AUTO_RANGE), (
+        Param(key="below_fraction", kind=ParamKind.FLOAT, default=0.3, unit="1", low=0.0, high=1.0,
               meaning="fraction of half the full-scale span"),
-        Param("consecutive_traces", "int", 10, "traces", 1, True,
+        Param(key="consecutive_traces", kind=ParamKind.INT, default=10, unit="traces", low=1, low_inclusive=True,
               meaning="under-used traces in a row before firing"))),
-    RuleSpec("no_trigger", "warning", ("record", "bell"), (
-        Param("after_s", "float", 5.0, "s", 0.0, meaning="time without a trigger"),)),
-    RuleSpec("pr_drift", "warning", ("record", "bell"), (
-        Param("max_change_percent", "float", 10.0, "%", 0.0,
+    RuleSpec("no_trigger", Severity.WARNING, (Action.RECORD, Action.BELL), (
+        Param(key="after_s", kind=ParamKind.FLOAT, default=5.0, unit="s", low=0.0,
+              meaning="time without a trigger"),)),
+    RuleSpec("pr_drift", Severity.WARNING, (Action.RECORD, Action.BELL), (
+        Param(key="max_change_percent", kind=ParamKind.FLOAT, default=10.0, unit="%", low=0.0,
               meaning="change of p_r relative to the first half"),
-        Param("window_traces", "int", 20, "traces", 2, True,
+        Param(key="window_traces", kind=ParamKind.INT, default=20, unit="traces", low=2, low_inclusive=True,
               meaning="traces in the window (at one position)"))),
-    RuleSpec("narrowband_fail", "warning", ("record",)),
-    RuleSpec("conversion_failed", "warning", ("record",)),
-    RuleSpec("no_pulse", "info", ("record",), (
-        Param("noise_factor", "float", DEFAULT_FACTOR, "1", 0.0, True,
+    RuleSpec("narrowband_fail", Severity.WARNING, (Action.RECORD,)),
+    RuleSpec("conversion_failed", Severity.WARNING, (Action.RECORD,)),
+    RuleSpec("no_pulse", Severity.INFO, (Action.RECORD,), (
+        Param(key="noise_factor", kind=ParamKind.FLOAT, default=DEFAULT_FACTOR, unit="1", low=0.0, low_inclusive=True,
               meaning="peak over robust noise sigma that counts as a pulse"),
-        Param("edge_fraction", "float", DEFAULT_EDGE_FRACTION, "1", 0.0, high=0.5,
+        Param(key="edge_fraction", kind=ParamKind.FLOAT, default=DEFAULT_EDGE_FRACTION, unit="1", low=0.0, high=0.5,
               meaning="share of the record at each end for the noise"))),
-    RuleSpec("disk_space_low", "warning", ("record", "bell"), (
-        Param("min_free_bytes", "int", 1_000_000_000, "bytes", 0, True,
+    RuleSpec("disk_space_low", Severity.WARNING, (Action.RECORD, Action.BELL), (
+        Param(key="min_free_bytes", kind=ParamKind.INT, default=1_000_000_000, unit="bytes", low=0, low_inclusive=True,
               meaning="free space left on the session disk"),)),
-    RuleSpec("falling_behind", "warning", ("record", "bell"), (
-        Param("queue_fraction", "float", 0.8, "1", 0.0, high=1.0,
+    RuleSpec("falling_behind", Severity.WARNING, (Action.RECORD, Action.BELL), (
+        Param(key="queue_fraction", kind=ParamKind.FLOAT, default=0.8, unit="1", low=0.0, high=1.0,
               meaning="share of the processing queue in use"),)),
-    RuleSpec("store_lag", "warning", ("record",), (
-        Param("max_lag_s", "float", 5.0, "s", 0.0,
+    RuleSpec("store_lag", Severity.WARNING, (Action.RECORD,), (
+        Param(key="max_lag_s", kind=ParamKind.FLOAT, default=5.0, unit="s", low=0.0,
               meaning="age of the oldest uncommitted trace"),)),
 )})
 
@@ -105,10 +135,9 @@ class RuleConfig:
     ----------
     name : str
     enabled : bool
-    severity : str
-        "info", "warning" or "critical".
-    actions : tuple of str
-        A subset of "record", "bell", "auto-range", "safe-off", "stop", in order.
+    severity : Severity
+    actions : tuple of Action
+        In the order the bench file gives them.
     repeat_after_s : float
         0: fire once per episode; above 0: fire again every so many seconds while
         the condition stands.
@@ -121,15 +150,15 @@ class RuleConfig:
 
     name: str
     enabled: bool
-    severity: str
-    actions: tuple[str, ...]
+    severity: Severity
+    actions: tuple[Action, ...]
     repeat_after_s: float = 0.0
     params: MappingProxyType = field(default_factory=lambda: MappingProxyType({}))
     clear_after_traces: int = DEFAULT_CLEAR_AFTER
 
     def as_dict(self) -> dict:
-        out = {"enabled": self.enabled, "severity": self.severity,
-               "actions": list(self.actions), "repeat_after_s": self.repeat_after_s,
+        out = {"enabled": self.enabled, "severity": str(self.severity),
+               "actions": [str(a) for a in self.actions], "repeat_after_s": self.repeat_after_s,
                "clear_after_traces": self.clear_after_traces}
         out.update({k: v for k, v in self.params.items() if v is not None})
         return out
@@ -197,42 +226,42 @@ def _parse_rule(spec: RuleSpec, table) -> RuleConfig:
     if not isinstance(enabled, bool):
         raise _error(f"{spec.name}.enabled", f"expected true or false, got {enabled!r}")
     severity = table.get("severity", spec.severity)
-    if severity not in SEVERITIES:
+    if not isinstance(severity, str) or severity not in SEVERITIES:
         raise _error(f"{spec.name}.severity",
                      f"expected one of {', '.join(SEVERITIES)}, got {severity!r}")
     actions = _parse_actions(spec.name, table.get("actions", list(spec.actions)))
     repeat = _parse_number(f"{spec.name}.repeat_after_s", table.get("repeat_after_s", 0.0),
-                           Param("repeat_after_s", "float", 0.0, "s", 0.0, True))
+                           Param(key="repeat_after_s", kind=ParamKind.FLOAT, default=0.0, unit="s", low=0.0, low_inclusive=True))
     clear_after = _parse_number(f"{spec.name}.clear_after_traces",
                                 table.get("clear_after_traces", DEFAULT_CLEAR_AFTER),
-                                Param("clear_after_traces", "int", DEFAULT_CLEAR_AFTER,
-                                      "traces", 1, True))
+                                Param(key="clear_after_traces", kind=ParamKind.INT, default=DEFAULT_CLEAR_AFTER, unit="traces", low=1, low_inclusive=True))
     values = {p.key: (_parse_number(f"{spec.name}.{p.key}", table[p.key], p)
                       if p.key in table else p.default) for p in spec.params}
-    return RuleConfig(name=spec.name, enabled=enabled, severity=severity, actions=actions,
+    return RuleConfig(name=spec.name, enabled=enabled, severity=Severity(severity),
+                      actions=actions,
                       repeat_after_s=float(repeat), params=MappingProxyType(values),
                       clear_after_traces=int(clear_after))
 
 
-def _parse_actions(rule: str, value) -> tuple[str, ...]:
+def _parse_actions(rule: str, value) -> tuple[Action, ...]:
     key = f"{rule}.actions"
     if not isinstance(value, list | tuple):
         raise _error(key, f"expected a list such as [\"record\", \"bell\"], got {value!r}")
-    seen: list[str] = []
+    seen: list[Action] = []
     for action in value:
-        if action not in ACTIONS:
+        if not isinstance(action, str) or action not in ACTIONS:
             raise _error(key, f"unknown action {action!r}; actions: {', '.join(ACTIONS)}")
         if action in seen:
             raise _error(key, f"action {action!r} given twice")
         if action == "auto-range" and rule not in AUTO_RANGE_RULES:
             raise _error(key, "auto-range is only an action of "
                               f"{' and '.join(AUTO_RANGE_RULES)}")
-        seen.append(action)
+        seen.append(Action(action))
     return tuple(seen)
 
 
 def _parse_number(key: str, value, param: Param):
-    whole = param.kind == "int"
+    whole = param.kind is ParamKind.INT
     if isinstance(value, bool) or not isinstance(value, int | float):
         raise _error(key, f"expected a {'whole ' if whole else ''}number in "
                           f"{param.unit}, got {value!r}")

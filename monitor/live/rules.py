@@ -5,73 +5,13 @@ Pure logic: no threads, no I/O, no clocks. Time arrives in the observations
 the observations, calls :meth:`RuleEngine.on_trace` and :meth:`RuleEngine.on_tick`,
 and carries out the actions of each :class:`Firing`.
 
-Rules
------
-Every threshold is inclusive: a rule fires when its value *reaches* the threshold.
-
-============================  ==========================================================  ========  ===============================
-rule                          fires when                                                  severity  default actions
-============================  ==========================================================  ========  ===============================
-clipping                      samples at the ADC rails >= min_samples                     warning   record, bell, auto-range
-over_pressure                 max(p_c, |p_r|) >= the lower of rated_max_pa and limit_pa   critical  record, bell, safe-off
-range_under_use               fraction of full scale <= below_fraction for                info      record, auto-range
-                              consecutive_traces traces in a row on one range
-no_trigger                    seconds since the last trigger >= after_s                   warning   record, bell
-pr_drift                      p_r moves by >= max_change_percent between the first and    warning   record, bell
-                              last half of a window_traces window at one position
-narrowband_fail               narrowband check fails while the narrowband method is used  warning   record
-conversion_failed             a trace could not be converted to pressure                  warning   record
-no_pulse                      the trace holds no pulse: its peak from the median is       info      record
-                              below noise_factor robust noise sigmas (edge_fraction)
-disk_space_low                free bytes on the session disk <= min_free_bytes            warning   record, bell
-falling_behind                queue depth / queue capacity >= queue_fraction              warning   record, bell
-store_lag                     oldest trace not yet committed is >= max_lag_s old          warning   record
-============================  ==========================================================  ========  ===============================
-
-Thresholds
-----------
-================  ==================  =======  =============  ============================================
-rule              key                 units    default        meaning
-================  ==================  =======  =============  ============================================
-clipping          min_samples         samples  1              samples at either rail in one trace
-over_pressure     rated_max_pa        Pa       1.0e7          hydrophone's rated maximum pressure
-over_pressure     limit_pa            Pa       unset          optional user limit (the lower one applies)
-range_under_use   below_fraction      1        0.3            fraction of half the full-scale span
-range_under_use   consecutive_traces  traces   10             under-used traces in a row before firing
-no_trigger        after_s             s        5.0            time without a trigger
-pr_drift          max_change_percent  %        10.0           change of p_r relative to the first half
-pr_drift          window_traces       traces   20             traces in the window (at one position)
-no_pulse          noise_factor        1        8.0            peak over robust noise sigma that counts as a pulse
-no_pulse          edge_fraction       1        0.1            share of the record at each end for the noise
-disk_space_low    min_free_bytes      bytes    1000000000     free space left on the session disk
-falling_behind    queue_fraction      1        0.8            share of the processing queue in use
-store_lag         max_lag_s           s        5.0            age of the oldest uncommitted trace
-================  ==================  =======  =============  ============================================
-
-The default ``rated_max_pa`` is a placeholder of the order of a needle hydrophone's
-rating (common practice); set it from the hydrophone's data sheet.
-
-Every rule also takes ``enabled`` (default true), ``severity`` ("info", "warning",
-"critical"), ``actions`` (a list of "record", "bell", "auto-range", "safe-off",
-"stop"; "auto-range" only on clipping and range_under_use), ``repeat_after_s``
-(default 0: fire once per episode; above 0: fire again every so many seconds while
-the condition stands) and ``clear_after_traces`` (default 3: how many observations in
-a row, traces or for the once-a-second rules ticks, the condition must be clear
-before the rule re-arms; 1 re-arms on the first clear one).
-
-Bench file layout (every table and key optional)::
-
-    [alerts.over_pressure]
-    rated_max_pa = 5.0e6
-    limit_pa = 2.0e6
-    actions = ["record", "bell", "safe-off", "stop"]
-
-    [alerts.range_under_use]
-    below_fraction = 0.25
-    consecutive_traces = 20
-
-    [alerts.store_lag]
-    enabled = false
+Every rule, its thresholds with units and defaults, and the bench-file layout of
+``[alerts]`` are tabled in the README ("Alerts"); :data:`RULES` in
+:mod:`tankside.monitor.live.rule_specs` is the single source of those defaults (a test
+keeps the README's tables equal to it). Every threshold is inclusive: a rule fires when
+its value *reaches* the threshold. The default ``rated_max_pa`` is a placeholder of the
+order of a needle hydrophone's rating (common practice); set it from the hydrophone's
+data sheet.
 
 Latching
 --------

@@ -1,0 +1,87 @@
+"""Building a live session's parts from a bench file, and naming its session file.
+
+Loads the calibration and builds the converter and rules before any instrument is
+touched, so that a bad file is reported first.
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+from typing import Any
+
+from ..acoustics.converter import Converter
+from ..errors import ConfigError
+from ..record.store import SessionStore, session_metadata
+from . import instruments
+from .rules import RuleEngine
+
+
+def session_parts(bench: Any, *, session_path: str | Path | None = None) -> dict[str, Any]:
+    """The keyword arguments of :class:`~tankside.monitor.live.session.LiveSession`
+    for the instruments of a :class:`~tankside.monitor.live.benchfile.BenchConfig`.
+
+    Raises
+    ------
+    CalibrationError, ConfigError
+        A bad calibration, setting or session path (before any instrument is opened).
+    """
+    calibration = bench.calibration()
+    loading = bench.loading()
+    settings = bench.conversion_settings()
+    converter = Converter(calibration, loading=loading, settings=settings,
+                          temperature_c=bench.temperature_c)
+    rules = RuleEngine(bench.alert_config())
+    dig_settings = bench.digitiser_settings()
+    path = new_session_path(bench.session_folder, session_path)
+    open_dig = instruments.digitiser_opener(bench.digitiser, dig_settings)
+    open_gen = (instruments.generator_opener(bench.generator)
+                if bench.generator is not None else None)
+
+    def metadata(identities: dict) -> dict:
+        return session_metadata(
+            configuration=bench.tables, instruments=identities, calibration=calibration,
+            loading=loading, settings=settings, temperature_c=bench.temperature_c,
+            extra={"bench_file": bench.source})
+
+    def open_store(p: Path, meta: dict) -> SessionStore:
+        return SessionStore.create(p, meta, commit_interval_s=bench.commit_interval_s)
+
+    resources = {"digitiser": bench.digitiser.resource}
+    if bench.generator is not None:
+        resources["generator"] = bench.generator.resource
+    return {"open_digitiser": open_dig, "open_generator": open_gen, "converter": converter,
+            "rules": rules, "open_store": open_store, "metadata": metadata,
+            "session_path": path, "trigger_timeout_s": bench.trigger_timeout_s,
+            "queue_capacity": bench.queue_capacity, "give_up_s": bench.reconnect_give_up_s,
+            "resources": resources}
+
+
+def new_session_path(folder: str | Path, session_path: str | Path | None = None) -> Path:
+    """The session file to create: ``session_path``, or a new name in ``folder``.
+
+    Raises
+    ------
+    ConfigError
+        The file exists already, or its folder cannot be made.
+    """
+    path = Path(session_path) if session_path is not None else default_session_path(folder)
+    if path.exists():
+        raise ConfigError(f"{path}: session file already exists (choose a new name)")
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise ConfigError(f"{path.parent}: cannot create the session folder: {err}") from err
+    return path
+
+
+def default_session_path(folder: str | Path) -> Path:
+    """``FOLDER/session-YYYYmmdd-HHMMSS.db`` (local time), with a suffix if taken."""
+    folder = Path(folder)
+    stem = time.strftime("session-%Y%m%d-%H%M%S")
+    path = folder / f"{stem}.db"
+    n = 1
+    while path.exists():
+        path = folder / f"{stem}-{n}.db"
+        n += 1
+    return path

@@ -1,0 +1,310 @@
+"""The per-trace stage of a live session: convert, judge, act, count, publish.
+
+:class:`TraceProcessor` runs on the session's processing thread. For each acquired
+trace it converts the voltage (``Converter.process``), builds the rules' observation,
+asks the rules, carries out the actions of each firing (record, bell, stop, and the
+instrument actions handed to the acquisition thread as typed commands), releases the
+acquisition gate for the next trace, updates the running figures and publishes a new
+:class:`~tankside.monitor.live.snapshot.Snapshot` (one reference assignment). Events
+from the acquisition thread (range changes, faults, the generator's output state)
+arrive in order with the traces and are handled here too.
+
+No pulse, drive off: a trace with no pulse, or acquired with the output off, is
+stored and converted, flagged (``no_pulse``, ``drive_off``) and shown, but kept out of
+the running figures; the rules do not judge drift, conversion, narrowband or range
+use on it (see :mod:`tankside.monitor.live.rules`).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import threading
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..errors import TanksideError
+from ..record.schema import EVENT_DRIVE_OFF, EVENT_DRIVE_ON
+from .acquisition import AcqEvent, Acquired, AcquisitionLoop
+from .actions import Cause, SafeOff, SetRange
+from .autorange import range_after
+from .figures import FigureSet, RateMeter
+from .recorder import AlertItem, EventItem, TraceItem
+from .rules import Firing, observation_from_trace
+from .snapshot import AlertView, InstrumentView, Snapshot
+from .views import drive_text, optional_bool, result_arrays
+
+MAX_ALERTS_SHOWN = 300
+SNAPSHOT_ARRAYS_EVERY_S = 0.04   # waveform/spectrum arrays at most 25 times a second
+
+
+class TraceProcessor:
+    """Conversion, rules and actions for one session, trace by trace.
+
+    Parameters
+    ----------
+    converter : Converter
+        ``.process(voltage_v, dt_s) -> TraceResult`` and ``.with_method(m)``.
+    rules : RuleEngine
+    acquisition : AcquisitionLoop
+        Where instrument actions go, and what the instrument views are read from.
+    record : callable (item) -> None
+        Hands an item to the recorder (blocks while its queue is full).
+    stop_by_rule : callable (reason) -> None
+        Ends the session because a rule's action is ``stop``.
+    session_path : Path
+    method : str
+        The conversion method in use at the start.
+    bell : callable () -> None, optional
+    autorange_options : dict, optional
+        Keywords for :func:`tankside.monitor.live.autorange.range_after`.
+    resources : dict, optional
+        Instrument name -> resource string, for the instrument views.
+    """
+
+    def __init__(self, *, converter: Any, rules: Any, acquisition: AcquisitionLoop,
+                 record: Callable[[Any], None], stop_by_rule: Callable[[str], None],
+                 session_path: Path, method: str, bell: Callable[[], None] | None = None,
+                 autorange_options: dict | None = None, resources: dict | None = None):
+        self._converter = converter
+        self._rules = rules
+        self._acq = acquisition
+        self._record = record
+        self._stop_by_rule = stop_by_rule
+        self._bell = bell
+        self._autorange_options = dict(autorange_options or {})
+        self._resources = dict(resources or {})
+        self.method = method
+        self.pending_method: str | None = None
+        self._lock = threading.Lock()       # guards the alert list
+        self._alerts: list[AlertView] = []
+        self._next_alert_id = 1
+        self._figures = FigureSet()
+        self._rate = RateMeter()
+        self.converted = 0
+        self.failed = 0
+        self.clipped = 0
+        self._no_pulse = 0
+        self._last_arrays_mono = 0.0
+        self._latest: tuple | None = None
+        self._range_v = float("nan")
+        self._fraction = float("nan")
+        # Generator output as processing knows it (from the acquisition's events).
+        self._drive_on: bool | None = None
+        self._drive_cause = ""
+        self._pulse_present: bool | None = None
+        self.snap = Snapshot(session_path=str(session_path), state="starting")
+
+    # -- what the session reads and asks --------------------------------------------
+    def set_range(self, range_v: float) -> None:
+        self._range_v = range_v
+
+    def acknowledge(self, alert_id: int) -> bool:
+        """Mark an alert acknowledged; False when no shown alert has that id."""
+        with self._lock:
+            for view in self._alerts:
+                if view.alert_id == alert_id:
+                    view.acknowledged = True
+                    break
+            else:
+                return False
+            self._alerts = list(self._alerts)
+        self.snap = dataclasses.replace(self.snap, alerts=self._alerts_copy())
+        return True
+
+    def last_seq(self) -> int | None:
+        return self.snap.seq if self.snap.seq >= 0 else None
+
+    # -- items from the acquisition thread --------------------------------------------
+    def on_event(self, ev: AcqEvent) -> None:
+        kind = ev.kind
+        if kind == "fault" and ev.detail.get("kind") == "connection-lost":
+            kind = "connection-lost"
+        self._record(EventItem(ev.time_s, kind, ev.detail, seq=ev.seq))
+        if ev.alert is not None:
+            self.handle_firings([Firing(rule=ev.alert.rule, severity=ev.alert.severity,
+                                        message=ev.alert.message, actions=("record",),
+                                        seq=ev.seq, detail=ev.detail, time_s=ev.time_s)],
+                                judged_trace=False)
+        if kind == "range-change" and ev.detail.get("done"):
+            self._range_v = float(ev.detail["to_v"])
+        if kind in (EVENT_DRIVE_ON, EVENT_DRIVE_OFF):
+            self._drive_on = kind == EVENT_DRIVE_ON
+            self._drive_cause = str(ev.detail.get("cause", ""))
+            self.publish()
+        elif kind == "fault" and ev.detail.get("kind") == "generator-query":
+            self._drive_on = None
+            self._drive_cause = ""
+            self.publish()
+
+    def on_trace(self, item: Acquired) -> None:
+        raw = item.raw
+        self._rate.add(time.monotonic())
+        if self.pending_method is not None:
+            self._switch_method(self.pending_method, raw.seq)
+        volts = raw.volts()
+        result = None
+        flat = None
+        error = None
+        try:
+            result = self._converter.process(volts, raw.dt_s)
+            flat = result.flat()
+            self.converted += 1
+        except TanksideError as err:
+            error = f"{type(err).__name__}: {err}"
+            self.failed += 1
+        obs = observation_from_trace(raw, flat, error, method_in_use=self.method,
+                                     volts_v=volts, drive_on=self._drive_on,
+                                     **self._rules.presence_options())
+        self._range_v = raw.range_v
+        self._fraction = obs.fraction_of_full_scale
+        self._pulse_present = obs.pulse_present
+        self.handle_firings(self._rules.on_trace(obs), judged_trace=True)
+        # Actions for trace N are queued: trace N+1 may be acquired now.
+        self._acq.verdict(raw.seq)
+        flags = dict(item.flags)
+        flags["clipped"] = raw.clipped > 0
+        flags.setdefault("range_changed", False)
+        if not obs.pulse_present:
+            flags["no_pulse"] = True
+            self._no_pulse += 1
+        if self._drive_on is False:
+            flags["drive_off"] = True
+        if raw.clipped:
+            self.clipped += 1
+        if flat is not None and not obs.quiet:
+            # noise converted to "pressure" is no figure of the field
+            self._figures.add(flat)
+        self._record(TraceItem(raw, flat, flags, error))
+        self._publish_trace(raw, volts, result, flat)
+
+    def _switch_method(self, method: str, seq: int) -> None:
+        self.pending_method = None
+        if method == self.method:
+            return
+        old = self.method
+        self._converter = self._converter.with_method(method)
+        self.method = method
+        self._record(EventItem(time.time(), "method-change", {"from": old, "to": method},
+                               seq=seq))
+
+    # -- firings and their actions ----------------------------------------------------
+    def handle_firings(self, firings: list[Firing], *, judged_trace: bool) -> None:
+        """Show, record and act on firings.
+
+        ``judged_trace`` is False for firings of the once-a-second rules and of
+        instrument events: auto-range acts only on a firing judged on a trace.
+        """
+        for firing in firings:
+            actions = tuple(firing.actions)
+            time_s = firing.time_s if np.isfinite(firing.time_s) else time.time()
+            with self._lock:
+                alert_id = self._next_alert_id
+                self._next_alert_id += 1
+                self._alerts.append(AlertView(alert_id=alert_id, time_s=time_s,
+                                              rule=firing.rule, severity=firing.severity,
+                                              message=firing.message, actions=actions,
+                                              seq=firing.seq))
+                if len(self._alerts) > MAX_ALERTS_SHOWN:
+                    self._alerts = self._alerts[-MAX_ALERTS_SHOWN:]
+            if "record" in actions:
+                self._record(AlertItem(alert_id, time_s, firing.rule, firing.severity,
+                                       firing.message, actions, firing.seq))
+            cause = Cause(rule=firing.rule, seq=firing.seq)
+            if "safe-off" in actions:
+                self._acq.commands.put(SafeOff(cause))
+            if "auto-range" in actions and judged_trace:
+                self._auto_range(firing, cause)
+            if "bell" in actions and self._bell is not None:
+                self._bell()
+            if "stop" in actions:
+                self._stop_by_rule(f"{firing.rule}: {firing.message}")
+        if firings:
+            self.snap = dataclasses.replace(self.snap, alerts=self._alerts_copy())
+
+    def _auto_range(self, firing: Firing, cause: Cause) -> None:
+        ranges = self._acq.ranges_v
+        if not ranges:
+            return
+        # A firing judged on a trace from before a range change is stale: range_after
+        # returns None for it, so one condition never takes two steps.
+        new_v = range_after(firing, ranges, current_v=self._acq.current_range_v(),
+                            **self._autorange_options)
+        if new_v is not None:
+            self._acq.commands.put(SetRange(float(new_v), cause))
+
+    def _alerts_copy(self) -> list[AlertView]:
+        with self._lock:
+            return [dataclasses.replace(a) for a in self._alerts]
+
+    # -- snapshots --------------------------------------------------------------------
+    def _instrument_views(self) -> list[InstrumentView]:
+        views = []
+        for name, inst in (("digitiser", self._acq.digitiser),
+                           ("generator", self._acq.generator)):
+            if inst is None:
+                continue
+            connected = self._acq.connected if name == "digitiser" else True
+            detail = drive_text(self._drive_on, self._drive_cause) if name == "generator" else ""
+            views.append(InstrumentView(name=name, resource=self._resources.get(name, ""),
+                                        identity=inst.identity, connected=connected,
+                                        detail=detail))
+        return views
+
+    def publish(self, state: str | None = None, stop_reason: str | None = None,
+                **fields: Any) -> None:
+        """Replace the snapshot with one holding the current counts and ``fields``."""
+        has_generator = self._acq.generator is not None
+        self.snap = dataclasses.replace(
+            self.snap, **fields, converted=self.converted,
+            traces_per_s=self._rate.rate(time.monotonic()),
+            range_v=self._range_v, range_fraction_used=self._fraction,
+            clipped_traces=self.clipped, instruments=self._instrument_views(),
+            drive_on=self._drive_on,
+            drive_detail=drive_text(self._drive_on, self._drive_cause) if has_generator else "",
+            pulse_present=self._pulse_present, no_pulse_traces=self._no_pulse,
+            state=state or self.snap.state,
+            stop_reason=self.snap.stop_reason if stop_reason is None else stop_reason)
+
+    def _publish_trace(self, raw: Any, volts: np.ndarray, result: Any, flat: dict | None,
+                       *, force: bool = False) -> None:
+        # A snapshot is rebuilt at most SNAPSHOT_ARRAYS_EVERY_S apart (displays refresh
+        # 10 to 20 times a second); in between only the latest trace is remembered, so
+        # the waveform, spectrum, result and seq of a snapshot always belong together.
+        self._latest = (raw, volts, result, flat)
+        now = time.monotonic()
+        if not force and now - self._last_arrays_mono < SNAPSHOT_ARRAYS_EVERY_S:
+            return
+        self._last_arrays_mono = now
+        self._latest = None
+        fields: dict[str, Any] = {"seq": raw.seq, "time_s": raw.time_s, "method": self.method,
+                                  "figures": self._figures.views(),
+                                  "times_s": raw.times(), "voltage_v": np.array(volts)}
+        if flat is not None:
+            fields.update(
+                result=dict(flat), narrowband_ok=optional_bool(flat.get("narrowband_ok")),
+                narrowband_band_hz=(float(flat.get("narrowband_band_low_hz", np.nan)),
+                                    float(flat.get("narrowband_band_high_hz", np.nan))),
+                narrowband_max_deviation_db=float(
+                    flat.get("narrowband_max_deviation_db", np.nan)),
+                method=str(flat.get("method", self.method)))
+            fields.update(result_arrays(result, flat))
+        else:
+            fields.update(pressure_pa=np.zeros(0), freqs_hz=np.zeros(0),
+                          spectrum_db=np.zeros(0), sensitivity_db=np.zeros(0), result={},
+                          narrowband_ok=None)
+        self.publish(**fields)
+
+    def flush_latest(self) -> None:
+        """Publish the latest trace if a snapshot has not shown it yet."""
+        latest = self._latest
+        if latest is not None:
+            self._publish_trace(*latest, force=True)
+
+    def flush_due(self) -> None:
+        """Publish the latest trace when the array interval has passed."""
+        if time.monotonic() - self._last_arrays_mono >= SNAPSHOT_ARRAYS_EVERY_S:
+            self.flush_latest()

@@ -1,0 +1,71 @@
+"""Display arithmetic for the snapshot: spectra in dB, the drive's status text.
+
+Pure functions of a converted trace's arrays and of the generator state, so that the
+processing stage only decides *when* to publish and these decide *what* a display
+is handed.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+
+def result_arrays(result: Any, flat: dict) -> dict[str, np.ndarray]:
+    """Arrays of one converted trace for a display.
+
+    Parameters
+    ----------
+    result : TraceResult
+        Needs ``pressure_pa``, ``freqs_hz`` (Hz), ``spectrum_pa`` (magnitude) and
+        ``sensitivity_v_per_pa`` (complex, V/Pa) on the same grid.
+    flat : dict
+        The flat result (for ``acoustic_working_frequency_hz``).
+
+    Returns
+    -------
+    dict
+        ``pressure_pa``, ``freqs_hz``, ``spectrum_db`` (dB re its maximum) and
+        ``sensitivity_db`` (|M_L| in dB re its value at f_awf; NaN when f_awf is
+        unknown).
+    """
+    spec = np.asarray(result.spectrum_pa, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        top = float(np.nanmax(spec)) if spec.size else 0.0
+        spectrum_db = 20.0 * np.log10(spec / top) if top > 0 else np.full_like(spec, np.nan)
+        sens = np.abs(np.asarray(result.sensitivity_v_per_pa))
+        freqs = np.asarray(result.freqs_hz, dtype=float)
+        f_awf = float(flat.get("acoustic_working_frequency_hz", np.nan))
+        ref = np.nan
+        if np.isfinite(f_awf) and freqs.size:
+            finite = np.isfinite(sens)
+            if finite.any():
+                ref = float(np.interp(f_awf, freqs[finite], sens[finite]))
+        if np.isfinite(ref) and ref > 0:
+            sensitivity_db = 20.0 * np.log10(sens / ref)
+        else:
+            sensitivity_db = np.full_like(freqs, np.nan)
+    return {"pressure_pa": np.array(result.pressure_pa, dtype=float), "freqs_hz": freqs.copy(),
+            "spectrum_db": spectrum_db, "sensitivity_db": sensitivity_db}
+
+
+def optional_bool(value: object) -> bool | None:
+    """``value`` as a bool, or None when it is None, NaN or not a truth value."""
+    if value is None:
+        return None
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    try:
+        return bool(value)
+    except (TypeError, ValueError):
+        return None
+
+
+def drive_text(drive_on: bool | None, cause: str) -> str:
+    """The generator's output as the status panel says it."""
+    if drive_on is None:
+        return "output state unknown"
+    if drive_on:
+        return "output on"
+    return "output off (safe-off)" if cause == "safe-off" else "output off"
