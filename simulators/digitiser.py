@@ -48,8 +48,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .scene import Scene
-from .scpi import (
-    ScpiDevice,
+from .scpi_device import ScpiDevice
+from .scpi_parser import (
     ScpiError,
     expect_args,
     format_block,
@@ -202,41 +202,46 @@ class SimulatedDigitiser(ScpiDevice):
 
     # ------------------------------------------------------------ registration
     def _register(self) -> None:
-        a = self.add
-        a("ACQuire:POINts", write=self._set_points, query=lambda x, s: self._q(x, self.state.points))
-        a("ACQuire:SRATe", write=self._set_rate, query=lambda x, s: self._qf(x, self.sample_rate_hz))
-        a("ACQuire:AVERage", write=self._set_averages,
-          query=lambda x, s: self._q(x, self.state.averages))
-        a("ACQuire:DONE", query=lambda x, s: self._q(x, int(self.done())))
-        a("INITiate[:IMMediate]", write=self._arm)
-        a("ABORt", write=self._abort)
-        a("CHANnel#:RANGe", write=self._set_range, query=lambda x, s: self._qf(x, self._ch(s).range_v))
-        a("CHANnel#:OFFSet", write=self._set_offset,
-          query=lambda x, s: self._qf(x, self._ch(s).offset_v))
-        a("CHANnel#:COUPling", write=self._set_coupling,
-          query=lambda x, s: self._q(x, self._ch(s).coupling))
-        a("CHANnel#:IMPedance", write=self._set_impedance,
-          query=lambda x, s: self._qf(x, self._ch(s).impedance_ohm))
-        a("TRIGger:SOURce", write=self._set_trigger_source,
-          query=lambda x, s: self._q(x, self.state.trigger_source))
-        a("TRIGger:LEVel", write=self._set_trigger_level,
-          query=lambda x, s: self._qf(x, self.state.trigger_level_v))
-        a("TRIGger:SLOPe", write=self._set_slope, query=lambda x, s: self._q(x, self.state.trigger_slope))
-        a("TRIGger:DELay", write=self._set_delay,
-          query=lambda x, s: self._qf(x, self.state.trigger_delay_s))
-        a("WAVeform:SOURce", write=self._set_wave_source,
-          query=lambda x, s: self._q(x, f"CHAN{self.state.wave_source}"))
-        a("WAVeform:FORMat", write=self._set_format,
-          query=lambda x, s: self._q(x, self.state.data_format.upper()))
-        a("WAVeform:BORDer", write=self._set_border,
-          query=lambda x, s: self._q(x, "LSBF" if self.state.byte_order == "little" else "MSBF"))
-        a("WAVeform:DATA", query=self._fetch)
-        a("WAVeform:XINCrement", query=lambda x, s: self._qf(x, self.time_step_s))
-        a("WAVeform:XORigin", query=lambda x, s: self._qf(x, self.state.trigger_delay_s))
-        a("WAVeform:YINCrement", query=lambda x, s: self._qf(x, self._scaling()[0]))
-        a("WAVeform:YOFFset", query=lambda x, s: self._qf(x, self._scaling()[1]))
-        a("WAVeform:CMIN", query=lambda x, s: self._q(x, FORMATS[self.state.data_format][1]))
-        a("WAVeform:CMAX", query=lambda x, s: self._q(x, FORMATS[self.state.data_format][2]))
+        self.add("ACQuire:POINts", write=self._set_points,
+                 query=self.text_reply(lambda s: self.state.points))
+        self.add("ACQuire:SRATe", write=self._set_rate,
+                 query=self.number_reply(lambda s: self.sample_rate_hz))
+        self.add("ACQuire:AVERage", write=self._set_averages,
+                 query=self.text_reply(lambda s: self.state.averages))
+        self.add("ACQuire:DONE", query=self.text_reply(lambda s: int(self.done())))
+        self.add("INITiate[:IMMediate]", write=self._arm)
+        self.add("ABORt", write=self._abort)
+        self.add("CHANnel#:RANGe", write=self._set_range,
+                 query=self.number_reply(lambda s: self._ch(s).range_v))
+        self.add("CHANnel#:OFFSet", write=self._set_offset,
+                 query=self.number_reply(lambda s: self._ch(s).offset_v))
+        self.add("CHANnel#:COUPling", write=self._set_coupling,
+                 query=self.text_reply(lambda s: self._ch(s).coupling))
+        self.add("CHANnel#:IMPedance", write=self._set_impedance,
+                 query=self.number_reply(lambda s: self._ch(s).impedance_ohm))
+        self.add("TRIGger:SOURce", write=self._set_trigger_source,
+                 query=self.text_reply(lambda s: self.state.trigger_source))
+        self.add("TRIGger:LEVel", write=self._set_trigger_level,
+                 query=self.number_reply(lambda s: self.state.trigger_level_v))
+        self.add("TRIGger:SLOPe", write=self._set_slope,
+                 query=self.text_reply(lambda s: self.state.trigger_slope))
+        self.add("TRIGger:DELay", write=self._set_delay,
+                 query=self.number_reply(lambda s: self.state.trigger_delay_s))
+        self.add("WAVeform:SOURce", write=self._set_wave_source,
+                 query=self.text_reply(lambda s: f"CHAN{self.state.wave_source}"))
+        self.add("WAVeform:FORMat", write=self._set_format,
+                 query=self.text_reply(lambda s: self.state.data_format.upper()))
+        self.add("WAVeform:BORDer", write=self._set_border,
+                 query=self.text_reply(lambda s: "LSBF" if self.state.byte_order == "little" else "MSBF"))
+        self.add("WAVeform:DATA", query=self._fetch)
+        self.add("WAVeform:XINCrement", query=self.number_reply(lambda s: self.time_step_s))
+        self.add("WAVeform:XORigin", query=self.number_reply(lambda s: self.state.trigger_delay_s))
+        self.add("WAVeform:YINCrement", query=self.number_reply(lambda s: self._scaling()[0]))
+        self.add("WAVeform:YOFFset", query=self.number_reply(lambda s: self._scaling()[1]))
+        self.add("WAVeform:CMIN",
+                 query=self.text_reply(lambda s: FORMATS[self.state.data_format][1]))
+        self.add("WAVeform:CMAX",
+                 query=self.text_reply(lambda s: FORMATS[self.state.data_format][2]))
 
     def _ch(self, suffixes) -> ChannelState:
         number = suffixes[0]

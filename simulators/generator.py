@@ -20,8 +20,8 @@ than its period gives -221 (settings conflict).
 from __future__ import annotations
 
 from .scene import Drive, Scene
-from .scpi import (
-    ScpiDevice,
+from .scpi_device import ScpiDevice
+from .scpi_parser import (
     ScpiError,
     expect_args,
     parse_bool,
@@ -44,15 +44,16 @@ class SimulatedGenerator(ScpiDevice):
         super().__init__()
         self.scene = scene
         self.power_on = power_on or scene.drive
-        a = self.add
-        a("OUTPut[:STATe]", write=self._set_output, query=lambda x, s: self._q(x, int(self.drive.output_on)))
-        a("[SOURce]:VOLTage[:AMPLitude]", write=self._set_amplitude,
-          query=lambda x, s: self._qf(x, self.drive.amplitude_vpp))
-        a("[SOURce]:FREQuency[:CW]", write=self._set_frequency,
-          query=lambda x, s: self._qf(x, self.drive.frequency_hz))
-        a("BURSt:NCYCles", write=self._set_cycles, query=lambda x, s: self._q(x, self.drive.burst_cycles))
-        a("BURSt:PERiod", write=self._set_period,
-          query=lambda x, s: self._qf(x, self.drive.burst_period_s))
+        self.add("OUTPut[:STATe]", write=self._set_output,
+                 query=self.text_reply(lambda s: int(self.drive.output_on)))
+        self.add("[SOURce]:VOLTage[:AMPLitude]", write=self._set_amplitude,
+                 query=self.number_reply(lambda s: self.drive.amplitude_vpp))
+        self.add("[SOURce]:FREQuency[:CW]", write=self._set_frequency,
+                 query=self.number_reply(lambda s: self.drive.frequency_hz))
+        self.add("BURSt:NCYCles", write=self._set_cycles,
+                 query=self.text_reply(lambda s: self.drive.burst_cycles))
+        self.add("BURSt:PERiod", write=self._set_period,
+                 query=self.number_reply(lambda s: self.drive.burst_period_s))
 
     @property
     def drive(self) -> Drive:

@@ -16,7 +16,7 @@ import threading
 from collections.abc import Iterable
 
 from .faults import FaultPlan, apply_block_fault
-from .scpi import ScpiDevice
+from .scpi_device import ScpiDevice
 
 LOOPBACK = "127.0.0.1"
 MAX_LINE_BYTES = 1 << 20

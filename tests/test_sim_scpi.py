@@ -9,12 +9,12 @@ from __future__ import annotations
 
 import pytest
 
-from tankside.simulators.scpi import (
+from tankside.simulators.scpi_device import ScpiDevice
+from tankside.simulators.scpi_parser import (
     ESR_CME,
     ESR_EXE,
     ESR_OPC,
     ErrorQueue,
-    ScpiDevice,
     ScpiError,
     compile_pattern,
     expect_args,
@@ -42,8 +42,8 @@ class Toy(ScpiDevice):
                  query=lambda a, s: repr(self.levels[s[0]]))
         self.add("DISPlay:TEXT", write=lambda a, s: setattr(self, "text", a[0]))
         self.add("STATus:DONE", query=lambda a, s: "1")
-        self.add("ACQuire:DELay", query=lambda a, s: self._qf(a, 1e-6 / 3))
-        self.add("ACQuire:MODE", query=lambda a, s: self._q(a, "NORM"))
+        self.add("ACQuire:DELay", query=self.number_reply(lambda s: 1e-6 / 3))
+        self.add("ACQuire:MODE", query=self.text_reply(lambda s: "NORM"))
 
     def identity(self):
         return "TOY,1,2,3"
