@@ -1,21 +1,16 @@
 """``tankside probe``: what works on an instrument, tried through its profile.
 
-Each operation is tried in a way that leaves the instrument as it was: queries are
-sent as they are; a setting is written only when the profile can read it back, and
-then with the value read back, which is checked afterwards (and written again if it
-changed). Settings that cannot be read back are reported, not tried. ``reset`` is
-never tried; arming an acquisition only with ``--acquire``.
+The trying is :class:`tankside.drivers.probe.Prober` (it leaves the instrument as it
+was); this command opens the link, runs it and prints its report.
 """
 
 from __future__ import annotations
 
 import argparse
-import time
-from dataclasses import dataclass
 
-from ...drivers import ieee488
-from ...drivers.errors import ConnectionLost, InstrumentError, NoTrigger
-from ...drivers.profile import Profile, load_profile
+from ...drivers.errors import ConnectionLost
+from ...drivers.probe import Outcome, Prober, Row
+from ...drivers.profile import load_profile
 from ...drivers.scpi import ScpiLink
 
 EPILOG = """\
@@ -31,36 +26,6 @@ exit codes:
 """
 
 EXIT_OK, EXIT_UNREACHABLE, EXIT_FAILED = 0, 2, 3
-
-_DIGITISER_SETTINGS = (  # (set key, read-back key, placeholder)
-    ("set_record_length", "query_record_length", "points"),
-    ("set_sample_rate", "query_sample_rate", "rate_hz"),
-    ("set_range", "query_range", "range_v"),
-    ("set_offset", "query_offset", "offset_v"),
-    ("set_coupling", "query_coupling", "coupling"),
-    ("set_impedance", "query_impedance", "impedance_ohm"),
-    ("set_trigger_source", "query_trigger_source", "source"),
-    ("set_trigger_level", "query_trigger_level", "level_v"),
-    ("set_trigger_slope", "query_trigger_slope", "slope"),
-    ("set_averages", "query_averages", "count"),
-)
-_GENERATOR_SETTINGS = (
-    ("set_amplitude", "get_amplitude", "amplitude_vpp"),
-    ("set_frequency", "get_frequency", "frequency_hz"),
-    ("set_burst_cycles", "get_burst_cycles", "cycles"),
-    ("set_burst_period", "get_burst_period", "period_s"),
-)
-_NUMERIC_QUERIES = ("get_time_step", "get_time_origin", "get_volts_per_code", "get_offset",
-                    "get_amplitude", "get_frequency", "get_burst_cycles", "get_burst_period")
-
-
-@dataclass
-class Row:
-    operation: str
-    command: str
-    result: str
-    detail: str = ""
-
 
 def add_parser(subparsers) -> None:
     p = subparsers.add_parser(
@@ -87,171 +52,6 @@ def add_parser(subparsers) -> None:
     p.set_defaults(func=run)
 
 
-class _Prober:
-    def __init__(self, link: ScpiLink, profile: Profile | None,
-                 trigger_timeout_s: float = 5.0):
-        self.link = link
-        self.trigger_timeout_s = trigger_timeout_s
-        self.profile = profile
-        self.rows: list[Row] = []
-
-    def _try(self, operation: str, command: str, action) -> str | None:
-        """Run ``action()``; record ok with its detail, or failed with the reason."""
-        try:
-            detail = action()
-        except ConnectionLost:
-            self.rows.append(Row(operation, command, "failed", "connection lost"))
-            raise
-        except InstrumentError as err:
-            self.rows.append(Row(operation, command, "failed",
-                                 err.message + self._queued_errors()))
-            return None
-        self.rows.append(Row(operation, command, "ok", "" if detail is None else str(detail)))
-        return "" if detail is None else str(detail)
-
-    def _queued_errors(self) -> str:
-        """What the instrument queued about a failed operation, so the error is charged
-        to it and not to the next one (resynchronising first after a timeout)."""
-        try:
-            errors = self.link.drain_errors()
-        except ConnectionLost:
-            raise
-        except InstrumentError as err:
-            return f"; error queue unreadable: {err.message}"
-        return "".join(f"; queued {code}, {text!r}" for code, text in errors)
-
-    def _query(self, command: str) -> str:
-        reply = self.link.query(command).strip()
-        self.link.check_errors(command)
-        return reply
-
-    def common(self) -> None:
-        self._try("identify", "*IDN?", self.link.identify)
-        self._try("error queue", self.link.error_query,
-                  lambda: f"{len(self.link.drain_errors())} queued error(s) read")
-        self._try("wait complete", "*OPC?", self.link.opc)
-
-    def queries(self, keys, parse=None) -> None:
-        for key in keys:
-            if not self.profile.has(key):
-                continue
-            command = self.profile.command(key, channel=1)
-
-            def action(command=command, key=key):
-                reply = self._query(command)
-                if parse is not None or key in _NUMERIC_QUERIES:
-                    (parse or ieee488.parse_number)(reply)
-                return reply
-            self._try(key, command, action)
-
-    def settings(self, steps) -> None:
-        for set_key, read_key, placeholder in steps:
-            if not self.profile.has(set_key):
-                continue
-            template = self.profile.commands[set_key]
-            if not self.profile.has(read_key):
-                self.rows.append(Row(set_key, template, "not tried",
-                                     f"no {read_key} in the profile to restore it"))
-                continue
-            read_cmd = self.profile.command(read_key, channel=1)
-            try:
-                before = self._query(read_cmd)
-            except ConnectionLost:
-                raise
-            except InstrumentError as err:
-                self.rows.append(Row(set_key, template, "not tried",
-                                     f"cannot read it back ({read_key}): {err.message}"))
-                continue
-            try:
-                command = self.profile.command(set_key, channel=1, **{placeholder: before})
-            except (ValueError, KeyError) as err:
-                self.rows.append(Row(set_key, template, "not tried",
-                                     f"read-back {before!r} does not fill the template: {err}"))
-                continue
-
-            def action(command=command, read_cmd=read_cmd, before=before):
-                self.link.write_step(command)
-                after = self._query(read_cmd)
-                if after != before:
-                    self.link.write_step(command)
-                    raise InstrumentError(f"read back {after!r} after writing {before!r}; "
-                                          "written again")
-                return f"unchanged: {before}"
-            self._try(set_key, command, action)
-
-    def output_state(self) -> None:
-        values = self.profile.values
-        try:
-            on = ieee488.parse_bool(self._query(self.profile.command("get_output")),
-                                    true_replies=values["output_on_replies"],
-                                    false_replies=values["output_off_replies"])
-        except ConnectionLost:
-            raise
-        except InstrumentError as err:
-            self.rows.append(Row("set_output", self.profile.commands["set_output"], "not tried",
-                                 f"output state unreadable: {err.message}"))
-            return
-        command = self.profile.command("set_output",
-                                       state=values["output_on" if on else "output_off"])
-
-        def action():
-            self.link.write_step(command)
-            return f"unchanged: {'on' if on else 'off'}"
-        self._try("set_output", command, action)
-
-    def acquisition(self, allowed: bool) -> None:
-        keys = ("arm_single", "acquisition_done", "fetch_waveform")
-        if not allowed:
-            for key in keys:
-                if self.profile.has(key):
-                    self.rows.append(Row(key, self.profile.commands[key], "not tried",
-                                         "use --acquire"))
-            return
-        from ...drivers.digitiser import decode_codes
-
-        arm = self.profile.command("arm_single", channel=1)
-
-        def arm_action():
-            self.link.write_step(arm)
-        self._try("arm_single", arm, arm_action)
-        if self.profile.has("acquisition_done"):
-            done = self.profile.command("acquisition_done", channel=1)
-
-            def wait_done():
-                deadline = time.monotonic() + self.trigger_timeout_s
-                while not ieee488.parse_bool(self._query(done)):
-                    if time.monotonic() >= deadline:
-                        raise NoTrigger(f"not done within {self.trigger_timeout_s:g} s")
-                    time.sleep(0.01)
-                return "1"
-            if self._try("acquisition_done", done, wait_done) is None:
-                return
-        fetch = self.profile.command("fetch_waveform", channel=1)
-
-        def fetch_action():
-            codes = decode_codes(self.link.query_block(fetch), self.profile.dtype)
-            return f"{codes.size} samples ({self.profile.data_format})"
-        self._try("fetch_waveform", fetch, fetch_action)
-
-    def run(self, acquire: bool) -> None:
-        self.common()
-        if self.profile is None:
-            return
-        if self.profile.kind == "digitiser":
-            self.queries(("get_time_step", "get_time_origin", "get_volts_per_code", "get_offset"))
-            self.settings(_DIGITISER_SETTINGS)
-            self.acquisition(acquire)
-        else:
-            self.queries(("get_output",), parse=lambda r: ieee488.parse_bool(
-                r, true_replies=self.profile.values["output_on_replies"],
-                false_replies=self.profile.values["output_off_replies"]))
-            self.settings(_GENERATOR_SETTINGS)
-            self.output_state()
-        if self.profile.has("reset"):
-            self.rows.append(Row("reset", self.profile.commands["reset"], "not tried",
-                                 "would change every setting"))
-
-
 def format_table(rows: list[Row]) -> str:
     """The rows as a fixed-width text table."""
     head = Row("operation", "command", "result", "detail")
@@ -275,7 +75,7 @@ def run(args) -> int:
                                resync_timeout_s=max(2.0, 3 * timeout_s), **terms)
     if profile is not None and profile.has("get_error"):
         link.error_query = profile.command("get_error")
-    prober = _Prober(link, profile, trigger_timeout_s=args.trigger_timeout)
+    prober = Prober(link, profile, trigger_timeout_s=args.trigger_timeout)
     try:
         prober.run(args.acquire)
     except ConnectionLost:
@@ -287,7 +87,7 @@ def run(args) -> int:
     if profile is not None:
         print(f"profile: {profile.source} ({profile.kind})")
     print(format_table(prober.rows))
-    failed = sum(r.result == "failed" for r in prober.rows)
-    skipped = sum(r.result == "not tried" for r in prober.rows)
+    failed = sum(r.result == Outcome.FAILED for r in prober.rows)
+    skipped = sum(r.result == Outcome.NOT_TRIED for r in prober.rows)
     print(f"{len(prober.rows) - failed - skipped} ok, {failed} failed, {skipped} not tried")
     return EXIT_FAILED if failed else EXIT_OK
