@@ -78,3 +78,13 @@ class Progress:
 
     def __exit__(self, *exc):
         self.close()
+
+
+def bar_factory(enabled: bool | None):
+    """A steps factory for the record layer: ``(total, label) -> Progress`` on stderr.
+
+    ``enabled`` as for :class:`Progress` (None: only on a terminal).
+    """
+    def make(total: int, label: str) -> Progress:
+        return Progress(total, label, enabled=enabled)
+    return make

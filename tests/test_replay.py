@@ -75,7 +75,7 @@ class TestExactReplay:
         src, out = tmp_path / "live.db", tmp_path / "again.db"
         record_session(src, tmp_cal=tmp_path / "cal.csv")
         before = _digest(src)
-        summary = replay_session(src, out, check=True, progress=False)
+        summary = replay_session(src, out, check=True)
         assert _digest(src) == before  # the original is untouched
         assert (summary.traces, summary.converted, summary.failed) == (10, 9, 1)
         assert summary.differences == 0
@@ -105,7 +105,7 @@ class TestExactReplay:
     def test_recorded_method_change_is_followed(self, tmp_path):
         src, out = tmp_path / "live.db", tmp_path / "again.db"
         record_session(src, switch_to_narrowband_at=6, tmp_cal=tmp_path / "cal.csv")
-        replay_session(src, out, progress=False)
+        replay_session(src, out)
         assert result_differences(src, out) == []
         with SessionReader(out) as b:
             methods = [r["method"] for r in b.iter_results() if r["converted"]]
@@ -133,7 +133,7 @@ class TestOtherSettings:
     def test_other_method(self, tmp_path):
         src, out = tmp_path / "live.db", tmp_path / "nb.db"
         cal = record_session(src, tmp_cal=tmp_path / "cal.csv")
-        replay_session(src, out, method="narrowband", progress=False)
+        replay_session(src, out, method="narrowband")
         direct = Converter(cal, loading=LOADING, settings=SETTINGS.replace(method="narrowband"),
                            temperature_c=TEMPERATURE_C)
         with SessionReader(out) as b:
@@ -154,7 +154,7 @@ class TestOtherSettings:
         record_session(src, tmp_cal=tmp_path / "cal.csv")
         cal2 = tmp_path / "cal2.csv"
         cal2.write_text(calibration_text(scale=2.0))
-        replay_session(src, out, calibration_path=cal2, progress=False)
+        replay_session(src, out, calibration_path=cal2)
         with SessionReader(src) as a, SessionReader(out) as b:
             assert b.calibration_text == calibration_text(scale=2.0)
             assert b.metadata["calibration_sha256"] == load_calibration(cal2).sha256

@@ -6,6 +6,7 @@ import argparse
 import sys
 
 from ..errors import ConfigError
+from ..progress import bar_factory
 from .options import add_progress_options
 
 
@@ -50,7 +51,8 @@ def run(args) -> int:
         if args.trace is not None:
             reader.trace(args.trace)  # an unknown seq fails before any file is written
         if args.results:
-            rows = export.export_results_csv(reader, args.results, progress=args.progress)
+            rows = export.export_results_csv(reader, args.results,
+                                             progress=bar_factory(args.progress))
             print(f"wrote {rows} result rows to {args.results}")
         if args.trace is not None:
             n = export.export_trace_csv(reader, args.trace, args.out)
@@ -59,6 +61,6 @@ def run(args) -> int:
             sha = export.export_calibration(reader, args.calibration_out)
             print(f"wrote the calibration file to {args.calibration_out} (sha256 {sha})")
         if args.hdf5:
-            n = export.export_hdf5(reader, args.hdf5, progress=args.progress)
+            n = export.export_hdf5(reader, args.hdf5, progress=bar_factory(args.progress))
             print(f"wrote {n} traces with results, alerts and events to {args.hdf5}")
     return 0

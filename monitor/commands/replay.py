@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 
+from ..progress import bar_factory
 from .options import add_progress_options
 
 METHODS = ("auto", "deconvolve", "narrowband")
@@ -39,7 +40,7 @@ def run(args) -> int:
 
     summary = replay_session(args.session, args.out, calibration_path=args.calibration,
                              method=args.method, force=args.force, check=args.check,
-                             progress=args.progress)
+                             progress=bar_factory(args.progress))
     line = (f"replayed {summary.traces} traces into {summary.out_path}: "
             f"{summary.converted} converted, {summary.failed} failed, "
             f"{summary.seconds:.1f} s")

@@ -52,13 +52,13 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import ConfigError
-from ..progress import Progress
 from .schema import (
     META_CALIBRATION_SHA256,
     RESULT_COLUMNS,
     RESULT_NAMES,
     units_of,
 )
+from .steps import StepsFactory, silent
 from .store import SessionReader, strict_json
 
 __all__ = ["export_results_csv", "export_trace_csv", "export_calibration", "export_hdf5",
@@ -79,11 +79,11 @@ def _cell(value) -> str:
     return str(value)
 
 
-def export_results_csv(reader: SessionReader, out, *, progress: bool | None = None) -> int:
+def export_results_csv(reader: SessionReader, out, *, progress: StepsFactory = silent) -> int:
     """Write the results CSV; returns the number of rows."""
     rows = 0
     with open(out, "w", newline="", encoding="utf-8") as fh, \
-            Progress(reader.trace_count(), "results", enabled=progress) as bar:
+            progress(reader.trace_count(), "results") as bar:
         writer = csv.writer(fh, lineterminator="\n")
         writer.writerow(RESULTS_CSV_COLUMNS)
         for r in reader.iter_results():
@@ -147,7 +147,7 @@ def _numbers(group, name: str, values, dtype, units: str | None = None):
     return ds
 
 
-def export_hdf5(reader: SessionReader, out, *, progress: bool | None = None) -> int:
+def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) -> int:
     """Write the whole session to HDF5 (layout in the module docstring); returns N traces."""
     h5py = _h5()
     n_traces = reader.trace_count()
@@ -155,7 +155,7 @@ def export_hdf5(reader: SessionReader, out, *, progress: bool | None = None) -> 
     uniform = len(layouts) == 1
     meta = reader.metadata
     stop = reader.stop
-    with h5py.File(out, "w") as f, Progress(n_traces, "hdf5", enabled=progress) as bar:
+    with h5py.File(out, "w") as f, progress(n_traces, "hdf5") as bar:
         f.attrs.update({"format": "tankside-session-export", "layout_version": 1,
                         "source_file": str(reader.path), **{k: reader.start[k] for k in
                         ("session_uid", "tool_version", "start_time_s")},

@@ -31,7 +31,6 @@ from pathlib import Path
 
 from .. import __version__
 from ..errors import ConfigError, SessionFileError, TanksideError
-from ..progress import Progress
 from .schema import (
     EVENT_METHOD_CHANGE,
     META_CALIBRATION_SHA256,
@@ -46,6 +45,7 @@ from .schema import (
     REQUIRED_FOR_REPLAY,
     RESULT_NAMES,
 )
+from .steps import StepsFactory, silent
 from .store import SessionReader, SessionStore
 
 __all__ = ["ReplaySummary", "build_converter", "conversion_inputs", "replay_session",
@@ -62,14 +62,6 @@ class ReplaySummary:
     failed: int
     seconds: float
     differences: int | None = None   # results differing from the source (when checked)
-
-
-def _settings_class():
-    try:
-        from ..acoustics.settings import ConversionSettings
-    except ImportError:
-        from ..acoustics.deconvolve import ConversionSettings
-    return ConversionSettings
 
 
 def _rebuild(cls, data: dict | None, what: str):
@@ -107,6 +99,7 @@ def conversion_inputs(metadata: dict, *, calibration=None, method: str | None = 
     """
     from ..acoustics.calibration import parse_calibration
     from ..acoustics.loading import Loading
+    from ..acoustics.settings import ConversionSettings
 
     missing = [key for key in REQUIRED_FOR_REPLAY if metadata.get(key) is None
                and not (key == META_CALIBRATION_TEXT and calibration is not None)]
@@ -117,7 +110,7 @@ def conversion_inputs(metadata: dict, *, calibration=None, method: str | None = 
                                         source=metadata.get(META_CALIBRATION_SOURCE)
                                         or "<stored calibration>")
     loading = _rebuild(Loading, metadata[META_LOADING], "loading")
-    settings = _rebuild(_settings_class(), metadata[META_SETTINGS], "conversion settings")
+    settings = _rebuild(ConversionSettings, metadata[META_SETTINGS], "conversion settings")
     if method is not None:
         settings = settings.replace(method=method)
     return calibration, loading, settings, float(metadata[META_TEMPERATURE_C])
@@ -167,7 +160,7 @@ def _check_paths(src: Path, out: Path, force: bool) -> None:
 
 def replay_session(src, out, *, calibration_path=None, method: str | None = None,
                    force: bool = False, check: bool = False,
-                   progress: bool | None = None) -> ReplaySummary:
+                   progress: StepsFactory = silent) -> ReplaySummary:
     """Recompute every result of session ``src`` into the new session ``out``.
 
     Parameters
@@ -181,8 +174,8 @@ def replay_session(src, out, *, calibration_path=None, method: str | None = None
         Another conversion method (``"auto"``, ``"deconvolve"``, ``"narrowband"``).
     check : bool
         Count results that differ from the recorded ones (``summary.differences``).
-    progress : bool or None
-        Progress bar on stderr: None = only on a terminal.
+    progress : StepsFactory
+        Told the number of traces and each one done (default: nowhere).
     """
     from ..acoustics.calibration import load_calibration
 
@@ -234,7 +227,7 @@ def replay_session(src, out, *, calibration_path=None, method: str | None = None
         converted = failed = differences = 0
         store = SessionStore.create(out, new_meta)
         try:
-            with Progress(total, "replay", enabled=progress) as bar:
+            with progress(total, "replay") as bar:
                 for stored in reader.iter_traces():
                     raw = stored.raw
                     temp = temp0

@@ -60,7 +60,7 @@ def bench(method: str) -> None:
         real_time_s = N_TRACES / RATE_HZ
 
         t0 = time.perf_counter()
-        summary = replay_session(src, folder / "replay.db", check=True, progress=False)
+        summary = replay_session(src, folder / "replay.db", check=True)
         replay_s = time.perf_counter() - t0
 
         with SessionReader(src) as reader:
@@ -85,10 +85,10 @@ def bench(method: str) -> None:
 
         with SessionReader(src) as reader:
             t0 = time.perf_counter()
-            export_results_csv(reader, folder / "r.csv", progress=False)
+            export_results_csv(reader, folder / "r.csv")
             csv_s = time.perf_counter() - t0
             t0 = time.perf_counter()
-            export_hdf5(reader, folder / "s.h5", progress=False)
+            export_hdf5(reader, folder / "s.h5")
             h5_s = time.perf_counter() - t0
 
     per = 1e3 / N_TRACES
