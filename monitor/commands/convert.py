@@ -64,7 +64,7 @@ def run(args: argparse.Namespace) -> int:
     voltage, dt_s, t0_s = read_trace(args.trace)
     result = Converter(calibration, loading, settings, temperature_c).process(voltage, dt_s)
     if args.out:
-        write_pressure(args.out, result.pressure_pa, dt_s, t0_s,
+        write_pressure(args.out, result.pressure_pa, dt_s, t0_s=t0_s,
                        comments=[f"pressure from {args.trace} with {calibration.source} "
                                  f"(sha256 {calibration.sha256}), method {result.method}"])
     if args.json:

@@ -100,7 +100,7 @@ def export_trace_csv(reader: SessionReader, seq: int, out) -> int:
     from .tracefile import write_trace
 
     raw = reader.trace(seq).raw
-    write_trace(out, raw.volts(), raw.dt_s, raw.t0_s, comments=[
+    write_trace(out, raw.volts(), raw.dt_s, t0_s=raw.t0_s, comments=[
         f"trace {raw.seq} of session {reader.path.name} ({reader.start['session_uid']})",
         f"acquired at {raw.time_s!r} s since the Unix epoch; dt_s = {raw.dt_s!r}",
         f"range {raw.range_v!r} V, {raw.clipped} samples at the rails; codes as sent are "

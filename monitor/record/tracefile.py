@@ -104,13 +104,13 @@ def _write(path: str | Path, header: str, values: np.ndarray, dt_s: float, t0_s:
         raise TraceFileError(f"{path}: cannot write ({err.strerror})") from err
 
 
-def write_trace(path: str | Path, voltage_v: np.ndarray, dt_s: float, t0_s: float = 0.0,
+def write_trace(path: str | Path, voltage_v: np.ndarray, dt_s: float, *, t0_s: float = 0.0,
                 comments: list[str] | None = None) -> None:
     """Write a voltage trace as ``time_s,voltage_v`` CSV."""
     _write(path, "time_s,voltage_v", voltage_v, dt_s, t0_s, comments)
 
 
-def write_pressure(path: str | Path, pressure_pa: np.ndarray, dt_s: float, t0_s: float = 0.0,
+def write_pressure(path: str | Path, pressure_pa: np.ndarray, dt_s: float, *, t0_s: float = 0.0,
                    comments: list[str] | None = None) -> None:
     """Write a pressure waveform as ``time_s,pressure_pa`` CSV."""
     _write(path, "time_s,pressure_pa", pressure_pa, dt_s, t0_s, comments)
