@@ -14,8 +14,9 @@ from tankside.monitor.acoustics.calibration import load_calibration, parse_calib
 from tankside.monitor.acoustics.converter import RESULT_FIELDS, Converter
 from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.acoustics.settings import ConversionSettings
-from tankside.monitor.cli import EXIT_OK, EXIT_USAGE, main
+from tankside.monitor.cli import main
 from tankside.monitor.errors import ConfigError, TanksideError
+from tankside.monitor.outcome import ExitCode
 from tankside.monitor.record.replay import conversion_inputs, replay_session, result_differences
 from tankside.monitor.record.schema import EVENT_METHOD_CHANGE, META_REPLAY_OF
 from tankside.monitor.record.store import SessionReader, SessionStore, session_metadata
@@ -186,15 +187,15 @@ class TestRefusals:
         src, out = tmp_path / "live.db", tmp_path / "again.db"
         record_session(src, n_traces=2, tmp_cal=tmp_path / "cal.csv")
         out.write_text("old")
-        assert main(["replay", str(src), "--out", str(out)]) == EXIT_USAGE
+        assert main(["replay", str(src), "--out", str(out)]) == ExitCode.USAGE
         err = capsys.readouterr().err.strip()
         assert "--force" in err and len(err.splitlines()) == 1
         assert main(["replay", str(src), "--out", str(out), "--force", "--check",
-                     "--no-progress"]) == EXIT_OK
+                     "--no-progress"]) == ExitCode.OK
         assert "0 differ" in capsys.readouterr().out
         assert SessionReader(out).trace_count() == 2
 
     def test_missing_input(self, tmp_path, capsys):
         assert main(["replay", str(tmp_path / "no.db"), "--out", str(tmp_path / "o.db")]) \
-            == EXIT_USAGE
+            == ExitCode.USAGE
         assert "no such session file" in capsys.readouterr().err

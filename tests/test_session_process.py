@@ -21,7 +21,6 @@ import pytest
 from polling import committed_traces, wait_for
 
 from tankside.drivers.errors import ConnectionLost, InstrumentError, InstrumentReportedError
-from tankside.monitor.cli import EXIT_INSTRUMENT, EXIT_OK
 from tankside.monitor.errors import CalibrationError, ConfigError, TanksideError
 from tankside.monitor.live.benchfile import BenchConfig, load_bench
 from tankside.monitor.live.child import (
@@ -30,6 +29,7 @@ from tankside.monitor.live.child import (
     session_for_display,
     transferable,
 )
+from tankside.monitor.outcome import ExitCode
 from tankside.monitor.record.store import SessionReader
 from tankside.simulators.bench import SimulatedBench
 
@@ -75,7 +75,7 @@ class TestCommandsAndSnapshots:
         assert child.wait(30)
         assert not child.running
         assert (child.exit_code, child.exit_status, child.stop_reason) == (
-            EXIT_OK, "operator", "operator done")
+            ExitCode.OK, "operator", "operator done")
         assert child.snapshot().state == "stopped"
         with SessionReader(child.session_path) as reader:
             events = reader.events()
@@ -151,7 +151,7 @@ class TestEndings:
         wait_for(lambda: child.snapshot().seq >= 3, what="traces")
         os.kill(child.pid, signal.SIGTERM)
         assert child.wait(30)
-        assert child.exit_code == EXIT_OK and "SIGTERM" in child.stop_reason
+        assert child.exit_code == ExitCode.OK and "SIGTERM" in child.stop_reason
         with SessionReader(child.session_path) as reader:
             assert reader.stopped_cleanly and "SIGTERM" in reader.stop["reason"]
 
@@ -169,7 +169,7 @@ class TestEndings:
         assert child.wait(10)
         snap = child.snapshot()
         assert snap.state == "stopped" and "unexpectedly" in snap.stop_reason
-        assert child.exit_code == EXIT_INSTRUMENT
+        assert child.exit_code == ExitCode.INTERNAL
         assert "unexpectedly" in child.message_for_operator
         with SessionReader(child.session_path) as reader:   # committed traces stay
             assert reader.integrity_check() == "ok" and not reader.stopped_cleanly

@@ -17,6 +17,7 @@ from ...drivers import ieee488
 from ...drivers.errors import ConnectionLost, InstrumentError, NoTrigger
 from ...drivers.profile import Profile, load_profile
 from ...drivers.scpi import ScpiLink
+from ..outcome import ExitCode
 
 EPILOG = """\
 results:
@@ -29,8 +30,6 @@ exit codes:
   2  the instrument cannot be reached, or the profile cannot be loaded
   3  at least one operation failed
 """
-
-EXIT_OK, EXIT_UNREACHABLE, EXIT_FAILED = 0, 2, 3
 
 _DIGITISER_SETTINGS = (  # (set key, read-back key, placeholder)
     ("set_record_length", "query_record_length", "points"),
@@ -290,4 +289,4 @@ def run(args) -> int:
     failed = sum(r.result == "failed" for r in prober.rows)
     skipped = sum(r.result == "not tried" for r in prober.rows)
     print(f"{len(prober.rows) - failed - skipped} ok, {failed} failed, {skipped} not tried")
-    return EXIT_FAILED if failed else EXIT_OK
+    return ExitCode.INSTRUMENT if failed else ExitCode.OK

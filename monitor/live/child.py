@@ -39,8 +39,8 @@ from pathlib import Path
 from typing import TYPE_CHECKING, TextIO
 
 from ...drivers.errors import InstrumentError
-from ..cli import EXIT_INSTRUMENT
 from ..errors import StoreError, TanksideError
+from ..outcome import ExitCode, ExitStatus
 from .snapshot import Snapshot
 
 if TYPE_CHECKING:
@@ -296,8 +296,8 @@ class SessionProcess:
         if status.exit_status or code == status.exit_code:
             return
         # the child died without a clean end of its session: say so, with its code
-        status.exit_code = EXIT_INSTRUMENT
-        status.exit_status = "internal-error"
+        status.exit_code = ExitCode.INTERNAL
+        status.exit_status = ExitStatus.INTERNAL_ERROR
         status.stop_reason = f"session process ended unexpectedly (exit code {code})"
         status.message_for_operator = status.stop_reason + self._output_hint()
         self._snap = dataclasses.replace(self._snap, state="stopped",
@@ -339,7 +339,7 @@ def child_main(spec: SessionSpec, commands, snapshots, log_path: str) -> None:
     except (TanksideError, InstrumentError) as err:
         _send_quietly(commands, ("failed", transferable(err)))
         _remove_if_empty(log_path)
-        sys.exit(2)
+        sys.exit(ExitCode.USAGE)
     signal.signal(signal.SIGTERM, lambda signum, frame: session.stop("signal SIGTERM"))
     _send_quietly(commands, ("started", _status_of(session)))
     answering = threading.Thread(target=_answer_snapshots, args=(session, snapshots),
@@ -401,7 +401,7 @@ def _answer_snapshots(session, snapshots) -> None:
 def _status_of(session) -> SessionStatus:
     running = session.running
     return SessionStatus(exit_code=0 if running else session.exit_code,
-                         exit_status="" if running else (session.exit_status or "completed"),
+                         exit_status="" if running else (session.exit_status or ExitStatus.COMPLETED),
                          stop_reason=session.stop_reason,
                          message_for_operator=session.message_for_operator,
                          method=session.method)

@@ -43,13 +43,8 @@ from typing import Any
 
 import numpy as np
 
-from ..cli import (
-    EXIT_INSTRUMENT,
-    EXIT_OK,
-    EXIT_STOPPED_BY_RULE,
-    EXIT_STORE,
-)
 from ..errors import TanksideError
+from ..outcome import ExitStatus
 from .acquisition import (
     EVENT_DRIVE_OFF,
     EVENT_DRIVE_ON,
@@ -76,18 +71,6 @@ METHODS = ("auto", "deconvolve", "narrowband")
 MAX_ALERTS_SHOWN = 300
 SNAPSHOT_ARRAYS_EVERY_S = 0.04   # waveform/spectrum arrays at most 25 times a second
 TICK_EVERY_S = 1.0
-
-# Exit statuses recorded in the store, with their exit codes; a worse one wins.
-STATUS_CODES = {
-    "completed": EXIT_OK,
-    "operator": EXIT_OK,
-    "stopped-by-rule": EXIT_STOPPED_BY_RULE,
-    "instrument-failure": EXIT_INSTRUMENT,
-    "internal-error": EXIT_INSTRUMENT,
-    "store-error": EXIT_STORE,
-}
-_STATUS_RANK = ("completed", "operator", "stopped-by-rule", "instrument-failure",
-                "internal-error", "store-error")
 
 
 class LiveSession:
@@ -158,7 +141,7 @@ class LiveSession:
         self._threads: list[threading.Thread] = []
         self._done = threading.Event()
         self._started = False
-        self._status: str | None = None
+        self._status: ExitStatus | None = None
         self._reason = ""
         self._message = ""
         self._lock = threading.Lock()       # guards the stop status and the alert list
@@ -310,7 +293,7 @@ class LiveSession:
 
     def stop(self, reason: str = "operator") -> None:
         """Ask the session to stop cleanly; returns at once (see :meth:`wait`)."""
-        self._request_stop("operator", reason)
+        self._request_stop(ExitStatus.OPERATOR, reason)
 
     def wait(self, timeout_s: float | None = None) -> bool:
         """Wait until the session has finished; True when it has."""
@@ -322,7 +305,7 @@ class LiveSession:
 
     @property
     def exit_code(self) -> int:
-        return STATUS_CODES.get(self._status or "completed", EXIT_OK)
+        return (self._status or ExitStatus.COMPLETED).exit_code
 
     @property
     def exit_status(self) -> str:
@@ -366,10 +349,9 @@ class LiveSession:
                 "committed": self._writer.committed,
                 "clipped": self._clipped}
 
-    def _request_stop(self, status: str, reason: str, message: str = "") -> None:
+    def _request_stop(self, status: ExitStatus, reason: str, message: str = "") -> None:
         with self._lock:
-            if self._status is None or (_STATUS_RANK.index(status)
-                                        > _STATUS_RANK.index(self._status)):
+            if self._status is None or status.rank > self._status.rank:
                 self._status = status
                 self._reason = reason
                 if message:
@@ -394,12 +376,12 @@ class LiveSession:
             self._acq.run()
         except BaseException as err:  # a bug: record it, end the session, show it
             traceback.print_exc(file=sys.stderr)
-            self._request_stop("internal-error", f"acquisition: {type(err).__name__}: {err}")
+            self._request_stop(ExitStatus.INTERNAL_ERROR, f"acquisition: {type(err).__name__}: {err}")
         finally:
             if self._acq.fatal is not None:
-                self._request_stop("instrument-failure", self._acq.fatal, self._acq.fatal)
+                self._request_stop(ExitStatus.INSTRUMENT_FAILURE, self._acq.fatal, self._acq.fatal)
             elif self._acq.max_traces is not None and self._acq.seq >= self._acq.max_traces:
-                self._request_stop("completed", f"{self._acq.max_traces} traces acquired")
+                self._request_stop(ExitStatus.COMPLETED, f"{self._acq.max_traces} traces acquired")
             self._stop.set()
             while True:
                 try:
@@ -415,7 +397,7 @@ class LiveSession:
             self._process_loop()
         except BaseException as err:  # a bug: record it, end the session, show it
             traceback.print_exc(file=sys.stderr)
-            self._request_stop("internal-error", f"processing: {type(err).__name__}: {err}")
+            self._request_stop(ExitStatus.INTERNAL_ERROR, f"processing: {type(err).__name__}: {err}")
             self._acq.abandon.set()
             self._acq.verdict(1 << 62)
             self._drain_raw()
@@ -443,11 +425,11 @@ class LiveSession:
                 next_tick = now + TICK_EVERY_S
                 self._tick()
             if self._writer.error is not None:
-                self._request_stop("store-error", str(self._writer.error),
+                self._request_stop(ExitStatus.STORE_ERROR, str(self._writer.error),
                                    f"session store failed: {self._writer.error}")
             if (self._duration_s is not None and not self._stop.is_set()
                     and self.elapsed_s >= self._duration_s):
-                self._request_stop("completed", f"duration {self._duration_s:g} s reached")
+                self._request_stop(ExitStatus.COMPLETED, f"duration {self._duration_s:g} s reached")
             if item is None:
                 if now - self._last_arrays_mono >= SNAPSHOT_ARRAYS_EVERY_S:
                     self._flush_latest()
@@ -460,13 +442,13 @@ class LiveSession:
                 self._on_trace(item)
 
     def _finish(self) -> None:
-        status = self._status or "completed"
+        status = self._status or ExitStatus.COMPLETED
         if self._status is None:
             self._status = status
         self._put(CloseItem(status, self._reason or status, self._counts))
         self._threads[0].join()
         if self._writer.error is not None:
-            self._request_stop("store-error", str(self._writer.error),
+            self._request_stop(ExitStatus.STORE_ERROR, str(self._writer.error),
                                f"session store failed: {self._writer.error}; data committed "
                                f"before it is intact in {self.session_path}")
         self._flush_latest()
@@ -585,7 +567,7 @@ class LiveSession:
             if "bell" in actions and self._bell is not None:
                 self._bell()
             if "stop" in actions:
-                self._request_stop("stopped-by-rule", f"{firing.rule}: {firing.message}")
+                self._request_stop(ExitStatus.STOPPED_BY_RULE, f"{firing.rule}: {firing.message}")
         if firings:
             self._snap = dataclasses.replace(self._snap, alerts=self._alerts_copy())
 

@@ -31,6 +31,7 @@ from pathlib import Path
 
 from .. import __version__
 from ..errors import ConfigError, SessionFileError, TanksideError
+from ..outcome import ExitStatus
 from ..progress import Progress
 from .schema import (
     EVENT_METHOD_CHANGE,
@@ -259,9 +260,9 @@ def replay_session(src, out, *, calibration_path=None, method: str | None = None
             counts = {"traces": total, "converted": converted, "failed": failed}
             store.commit()
         except BaseException:
-            store.close("error", "replay did not finish", {"traces": store.traces_written})
+            store.close(ExitStatus.ERROR, "replay did not finish", {"traces": store.traces_written})
             raise
-        store.close("ok", "replay", counts)
+        store.close(ExitStatus.OK, "replay", counts)
     return ReplaySummary(out, total, converted, failed, time.perf_counter() - t_start,
                          differences if check else None)
 

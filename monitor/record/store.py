@@ -31,6 +31,7 @@ import numpy as np
 from ...drivers.trace import RawTrace
 from .. import __version__
 from ..errors import DiskFullError, SessionFileError, StoreError
+from ..outcome import ExitStatus
 from .reader import SessionReader, StoredTrace, session_size_bytes
 from .schema import (
     BOOL_RESULTS,
@@ -410,7 +411,7 @@ class SessionStore:
         """Bytes on disk: the database file and its WAL."""
         return session_size_bytes(self.path)
 
-    def close(self, exit_status: str, reason: str, counts: dict) -> None:
+    def close(self, exit_status: ExitStatus, reason: str, counts: dict) -> None:
         """Commit, write the stop record and close the file.
 
         After an earlier error the stop record is still attempted (a few hundred
@@ -447,6 +448,6 @@ class SessionStore:
 
     def __exit__(self, exc_type, exc, tb):
         if not self._closed:
-            status = "ok" if exc_type is None else "error"
+            status = ExitStatus.OK if exc_type is None else ExitStatus.ERROR
             reason = "finished" if exc_type is None else f"{exc_type.__name__}: {exc}"
             self.close(status, reason, {"traces": self.traces_written})
