@@ -1,5 +1,7 @@
 """Deconvolution round trips through analog hydrophone models built with scipy.signal."""
 
+import json
+
 import numpy as np
 import pytest
 import scipy.signal
@@ -9,8 +11,8 @@ from tankside.monitor.acoustics.converter import RESULT_FIELDS, Converter, Unusa
 from tankside.monitor.acoustics.deconvolve import band_window
 from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.acoustics.pulse import pulse_parameters
-from tankside.monitor.acoustics.settings import ConversionSettings
-from tankside.monitor.errors import OutOfBandError, TanksideError
+from tankside.monitor.acoustics.settings import AwfMethod, ConversionSettings, Method
+from tankside.monitor.errors import ConfigError, OutOfBandError, TanksideError
 
 DT = 4e-9
 N = 4096
@@ -185,6 +187,24 @@ class TestConverter:
         conv = Converter(flat_calibration())
         assert conv.with_method("narrowband").settings.method == "narrowband"
         assert conv.settings.method == "auto"
+
+
+class TestMethodNames:
+    def test_names_from_a_bench_file_become_members(self):
+        s = ConversionSettings.from_table({"method": "narrowband", "awf_method": "zero-crossing"})
+        assert s.method is Method.NARROWBAND and s.awf_method is AwfMethod.ZERO_CROSSING
+        assert json.loads(json.dumps(s.as_dict()))["method"] == "narrowband"  # stored as before
+
+    @pytest.mark.parametrize("key", ["method", "awf_method"])
+    def test_an_unknown_name_is_refused_with_the_known_ones(self, key):
+        vocabulary = {"method": Method, "awf_method": AwfMethod}[key]
+        with pytest.raises(ConfigError, match=", ".join(vocabulary)):
+            ConversionSettings(**{key: "fastest"})
+
+    def test_the_result_names_the_method_it_used(self):
+        conv = Converter(model_calibration(), settings=DECONV)
+        r = conv.process(through_model(pressure_pulse()), DT)
+        assert r.method is Method.DECONVOLVE and r.flat()["method"] == "deconvolve"
 
 
 def test_zero_crossing_awf_through_the_converter():

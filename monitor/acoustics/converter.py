@@ -34,7 +34,7 @@ from .pulse import (
     pulse_bounds_s,
     pulse_parameters,
 )
-from .settings import ConversionSettings
+from .settings import AwfMethod, ConversionSettings, Method
 from .water import Water
 
 __all__ = ["Converter", "TraceResult", "RESULT_FIELDS", "OutOfBandError", "UnusableTraceError"]
@@ -77,8 +77,8 @@ class TraceResult:
         Pressure waveform, Pa, same length and time step as the voltage.
     dt_s : float
         Time step, s.
-    method : str
-        Method actually used: ``"deconvolve"`` or ``"narrowband"``.
+    method : Method
+        Method actually used: ``DECONVOLVE`` or ``NARROWBAND``.
     freqs_hz : numpy.ndarray
         ``rfftfreq(n, dt_s)``, Hz.
     spectrum_pa : numpy.ndarray
@@ -98,7 +98,7 @@ class TraceResult:
 
     pressure_pa: np.ndarray
     dt_s: float
-    method: str
+    method: Method
     freqs_hz: np.ndarray
     spectrum_pa: np.ndarray
     sensitivity_v_per_pa: np.ndarray
@@ -198,7 +198,7 @@ class Converter:
         return Converter(self.calibration, self.loading, base.replace(**changes) if changes
                          else base, self.temperature_c)
 
-    def with_method(self, method: str) -> Converter:
+    def with_method(self, method: Method | str) -> Converter:
         return self.with_settings(method=method)
 
     def plan(self, n: int, dt_s: float) -> Plan:
@@ -243,12 +243,12 @@ class Converter:
         vabs = np.abs(spec)
         f_v, bounds = self._awf(v, vabs, plan.freqs_hz, dt_s)
         self._in_band(f_v, "voltage spectrum")
-        used = "deconvolve"
-        if s.method != "deconvolve":
+        used = Method.DECONVOLVE
+        if s.method is not Method.DECONVOLVE:
             nb = narrowband_check(f_v, self.profile, s)
-            if s.method == "narrowband" or nb.ok:
-                used = "narrowband"
-        if used == "narrowband":
+            if s.method is Method.NARROWBAND or nb.ok:
+                used = Method.NARROWBAND
+        if used is Method.NARROWBAND:
             m = self.profile.magnitude_at_v_per_pa(f_v)
             pressure = v / m
             mag = vabs * (2.0 / (n * m))
@@ -275,7 +275,7 @@ class Converter:
              dt_s: float) -> tuple[float, tuple[float, float, float] | None]:
         """f_awf, Hz, and the pulse window of ``signal`` when it was found on the way
         (zero-crossing method), for :func:`pulse_parameters` to use rather than search again."""
-        if self.settings.awf_method == "spectrum":
+        if self.settings.awf_method is AwfMethod.SPECTRUM:
             return awf_spectrum_hz(freqs_hz, magnitude), None
         bounds = pulse_bounds_s(signal, dt_s)
         t10, t90, _ = bounds

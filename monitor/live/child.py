@@ -39,6 +39,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, TextIO
 
 from ...drivers.errors import InstrumentError
+from ..acoustics.settings import Method
 from ..errors import StoreError, TanksideError
 from ..outcome import ExitCode, ExitStatus
 from .snapshot import Snapshot
@@ -74,7 +75,7 @@ class SessionStatus:
     exit_status: str = ""
     stop_reason: str = ""
     message_for_operator: str = ""
-    method: str = "auto"
+    method: str = Method.AUTO
 
 
 class SessionProcess:

@@ -43,6 +43,7 @@ from typing import Any
 
 import numpy as np
 
+from ..acoustics.settings import Method
 from ..errors import TanksideError
 from ..outcome import ExitStatus
 from .acquisition import (
@@ -67,7 +68,6 @@ from .recorder import (
 from .rules import Firing, TickObservation, observation_from_trace
 from .snapshot import AlertView, InstrumentView, Snapshot
 
-METHODS = ("auto", "deconvolve", "narrowband")
 MAX_ALERTS_SHOWN = 300
 SNAPSHOT_ARRAYS_EVERY_S = 0.04   # waveform/spectrum arrays at most 25 times a second
 TICK_EVERY_S = 1.0
@@ -287,9 +287,9 @@ class LiveSession:
 
     def set_method(self, method: str) -> None:
         """Switch the conversion method from the next trace on (recorded as an event)."""
-        if method not in METHODS:
-            raise ValueError(f"method must be one of {', '.join(METHODS)}, not {method!r}")
-        self._pending_method = method
+        if method not in list(Method):
+            raise ValueError(f"method must be one of {', '.join(Method)}, not {method!r}")
+        self._pending_method = Method(method)
 
     def stop(self, reason: str = "operator") -> None:
         """Ask the session to stop cleanly; returns at once (see :meth:`wait`)."""
@@ -682,7 +682,7 @@ def _opt_bool(value) -> bool | None:
 
 def _method_of(converter) -> str:
     settings = getattr(converter, "settings", None)
-    return str(getattr(settings, "method", "auto"))
+    return str(getattr(settings, "method", Method.AUTO))
 
 
 def new_session_path(folder: str | Path, session_path: str | Path | None = None) -> Path:

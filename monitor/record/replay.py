@@ -179,7 +179,7 @@ def replay_session(src, out, *, calibration_path=None, method: str | None = None
     calibration_path : str or Path, optional
         Another calibration file instead of the recorded one.
     method : str, optional
-        Another conversion method (``"auto"``, ``"deconvolve"``, ``"narrowband"``).
+        Another conversion method (a :class:`~tankside.monitor.acoustics.settings.Method`).
     check : bool
         Count results that differ from the recorded ones (``summary.differences``).
     progress : bool or None
