@@ -21,7 +21,7 @@ from tankside.monitor.live.acquisition import OpenInstrument
 from tankside.monitor.live.rules import AlertConfig, RuleEngine
 from tankside.monitor.live.session import LiveSession
 from tankside.monitor.outcome import ExitCode
-from tankside.monitor.record.schema import RESULT_NAMES
+from tankside.monitor.record.schema import RESULT_NAMES, EventKind, FaultKind
 from tankside.monitor.record.store import SessionReader, SessionStore
 
 SENSITIVITY_V_PER_PA = 1e-7      # fake hydrophone: 0.1 V per MPa
@@ -155,6 +155,7 @@ class SlowStore:
         self.delay_s = delay_s
         self.full_after = full_after
         self.written = 0
+        self.events = []
 
     def add_trace(self, *args, **kw):
         if self.full_after is not None and self.written >= self.full_after:
@@ -162,6 +163,10 @@ class SlowStore:
         time.sleep(self.delay_s)
         self._store.add_trace(*args, **kw)
         self.written += 1
+
+    def add_event(self, time_s, kind, detail, seq=None):
+        self.events.append((kind, detail))
+        self._store.add_event(time_s, kind, detail, seq=seq)
 
     def __getattr__(self, name):
         return getattr(self._store, name)
@@ -187,7 +192,10 @@ def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, st
 
     def open_store(path, meta):
         store = SessionStore.create(path, meta, commit_interval_s=commit_interval_s)
-        return SlowStore(store, store_delay_s, full_after)
+        stores.append(SlowStore(store, store_delay_s, full_after))
+        return stores[-1]
+
+    stores = []
 
     session = LiveSession(
         open_digitiser=open_digitiser, open_generator=open_generator if generator else None,
@@ -196,12 +204,19 @@ def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, st
         session_path=tmp_path / "s.db", trigger_timeout_s=0.05, queue_capacity=queue_capacity,
         max_traces=max_traces, give_up_s=give_up_s, duration_s=duration_s, bell=bell)
     session.opens = opens
+    session.stores = stores
     return session
 
 
 def run(session, timeout_s=30.0):
     session.start()
     assert session.wait(timeout_s), "session did not finish"
+    # every event the session wrote has a kind (and a fault its kind) declared by name
+    for store in session.stores:
+        for kind, detail in store.events:
+            assert isinstance(kind, EventKind), f"event kind {kind!r} is not an EventKind"
+            if kind is EventKind.FAULT:
+                assert isinstance(detail["kind"], FaultKind), detail
     return session
 
 

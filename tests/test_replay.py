@@ -18,7 +18,7 @@ from tankside.monitor.cli import main
 from tankside.monitor.errors import ConfigError, TanksideError
 from tankside.monitor.outcome import ExitCode
 from tankside.monitor.record.replay import conversion_inputs, replay_session, result_differences
-from tankside.monitor.record.schema import EVENT_METHOD_CHANGE, META_REPLAY_OF
+from tankside.monitor.record.schema import META_REPLAY_OF, EventKind
 from tankside.monitor.record.store import SessionReader, SessionStore, session_metadata
 
 LOADING = Loading(hydrophone_capacitance_f=50e-12, cable_capacitance_f=100e-12,
@@ -55,7 +55,7 @@ def record_session(path, *, n_traces=10, switch_to_narrowband_at=None, tmp_cal=N
     for raw in _raws(n_traces):
         if raw.seq == switch_to_narrowband_at:
             conv = conv.with_method("narrowband")
-            store.add_event(raw.time_s, EVENT_METHOD_CHANGE,
+            store.add_event(raw.time_s, EventKind.METHOD_CHANGE,
                             {"from": "deconvolve", "to": "narrowband"}, seq=raw.seq)
         try:
             flat, error = conv.process(raw.volts(), raw.dt_s).flat(), None
@@ -111,7 +111,7 @@ class TestExactReplay:
         with SessionReader(out) as b:
             methods = [r["method"] for r in b.iter_results() if r["converted"]]
             assert methods[-1] == "narrowband" and methods[0] == "deconvolve"
-            assert [e["kind"] for e in b.events()] == [EVENT_METHOD_CHANGE]
+            assert [e["kind"] for e in b.events()] == [EventKind.METHOD_CHANGE]
 
 
 def test_method_schedule_by_seq_or_time():
@@ -119,9 +119,9 @@ def test_method_schedule_by_seq_or_time():
 
     events = [
         {"kind": "mark", "seq": 1, "time_s": 10.0, "detail": {"note": "x"}},
-        {"kind": EVENT_METHOD_CHANGE, "seq": 4, "time_s": 12.0,
+        {"kind": EventKind.METHOD_CHANGE, "seq": 4, "time_s": 12.0,
          "detail": {"from": "auto", "to": "narrowband"}},
-        {"kind": EVENT_METHOD_CHANGE, "seq": None, "time_s": 20.0,
+        {"kind": EventKind.METHOD_CHANGE, "seq": None, "time_s": 20.0,
          "detail": {"from": "narrowband", "to": "deconvolve"}},
     ]
     schedule = _method_schedule(events)

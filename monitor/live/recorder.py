@@ -15,6 +15,7 @@ from typing import Any
 
 from ..errors import StoreError
 from ..outcome import ExitStatus
+from ..record.schema import EventKind
 
 END = object()
 
@@ -47,7 +48,7 @@ class AckItem:
 @dataclass
 class EventItem:
     time_s: float
-    kind: str
+    kind: EventKind
     detail: dict
     seq: int | None = None
 

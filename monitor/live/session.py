@@ -46,9 +46,8 @@ import numpy as np
 from ..acoustics.settings import Method
 from ..errors import TanksideError
 from ..outcome import ExitStatus
+from ..record.schema import EventKind, FaultKind
 from .acquisition import (
-    EVENT_DRIVE_OFF,
-    EVENT_DRIVE_ON,
     AcqEvent,
     Acquired,
     AcquisitionLoop,
@@ -270,7 +269,7 @@ class LiveSession:
 
     def mark(self, note: str) -> None:
         """Record an operator mark (an event with the note)."""
-        self._put(EventItem(time.time(), "mark", {"note": str(note)}, seq=self._last_seq()))
+        self._put(EventItem(time.time(), EventKind.MARK, {"note": str(note)}, seq=self._last_seq()))
 
     def acknowledge(self, alert_id: int) -> None:
         """Acknowledge an alert shown in the snapshot (recorded in the store)."""
@@ -472,21 +471,21 @@ class LiveSession:
 
     def _on_event(self, ev: AcqEvent) -> None:
         kind = ev.kind
-        if kind == "fault" and ev.detail.get("kind") == "connection-lost":
-            kind = "connection-lost"
+        if kind == EventKind.FAULT and ev.detail.get("kind") == FaultKind.CONNECTION_LOST:
+            kind = EventKind.CONNECTION_LOST
         self._put(EventItem(ev.time_s, kind, ev.detail, seq=ev.seq))
         if ev.alert is not None:
             rule, severity, message = ev.alert
             self._handle_firings([Firing(rule=rule, severity=severity, message=message,
                                          actions=("record",), seq=ev.seq, detail=ev.detail,
                                          time_s=ev.time_s)], raw=None, fraction=float("nan"))
-        if kind == "range-change" and ev.detail.get("done"):
+        if kind == EventKind.RANGE_CHANGE and ev.detail.get("done"):
             self._range_v = float(ev.detail["to_v"])
-        if kind in (EVENT_DRIVE_ON, EVENT_DRIVE_OFF):
-            self._drive_on = kind == EVENT_DRIVE_ON
+        if kind in (EventKind.DRIVE_ON, EventKind.DRIVE_OFF):
+            self._drive_on = kind == EventKind.DRIVE_ON
             self._drive_cause = str(ev.detail.get("cause", ""))
             self._publish()
-        elif kind == "fault" and ev.detail.get("kind") == "generator-query":
+        elif kind == EventKind.FAULT and ev.detail.get("kind") == FaultKind.GENERATOR_QUERY:
             self._drive_on = None
             self._drive_cause = ""
             self._publish()
@@ -540,7 +539,7 @@ class LiveSession:
         old = self._method
         self._converter = self._converter.with_method(method)
         self._method = method
-        self._put(EventItem(time.time(), "method-change", {"from": old, "to": method},
+        self._put(EventItem(time.time(), EventKind.METHOD_CHANGE, {"from": old, "to": method},
                             seq=seq))
 
     def _handle_firings(self, firings, *, raw, fraction: float) -> None:

@@ -34,7 +34,6 @@ from ..errors import ConfigError, SessionFileError, TanksideError
 from ..outcome import ExitStatus
 from ..progress import Progress
 from .schema import (
-    EVENT_METHOD_CHANGE,
     META_CALIBRATION_SHA256,
     META_CALIBRATION_SOURCE,
     META_CALIBRATION_TEXT,
@@ -46,6 +45,7 @@ from .schema import (
     META_TOOL_VERSION,
     REQUIRED_FOR_REPLAY,
     RESULT_NAMES,
+    EventKind,
 )
 from .store import SessionReader, SessionStore
 
@@ -140,7 +140,7 @@ def _method_schedule(events: list[dict]):
     """(seq or None, time_s, method) of each recorded method change, in order."""
     out = []
     for ev in events:
-        if ev["kind"] != EVENT_METHOD_CHANGE:
+        if ev["kind"] != EventKind.METHOD_CHANGE:
             continue
         m = ev["detail"].get("method", ev["detail"].get("to"))
         if m is not None:

@@ -53,6 +53,7 @@ from .schema import (
     RESULT_ROW_COLUMNS,
     STATIC_DESCRIPTORS,
     TRACE_COLUMNS,
+    EventKind,
     units_of,
 )
 
@@ -367,8 +368,10 @@ class SessionStore:
         if cur.rowcount != 1:
             raise StoreError(f"{self.path}: no alert {alert_id} to acknowledge")
 
-    def add_event(self, time_s: float, kind: str, detail: dict, seq: int | None = None) -> None:
-        """Record an event (kinds: the ``EVENT_*`` names of store_schema, or free text)."""
+    def add_event(self, time_s: float, kind: EventKind | str, detail: dict,
+                  seq: int | None = None) -> None:
+        """Record an event (kinds: :class:`~tankside.monitor.record.schema.EventKind`; the
+        file allows free text, and a replay copies the kinds it reads)."""
         try:
             detail_json = strict_json(detail)
         except (TypeError, ValueError) as err:
