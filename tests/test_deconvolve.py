@@ -7,7 +7,7 @@ import pytest
 import scipy.signal
 
 from tankside.monitor.acoustics.calibration import parse_calibration
-from tankside.monitor.acoustics.converter import RESULT_FIELDS, Converter, UnusableTraceError
+from tankside.monitor.acoustics.converter import Converter, UnusableTraceError
 from tankside.monitor.acoustics.deconvolve import band_window
 from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.acoustics.pulse import pulse_parameters
@@ -145,8 +145,19 @@ class TestConverter:
 
     def test_result_forms(self):
         r = Converter(model_calibration()).process(through_model(pressure_pulse()), DT)
-        assert tuple(r.flat()) == RESULT_FIELDS
         j = r.to_json_dict()
+        # the flat form (stored, exported) is the JSON form flattened: same names, same values
+        nb = j["narrowband"]
+        assert r.flat() == {
+            "method": j["method"], "phase_source": j["phase_source"],
+            **{k: j[k] for k in ("peak_compressional_pa", "peak_rarefactional_pa",
+                                 "acoustic_working_frequency_hz",
+                                 "pulse_intensity_integral_j_per_m2", "pulse_duration_s",
+                                 "pulse_average_intensity_w_per_m2", "mechanical_index")},
+            **{f"water_{k}": v for k, v in j["water"].items()},
+            "narrowband_ok": nb["ok"], "narrowband_band_low_hz": nb["band_hz"][0],
+            "narrowband_band_high_hz": nb["band_hz"][1],
+            "narrowband_max_deviation_db": nb["max_deviation_db"]}
         assert set(j) == {"method", "peak_compressional_pa", "peak_rarefactional_pa",
                           "acoustic_working_frequency_hz", "pulse_intensity_integral_j_per_m2",
                           "pulse_duration_s", "pulse_average_intensity_w_per_m2",

@@ -11,14 +11,14 @@ import pytest
 from session_samples import calibration_text, make_raw, zero_trace
 
 from tankside.monitor.acoustics.calibration import load_calibration, parse_calibration
-from tankside.monitor.acoustics.converter import RESULT_FIELDS, Converter
+from tankside.monitor.acoustics.converter import Converter
 from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.acoustics.settings import ConversionSettings
 from tankside.monitor.cli import main
 from tankside.monitor.errors import ConfigError, TanksideError
 from tankside.monitor.outcome import ExitCode
 from tankside.monitor.record.replay import conversion_inputs, replay_session, result_differences
-from tankside.monitor.record.schema import META_REPLAY_OF, EventKind
+from tankside.monitor.record.schema import META_REPLAY_OF, RESULT_NAMES, EventKind
 from tankside.monitor.record.store import SessionReader, SessionStore, session_metadata
 
 LOADING = Loading(hydrophone_capacitance_f=50e-12, cable_capacitance_f=100e-12,
@@ -88,8 +88,8 @@ class TestExactReplay:
                 if old.result is None:
                     assert new.result is None and new.error == old.error
                     continue
-                assert tuple(new.result) == RESULT_FIELDS
-                for key in RESULT_FIELDS:
+                assert tuple(new.result) == RESULT_NAMES
+                for key in RESULT_NAMES:
                     x, y = old.result[key], new.result[key]
                     if isinstance(x, float):
                         assert _bits(x) == _bits(y) or (math.isnan(x) and math.isnan(y)), key

@@ -18,11 +18,11 @@ import time
 import numpy as np
 import pytest
 
-from tankside.monitor.acoustics.converter import RESULT_FIELDS
 from tankside.monitor.cli import main
 from tankside.monitor.live.benchfile import load_bench
 from tankside.monitor.live.session import LiveSession
 from tankside.monitor.outcome import ExitCode
+from tankside.monitor.record.schema import RESULT_NAMES
 from tankside.monitor.record.store import SessionReader
 from tankside.monitor.record.tracefile import read_trace
 from tankside.simulators.bench import SimulatedBench
@@ -84,7 +84,7 @@ class TestSessionMatchesConvert:
             # The same numerics on the stored raw trace give the stored result, exactly.
             for st in r.iter_traces():
                 again = converter.process(st.raw.volts(), st.raw.dt_s).flat()
-                for key in RESULT_FIELDS:
+                for key in RESULT_NAMES:
                     assert close_to(st.result[key], again[key], 0.0), (st.raw.seq, key)
         # And `export --trace` + the signal chain (what `convert` does on that CSV) agree
         # within the CSV's 9 significant digits.

@@ -33,6 +33,8 @@ from __future__ import annotations
 
 import enum
 
+from ..acoustics.converter import RESULT_FIELDS
+
 FORMAT_TAG = "tankside-session"
 LAYOUT_VERSION = 1
 
@@ -111,26 +113,13 @@ class FaultKind(enum.StrEnum):
     """The generator did not say whether its output is on (state now unknown)."""
 
 
-# -- result columns, in the order of tankside.monitor.acoustics.converter.RESULT_FIELDS ---------------
-RESULT_COLUMNS: tuple[tuple[str, str], ...] = (
-    ("method", "TEXT"),
-    ("peak_compressional_pa", "REAL"),
-    ("peak_rarefactional_pa", "REAL"),
-    ("acoustic_working_frequency_hz", "REAL"),
-    ("pulse_intensity_integral_j_per_m2", "REAL"),
-    ("pulse_duration_s", "REAL"),
-    ("pulse_average_intensity_w_per_m2", "REAL"),
-    ("mechanical_index", "REAL"),
-    ("water_temperature_c", "REAL"),
-    ("water_density_kg_per_m3", "REAL"),
-    ("water_sound_speed_m_per_s", "REAL"),
-    ("narrowband_ok", "BOOL"),
-    ("narrowband_band_low_hz", "REAL"),
-    ("narrowband_band_high_hz", "REAL"),
-    ("narrowband_max_deviation_db", "REAL"),
-    ("phase_source", "TEXT"),
-)
+# -- result columns: one per field of a trace's result, declared with its unit and dtype
+# in tankside.monitor.acoustics.converter.RESULT_FIELDS ------------------------------------
+_SQL_KINDS = {"float64": "REAL", "bool": "BOOL", "str": "TEXT"}
+RESULT_COLUMNS: tuple[tuple[str, str], ...] = tuple(
+    (f.name, _SQL_KINDS[f.dtype]) for f in RESULT_FIELDS)
 RESULT_NAMES = tuple(name for name, _ in RESULT_COLUMNS)
+RESULT_UNITS = {f.name: f.unit for f in RESULT_FIELDS}
 
 # Flags with their own column; any other flag goes to flags_json.
 FLAG_COLUMNS = ("clipped", "range_changed")
@@ -245,15 +234,15 @@ DDL = [
         counts_json TEXT NOT NULL)""",
 ]
 
-# Static descriptors: (name, table, dtype). Units come from units_of(); the codes
-# descriptor (dtype and shape of the first trace) is written with the first trace.
+# Static descriptors: (name, table, units, dtype); a trace column's units come from
+# units_of(), a result's from its field. The codes descriptor (dtype and shape of the
+# first trace) is written with the first trace.
 STATIC_DESCRIPTORS = (
-    [("time_s", "traces", "float64"), ("volts_per_code", "traces", "float64"),
-     ("offset_v", "traces", "float64"), ("dt_s", "traces", "float64"),
-     ("t0_s", "traces", "float64"), ("range_v", "traces", "float64"),
-     ("code_min", "traces", "float64"), ("code_max", "traces", "float64"),
-     ("clipped_low", "traces", "int64"), ("clipped_high", "traces", "int64")]
-    + [(name, "results", {"TEXT": "str", "BOOL": "bool", "REAL": "float64"}[kind])
-       for name, kind in RESULT_COLUMNS]
-    + [("clipped", "results", "bool"), ("range_changed", "results", "bool")]
+    [(name, "traces", units_of(name), dtype) for name, dtype in (
+        ("time_s", "float64"), ("volts_per_code", "float64"), ("offset_v", "float64"),
+        ("dt_s", "float64"), ("t0_s", "float64"), ("range_v", "float64"),
+        ("code_min", "float64"), ("code_max", "float64"), ("clipped_low", "int64"),
+        ("clipped_high", "int64"))]
+    + [(f.name, "results", f.unit, f.dtype) for f in RESULT_FIELDS]
+    + [(name, "results", units_of(name), "bool") for name in FLAG_COLUMNS]
 )

@@ -54,7 +54,6 @@ from .schema import (
     STATIC_DESCRIPTORS,
     TRACE_COLUMNS,
     EventKind,
-    units_of,
 )
 
 __all__ = [
@@ -251,8 +250,8 @@ class SessionStore:
             conn.executemany("INSERT INTO metadata VALUES (?, ?)", meta_rows)
             conn.executemany(
                 "INSERT INTO descriptors VALUES (?, ?, ?, ?, '[]', ?)",
-                [(name, tbl, units_of(name), dtype, source if tbl == "traces"
-                  else "conversion") for name, tbl, dtype in STATIC_DESCRIPTORS])
+                [(name, tbl, units, dtype, source if tbl == "traces"
+                  else "conversion") for name, tbl, units, dtype in STATIC_DESCRIPTORS])
             conn.execute("COMMIT")
         except sqlite3.Error as err:
             conn.close()
