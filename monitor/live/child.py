@@ -29,7 +29,6 @@ import dataclasses
 import multiprocessing
 import multiprocessing.connection
 import os
-import pickle
 import signal
 import sys
 import tempfile
@@ -40,7 +39,7 @@ from typing import TYPE_CHECKING, TextIO
 
 from ...drivers.errors import InstrumentError
 from ..acoustics.settings import Method
-from ..errors import StoreError, TanksideError
+from ..errors import TanksideError
 from ..outcome import ExitCode, ExitStatus
 from .snapshot import Snapshot
 
@@ -338,7 +337,7 @@ def child_main(spec: SessionSpec, commands, snapshots, log_path: str) -> None:
                                          duration_s=spec.duration_s)
         session.start()
     except (TanksideError, InstrumentError) as err:
-        _send_quietly(commands, ("failed", transferable(err)))
+        _send_quietly(commands, ("failed", err))
         _remove_if_empty(log_path)
         sys.exit(ExitCode.USAGE)
     signal.signal(signal.SIGTERM, lambda signum, frame: session.stop("signal SIGTERM"))
@@ -377,7 +376,7 @@ def _serve_commands(session, commands) -> None:
                 raise ValueError(f"unknown session command {op!r}")
             getattr(session, op)(*args)
         except (TanksideError, InstrumentError, ValueError) as err:
-            answer = (serial, "error", transferable(err))
+            answer = (serial, "error", err)
         else:
             answer = (serial, "ok", None)
         if not _send_quietly(commands, answer):
@@ -427,25 +426,6 @@ def _remove_if_empty(path: str) -> None:
     with contextlib.suppress(OSError):
         if os.path.getsize(path) == 0:
             os.unlink(path)
-
-
-def transferable(err: BaseException) -> BaseException:
-    """``err`` if it survives pickling, else the nearest tankside base type with its text.
-
-    Errors whose constructors take several arguments (a calibration error's file,
-    line and problem) do not unpickle from their message alone; the base type keeps
-    the message and the exit code the CLI gives it.
-    """
-    try:
-        back = pickle.loads(pickle.dumps(err))
-        if type(back) is type(err) and str(back) == str(err):
-            return back
-    except Exception:  # noqa: BLE001 - any failure means: send the plain form
-        pass
-    for base in (StoreError, TanksideError, InstrumentError, ValueError):
-        if isinstance(err, base):
-            return base(str(err))
-    return TanksideError(str(err))
 
 
 def session_for_display(bench, *, own_process: bool, session_path: str | Path | None = None,
