@@ -79,8 +79,10 @@ def _absolute_imports(path: Path) -> set[str]:
     return names
 
 
-@pytest.mark.parametrize("path", [p for folder in CORE for p in sorted((ROOT / folder).rglob("*.py"))],
-                         ids=lambda p: p.relative_to(ROOT).as_posix())
+CORE_SOURCES = [p for folder in CORE for p in sorted((ROOT / folder).rglob("*.py"))]
+
+
+@pytest.mark.parametrize("path", CORE_SOURCES, ids=lambda p: p.relative_to(ROOT).as_posix())
 def test_the_core_does_not_import_the_user_facing_side(path):
     bad = {m for m in _absolute_imports(path)
            if any(m == u or m.startswith(u + ".") for u in USER_FACING)}

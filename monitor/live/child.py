@@ -401,7 +401,8 @@ def _answer_snapshots(session, snapshots) -> None:
 def _status_of(session) -> SessionStatus:
     running = session.running
     return SessionStatus(exit_code=0 if running else session.exit_code,
-                         exit_status="" if running else (session.exit_status or ExitStatus.COMPLETED),
+                         exit_status=("" if running
+                                      else session.exit_status or ExitStatus.COMPLETED),
                          stop_reason=session.stop_reason,
                          message_for_operator=session.message_for_operator,
                          method=session.method)

@@ -375,7 +375,8 @@ class LiveSession:
             self._acq.run()
         except BaseException as err:  # a bug: record it, end the session, show it
             traceback.print_exc(file=sys.stderr)
-            self._request_stop(ExitStatus.INTERNAL_ERROR, f"acquisition: {type(err).__name__}: {err}")
+            self._request_stop(ExitStatus.INTERNAL_ERROR,
+                               f"acquisition: {type(err).__name__}: {err}")
         finally:
             if self._acq.fatal is not None:
                 self._request_stop(ExitStatus.INSTRUMENT_FAILURE, self._acq.fatal, self._acq.fatal)
@@ -396,7 +397,8 @@ class LiveSession:
             self._process_loop()
         except BaseException as err:  # a bug: record it, end the session, show it
             traceback.print_exc(file=sys.stderr)
-            self._request_stop(ExitStatus.INTERNAL_ERROR, f"processing: {type(err).__name__}: {err}")
+            self._request_stop(ExitStatus.INTERNAL_ERROR,
+                               f"processing: {type(err).__name__}: {err}")
             self._acq.abandon.set()
             self._acq.verdict(1 << 62)
             self._drain_raw()
