@@ -1,4 +1,12 @@
-"""Typed instrument errors, chained from pyvisa's (``raise ... from err``)."""
+"""Typed instrument errors, chained from pyvisa's (``raise ... from err``).
+
+Each pickles with all its fields: ``__reduce__`` returns the class (with its keyword
+arguments bound) and the constructor's positional arguments, so that unpickling builds
+the same error rather than calling the constructor with the message alone (attributes
+set after construction come along, as with the default).
+"""
+
+import functools
 
 
 class InstrumentError(Exception):
@@ -16,6 +24,10 @@ class InstrumentError(Exception):
         self.resource = resource
         self.message = message
         super().__init__(f"{resource}: {message}" if resource else message)
+
+    def __reduce__(self):
+        return (functools.partial(type(self), resource=self.resource), (self.message,),
+                vars(self))
 
 
 class InstrumentTimeout(InstrumentError):
@@ -50,6 +62,10 @@ class InstrumentReportedError(InstrumentError):
         self.command = command
         after = f" after {command!r}" if command else ""
         super().__init__(f"instrument error {code}, {description!r}{after}", resource=resource)
+
+    def __reduce__(self):
+        return (functools.partial(type(self), command=self.command, resource=self.resource),
+                (self.code, self.description), vars(self))
 
 
 class NoTrigger(InstrumentTimeout):

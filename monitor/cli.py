@@ -1,12 +1,13 @@
 """The ``tankside`` command: parses arguments and wires objects together, nothing more.
 
-Exit codes (also in the README):
+Exit codes (:class:`tankside.monitor.outcome.ExitCode`, also in the README):
 
 0  success, or a session stopped as asked (duration, trace count, Ctrl-C, SIGTERM, ``q``)
 1  a session stopped by an alert rule whose action is ``stop``
 2  an expected failure: bad input file, bad settings, instrument not reachable
 3  a session that ended on an instrument failure it could not recover from
 4  the session store could not be written (disk full, permissions); committed data intact
+5  a session that ended on an internal error (a bug); committed data intact
 """
 
 from __future__ import annotations
@@ -18,12 +19,7 @@ import sys
 from ..drivers.errors import InstrumentError
 from . import __version__
 from .errors import StoreError, TanksideError
-
-EXIT_OK = 0
-EXIT_STOPPED_BY_RULE = 1
-EXIT_USAGE = 2
-EXIT_INSTRUMENT = 3
-EXIT_STORE = 4
+from .outcome import ExitCode
 
 # Each name is a module in tankside.monitor.commands with add_parser() and run().
 COMMANDS = ("convert", "simulate", "probe", "watch", "replay", "export", "demo")
@@ -54,18 +50,18 @@ def main(argv: list[str] | None = None) -> int:
         return int(args.func(args) or 0)
     except StoreError as err:
         print(f"tankside: store error: {err}", file=sys.stderr)
-        return EXIT_STORE
+        return ExitCode.STORE
     except TanksideError as err:
         print(f"tankside: error: {err}", file=sys.stderr)
-        return EXIT_USAGE
+        return ExitCode.USAGE
     except InstrumentError as err:
         print(f"tankside: instrument error: {err}", file=sys.stderr)
-        return EXIT_USAGE
+        return ExitCode.USAGE
     except KeyboardInterrupt:
         print("tankside: interrupted", file=sys.stderr)
-        return EXIT_OK
+        return ExitCode.OK
     except BrokenPipeError:
-        return EXIT_OK
+        return ExitCode.OK
 
 
 if __name__ == "__main__":  # pragma: no cover

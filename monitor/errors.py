@@ -3,7 +3,10 @@
 Every failure a user can cause or meet in normal work (a bad file, a full disk, a
 lost instrument) is one of these or a :class:`tankside.drivers.errors.InstrumentError`.
 The CLI turns them into a one-line message and an exit code; nothing else reaches a
-user as a traceback.
+user as a traceback. Each pickles with all its fields (a live session in a child
+process sends them to the dashboard's process): an error whose constructor takes more
+than the message defines ``__reduce__`` returning its class and constructor arguments
+(and its attributes, as the default does, for any set after construction).
 """
 
 
@@ -30,6 +33,9 @@ class CalibrationError(TanksideError):
         self.problem = problem
         where = f"{source}, line {line}" if line is not None else source
         super().__init__(f"{where}: {problem}")
+
+    def __reduce__(self):
+        return type(self), (self.source, self.line, self.problem), vars(self)
 
 
 class TraceFileError(TanksideError):

@@ -13,6 +13,7 @@ import time
 from typing import TextIO
 
 from .live.snapshot import AlertView, Snapshot
+from .outcome import ExitStatus
 
 
 def fmt_si(value: float, unit: str) -> str:
@@ -104,10 +105,10 @@ def run_headless(session, *, out: TextIO | None = None, status_every_s: float = 
             session.stop("interrupted (Ctrl-C)")
     show(final=True)
     snap = session.snapshot()
-    if session.exit_status == "store-error":
+    if session.exit_status == ExitStatus.STORE_ERROR:
         where = f"traces committed before the error are intact in {snap.session_path}"
     else:
         where = f"{snap.stored} traces in {snap.session_path}"
-    print(f"session stopped: {session.exit_status or 'completed'}: "
+    print(f"session stopped: {session.exit_status or ExitStatus.COMPLETED}: "
           f"{session.stop_reason or '-'}; {where}", file=out, flush=True)
     return session.exit_code

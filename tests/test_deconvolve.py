@@ -1,16 +1,18 @@
 """Deconvolution round trips through analog hydrophone models built with scipy.signal."""
 
+import json
+
 import numpy as np
 import pytest
 import scipy.signal
 
 from tankside.monitor.acoustics.calibration import parse_calibration
-from tankside.monitor.acoustics.converter import RESULT_FIELDS, Converter, UnusableTraceError
+from tankside.monitor.acoustics.converter import Converter, UnusableTraceError
 from tankside.monitor.acoustics.deconvolve import band_window
 from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.acoustics.pulse import pulse_parameters
-from tankside.monitor.acoustics.settings import ConversionSettings
-from tankside.monitor.errors import OutOfBandError, TanksideError
+from tankside.monitor.acoustics.settings import AwfMethod, ConversionSettings, Method
+from tankside.monitor.errors import ConfigError, OutOfBandError, TanksideError
 
 DT = 4e-9
 N = 4096
@@ -143,8 +145,19 @@ class TestConverter:
 
     def test_result_forms(self):
         r = Converter(model_calibration()).process(through_model(pressure_pulse()), DT)
-        assert tuple(r.flat()) == RESULT_FIELDS
         j = r.to_json_dict()
+        # the flat form (stored, exported) is the JSON form flattened: same names, same values
+        nb = j["narrowband"]
+        assert r.flat() == {
+            "method": j["method"], "phase_source": j["phase_source"],
+            **{k: j[k] for k in ("peak_compressional_pa", "peak_rarefactional_pa",
+                                 "acoustic_working_frequency_hz",
+                                 "pulse_intensity_integral_j_per_m2", "pulse_duration_s",
+                                 "pulse_average_intensity_w_per_m2", "mechanical_index")},
+            **{f"water_{k}": v for k, v in j["water"].items()},
+            "narrowband_ok": nb["ok"], "narrowband_band_low_hz": nb["band_hz"][0],
+            "narrowband_band_high_hz": nb["band_hz"][1],
+            "narrowband_max_deviation_db": nb["max_deviation_db"]}
         assert set(j) == {"method", "peak_compressional_pa", "peak_rarefactional_pa",
                           "acoustic_working_frequency_hz", "pulse_intensity_integral_j_per_m2",
                           "pulse_duration_s", "pulse_average_intensity_w_per_m2",
@@ -185,6 +198,24 @@ class TestConverter:
         conv = Converter(flat_calibration())
         assert conv.with_method("narrowband").settings.method == "narrowband"
         assert conv.settings.method == "auto"
+
+
+class TestMethodNames:
+    def test_names_from_a_bench_file_become_members(self):
+        s = ConversionSettings.from_table({"method": "narrowband", "awf_method": "zero-crossing"})
+        assert s.method is Method.NARROWBAND and s.awf_method is AwfMethod.ZERO_CROSSING
+        assert json.loads(json.dumps(s.as_dict()))["method"] == "narrowband"  # stored as before
+
+    @pytest.mark.parametrize("key", ["method", "awf_method"])
+    def test_an_unknown_name_is_refused_with_the_known_ones(self, key):
+        vocabulary = {"method": Method, "awf_method": AwfMethod}[key]
+        with pytest.raises(ConfigError, match=", ".join(vocabulary)):
+            ConversionSettings(**{key: "fastest"})
+
+    def test_the_result_names_the_method_it_used(self):
+        conv = Converter(model_calibration(), settings=DECONV)
+        r = conv.process(through_model(pressure_pulse()), DT)
+        assert r.method is Method.DECONVOLVE and r.flat()["method"] == "deconvolve"
 
 
 def test_zero_crossing_awf_through_the_converter():

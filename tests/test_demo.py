@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from tankside.monitor.cli import EXIT_USAGE, main
+from tankside.monitor.cli import main
+from tankside.monitor.outcome import ExitCode
 from tankside.monitor.record.store import SessionReader
 from tankside.simulators.hydrophone import DEMO_CALIBRATION_PATH
 
@@ -29,7 +30,7 @@ def test_headless_demo_records_a_session_with_the_demo_calibration(tmp_path, cap
 @pytest.mark.parametrize("duration", ["0", "-2"])
 def test_demo_refuses_a_duration_that_is_not_positive(tmp_path, capsys, duration):
     assert main(["demo", "--sessions", str(tmp_path), "--headless", "--duration", duration]) \
-        == EXIT_USAGE
+        == ExitCode.USAGE
     assert "--duration" in capsys.readouterr().err
 
 

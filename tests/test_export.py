@@ -12,7 +12,8 @@ import numpy as np
 import pytest
 from session_samples import CAL_TEXT, fake_result, make_raw, write_session
 
-from tankside.monitor.cli import EXIT_OK, EXIT_USAGE, main
+from tankside.monitor.cli import main
+from tankside.monitor.outcome import ExitCode
 from tankside.monitor.record.export import RESULTS_CSV_COLUMNS
 from tankside.monitor.record.schema import RESULT_NAMES
 from tankside.monitor.record.store import SessionReader, SessionStore, session_metadata
@@ -34,7 +35,7 @@ class TestResultsCsv:
     def test_rows_read_back(self, session, tmp_path):
         path, raws = session
         out = tmp_path / "r.csv"
-        assert main(["export", str(path), "--results", str(out), "--no-progress"]) == EXIT_OK
+        assert main(["export", str(path), "--results", str(out), "--no-progress"]) == ExitCode.OK
         with open(out, newline="") as fh:
             rows = list(csv.DictReader(fh))
         assert tuple(rows[0]) == RESULTS_CSV_COLUMNS
@@ -62,7 +63,7 @@ class TestTraceCsv:
     def test_volts_read_back(self, session, tmp_path):
         path, raws = session
         out = tmp_path / "t.csv"
-        assert main(["export", str(path), "--trace", "3", "--out", str(out)]) == EXIT_OK
+        assert main(["export", str(path), "--trace", "3", "--out", str(out)]) == ExitCode.OK
         lines = [ln for ln in out.read_text().splitlines() if not ln.startswith("#")]
         assert lines[0] == "time_s,voltage_v"
         data = np.array([[float(x) for x in ln.split(",")] for ln in lines[1:]])
@@ -77,20 +78,20 @@ class TestTraceCsv:
     def test_unknown_seq_is_one_line_error(self, session, tmp_path, capsys):
         path, _ = session
         assert main(["export", str(path), "--trace", "42", "--out", str(tmp_path / "x.csv")]) \
-            == EXIT_USAGE
+            == ExitCode.USAGE
         err = capsys.readouterr().err.strip()
         assert "no trace with seq 42" in err and len(err.splitlines()) == 1
         assert not (tmp_path / "x.csv").exists()
 
     def test_trace_needs_out(self, session, capsys):
         path, _ = session
-        assert main(["export", str(path), "--trace", "1"]) == EXIT_USAGE
+        assert main(["export", str(path), "--trace", "1"]) == ExitCode.USAGE
         assert "go together" in capsys.readouterr().err
 
 
 class TestErrors:
     def test_missing_file(self, tmp_path, capsys):
-        assert main(["export", str(tmp_path / "nope.db"), "--results", "x.csv"]) != EXIT_OK
+        assert main(["export", str(tmp_path / "nope.db"), "--results", "x.csv"]) != ExitCode.OK
         err = capsys.readouterr().err.strip()
         assert err.startswith("tankside:") and "no such session file" in err
         assert len(err.splitlines()) == 1
@@ -98,7 +99,7 @@ class TestErrors:
     def test_not_a_session(self, tmp_path, capsys):
         bogus = tmp_path / "b.db"
         bogus.write_bytes(b"\x00" * 4096)
-        assert main(["export", str(bogus), "--results", str(tmp_path / "x.csv")]) != EXIT_OK
+        assert main(["export", str(bogus), "--results", str(tmp_path / "x.csv")]) != ExitCode.OK
         assert "not a tankside session" in capsys.readouterr().err
 
 
@@ -106,7 +107,7 @@ class TestCalibration:
     def test_verbatim_with_sha(self, session, tmp_path):
         path, _ = session
         out = tmp_path / "cal.csv"
-        assert main(["export", str(path), "--calibration-out", str(out)]) == EXIT_OK
+        assert main(["export", str(path), "--calibration-out", str(out)]) == ExitCode.OK
         assert out.read_bytes() == CAL_TEXT.encode()
         assert hashlib.sha256(out.read_bytes()).hexdigest() == SessionReader(path).metadata[
             "calibration_sha256"]
@@ -126,7 +127,7 @@ class TestHdf5:
     def test_contents_and_units(self, session, tmp_path):
         path, raws = session
         out = tmp_path / "s.h5"
-        assert main(["export", str(path), "--hdf5", str(out)]) == EXIT_OK
+        assert main(["export", str(path), "--hdf5", str(out)]) == ExitCode.OK
         with h5py.File(out, "r") as f:
             assert f.attrs["format"] == "tankside-session-export"
             assert bool(f.attrs["stopped_cleanly"])
@@ -168,7 +169,7 @@ class TestHdf5:
             store.add_trace(raw, None, error="not converted")
         store.commit()  # not closed: the export reads a session still open for writing
         out = tmp_path / "m.h5"
-        assert main(["export", str(path), "--hdf5", str(out)]) == EXIT_OK
+        assert main(["export", str(path), "--hdf5", str(out)]) == ExitCode.OK
         with h5py.File(out, "r") as f:
             assert "stop" not in f and not bool(f.attrs["stopped_cleanly"])
             start, count = f["traces/code_start"][:], f["traces/code_count"][:]

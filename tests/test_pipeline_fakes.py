@@ -16,12 +16,12 @@ import pytest
 from tankside.drivers.digitiser import DigitiserSettings
 from tankside.drivers.errors import ConnectionLost, InstrumentTimeout, NoTrigger
 from tankside.drivers.trace import RawTrace, count_at_rails
-from tankside.monitor.cli import EXIT_INSTRUMENT, EXIT_OK, EXIT_STOPPED_BY_RULE, EXIT_STORE
 from tankside.monitor.errors import DiskFullError, OutOfBandError
 from tankside.monitor.live.acquisition import OpenInstrument
 from tankside.monitor.live.rules import AlertConfig, RuleEngine
 from tankside.monitor.live.session import LiveSession
-from tankside.monitor.record.schema import RESULT_NAMES
+from tankside.monitor.outcome import ExitCode
+from tankside.monitor.record.schema import RESULT_NAMES, EventKind, FaultKind
 from tankside.monitor.record.store import SessionReader, SessionStore
 
 SENSITIVITY_V_PER_PA = 1e-7      # fake hydrophone: 0.1 V per MPa
@@ -155,6 +155,7 @@ class SlowStore:
         self.delay_s = delay_s
         self.full_after = full_after
         self.written = 0
+        self.events = []
 
     def add_trace(self, *args, **kw):
         if self.full_after is not None and self.written >= self.full_after:
@@ -162,6 +163,10 @@ class SlowStore:
         time.sleep(self.delay_s)
         self._store.add_trace(*args, **kw)
         self.written += 1
+
+    def add_event(self, time_s, kind, detail, seq=None):
+        self.events.append((kind, detail))
+        self._store.add_event(time_s, kind, detail, seq=seq)
 
     def __getattr__(self, name):
         return getattr(self._store, name)
@@ -187,7 +192,10 @@ def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, st
 
     def open_store(path, meta):
         store = SessionStore.create(path, meta, commit_interval_s=commit_interval_s)
-        return SlowStore(store, store_delay_s, full_after)
+        stores.append(SlowStore(store, store_delay_s, full_after))
+        return stores[-1]
+
+    stores = []
 
     session = LiveSession(
         open_digitiser=open_digitiser, open_generator=open_generator if generator else None,
@@ -196,12 +204,19 @@ def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, st
         session_path=tmp_path / "s.db", trigger_timeout_s=0.05, queue_capacity=queue_capacity,
         max_traces=max_traces, give_up_s=give_up_s, duration_s=duration_s, bell=bell)
     session.opens = opens
+    session.stores = stores
     return session
 
 
 def run(session, timeout_s=30.0):
     session.start()
     assert session.wait(timeout_s), "session did not finish"
+    # every event the session wrote has a kind (and a fault its kind) declared by name
+    for store in session.stores:
+        for kind, detail in store.events:
+            assert isinstance(kind, EventKind), f"event kind {kind!r} is not an EventKind"
+            if kind is EventKind.FAULT:
+                assert isinstance(detail["kind"], FaultKind), detail
     return session
 
 
@@ -213,7 +228,7 @@ class TestLiveSessionBasics:
     def test_every_trace_converted_and_stored(self, tmp_path):
         scene = Scene()
         s = run(make_session(tmp_path, scene, max_traces=40))
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
         snap = s.snapshot()
         assert (snap.acquired, snap.converted, snap.stored) == (40, 40, 40)
         assert snap.state == "stopped"
@@ -247,7 +262,7 @@ class TestLiveSessionBasics:
             time.sleep(0.01)
         s.stop("operator pressed q")
         assert s.wait(10)
-        assert s.exit_code == EXIT_OK and not s.running
+        assert s.exit_code == ExitCode.OK and not s.running
         assert s.snapshot().alerts[0].acknowledged
         with SessionReader(tmp_path / "s.db") as r:
             kinds = [e["kind"] for e in r.events()]
@@ -265,7 +280,7 @@ class TestThrottling:
         scene = Scene()
         s = run(make_session(tmp_path, scene, max_traces=60, store_delay_s=0.03,
                              queue_capacity=4))
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
         with SessionReader(tmp_path / "s.db") as r:
             assert r.seqs() == list(range(60))
             rules = [a["rule"] for a in r.alerts()]
@@ -292,7 +307,7 @@ class TestActions:
             assert events[0]["detail"]["before_seq"] == 6
             assert r.trace(6).result["peak_compressional_pa"] < 1.0e5
             assert [a["rule"] for a in r.alerts()][0] == "over_pressure"
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
 
     def test_stop_action_ends_with_rule_exit_code(self, tmp_path):
         scene = Scene(amplitude=lambda seq: 0.2 if seq >= 3 else 0.02)
@@ -301,7 +316,7 @@ class TestActions:
                                                        "actions": ["record", "safe-off",
                                                                    "stop"]},
                                      "range_under_use": {"enabled": False}}))
-        assert s.exit_code == EXIT_STOPPED_BY_RULE
+        assert s.exit_code == ExitCode.STOPPED_BY_RULE
         assert scene.output_on is False
         with SessionReader(tmp_path / "s.db") as r:
             assert r.stop["exit_status"] == "stopped-by-rule"
@@ -312,7 +327,7 @@ class TestActions:
         scene = Scene(amplitude=lambda seq: 0.15 if seq < 6 else 0.02)
         s = run(make_session(tmp_path, scene, max_traces=30, range_v=0.2,
                              alerts={"range_under_use": {"consecutive_traces": 3}}))
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
         ranges = [e[1] for e in scene.log if e[0] == "range"]
         assert ranges == [0.5, 0.2, 0.1]
         with SessionReader(tmp_path / "s.db") as r:
@@ -344,7 +359,7 @@ class TestFaults:
         fails = iter([False, True, False])   # first open ok, first reopen refused, then ok
         s = run(make_session(tmp_path, scene, max_traces=30,
                              opener_failures=lambda: next(fails, False)))
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
         assert s.opens["digitiser"] == 3
         with SessionReader(tmp_path / "s.db") as r:
             assert r.seqs() == list(range(30))
@@ -360,7 +375,7 @@ class TestFaults:
         calls = iter([False])
         s = run(make_session(tmp_path, scene, max_traces=None, give_up_s=0.4,
                              opener_failures=lambda: next(calls, True)))
-        assert s.exit_code == EXIT_INSTRUMENT
+        assert s.exit_code == ExitCode.INSTRUMENT
         assert "not reachable" in s.message_for_operator
         with SessionReader(tmp_path / "s.db") as r:
             assert r.seqs() == list(range(5))
@@ -375,14 +390,14 @@ class TestFaults:
             assert r.seqs() == list(range(6))
             assert sum(e["kind"] == "no-trigger" for e in r.events()) == 25
             assert "no_trigger" in [a["rule"] for a in r.alerts()]
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
 
     def test_conversion_error_stored_and_session_goes_on(self, tmp_path):
         # Trace 4 holds a pulse the converter refuses: a conversion failure to report.
         scene = Scene(amplitude=lambda seq: 0.08 if seq == 4 else 0.05)
         s = run(make_session(tmp_path, scene, max_traces=10,
                              converter=FakeConverter(refuse_above_v=0.07)))
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
         snap = s.snapshot()
         assert (snap.acquired, snap.converted, snap.stored) == (10, 9, 10)
         with SessionReader(tmp_path / "s.db") as r:
@@ -394,7 +409,7 @@ class TestFaults:
     def test_empty_trace_is_no_pulse_not_a_conversion_failure(self, tmp_path):
         scene = Scene(amplitude=lambda seq: 0.0 if seq == 4 else 0.05)
         s = run(make_session(tmp_path, scene, max_traces=10))
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
         assert (s.snapshot().converted, s.snapshot().no_pulse_traces) == (9, 1)
         with SessionReader(tmp_path / "s.db") as r:
             bad = r.trace(4)
@@ -408,12 +423,25 @@ class TestFaults:
         scene = Scene()
         s = run(make_session(tmp_path, scene, max_traces=None, full_after=20,
                              commit_interval_s=0.0))
-        assert s.exit_code == EXIT_STORE
+        assert s.exit_code == ExitCode.STORE
         assert "disk is full" in s.message_for_operator
         assert not s.running
         with SessionReader(tmp_path / "s.db") as r:
             assert r.seqs() == list(range(20))
             assert r.integrity_check() == "ok"
+
+    def test_a_bug_in_processing_is_an_internal_error_not_an_instrument_failure(
+            self, tmp_path, capsys):
+        class BuggyConverter(FakeConverter):
+            def process(self, voltage_v, dt_s):
+                raise RuntimeError("a bug in the chain")
+
+        s = run(make_session(tmp_path, Scene(), max_traces=None, converter=BuggyConverter()))
+        assert s.exit_code == ExitCode.INTERNAL != ExitCode.INSTRUMENT
+        assert s.exit_status == "internal-error" and "a bug in the chain" in s.stop_reason
+        assert "RuntimeError" in capsys.readouterr().err       # the traceback is shown
+        with SessionReader(tmp_path / "s.db") as r:
+            assert r.stop["exit_status"] == "internal-error"
 
 
 @pytest.mark.parametrize("gate", [True])
@@ -423,7 +451,7 @@ def test_duration_stop(tmp_path, gate):
     t0 = time.monotonic()
     s = run(make_session(tmp_path, scene, max_traces=None, duration_s=0.5))
     assert 0.4 < time.monotonic() - t0 < 5
-    assert s.exit_code == EXIT_OK
+    assert s.exit_code == ExitCode.OK
     with SessionReader(tmp_path / "s.db") as r:
         assert r.stop["exit_status"] == "completed"
         assert len(r.seqs()) == s.snapshot().acquired
@@ -447,7 +475,7 @@ class TestHeadless:
         out = io.StringIO()
         code = run_headless(s, out=out, status_every_s=0.05)
         text = out.getvalue()
-        assert code == EXIT_OK
+        assert code == ExitCode.OK
         alert_lines = [ln for ln in text.splitlines() if ln.startswith("ALERT")]
         assert len(alert_lines) == 1 and "CRITICAL over_pressure seq 5" in alert_lines[0]
         assert "safe-off" in alert_lines[0]
@@ -495,7 +523,7 @@ class TestDriveState:
         scene = Scene()
         scene.generator_mute = True
         s = run(make_session(tmp_path, scene, max_traces=20))
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
         snap = s.snapshot()
         assert snap.drive_on is None and snap.drive_detail == "output state unknown"
         with SessionReader(tmp_path / "s.db") as r:

@@ -11,13 +11,14 @@ import pytest
 from session_samples import calibration_text, make_raw, zero_trace
 
 from tankside.monitor.acoustics.calibration import load_calibration, parse_calibration
-from tankside.monitor.acoustics.converter import RESULT_FIELDS, Converter
+from tankside.monitor.acoustics.converter import Converter
 from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.acoustics.settings import ConversionSettings
-from tankside.monitor.cli import EXIT_OK, EXIT_USAGE, main
+from tankside.monitor.cli import main
 from tankside.monitor.errors import ConfigError, TanksideError
+from tankside.monitor.outcome import ExitCode
 from tankside.monitor.record.replay import conversion_inputs, replay_session, result_differences
-from tankside.monitor.record.schema import EVENT_METHOD_CHANGE, META_REPLAY_OF
+from tankside.monitor.record.schema import META_REPLAY_OF, RESULT_NAMES, EventKind
 from tankside.monitor.record.store import SessionReader, SessionStore, session_metadata
 
 LOADING = Loading(hydrophone_capacitance_f=50e-12, cable_capacitance_f=100e-12,
@@ -54,7 +55,7 @@ def record_session(path, *, n_traces=10, switch_to_narrowband_at=None, tmp_cal=N
     for raw in _raws(n_traces):
         if raw.seq == switch_to_narrowband_at:
             conv = conv.with_method("narrowband")
-            store.add_event(raw.time_s, EVENT_METHOD_CHANGE,
+            store.add_event(raw.time_s, EventKind.METHOD_CHANGE,
                             {"from": "deconvolve", "to": "narrowband"}, seq=raw.seq)
         try:
             flat, error = conv.process(raw.volts(), raw.dt_s).flat(), None
@@ -87,8 +88,8 @@ class TestExactReplay:
                 if old.result is None:
                     assert new.result is None and new.error == old.error
                     continue
-                assert tuple(new.result) == RESULT_FIELDS
-                for key in RESULT_FIELDS:
+                assert tuple(new.result) == RESULT_NAMES
+                for key in RESULT_NAMES:
                     x, y = old.result[key], new.result[key]
                     if isinstance(x, float):
                         assert _bits(x) == _bits(y) or (math.isnan(x) and math.isnan(y)), key
@@ -110,7 +111,7 @@ class TestExactReplay:
         with SessionReader(out) as b:
             methods = [r["method"] for r in b.iter_results() if r["converted"]]
             assert methods[-1] == "narrowband" and methods[0] == "deconvolve"
-            assert [e["kind"] for e in b.events()] == [EVENT_METHOD_CHANGE]
+            assert [e["kind"] for e in b.events()] == [EventKind.METHOD_CHANGE]
 
 
 def test_method_schedule_by_seq_or_time():
@@ -118,9 +119,9 @@ def test_method_schedule_by_seq_or_time():
 
     events = [
         {"kind": "mark", "seq": 1, "time_s": 10.0, "detail": {"note": "x"}},
-        {"kind": EVENT_METHOD_CHANGE, "seq": 4, "time_s": 12.0,
+        {"kind": EventKind.METHOD_CHANGE, "seq": 4, "time_s": 12.0,
          "detail": {"from": "auto", "to": "narrowband"}},
-        {"kind": EVENT_METHOD_CHANGE, "seq": None, "time_s": 20.0,
+        {"kind": EventKind.METHOD_CHANGE, "seq": None, "time_s": 20.0,
          "detail": {"from": "narrowband", "to": "deconvolve"}},
     ]
     schedule = _method_schedule(events)
@@ -186,15 +187,15 @@ class TestRefusals:
         src, out = tmp_path / "live.db", tmp_path / "again.db"
         record_session(src, n_traces=2, tmp_cal=tmp_path / "cal.csv")
         out.write_text("old")
-        assert main(["replay", str(src), "--out", str(out)]) == EXIT_USAGE
+        assert main(["replay", str(src), "--out", str(out)]) == ExitCode.USAGE
         err = capsys.readouterr().err.strip()
         assert "--force" in err and len(err.splitlines()) == 1
         assert main(["replay", str(src), "--out", str(out), "--force", "--check",
-                     "--no-progress"]) == EXIT_OK
+                     "--no-progress"]) == ExitCode.OK
         assert "0 differ" in capsys.readouterr().out
         assert SessionReader(out).trace_count() == 2
 
     def test_missing_input(self, tmp_path, capsys):
         assert main(["replay", str(tmp_path / "no.db"), "--out", str(tmp_path / "o.db")]) \
-            == EXIT_USAGE
+            == ExitCode.USAGE
         assert "no such session file" in capsys.readouterr().err

@@ -20,16 +20,11 @@ import textwrap
 import pytest
 from polling import committed_traces, wait_for
 
-from tankside.drivers.errors import ConnectionLost, InstrumentError, InstrumentReportedError
-from tankside.monitor.cli import EXIT_INSTRUMENT, EXIT_OK
+from tankside.drivers.errors import ConnectionLost
 from tankside.monitor.errors import CalibrationError, ConfigError, TanksideError
 from tankside.monitor.live.benchfile import BenchConfig, load_bench
-from tankside.monitor.live.child import (
-    SessionProcess,
-    SessionSpec,
-    session_for_display,
-    transferable,
-)
+from tankside.monitor.live.child import SessionProcess, SessionSpec, session_for_display
+from tankside.monitor.outcome import ExitCode
 from tankside.monitor.record.store import SessionReader
 from tankside.simulators.bench import SimulatedBench
 
@@ -75,7 +70,7 @@ class TestCommandsAndSnapshots:
         assert child.wait(30)
         assert not child.running
         assert (child.exit_code, child.exit_status, child.stop_reason) == (
-            EXIT_OK, "operator", "operator done")
+            ExitCode.OK, "operator", "operator done")
         assert child.snapshot().state == "stopped"
         with SessionReader(child.session_path) as reader:
             events = reader.events()
@@ -124,20 +119,22 @@ class TestStart:
         bench = _bench(sim, tmp_path, {"digitiser.resource": f"TCPIP0::127.0.0.1::{port}::SOCKET"})
         session = SessionProcess(SessionSpec(bench, tmp_path / "never.db"),
                                  report=io.StringIO())
-        with pytest.raises(ConnectionLost, match=str(port)):
+        with pytest.raises(ConnectionLost, match=str(port)) as info:
             session.start()
+        assert info.value.resource == f"TCPIP0::127.0.0.1::{port}::SOCKET"
         assert not session.running and session.wait(5)
         assert not (tmp_path / "never.db").exists()
 
-    def test_bad_calibration_keeps_its_message(self, sim, tmp_path):
+    def test_bad_calibration_comes_back_with_its_fields(self, sim, tmp_path):
         bad = tmp_path / "bad-cal.csv"
         bad.write_text("frequency_hz,sensitivity_v_per_pa\n1e6,abc\n")
         bench = _bench(sim, tmp_path, {"calibration.file": str(bad)})
         session = SessionProcess(SessionSpec(bench, tmp_path / "never.db"),
                                  report=io.StringIO())
-        with pytest.raises(TanksideError) as info:
+        with pytest.raises(CalibrationError) as info:
             session.start()
         assert "bad-cal.csv" in str(info.value) and "line 2" in str(info.value)
+        assert info.value.source == str(bad) and info.value.line == 2
 
     def test_existing_session_file_is_refused_before_any_process(self, sim, tmp_path):
         (tmp_path / "taken.db").write_bytes(b"")
@@ -151,7 +148,7 @@ class TestEndings:
         wait_for(lambda: child.snapshot().seq >= 3, what="traces")
         os.kill(child.pid, signal.SIGTERM)
         assert child.wait(30)
-        assert child.exit_code == EXIT_OK and "SIGTERM" in child.stop_reason
+        assert child.exit_code == ExitCode.OK and "SIGTERM" in child.stop_reason
         with SessionReader(child.session_path) as reader:
             assert reader.stopped_cleanly and "SIGTERM" in reader.stop["reason"]
 
@@ -169,7 +166,7 @@ class TestEndings:
         assert child.wait(10)
         snap = child.snapshot()
         assert snap.state == "stopped" and "unexpectedly" in snap.stop_reason
-        assert child.exit_code == EXIT_INSTRUMENT
+        assert child.exit_code == ExitCode.INTERNAL
         assert "unexpectedly" in child.message_for_operator
         with SessionReader(child.session_path) as reader:   # committed traces stay
             assert reader.integrity_check() == "ok" and not reader.stopped_cleanly
@@ -281,15 +278,3 @@ def test_an_answer_too_late_for_an_earlier_command_is_not_taken_for_the_next(tmp
     thread.join(5)
     parent_end.close()
     child_end.close()
-
-
-class TestTransferable:
-    def test_single_message_errors_cross_unchanged(self):
-        err = transferable(ConnectionLost("link lost", resource="TCPIP0::x::1::SOCKET"))
-        assert type(err) is ConnectionLost and "link lost" in str(err)
-
-    def test_errors_with_several_arguments_keep_message_and_family(self):
-        cal = transferable(CalibrationError("cal.csv", 4, "magnitude must be positive"))
-        assert type(cal) is TanksideError and str(cal) == "cal.csv, line 4: magnitude must be positive"
-        inst = transferable(InstrumentReportedError(-222, "Data out of range", command="VOLT 9"))
-        assert type(inst) is InstrumentError and "-222" in str(inst) and "VOLT 9" in str(inst)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import csv
 import dataclasses
 import hashlib
 import json
@@ -17,10 +18,13 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from session_samples import CAL_TEXT, fake_result, make_raw, write_session
+from session_samples import CAL_TEXT, calibration_text, fake_result, make_raw, write_session
 
+from tankside.monitor.acoustics.calibration import parse_calibration
+from tankside.monitor.acoustics.converter import RESULT_FIELDS, Converter
 from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.errors import DiskFullError, SessionFileError, StoreError
+from tankside.monitor.record.export import export_hdf5, export_results_csv
 from tankside.monitor.record.schema import (
     META_CALIBRATION_SHA256,
     META_CALIBRATION_TEXT,
@@ -128,9 +132,71 @@ class TestRoundTrip:
         assert units_of("acoustic_working_frequency_hz") == "Hz"
         assert units_of("mechanical_index") == ""
 
-    def test_result_columns_match_the_signal_chain(self):
-        chain = pytest.importorskip("tankside.monitor.acoustics.converter")
-        assert tuple(chain.RESULT_FIELDS) == RESULT_NAMES
+
+
+class TestResultFields:
+    """Every field declared in RESULT_FIELDS is stored, described and exported as declared."""
+
+    @pytest.fixture
+    def stored(self, tmp_path):
+        raw = make_raw(0, amplitude=0.3)
+        result = Converter(parse_calibration(calibration_text(), source="cal.csv"),
+                           temperature_c=21.5).process(raw.volts(), raw.dt_s)
+        path = tmp_path / "s.db"
+        with SessionStore.create(path, _meta()) as store:
+            store.add_trace(raw, result.flat())
+        return path, result
+
+    def test_a_converted_result_round_trips_every_field(self, stored):
+        path, result = stored
+        with SessionReader(path) as reader:
+            back = reader.trace(0).result
+            (row,) = list(reader.iter_results())
+        assert list(back) == [f.name for f in RESULT_FIELDS]
+        python_type = {"float64": float, "bool": bool, "str": str}
+        for f in RESULT_FIELDS:
+            want = f.value(result)
+            for got in (back[f.name], row[f.name]):
+                assert type(got) is python_type[f.dtype], f.name
+                if f.dtype == "float64":
+                    assert _bits(got) == _bits(float(want)), f.name
+                else:
+                    assert got == want, f.name
+
+    def test_descriptors_give_each_field_its_unit_and_dtype(self, stored):
+        path, _ = stored
+        with SessionReader(path) as reader:
+            desc = reader.descriptors
+        for f in RESULT_FIELDS:
+            assert desc[f.name] == {"table": "results", "units": f.unit, "dtype": f.dtype,
+                                    "shape": [], "source": "conversion"}, f.name
+
+    def test_exports_carry_every_field(self, stored, tmp_path):
+        h5py = pytest.importorskip("h5py")
+        path, result = stored
+        with SessionReader(path) as reader:
+            export_results_csv(reader, tmp_path / "r.csv")
+            export_hdf5(reader, tmp_path / "r.h5")
+        with open(tmp_path / "r.csv", newline="") as fh:
+            (row,) = list(csv.DictReader(fh))
+        with h5py.File(tmp_path / "r.h5", "r") as h5:
+            for f in RESULT_FIELDS:
+                want = f.value(result)
+                ds = h5["results"][f.name]
+                if f.dtype == "float64":
+                    assert float(row[f.name]) == float(want), f.name
+                    assert ds[0] == float(want) and ds.attrs["units"] == f.unit, f.name
+                elif f.dtype == "bool":
+                    assert row[f.name] == ("true" if want else "false"), f.name
+                    assert ds[0] == int(want), f.name
+                else:
+                    assert row[f.name] == str(want), f.name
+                    assert ds.asstr()[0] == str(want), f.name
+
+    @pytest.mark.parametrize("field", RESULT_FIELDS, ids=lambda f: f.name)
+    def test_a_field_is_named_for_its_unit(self, field):
+        # house naming rule: the suffix says the unit
+        assert units_of(field.name) == field.unit
 
 
 _JSON_COLUMNS = (("metadata", "value_json"), ("descriptors", "shape_json"),

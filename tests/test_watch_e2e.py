@@ -18,10 +18,11 @@ import time
 import numpy as np
 import pytest
 
-from tankside.monitor.acoustics.converter import RESULT_FIELDS
-from tankside.monitor.cli import EXIT_OK, EXIT_STORE, EXIT_USAGE, main
+from tankside.monitor.cli import main
 from tankside.monitor.live.benchfile import load_bench
 from tankside.monitor.live.session import LiveSession
+from tankside.monitor.outcome import ExitCode
+from tankside.monitor.record.schema import RESULT_NAMES
 from tankside.monitor.record.store import SessionReader
 from tankside.monitor.record.tracefile import read_trace
 from tankside.simulators.bench import SimulatedBench
@@ -69,7 +70,7 @@ def close_to(a, b, rel):
 class TestSessionMatchesConvert:
     def test_few_hundred_traces_stored_and_reproducible(self, sim, tmp_path):
         s = run_session(live(sim, tmp_path, max_traces=300))
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
         snap = s.snapshot()
         assert (snap.acquired, snap.converted, snap.stored) == (300, 300, 300)
         bench = load_bench(tmp_path / "bench.toml", FAST)
@@ -83,7 +84,7 @@ class TestSessionMatchesConvert:
             # The same numerics on the stored raw trace give the stored result, exactly.
             for st in r.iter_traces():
                 again = converter.process(st.raw.volts(), st.raw.dt_s).flat()
-                for key in RESULT_FIELDS:
+                for key in RESULT_NAMES:
                     assert close_to(st.result[key], again[key], 0.0), (st.raw.seq, key)
         # And `export --trace` + the signal chain (what `convert` does on that CSV) agree
         # within the CSV's 9 significant digits.
@@ -117,7 +118,7 @@ class TestClosedLoop:
             events = [e for e in r.events() if e["kind"] == "safe-off"]
             assert events[0]["detail"]["done"] and events[0]["detail"]["before_seq"] == 1
             assert r.alerts()[0]["rule"] == "over_pressure"
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
 
     def test_auto_range_up_on_clipping_then_down_on_under_use(self, sim, tmp_path):
         # About 37 mV peak at the hydrophone: 0.02 V and 0.05 V spans clip, 0.1 V fits.
@@ -131,7 +132,7 @@ class TestClosedLoop:
             flagged = [t.raw.seq for t in traces if t.flags.get("range_changed")]
             assert flagged == [1, 2]
             assert traces[-1].raw.range_v == 0.1
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
         (tmp_path / "s.db").rename(tmp_path / "up.db")
         # From 1 V down: at 0.2 V the pulse uses 0.37 of half the span, under 0.4, and
         # fits 0.1 V with margin (0.74 < the 0.8 fit limit), so three steps.
@@ -164,7 +165,7 @@ class TestFaults:
             time.sleep(0.02)
         s.stop("test done")
         assert s.wait(20)
-        assert s.exit_code == EXIT_OK
+        assert s.exit_code == ExitCode.OK
         with SessionReader(tmp_path / "s.db") as r:
             seqs = r.seqs()
             assert seqs == list(range(len(seqs))) and len(seqs) >= before + 30
@@ -193,7 +194,7 @@ class TestCommand:
         code = main(["watch", "--bench", str(path), "--headless", "--traces", "40",
                      "--session", str(tmp_path / "w.db"), "--status-every", "0.2"])
         out = capsys.readouterr().out
-        assert code == EXIT_OK
+        assert code == ExitCode.OK
         assert "stored 40" in out and "session stopped: completed" in out
         with SessionReader(tmp_path / "w.db") as r:
             assert len(r.seqs()) == 40
@@ -241,7 +242,7 @@ class TestCommand:
         time.sleep(1.0)
         proc.send_signal(signum)
         out, err = proc.communicate(timeout=20)
-        assert proc.returncode == EXIT_OK, err
+        assert proc.returncode == ExitCode.OK, err
         assert "Traceback" not in err
         with SessionReader(db) as r:
             assert r.stop["exit_status"] == "operator"
@@ -259,7 +260,7 @@ class TestCommand:
         proc = self._watch("--bench", str(path), "--headless", "--session", str(db),
                            preexec_fn=limit)
         out, err = proc.communicate(timeout=60)
-        assert proc.returncode == EXIT_STORE, err
+        assert proc.returncode == ExitCode.STORE, err
         assert "Traceback" not in err
         assert "store" in err
         with SessionReader(db) as r:
@@ -270,7 +271,7 @@ class TestCommand:
     def test_bad_bench_file_and_unreachable_resource(self, tmp_path, capsys, sim):
         bad = tmp_path / "bad.toml"
         bad.write_text("[digitiser]\nprofile = 'x'\n")
-        assert main(["watch", "--bench", str(bad), "--headless"]) == EXIT_USAGE
+        assert main(["watch", "--bench", str(bad), "--headless"]) == ExitCode.USAGE
         err = capsys.readouterr().err
         assert "bad.toml" in err and "[digitiser] resource: missing" in err
         assert "Traceback" not in err
@@ -280,10 +281,10 @@ class TestCommand:
                      "--digitiser", f"TCPIP0::127.0.0.1::{port}::SOCKET",
                      "--session", str(tmp_path / "never.db")])
         err = capsys.readouterr().err
-        assert code == EXIT_USAGE
+        assert code == ExitCode.USAGE
         assert str(port) in err and err.count("\n") == 1
         assert not (tmp_path / "never.db").exists()
         code = main(["watch", "--bench", str(path), "--headless",
                      "--digitiser-profile", "no-such-profile"])
         err = capsys.readouterr().err
-        assert code == EXIT_USAGE and "no-such-profile" in err
+        assert code == ExitCode.USAGE and "no-such-profile" in err

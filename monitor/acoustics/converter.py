@@ -16,7 +16,8 @@ again from the pressure spectrum and the reported narrowband check is for that v
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from collections.abc import Callable
+from dataclasses import dataclass, fields
 
 import numpy as np
 import scipy.fft
@@ -34,32 +35,85 @@ from .pulse import (
     pulse_bounds_s,
     pulse_parameters,
 )
-from .settings import ConversionSettings
+from .settings import AwfMethod, ConversionSettings, Method
 from .water import Water
 
-__all__ = ["Converter", "TraceResult", "RESULT_FIELDS", "OutOfBandError", "UnusableTraceError"]
+__all__ = ["Converter", "TraceResult", "ResultField", "RESULT_FIELDS", "OutOfBandError",
+           "UnusableTraceError"]
 
-#: Keys of :meth:`TraceResult.flat`, in order (storage and CSV export columns).
-RESULT_FIELDS = (
-    "method",
-    "peak_compressional_pa",
-    "peak_rarefactional_pa",
-    "acoustic_working_frequency_hz",
-    "pulse_intensity_integral_j_per_m2",
-    "pulse_duration_s",
-    "pulse_average_intensity_w_per_m2",
-    "mechanical_index",
-    "water_temperature_c",
-    "water_density_kg_per_m3",
-    "water_sound_speed_m_per_s",
-    "narrowband_ok",
-    "narrowband_band_low_hz",
-    "narrowband_band_high_hz",
-    "narrowband_max_deviation_db",
-    "phase_source",
+@dataclass(frozen=True)
+class ResultField:
+    """One quantity of a trace's result: a key of :meth:`TraceResult.flat`, a column of
+    the session file's ``results`` table, of the results CSV and of the HDF5 export.
+
+    Attributes
+    ----------
+    name : str
+        Key and column name; its suffix names the unit (``_pa``, ``_hz``, ...).
+    unit : str
+        Unit written beside it in the session file and the exports; ``""`` when it is
+        dimensionless or text.
+    dtype : str
+        ``"float64"``, ``"bool"`` or ``"str"``.
+    doc : str
+        What it is.
+    value : callable (TraceResult) -> float, bool or str
+        Where :meth:`TraceResult.flat` takes it from.
+    """
+
+    name: str
+    unit: str
+    dtype: str
+    doc: str
+    value: Callable[[TraceResult], float | bool | str]
+
+
+#: The fields of a result, in order (the keys of :meth:`TraceResult.flat` and the
+#: session file's result columns).
+RESULT_FIELDS: tuple[ResultField, ...] = (
+    ResultField("method", "", "str", "conversion method used: deconvolve or narrowband",
+                lambda r: r.method),
+    ResultField("peak_compressional_pa", "Pa", "float64", "peak-compressional pressure p_c",
+                lambda r: r.parameters.peak_compressional_pa),
+    ResultField("peak_rarefactional_pa", "Pa", "float64", "peak-rarefactional pressure p_r",
+                lambda r: r.parameters.peak_rarefactional_pa),
+    ResultField("acoustic_working_frequency_hz", "Hz", "float64",
+                "acoustic working frequency f_awf",
+                lambda r: r.parameters.acoustic_working_frequency_hz),
+    ResultField("pulse_intensity_integral_j_per_m2", "J/m^2", "float64",
+                "pulse-intensity integral PII",
+                lambda r: r.parameters.pulse_intensity_integral_j_per_m2),
+    ResultField("pulse_duration_s", "s", "float64",
+                "pulse duration, 1.25 times the 10 % to 90 % time of the cumulative PII",
+                lambda r: r.parameters.pulse_duration_s),
+    ResultField("pulse_average_intensity_w_per_m2", "W/m^2", "float64",
+                "pulse-average intensity (PII / pulse duration)",
+                lambda r: r.parameters.pulse_average_intensity_w_per_m2),
+    ResultField("mechanical_index", "", "float64", "mechanical index MI (IEC 62359)",
+                lambda r: r.parameters.mechanical_index),
+    ResultField("water_temperature_c", "degC", "float64", "water temperature used",
+                lambda r: r.water.temperature_c),
+    ResultField("water_density_kg_per_m3", "kg/m^3", "float64",
+                "water density at that temperature", lambda r: r.water.density_kg_per_m3),
+    ResultField("water_sound_speed_m_per_s", "m/s", "float64",
+                "speed of sound in water at that temperature",
+                lambda r: r.water.sound_speed_m_per_s),
+    ResultField("narrowband_ok", "", "bool", "the narrowband condition holds at f_awf",
+                lambda r: r.narrowband.ok),
+    ResultField("narrowband_band_low_hz", "Hz", "float64",
+                "lower edge of the narrowband check band", lambda r: r.narrowband.band_hz[0]),
+    ResultField("narrowband_band_high_hz", "Hz", "float64",
+                "upper edge of the narrowband check band", lambda r: r.narrowband.band_hz[1]),
+    ResultField("narrowband_max_deviation_db", "dB", "float64",
+                "largest deviation of |M_L| from its value at f_awf over the check band",
+                lambda r: r.narrowband.max_deviation_db),
+    ResultField("phase_source", "", "str",
+                "phase of the calibration: measured or minimum-phase", lambda r: r.phase_source),
 )
 
-_PARAMETER_KEYS = RESULT_FIELDS[1:8]
+# the pulse parameters among them, straight from the result as in its JSON form
+_PARAMETER_KEYS = tuple(f.name for f in RESULT_FIELDS
+                        if f.name in {p.name for p in fields(PulseParameters)})
 
 #: Shortest trace accepted, samples.
 MIN_SAMPLES = 8
@@ -77,8 +131,8 @@ class TraceResult:
         Pressure waveform, Pa, same length and time step as the voltage.
     dt_s : float
         Time step, s.
-    method : str
-        Method actually used: ``"deconvolve"`` or ``"narrowband"``.
+    method : Method
+        Method actually used: ``DECONVOLVE`` or ``NARROWBAND``.
     freqs_hz : numpy.ndarray
         ``rfftfreq(n, dt_s)``, Hz.
     spectrum_pa : numpy.ndarray
@@ -98,7 +152,7 @@ class TraceResult:
 
     pressure_pa: np.ndarray
     dt_s: float
-    method: str
+    method: Method
     freqs_hz: np.ndarray
     spectrum_pa: np.ndarray
     sensitivity_v_per_pa: np.ndarray
@@ -131,26 +185,8 @@ class TraceResult:
         return out
 
     def flat(self) -> dict[str, float | str | bool]:
-        """Flat ``{name: value}`` with the keys of :data:`RESULT_FIELDS`, in that order."""
-        p, nb, w = self.parameters, self.narrowband, self.water
-        return {
-            "method": self.method,
-            "peak_compressional_pa": p.peak_compressional_pa,
-            "peak_rarefactional_pa": p.peak_rarefactional_pa,
-            "acoustic_working_frequency_hz": p.acoustic_working_frequency_hz,
-            "pulse_intensity_integral_j_per_m2": p.pulse_intensity_integral_j_per_m2,
-            "pulse_duration_s": p.pulse_duration_s,
-            "pulse_average_intensity_w_per_m2": p.pulse_average_intensity_w_per_m2,
-            "mechanical_index": p.mechanical_index,
-            "water_temperature_c": w.temperature_c,
-            "water_density_kg_per_m3": w.density_kg_per_m3,
-            "water_sound_speed_m_per_s": w.sound_speed_m_per_s,
-            "narrowband_ok": nb.ok,
-            "narrowband_band_low_hz": nb.band_hz[0],
-            "narrowband_band_high_hz": nb.band_hz[1],
-            "narrowband_max_deviation_db": nb.max_deviation_db,
-            "phase_source": self.phase_source,
-        }
+        """Flat ``{name: value}``, one per :data:`RESULT_FIELDS` entry, in that order."""
+        return {f.name: f.value(self) for f in RESULT_FIELDS}
 
 
 def _finite_or_none(x: float):
@@ -198,7 +234,7 @@ class Converter:
         return Converter(self.calibration, self.loading, base.replace(**changes) if changes
                          else base, self.temperature_c)
 
-    def with_method(self, method: str) -> Converter:
+    def with_method(self, method: Method | str) -> Converter:
         return self.with_settings(method=method)
 
     def plan(self, n: int, dt_s: float) -> Plan:
@@ -243,12 +279,12 @@ class Converter:
         vabs = np.abs(spec)
         f_v, bounds = self._awf(v, vabs, plan.freqs_hz, dt_s)
         self._in_band(f_v, "voltage spectrum")
-        used = "deconvolve"
-        if s.method != "deconvolve":
+        used = Method.DECONVOLVE
+        if s.method is not Method.DECONVOLVE:
             nb = narrowband_check(f_v, self.profile, s)
-            if s.method == "narrowband" or nb.ok:
-                used = "narrowband"
-        if used == "narrowband":
+            if s.method is Method.NARROWBAND or nb.ok:
+                used = Method.NARROWBAND
+        if used is Method.NARROWBAND:
             m = self.profile.magnitude_at_v_per_pa(f_v)
             pressure = v / m
             mag = vabs * (2.0 / (n * m))
@@ -275,7 +311,7 @@ class Converter:
              dt_s: float) -> tuple[float, tuple[float, float, float] | None]:
         """f_awf, Hz, and the pulse window of ``signal`` when it was found on the way
         (zero-crossing method), for :func:`pulse_parameters` to use rather than search again."""
-        if self.settings.awf_method == "spectrum":
+        if self.settings.awf_method is AwfMethod.SPECTRUM:
             return awf_spectrum_hz(freqs_hz, magnitude), None
         bounds = pulse_bounds_s(signal, dt_s)
         t10, t90, _ = bounds

@@ -3,13 +3,32 @@
 from __future__ import annotations
 
 import dataclasses
+import enum
 import math
 from dataclasses import dataclass, fields
 
 from ..errors import ConfigError
 
-METHODS = ("auto", "deconvolve", "narrowband")
-AWF_METHODS = ("spectrum", "zero-crossing")
+
+class Method(enum.StrEnum):
+    """Voltage-to-pressure conversion methods (the strings stored in settings and results)."""
+
+    AUTO = "auto"
+    """Narrowband when the narrowband check passes, else deconvolve (a setting only: a
+    result records the method it used)."""
+    DECONVOLVE = "deconvolve"
+    """Regularised inverse of the loaded sensitivity over the band."""
+    NARROWBAND = "narrowband"
+    """Voltage divided by ``|M_L(f_awf)|`` (IEC 62127-1 narrowband approximation)."""
+
+
+class AwfMethod(enum.StrEnum):
+    """How the acoustic working frequency is taken (IEC 62127-1)."""
+
+    SPECTRUM = "spectrum"
+    """Mean of the -3 dB frequencies of the pressure spectrum."""
+    ZERO_CROSSING = "zero-crossing"
+    """From the zero crossings of the pressure waveform."""
 
 
 @dataclass(frozen=True)
@@ -18,7 +37,7 @@ class ConversionSettings:
 
     Attributes
     ----------
-    method : str
+    method : Method
         ``"deconvolve"`` (regularised inverse of the loaded sensitivity), ``"narrowband"``
         (voltage divided by ``|M_L(f_awf)|``) or ``"auto"`` (narrowband only when the
         narrowband check passes, else deconvolve).
@@ -31,7 +50,7 @@ class ConversionSettings:
         Tikhonov (Wiener-type) weight ``eps``: the inverse is
         ``conj(M) / (|M|^2 + (eps * max|M|)^2)``, ``max`` over the band. 0 is a plain
         division inside the band.
-    awf_method : str
+    awf_method : AwfMethod
         ``"spectrum"`` (mean of the -3 dB frequencies of the pressure spectrum) or
         ``"zero-crossing"``.
     narrowband_low_factor, narrowband_high_factor : float
@@ -53,12 +72,12 @@ class ConversionSettings:
     and mechanical index).
     """
 
-    method: str = "auto"
+    method: Method = Method.AUTO
     band_low_hz: float | None = None
     band_high_hz: float | None = None
     taper_octaves: float = 0.25
     regularisation: float = 0.01
-    awf_method: str = "spectrum"
+    awf_method: AwfMethod = AwfMethod.SPECTRUM
     narrowband_low_factor: float = 0.5
     narrowband_high_factor: float = 8.0
     narrowband_high_limit_hz: float = 40e6
@@ -67,11 +86,9 @@ class ConversionSettings:
     derating_db_per_cm_mhz: float = 0.3
 
     def __post_init__(self):
-        if self.method not in METHODS:
-            raise ConfigError(f"method {self.method!r}: expected one of {', '.join(METHODS)}")
-        if self.awf_method not in AWF_METHODS:
-            raise ConfigError(f"awf_method {self.awf_method!r}: expected one of "
-                              f"{', '.join(AWF_METHODS)}")
+        # a string from a bench file or the command line becomes its member
+        object.__setattr__(self, "method", _member(Method, "method", self.method))
+        object.__setattr__(self, "awf_method", _member(AwfMethod, "awf_method", self.awf_method))
         lo, hi = self.band_low_hz, self.band_high_hz
         for name, v in (("band_low_hz", lo), ("band_high_hz", hi)):
             if v is not None:
@@ -110,6 +127,13 @@ class ConversionSettings:
     def as_dict(self) -> dict:
         """All settings as a JSON-able dict."""
         return dataclasses.asdict(self)
+
+
+def _member(vocabulary: type[enum.StrEnum], name: str, value):
+    try:
+        return vocabulary(value)
+    except ValueError:
+        raise ConfigError(f"{name} {value!r}: expected one of {', '.join(vocabulary)}") from None
 
 
 def _nonneg(name, v):

@@ -8,7 +8,7 @@ import json
 from ..acoustics.calibration import load_calibration
 from ..acoustics.converter import Converter, TraceResult
 from ..acoustics.loading import Loading
-from ..acoustics.settings import AWF_METHODS, METHODS, ConversionSettings
+from ..acoustics.settings import AwfMethod, ConversionSettings, Method
 from ..record.tracefile import read_trace, write_pressure
 from .options import add_loading_options, loading_overrides
 
@@ -26,7 +26,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--calibration", "-c", metavar="CAL", required=True,
                    help="hydrophone calibration CSV (frequency_hz, sensitivity_v_per_pa or "
                         "sensitivity_db_re_1v_per_upa, optional phase_deg or phase_rad)")
-    p.add_argument("--method", choices=METHODS, default="auto",
+    p.add_argument("--method", choices=[m.value for m in Method], default=Method.AUTO.value,
                    help="deconvolve, narrowband, or auto: narrowband only when the narrowband "
                         "check passes (default: auto)")
     p.add_argument("--json", action="store_true",
@@ -45,7 +45,8 @@ def add_parser(subparsers) -> None:
     r.add_argument("--regularisation", metavar="EPS", type=float, default=d.regularisation,
                    help="Tikhonov weight relative to the largest sensitivity in the band "
                         f"(default {d.regularisation:g}; 0: plain division)")
-    r.add_argument("--awf-method", choices=AWF_METHODS, default=d.awf_method,
+    r.add_argument("--awf-method", choices=[m.value for m in AwfMethod],
+                   default=d.awf_method.value,
                    help="acoustic working frequency from the -3 dB points of the spectrum, or "
                         "by zero crossings (default spectrum)")
     r.add_argument("--depth", metavar="M", type=float, default=0.0,

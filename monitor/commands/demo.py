@@ -13,6 +13,7 @@ import sys
 from pathlib import Path
 
 from ..errors import ConfigError
+from ..outcome import ExitStatus
 from .running import run_to_end
 
 CAUTION = """\
@@ -106,7 +107,7 @@ def _watch(session, bench_path: Path, *, headless: bool, first_run: bool, run_he
             return run_headless(session)
         code = dashboard(session, first_run_notice=first_run)
         snap = session.snapshot()
-        status = session.exit_status or "completed"
+        status = session.exit_status or ExitStatus.COMPLETED
         why = status if session.stop_reason in ("", status) else \
             f"{status}: {session.stop_reason}"
         print(f"tankside demo: session stopped ({why}); {snap.stored} traces in "

@@ -12,6 +12,7 @@ from ...drivers.errors import ConnectionLost
 from ...drivers.probe import Outcome, Prober, Row
 from ...drivers.profile import load_profile
 from ...drivers.scpi import ScpiLink
+from ..outcome import ExitCode
 
 EPILOG = """\
 results:
@@ -25,7 +26,7 @@ exit codes:
   3  at least one operation failed
 """
 
-EXIT_OK, EXIT_UNREACHABLE, EXIT_FAILED = 0, 2, 3
+
 
 def add_parser(subparsers) -> None:
     p = subparsers.add_parser(
@@ -90,4 +91,4 @@ def run(args) -> int:
     failed = sum(r.result == Outcome.FAILED for r in prober.rows)
     skipped = sum(r.result == Outcome.NOT_TRIED for r in prober.rows)
     print(f"{len(prober.rows) - failed - skipped} ok, {failed} failed, {skipped} not tried")
-    return EXIT_FAILED if failed else EXIT_OK
+    return ExitCode.INSTRUMENT if failed else ExitCode.OK

@@ -4,10 +4,9 @@ from __future__ import annotations
 
 import argparse
 
+from ..acoustics.settings import Method
 from ..progress import bar_factory
 from .options import add_progress_options
-
-METHODS = ("auto", "deconvolve", "narrowband")
 
 
 def add_parser(subparsers) -> argparse.ArgumentParser:
@@ -25,7 +24,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="the new session file to write (must not be FILE.db)")
     p.add_argument("--calibration", metavar="CAL.csv",
                    help="use this hydrophone calibration file instead of the recorded one")
-    p.add_argument("--method", choices=METHODS,
+    p.add_argument("--method", choices=[m.value for m in Method],
                    help="conversion method for every trace, instead of the recorded one(s)")
     p.add_argument("--force", action="store_true", help="replace NEW.db if it exists")
     p.add_argument("--check", action="store_true",

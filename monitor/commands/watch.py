@@ -7,6 +7,7 @@ import sys
 import tomllib
 from pathlib import Path
 
+from ..acoustics.settings import Method
 from ..errors import ConfigError
 from .options import add_loading_options, loading_overrides
 from .running import run_to_end
@@ -61,7 +62,7 @@ def add_parser(subparsers) -> None:
     o.add_argument("--no-generator", action="store_true",
                    help="ignore the bench file's generator (safe-off is then unavailable)")
     o.add_argument("--calibration", metavar="CAL.csv", help="hydrophone calibration file")
-    o.add_argument("--method", choices=("auto", "deconvolve", "narrowband"),
+    o.add_argument("--method", choices=[m.value for m in Method],
                    help="conversion method at the start (can be switched live)")
     o.add_argument("--pressure-limit", type=float, metavar="PA",
                    help="over-pressure alert limit, Pa (the lower of this and the rated "

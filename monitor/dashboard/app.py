@@ -16,6 +16,7 @@ from textual.containers import Horizontal
 from textual.widgets import Footer
 
 from ...drivers.errors import InstrumentError
+from ..acoustics.settings import Method
 from ..errors import TanksideError
 from ..live.snapshot import Snapshot
 from .alerts import AlertList, open_alerts
@@ -30,7 +31,6 @@ from .units import clock
 from .waveform import PressureTrace
 
 REFRESH_HZ = 10.0
-METHODS = ("auto", "deconvolve", "narrowband")
 STATE_STYLE = {
     "starting": "#ffb35c", "running": "#7fd88f", "reconnecting": "#ffb35c",
     "stopping": "#ffb35c", "stopped": "#ff6b6b",
@@ -203,8 +203,9 @@ class DashboardApp(App[None]):
         self.refresh_from_session()
 
     def action_cycle_method(self) -> None:
-        nxt = METHODS[(METHODS.index(self.method_requested) + 1) % len(METHODS)] \
-            if self.method_requested in METHODS else METHODS[0]
+        methods = list(Method)
+        nxt = methods[(methods.index(self.method_requested) + 1) % len(methods)] \
+            if self.method_requested in methods else methods[0]
         if self._call_session(self.session.set_method, nxt):
             self.method_requested = nxt
             self.notify(f"conversion method: {nxt}", timeout=2)
@@ -259,13 +260,13 @@ class DashboardApp(App[None]):
         return True
 
 
-def _initial_method(session) -> str:
-    """The conversion method the session was started with ("auto" when it cannot say)."""
+def _initial_method(session) -> Method:
+    """The conversion method the session was started with (``AUTO`` when it cannot say)."""
     for name in ("method_requested", "method"):
         method = getattr(session, name, None)
-        if method in METHODS:
-            return method
-    return "auto"
+        if method in list(Method):
+            return Method(method)
+    return Method.AUTO
 
 
 def run_dashboard(session, *, first_run_notice: bool = True,

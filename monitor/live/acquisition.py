@@ -30,7 +30,7 @@ from ...drivers.errors import (
     NoTrigger,
     ProtocolError,
 )
-from ..record.schema import EVENT_DRIVE_OFF, EVENT_DRIVE_ON
+from ..record.schema import EventKind, FaultKind
 from .actions import InstrumentAction, RaisedAlert, SafeOff, SetRange
 
 BACKOFF_S = (0.1, 0.2, 0.5, 1.0, 2.0, 5.0)
@@ -63,7 +63,7 @@ class AcqEvent:
     """
 
     time_s: float
-    kind: str
+    kind: EventKind
     detail: dict
     seq: int | None = None
     alert: RaisedAlert | None = None
@@ -212,7 +212,7 @@ class AcquisitionLoop:
             self.blocked_s += time.monotonic() - t0
             self.blocked_now = False
 
-    def _event(self, kind: str, detail: dict, alert: RaisedAlert | None = None,
+    def _event(self, kind: EventKind, detail: dict, alert: RaisedAlert | None = None,
                seq: int | None = None) -> None:
         self._emit(AcqEvent(self.clock(), kind, detail, seq=seq, alert=alert))
 
@@ -221,24 +221,25 @@ class AcquisitionLoop:
         try:
             raw = dev.acquire(self.seq, trigger_timeout_s=self.trigger_timeout_s)
         except NoTrigger as err:
-            self._event("no-trigger", {"message": str(err),
+            self._event(EventKind.NO_TRIGGER, {"message": str(err),
                                        "timeout_s": self.trigger_timeout_s})
             return
         except (ProtocolError, InstrumentTimeout) as err:
-            kind = "malformed-reply" if isinstance(err, ProtocolError) else "stalled"
-            self._event("fault", {"kind": kind, "message": str(err), "at_seq": self.seq},
+            kind = FaultKind.MALFORMED_REPLY if isinstance(err, ProtocolError) \
+                else FaultKind.STALLED
+            self._event(EventKind.FAULT, {"kind": kind, "message": str(err), "at_seq": self.seq},
                         alert=RaisedAlert("instrument-fault", "warning", f"digitiser {kind}: {err}"))
             self._recover(err)
             return
         except ConnectionLost as err:
-            self._event("fault", {"kind": "connection-lost", "message": str(err),
-                                  "at_seq": self.seq},
+            self._event(EventKind.FAULT, {"kind": FaultKind.CONNECTION_LOST,
+                                          "message": str(err), "at_seq": self.seq},
                         alert=RaisedAlert("instrument-fault", "warning", f"digitiser lost: {err}"))
             self._reconnect(err)
             return
         except InstrumentError as err:
-            self._event("fault", {"kind": "instrument-error", "message": str(err),
-                                  "at_seq": self.seq},
+            self._event(EventKind.FAULT, {"kind": FaultKind.INSTRUMENT_ERROR,
+                                          "message": str(err), "at_seq": self.seq},
                         alert=RaisedAlert("instrument-fault", "warning", f"digitiser: {err}"))
             return
         self.last_trigger_mono = time.monotonic()
@@ -252,7 +253,7 @@ class AcquisitionLoop:
         except InstrumentError:
             self._reconnect(err)
             return
-        self._event("resync", {"after": type(err).__name__})
+        self._event(EventKind.RESYNC, {"after": type(err).__name__})
 
     def _reconnect(self, err: Exception) -> None:
         _close(self.digitiser)
@@ -281,12 +282,13 @@ class AcquisitionLoop:
                     continue
                 self.digitiser = link
                 self.connected = True
-                self._event("reconnect", {"attempts": attempt,
-                                          "after_s": round(time.monotonic() - started, 3),
-                                          "cause": str(err), "identity": link.identity,
-                                          "next_seq": self.seq},
+                self._event(EventKind.RECONNECT,
+                            {"attempts": attempt,
+                             "after_s": round(time.monotonic() - started, 3),
+                             "cause": str(err), "identity": link.identity,
+                             "next_seq": self.seq},
                             alert=RaisedAlert("instrument-reconnected", "info",
-f"digitiser reconnected after {attempt} attempt(s)"))
+                                   f"digitiser reconnected after {attempt} attempt(s)"))
                 return
         finally:
             self.reconnecting = False
@@ -316,9 +318,10 @@ f"digitiser reconnected after {attempt} attempt(s)"))
 
     def _safe_off(self, cause: dict) -> None:
         if self.generator is None:
-            self._event("safe-off", {"done": False, "why": "no generator configured", **cause},
+            self._event(EventKind.SAFE_OFF,
+                        {"done": False, "why": "no generator configured", **cause},
                         alert=RaisedAlert("safe-off-failed", "critical",
-"safe-off asked for but no generator is configured"))
+                               "safe-off asked for but no generator is configured"))
             return
         try:
             self.generator.device.set_output(False)
@@ -330,16 +333,17 @@ f"digitiser reconnected after {attempt} attempt(s)"))
                 self.generator.device.set_output(False)
                 still_on = self.generator.device.output_is_on()
             except InstrumentError as again:
-                self._event("safe-off", {"done": False, "error": str(again), **cause},
+                self._event(EventKind.SAFE_OFF, {"done": False, "error": str(again), **cause},
                             alert=RaisedAlert("safe-off-failed", "critical",
-f"generator output could not be switched off: {err}"))
+                                   f"generator output could not be switched off: {err}"))
                 return
         if still_on:
-            self._event("safe-off", {"done": False, "error": "output still on", **cause},
+            self._event(EventKind.SAFE_OFF,
+                        {"done": False, "error": "output still on", **cause},
                         alert=RaisedAlert("safe-off-failed", "critical",
-"generator reports output still on after safe-off"))
+                               "generator reports output still on after safe-off"))
             return
-        self._event("safe-off", {"done": True, "before_seq": self.seq, **cause})
+        self._event(EventKind.SAFE_OFF, {"done": True, "before_seq": self.seq, **cause})
         self._set_drive(False, "safe-off")
 
     # -- generator output state ----------------------------------------------------
@@ -349,7 +353,7 @@ f"generator output could not be switched off: {err}"))
             return
         self.drive_on = on
         self.drive_cause = cause
-        self._event(EVENT_DRIVE_ON if on else EVENT_DRIVE_OFF,
+        self._event(EventKind.DRIVE_ON if on else EventKind.DRIVE_OFF,
                     {"output_on": on, "cause": cause, "before_seq": self.seq})
 
     def _poll_drive(self) -> None:
@@ -371,10 +375,10 @@ f"generator output could not be switched off: {err}"))
             if self._drive_fault is None:
                 self._drive_fault = str(err)
                 self.drive_on = None
-                self._event("fault", {"kind": "generator-query", "message": str(err),
-                                      "at_seq": self.seq},
+                self._event(EventKind.FAULT, {"kind": FaultKind.GENERATOR_QUERY,
+                                              "message": str(err), "at_seq": self.seq},
                             alert=RaisedAlert("instrument-fault", "warning",
-f"generator output state unknown: {err}"))
+                                   f"generator output state unknown: {err}"))
             return
         self._next_drive_poll = now + DRIVE_POLL_S
         self._set_drive(on, "start" if self.drive_cause == "" else "generator")
@@ -386,13 +390,13 @@ f"generator output state unknown: {err}"))
         try:
             self.digitiser.device.set_range(new_v)
         except InstrumentError as err:
-            self._event("range-change", {"done": False, "from_v": old_v, "to_v": new_v,
-                                         "error": str(err), **cause},
+            self._event(EventKind.RANGE_CHANGE, {"done": False, "from_v": old_v,
+                                                 "to_v": new_v, "error": str(err), **cause},
                         alert=RaisedAlert("auto-range-failed", "warning", f"range change failed: {err}"))
             return
         self._next_flags = {"range_changed": True, "previous_range_v": old_v}
-        self._event("range-change", {"done": True, "from_v": old_v, "to_v": new_v,
-                                     "before_seq": self.seq, **cause})
+        self._event(EventKind.RANGE_CHANGE, {"done": True, "from_v": old_v, "to_v": new_v,
+                                             "before_seq": self.seq, **cause})
 
 
 def _close(inst: OpenInstrument | None) -> None:

@@ -29,7 +29,6 @@ import dataclasses
 import multiprocessing
 import multiprocessing.connection
 import os
-import pickle
 import signal
 import sys
 import tempfile
@@ -39,8 +38,9 @@ from pathlib import Path
 from typing import TYPE_CHECKING, TextIO
 
 from ...drivers.errors import InstrumentError
-from ..cli import EXIT_INSTRUMENT
-from ..errors import StoreError, TanksideError
+from ..acoustics.settings import Method
+from ..errors import TanksideError
+from ..outcome import ExitCode, ExitStatus
 from .snapshot import Snapshot
 
 if TYPE_CHECKING:
@@ -74,7 +74,7 @@ class SessionStatus:
     exit_status: str = ""
     stop_reason: str = ""
     message_for_operator: str = ""
-    method: str = "auto"
+    method: str = Method.AUTO
 
 
 class SessionProcess:
@@ -296,8 +296,8 @@ class SessionProcess:
         if status.exit_status or code == status.exit_code:
             return
         # the child died without a clean end of its session: say so, with its code
-        status.exit_code = EXIT_INSTRUMENT
-        status.exit_status = "internal-error"
+        status.exit_code = ExitCode.INTERNAL
+        status.exit_status = ExitStatus.INTERNAL_ERROR
         status.stop_reason = f"session process ended unexpectedly (exit code {code})"
         status.message_for_operator = status.stop_reason + self._output_hint()
         self._snap = dataclasses.replace(self._snap, state="stopped",
@@ -337,9 +337,9 @@ def child_main(spec: SessionSpec, commands, snapshots, log_path: str) -> None:
                                          duration_s=spec.duration_s)
         session.start()
     except (TanksideError, InstrumentError) as err:
-        _send_quietly(commands, ("failed", transferable(err)))
+        _send_quietly(commands, ("failed", err))
         _remove_if_empty(log_path)
-        sys.exit(2)
+        sys.exit(ExitCode.USAGE)
     signal.signal(signal.SIGTERM, lambda signum, frame: session.stop("signal SIGTERM"))
     _send_quietly(commands, ("started", _status_of(session)))
     answering = threading.Thread(target=_answer_snapshots, args=(session, snapshots),
@@ -376,7 +376,7 @@ def _serve_commands(session, commands) -> None:
                 raise ValueError(f"unknown session command {op!r}")
             getattr(session, op)(*args)
         except (TanksideError, InstrumentError, ValueError) as err:
-            answer = (serial, "error", transferable(err))
+            answer = (serial, "error", err)
         else:
             answer = (serial, "ok", None)
         if not _send_quietly(commands, answer):
@@ -401,7 +401,8 @@ def _answer_snapshots(session, snapshots) -> None:
 def _status_of(session) -> SessionStatus:
     running = session.running
     return SessionStatus(exit_code=0 if running else session.exit_code,
-                         exit_status="" if running else (session.exit_status or "completed"),
+                         exit_status=("" if running
+                                      else session.exit_status or ExitStatus.COMPLETED),
                          stop_reason=session.stop_reason,
                          message_for_operator=session.message_for_operator,
                          method=session.method)
@@ -426,25 +427,6 @@ def _remove_if_empty(path: str) -> None:
     with contextlib.suppress(OSError):
         if os.path.getsize(path) == 0:
             os.unlink(path)
-
-
-def transferable(err: BaseException) -> BaseException:
-    """``err`` if it survives pickling, else the nearest tankside base type with its text.
-
-    Errors whose constructors take several arguments (a calibration error's file,
-    line and problem) do not unpickle from their message alone; the base type keeps
-    the message and the exit code the CLI gives it.
-    """
-    try:
-        back = pickle.loads(pickle.dumps(err))
-        if type(back) is type(err) and str(back) == str(err):
-            return back
-    except Exception:  # noqa: BLE001 - any failure means: send the plain form
-        pass
-    for base in (StoreError, TanksideError, InstrumentError, ValueError):
-        if isinstance(err, base):
-            return base(str(err))
-    return TanksideError(str(err))
 
 
 def session_for_display(bench, *, own_process: bool, session_path: str | Path | None = None,

@@ -27,7 +27,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import TanksideError
-from ..record.schema import EVENT_DRIVE_OFF, EVENT_DRIVE_ON
+from ..record.schema import EventKind, FaultKind
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop
 from .actions import Cause, SafeOff, SetRange
 from .autorange import range_after
@@ -121,21 +121,21 @@ class TraceProcessor:
     # -- items from the acquisition thread --------------------------------------------
     def on_event(self, ev: AcqEvent) -> None:
         kind = ev.kind
-        if kind == "fault" and ev.detail.get("kind") == "connection-lost":
-            kind = "connection-lost"
+        if kind == EventKind.FAULT and ev.detail.get("kind") == FaultKind.CONNECTION_LOST:
+            kind = EventKind.CONNECTION_LOST
         self._record(EventItem(ev.time_s, kind, ev.detail, seq=ev.seq))
         if ev.alert is not None:
             self.handle_firings([Firing(rule=ev.alert.rule, severity=ev.alert.severity,
                                         message=ev.alert.message, actions=("record",),
                                         seq=ev.seq, detail=ev.detail, time_s=ev.time_s)],
                                 judged_trace=False)
-        if kind == "range-change" and ev.detail.get("done"):
+        if kind == EventKind.RANGE_CHANGE and ev.detail.get("done"):
             self._range_v = float(ev.detail["to_v"])
-        if kind in (EVENT_DRIVE_ON, EVENT_DRIVE_OFF):
-            self._drive_on = kind == EVENT_DRIVE_ON
+        if kind in (EventKind.DRIVE_ON, EventKind.DRIVE_OFF):
+            self._drive_on = kind == EventKind.DRIVE_ON
             self._drive_cause = str(ev.detail.get("cause", ""))
             self.publish()
-        elif kind == "fault" and ev.detail.get("kind") == "generator-query":
+        elif kind == EventKind.FAULT and ev.detail.get("kind") == FaultKind.GENERATOR_QUERY:
             self._drive_on = None
             self._drive_cause = ""
             self.publish()
@@ -188,8 +188,8 @@ class TraceProcessor:
         old = self.method
         self._converter = self._converter.with_method(method)
         self.method = method
-        self._record(EventItem(time.time(), "method-change", {"from": old, "to": method},
-                               seq=seq))
+        self._record(EventItem(time.time(), EventKind.METHOD_CHANGE,
+                               {"from": old, "to": method}, seq=seq))
 
     # -- firings and their actions ----------------------------------------------------
     def handle_firings(self, firings: list[Firing], *, judged_trace: bool) -> None:

@@ -14,6 +14,8 @@ from dataclasses import dataclass
 from typing import Any
 
 from ..errors import StoreError
+from ..outcome import ExitStatus
+from ..record.schema import EventKind
 
 END = object()
 
@@ -46,14 +48,14 @@ class AckItem:
 @dataclass
 class EventItem:
     time_s: float
-    kind: str
+    kind: EventKind
     detail: dict
     seq: int | None = None
 
 
 @dataclass
 class CloseItem:
-    exit_status: str
+    exit_status: ExitStatus
     reason: str
     counts: Callable[[], dict]
 
@@ -140,7 +142,7 @@ class Writer:
         # file then reads as "not stopped cleanly", which is the truth. The first error
         # is the one reported.
         try:
-            self.store.close("store-error", str(err), self.counts())
+            self.store.close(ExitStatus.STORE_ERROR, str(err), self.counts())
             self.closed = True
         except StoreError as again:
             self.close_error = again

@@ -50,6 +50,7 @@ from ..acoustics.presence import (
     DEFAULT_FACTOR,
     pulse_presence,
 )
+from ..acoustics.settings import Method
 from .rule_specs import (
     AUTO_RANGE_RULES,
     RULES,
@@ -94,8 +95,8 @@ class TraceObservation:
         ``TraceResult.flat()``, or None when the conversion failed.
     error : str or None
         Why the conversion failed.
-    method_in_use : str
-        Conversion method configured: "auto", "deconvolve" or "narrowband".
+    method_in_use : Method
+        Conversion method configured.
     position : tuple or None
         Stage position, or None without a stage (treated as one fixed position).
     pulse_present : bool
@@ -117,7 +118,7 @@ class TraceObservation:
     fraction_of_full_scale: float
     result: dict | None = None
     error: str | None = None
-    method_in_use: str = "auto"
+    method_in_use: str = Method.AUTO
     position: tuple | None = None
     pulse_present: bool = True
     drive_on: bool | None = None
@@ -188,7 +189,7 @@ class Firing:
 
 
 def observation_from_trace(raw, result: dict | None = None, error: str | None = None, *,
-                           method_in_use: str = "auto", position: tuple | None = None,
+                           method_in_use: str = Method.AUTO, position: tuple | None = None,
                            volts_v=None, drive_on: bool | None = None,
                            noise_factor: float = DEFAULT_FACTOR,
                            edge_fraction: float = DEFAULT_EDGE_FRACTION) -> TraceObservation:
@@ -471,7 +472,7 @@ class RuleEngine:
     def _narrowband_fail(self, obs: TraceObservation) -> _Verdict:
         if obs.result is None:
             return None
-        in_use = obs.method_in_use == "narrowband" or obs.result.get("method") == "narrowband"
+        in_use = Method.NARROWBAND in (obs.method_in_use, obs.result.get("method"))
         ok = obs.result.get("narrowband_ok")
         if not isinstance(ok, bool):
             return None

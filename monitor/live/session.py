@@ -33,32 +33,16 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
-from ..cli import (
-    EXIT_INSTRUMENT,
-    EXIT_OK,
-    EXIT_STOPPED_BY_RULE,
-    EXIT_STORE,
-)
+from ..acoustics.settings import Method
+from ..outcome import ExitStatus
+from ..record.schema import EventKind
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop, OpenInstrument
 from .processing import TraceProcessor
 from .recorder import END, AckItem, CloseItem, EventItem, Writer
 from .rules import TickObservation
 from .snapshot import Snapshot
 
-METHODS = ("auto", "deconvolve", "narrowband")
 TICK_EVERY_S = 1.0
-
-# Exit statuses recorded in the store, with their exit codes; a worse one wins.
-STATUS_CODES = {
-    "completed": EXIT_OK,
-    "operator": EXIT_OK,
-    "stopped-by-rule": EXIT_STOPPED_BY_RULE,
-    "instrument-failure": EXIT_INSTRUMENT,
-    "internal-error": EXIT_INSTRUMENT,
-    "store-error": EXIT_STORE,
-}
-_STATUS_RANK = ("completed", "operator", "stopped-by-rule", "instrument-failure",
-                "internal-error", "store-error")
 
 
 class LiveSession:
@@ -124,14 +108,14 @@ class LiveSession:
         self._meta: dict = {}
         self._proc = TraceProcessor(
             converter=converter, rules=rules, acquisition=self._acq, record=self._put,
-            stop_by_rule=lambda reason: self._request_stop("stopped-by-rule", reason),
+            stop_by_rule=lambda reason: self._request_stop(ExitStatus.STOPPED_BY_RULE, reason),
             session_path=self.session_path, method=method or _method_of(converter),
             bell=bell, autorange_options=autorange_options, resources=self._resources)
         self._writer_thread: threading.Thread | None = None
         self._acquisition_thread: threading.Thread | None = None
         self._done = threading.Event()
         self._started = False
-        self._status: str | None = None
+        self._status: ExitStatus | None = None
         self._reason = ""
         self._message = ""
         self._lock = threading.Lock()       # guards the stop status
@@ -206,7 +190,8 @@ class LiveSession:
 
     def mark(self, note: str) -> None:
         """Record an operator mark (an event with the note)."""
-        self._put(EventItem(time.time(), "mark", {"note": str(note)}, seq=self._proc.last_seq()))
+        self._put(EventItem(time.time(), EventKind.MARK, {"note": str(note)},
+                            seq=self._proc.last_seq()))
 
     def acknowledge(self, alert_id: int) -> None:
         """Acknowledge an alert shown in the snapshot (recorded in the store)."""
@@ -215,13 +200,13 @@ class LiveSession:
 
     def set_method(self, method: str) -> None:
         """Switch the conversion method from the next trace on (recorded as an event)."""
-        if method not in METHODS:
-            raise ValueError(f"method must be one of {', '.join(METHODS)}, not {method!r}")
-        self._proc.pending_method = method
+        if method not in list(Method):
+            raise ValueError(f"method must be one of {', '.join(Method)}, not {method!r}")
+        self._proc.pending_method = Method(method)
 
     def stop(self, reason: str = "operator") -> None:
         """Ask the session to stop cleanly; returns at once (see :meth:`wait`)."""
-        self._request_stop("operator", reason)
+        self._request_stop(ExitStatus.OPERATOR, reason)
 
     def wait(self, timeout_s: float | None = None) -> bool:
         """Wait until the session has finished; True when it has."""
@@ -233,7 +218,7 @@ class LiveSession:
 
     @property
     def exit_code(self) -> int:
-        return STATUS_CODES.get(self._status or "completed", EXIT_OK)
+        return (self._status or ExitStatus.COMPLETED).exit_code
 
     @property
     def exit_status(self) -> str:
@@ -274,10 +259,9 @@ class LiveSession:
                 "committed": self._writer.committed,
                 "clipped": self._proc.clipped}
 
-    def _request_stop(self, status: str, reason: str, message: str = "") -> None:
+    def _request_stop(self, status: ExitStatus, reason: str, message: str = "") -> None:
         with self._lock:
-            if self._status is None or (_STATUS_RANK.index(status)
-                                        > _STATUS_RANK.index(self._status)):
+            if self._status is None or status.rank > self._status.rank:
                 self._status = status
                 self._reason = reason
                 if message:
@@ -302,12 +286,13 @@ class LiveSession:
             self._acq.run()
         except BaseException as err:  # a bug: record it, end the session, show it
             traceback.print_exc(file=sys.stderr)
-            self._request_stop("internal-error", f"acquisition: {type(err).__name__}: {err}")
+            self._request_stop(ExitStatus.INTERNAL_ERROR,
+                               f"acquisition: {type(err).__name__}: {err}")
         finally:
             if self._acq.fatal is not None:
-                self._request_stop("instrument-failure", self._acq.fatal, self._acq.fatal)
+                self._request_stop(ExitStatus.INSTRUMENT_FAILURE, self._acq.fatal, self._acq.fatal)
             elif self._acq.max_traces is not None and self._acq.seq >= self._acq.max_traces:
-                self._request_stop("completed", f"{self._acq.max_traces} traces acquired")
+                self._request_stop(ExitStatus.COMPLETED, f"{self._acq.max_traces} traces acquired")
             self._stop.set()
             while True:
                 try:
@@ -323,7 +308,8 @@ class LiveSession:
             self._process_loop()
         except BaseException as err:  # a bug: record it, end the session, show it
             traceback.print_exc(file=sys.stderr)
-            self._request_stop("internal-error", f"processing: {type(err).__name__}: {err}")
+            self._request_stop(ExitStatus.INTERNAL_ERROR,
+                               f"processing: {type(err).__name__}: {err}")
             self._acq.release_all()
             self._drain_raw()
         finally:
@@ -350,11 +336,11 @@ class LiveSession:
                 next_tick = now + TICK_EVERY_S
                 self._tick()
             if self._writer.error is not None:
-                self._request_stop("store-error", str(self._writer.error),
+                self._request_stop(ExitStatus.STORE_ERROR, str(self._writer.error),
                                    f"session store failed: {self._writer.error}")
             if (self._duration_s is not None and not self._stop.is_set()
                     and self.elapsed_s >= self._duration_s):
-                self._request_stop("completed", f"duration {self._duration_s:g} s reached")
+                self._request_stop(ExitStatus.COMPLETED, f"duration {self._duration_s:g} s reached")
             if item is None:
                 self._proc.flush_due()
                 continue
@@ -366,14 +352,14 @@ class LiveSession:
                 self._proc.on_trace(item)
 
     def _finish(self) -> None:
-        status = self._status or "completed"
+        status = self._status or ExitStatus.COMPLETED
         if self._status is None:
             self._status = status
         self._put(CloseItem(status, self._reason or status, self._counts))
         if self._writer_thread is not None:
             self._writer_thread.join()
         if self._writer.error is not None:
-            self._request_stop("store-error", str(self._writer.error),
+            self._request_stop(ExitStatus.STORE_ERROR, str(self._writer.error),
                                f"session store failed: {self._writer.error}; data committed "
                                f"before it is intact in {self.session_path}")
         self._proc.flush_latest()
@@ -398,5 +384,5 @@ class LiveSession:
 
 def _method_of(converter: Any) -> str:
     settings = getattr(converter, "settings", None)
-    return str(getattr(settings, "method", "auto"))
+    return str(getattr(settings, "method", Method.AUTO))
 

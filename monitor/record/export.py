@@ -2,7 +2,8 @@
 
 Results CSV
     One row per trace: ``seq``, ``time_s`` (s since the Unix epoch), the result fields
-    under the names of ``convert --json`` flattened (``RESULT_FIELDS``), then
+    under the names of ``convert --json`` flattened (the names of
+    :data:`tankside.monitor.acoustics.converter.RESULT_FIELDS`), then
     ``converted``, ``clipped``, ``range_changed`` and ``error``. Floats are written
     with ``repr`` (shortest text that reads back to the same float64); booleans as
     ``true``/``false``; a field without a value (conversion failed) is empty.
@@ -56,6 +57,7 @@ from .schema import (
     META_CALIBRATION_SHA256,
     RESULT_COLUMNS,
     RESULT_NAMES,
+    RESULT_UNITS,
     units_of,
 )
 from .steps import StepsFactory, silent
@@ -243,7 +245,7 @@ def _write_results(g, reader):
         elif c == "seq":
             _numbers(g, c, values, np.int64, "")
         else:
-            _numbers(g, c, values, np.float64)
+            _numbers(g, c, values, np.float64, RESULT_UNITS[c])
 
 
 def _write_alerts(g, alerts):

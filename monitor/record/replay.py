@@ -31,8 +31,8 @@ from pathlib import Path
 
 from .. import __version__
 from ..errors import ConfigError, SessionFileError, TanksideError
+from ..outcome import ExitStatus
 from .schema import (
-    EVENT_METHOD_CHANGE,
     META_CALIBRATION_SHA256,
     META_CALIBRATION_SOURCE,
     META_CALIBRATION_TEXT,
@@ -44,6 +44,7 @@ from .schema import (
     META_TOOL_VERSION,
     REQUIRED_FOR_REPLAY,
     RESULT_NAMES,
+    EventKind,
 )
 from .steps import StepsFactory, silent
 from .store import SessionReader, SessionStore
@@ -132,7 +133,7 @@ def _method_schedule(events: list[dict]):
     """(seq or None, time_s, method) of each recorded method change, in order."""
     out = []
     for ev in events:
-        if ev["kind"] != EVENT_METHOD_CHANGE:
+        if ev["kind"] != EventKind.METHOD_CHANGE:
             continue
         m = ev["detail"].get("method", ev["detail"].get("to"))
         if m is not None:
@@ -171,7 +172,7 @@ def replay_session(src, out, *, calibration_path=None, method: str | None = None
     calibration_path : str or Path, optional
         Another calibration file instead of the recorded one.
     method : str, optional
-        Another conversion method (``"auto"``, ``"deconvolve"``, ``"narrowband"``).
+        Another conversion method (a :class:`~tankside.monitor.acoustics.settings.Method`).
     check : bool
         Count results that differ from the recorded ones (``summary.differences``).
     progress : StepsFactory
@@ -252,9 +253,9 @@ def replay_session(src, out, *, calibration_path=None, method: str | None = None
             counts = {"traces": total, "converted": converted, "failed": failed}
             store.commit()
         except BaseException:
-            store.close("error", "replay did not finish", {"traces": store.traces_written})
+            store.close(ExitStatus.ERROR, "replay did not finish", {"traces": store.traces_written})
             raise
-        store.close("ok", "replay", counts)
+        store.close(ExitStatus.OK, "replay", counts)
     return ReplaySummary(out, total, converted, failed, time.perf_counter() - t_start,
                          differences if check else None)
 

@@ -16,11 +16,12 @@ A session file is a run record in five parts:
 ``traces``, ``results``, ``alerts``, ``events``
     one row per trace as sent (codes as a BLOB with their numpy dtype string, so the
     bytes and their byte order come back exactly), one row of parameters per trace,
-    alerts with their acknowledge time, and events (range changes, reconnects,
-    operator marks, method changes, faults).
+    alerts with their acknowledge time, and events (:class:`EventKind`: range changes,
+    reconnects, operator marks, method changes, faults, ...).
 ``session_stop`` (one row, written last)
-    stop time, exit status, reason and counts. A file without it was not stopped
-    cleanly (killed, crashed, power lost, or still being written).
+    stop time, exit status (:class:`tankside.monitor.outcome.ExitStatus`), reason and
+    counts. A file without it was not stopped cleanly (killed, crashed, power lost, or
+    still being written).
 
 Float columns are SQLite REAL (IEEE 754 binary64), so every finite float64 and the
 infinities round-trip bit for bit. SQLite stores NaN as NULL; a NULL in a result
@@ -29,6 +30,10 @@ column of a converted trace therefore reads back as NaN. SQLite also folds -0.0 
 """
 
 from __future__ import annotations
+
+import enum
+
+from ..acoustics.converter import RESULT_FIELDS
 
 FORMAT_TAG = "tankside-session"
 LAYOUT_VERSION = 1
@@ -48,42 +53,73 @@ META_REPLAY_OF = "replay_of"                  # dict, set by replay: source file
 
 REQUIRED_FOR_REPLAY = (META_CALIBRATION_TEXT, META_LOADING, META_SETTINGS, META_TEMPERATURE_C)
 
-# -- event kinds (free text is allowed; these are the ones tankside writes) -------------
-# ``seq`` of an event is the trace it concerns, or None. For ``method-change`` it is the
-# first trace converted with the new method, and ``detail`` is {"from": old, "to": new}
-# (replay follows these; a method-change without seq applies from its time_s on).
-# ``range-change`` detail: {"from_v", "to_v", ...}; ``mark``: {"note"}.
-EVENT_RANGE_CHANGE = "range-change"
-EVENT_RECONNECT = "reconnect"
-EVENT_CONNECTION_LOST = "connection-lost"
-EVENT_MARK = "mark"
-EVENT_METHOD_CHANGE = "method-change"
-EVENT_FAULT = "fault"
-EVENT_SAFE_OFF = "safe-off"
-# ``drive-on`` / ``drive-off``: the generator output changed; detail {"output_on", "cause"}
-EVENT_DRIVE_ON = "drive-on"
-EVENT_DRIVE_OFF = "drive-off"
+# -- event kinds ---------------------------------------------------------------------
 
-# -- result columns, in the order of tankside.monitor.acoustics.converter.RESULT_FIELDS ---------------
-RESULT_COLUMNS: tuple[tuple[str, str], ...] = (
-    ("method", "TEXT"),
-    ("peak_compressional_pa", "REAL"),
-    ("peak_rarefactional_pa", "REAL"),
-    ("acoustic_working_frequency_hz", "REAL"),
-    ("pulse_intensity_integral_j_per_m2", "REAL"),
-    ("pulse_duration_s", "REAL"),
-    ("pulse_average_intensity_w_per_m2", "REAL"),
-    ("mechanical_index", "REAL"),
-    ("water_temperature_c", "REAL"),
-    ("water_density_kg_per_m3", "REAL"),
-    ("water_sound_speed_m_per_s", "REAL"),
-    ("narrowband_ok", "BOOL"),
-    ("narrowband_band_low_hz", "REAL"),
-    ("narrowband_band_high_hz", "REAL"),
-    ("narrowband_max_deviation_db", "REAL"),
-    ("phase_source", "TEXT"),
-)
+
+class EventKind(enum.StrEnum):
+    """Kinds of the rows of ``events`` that tankside writes (the file allows free text).
+
+    An event's ``seq`` is the trace it concerns, or None; its ``detail`` is a JSON object
+    whose keys are listed for each kind. Actions asked for by an alert rule add the
+    rule's ``rule`` and ``seq`` to the detail.
+    """
+
+    RANGE_CHANGE = "range-change"
+    """The digitiser range was stepped: ``done``, ``from_v``, ``to_v``, then ``before_seq``
+    (the first trace at the new range) or ``error``."""
+    RECONNECT = "reconnect"
+    """The digitiser is back after a lost connection: ``attempts``, ``after_s``, ``cause``,
+    ``identity``, ``next_seq``."""
+    CONNECTION_LOST = "connection-lost"
+    """The digitiser's connection was lost (a :attr:`FAULT` of that kind, recorded under
+    its own name): ``kind``, ``message``, ``at_seq``."""
+    MARK = "mark"
+    """An operator mark: ``note``."""
+    METHOD_CHANGE = "method-change"
+    """The conversion method was switched: ``from``, ``to``; ``seq`` is the first trace
+    converted with the new method (replay follows these; one without seq applies from
+    its time_s on)."""
+    FAULT = "fault"
+    """An instrument misbehaved and the session went on: ``kind`` (a :class:`FaultKind`),
+    ``message``, ``at_seq``."""
+    SAFE_OFF = "safe-off"
+    """The generator output was switched off for a rule: ``done``, then ``before_seq``, or
+    ``error`` / ``why`` when it could not be."""
+    DRIVE_ON = "drive-on"
+    """The generator output is on: ``output_on``, ``cause`` (``start``, ``generator``),
+    ``before_seq``."""
+    DRIVE_OFF = "drive-off"
+    """The generator output is off: ``output_on``, ``cause`` (``start``, ``safe-off``,
+    ``generator``), ``before_seq``."""
+    NO_TRIGGER = "no-trigger"
+    """The digitiser did not trigger within the trigger timeout: ``message``, ``timeout_s``."""
+    RESYNC = "resync"
+    """The digitiser's link was brought back in step after a bad reply: ``after`` (the
+    error's type name)."""
+
+
+class FaultKind(enum.StrEnum):
+    """The ``kind`` in the detail of a :attr:`EventKind.FAULT` event."""
+
+    MALFORMED_REPLY = "malformed-reply"
+    """A digitiser reply that does not parse."""
+    STALLED = "stalled"
+    """No complete digitiser reply within its timeout."""
+    CONNECTION_LOST = "connection-lost"
+    """The digitiser's transport closed (recorded as :attr:`EventKind.CONNECTION_LOST`)."""
+    INSTRUMENT_ERROR = "instrument-error"
+    """Any other digitiser error (one in its error queue, a refused setting)."""
+    GENERATOR_QUERY = "generator-query"
+    """The generator did not say whether its output is on (state now unknown)."""
+
+
+# -- result columns: one per field of a trace's result, declared with its unit and dtype
+# in tankside.monitor.acoustics.converter.RESULT_FIELDS ------------------------------------
+_SQL_KINDS = {"float64": "REAL", "bool": "BOOL", "str": "TEXT"}
+RESULT_COLUMNS: tuple[tuple[str, str], ...] = tuple(
+    (f.name, _SQL_KINDS[f.dtype]) for f in RESULT_FIELDS)
 RESULT_NAMES = tuple(name for name, _ in RESULT_COLUMNS)
+RESULT_UNITS = {f.name: f.unit for f in RESULT_FIELDS}
 
 # Flags with their own column; any other flag goes to flags_json.
 FLAG_COLUMNS = ("clipped", "range_changed")
@@ -198,15 +234,15 @@ DDL = [
         counts_json TEXT NOT NULL)""",
 ]
 
-# Static descriptors: (name, table, dtype). Units come from units_of(); the codes
-# descriptor (dtype and shape of the first trace) is written with the first trace.
+# Static descriptors: (name, table, units, dtype); a trace column's units come from
+# units_of(), a result's from its field. The codes descriptor (dtype and shape of the
+# first trace) is written with the first trace.
 STATIC_DESCRIPTORS = (
-    [("time_s", "traces", "float64"), ("volts_per_code", "traces", "float64"),
-     ("offset_v", "traces", "float64"), ("dt_s", "traces", "float64"),
-     ("t0_s", "traces", "float64"), ("range_v", "traces", "float64"),
-     ("code_min", "traces", "float64"), ("code_max", "traces", "float64"),
-     ("clipped_low", "traces", "int64"), ("clipped_high", "traces", "int64")]
-    + [(name, "results", {"TEXT": "str", "BOOL": "bool", "REAL": "float64"}[kind])
-       for name, kind in RESULT_COLUMNS]
-    + [("clipped", "results", "bool"), ("range_changed", "results", "bool")]
+    [(name, "traces", units_of(name), dtype) for name, dtype in (
+        ("time_s", "float64"), ("volts_per_code", "float64"), ("offset_v", "float64"),
+        ("dt_s", "float64"), ("t0_s", "float64"), ("range_v", "float64"),
+        ("code_min", "float64"), ("code_max", "float64"), ("clipped_low", "int64"),
+        ("clipped_high", "int64"))]
+    + [(f.name, "results", f.unit, f.dtype) for f in RESULT_FIELDS]
+    + [(name, "results", units_of(name), "bool") for name in FLAG_COLUMNS]
 )

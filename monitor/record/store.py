@@ -31,6 +31,7 @@ import numpy as np
 from ...drivers.trace import RawTrace
 from .. import __version__
 from ..errors import DiskFullError, SessionFileError, StoreError
+from ..outcome import ExitStatus
 from .reader import SessionReader, StoredTrace, session_size_bytes
 from .schema import (
     BOOL_RESULTS,
@@ -52,7 +53,7 @@ from .schema import (
     RESULT_ROW_COLUMNS,
     STATIC_DESCRIPTORS,
     TRACE_COLUMNS,
-    units_of,
+    EventKind,
 )
 
 __all__ = [
@@ -249,8 +250,8 @@ class SessionStore:
             conn.executemany("INSERT INTO metadata VALUES (?, ?)", meta_rows)
             conn.executemany(
                 "INSERT INTO descriptors VALUES (?, ?, ?, ?, '[]', ?)",
-                [(name, tbl, units_of(name), dtype, source if tbl == "traces"
-                  else "conversion") for name, tbl, dtype in STATIC_DESCRIPTORS])
+                [(name, tbl, units, dtype, source if tbl == "traces"
+                  else "conversion") for name, tbl, units, dtype in STATIC_DESCRIPTORS])
             conn.execute("COMMIT")
         except sqlite3.Error as err:
             conn.close()
@@ -366,8 +367,10 @@ class SessionStore:
         if cur.rowcount != 1:
             raise StoreError(f"{self.path}: no alert {alert_id} to acknowledge")
 
-    def add_event(self, time_s: float, kind: str, detail: dict, seq: int | None = None) -> None:
-        """Record an event (kinds: the ``EVENT_*`` names of store_schema, or free text)."""
+    def add_event(self, time_s: float, kind: EventKind | str, detail: dict,
+                  seq: int | None = None) -> None:
+        """Record an event (kinds: :class:`~tankside.monitor.record.schema.EventKind`; the
+        file allows free text, and a replay copies the kinds it reads)."""
         try:
             detail_json = strict_json(detail)
         except (TypeError, ValueError) as err:
@@ -410,7 +413,7 @@ class SessionStore:
         """Bytes on disk: the database file and its WAL."""
         return session_size_bytes(self.path)
 
-    def close(self, exit_status: str, reason: str, counts: dict) -> None:
+    def close(self, exit_status: ExitStatus, reason: str, counts: dict) -> None:
         """Commit, write the stop record and close the file.
 
         After an earlier error the stop record is still attempted (a few hundred
@@ -447,6 +450,6 @@ class SessionStore:
 
     def __exit__(self, exc_type, exc, tb):
         if not self._closed:
-            status = "ok" if exc_type is None else "error"
+            status = ExitStatus.OK if exc_type is None else ExitStatus.ERROR
             reason = "finished" if exc_type is None else f"{exc_type.__name__}: {exc}"
             self.close(status, reason, {"traces": self.traces_written})
