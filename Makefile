@@ -4,13 +4,18 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed
 
+# pip -qq: errors only; the rest of what pip prints on a first set-up is not for a newcomer.
+PIP    := $(BIN)/python -m pip -qq
+
 .PHONY: demo test bench lint clean setup
 
 $(STAMP): pyproject.toml
-	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
-	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test]'
-	touch $(STAMP)
+	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	@echo "Installing tankside and its test tools into $(VENV) ..."
+	@$(PIP) install --upgrade pip
+	@$(PIP) install -e '.[test]'
+	@touch $(STAMP)
+	@echo "Ready: $(BIN)/tankside --help"
 
 setup: $(STAMP)
 
