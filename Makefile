@@ -7,7 +7,7 @@ STAMP  := $(VENV)/.installed
 # pip -qq: errors only; the rest of what pip prints on a first set-up is not for a newcomer.
 PIP    := $(BIN)/python -m pip -qq
 
-.PHONY: demo test bench lint clean setup
+.PHONY: demo test bench lint typecheck clean setup
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -24,6 +24,7 @@ demo: $(STAMP)
 
 test: $(STAMP)
 	$(BIN)/ruff check monitor drivers simulators tests
+	$(BIN)/python tests/typecheck.py
 	$(BIN)/python -m pytest -q
 
 bench: $(STAMP)
@@ -32,5 +33,8 @@ bench: $(STAMP)
 lint: $(STAMP)
 	$(BIN)/ruff check monitor drivers simulators tests
 
+typecheck: $(STAMP)
+	$(BIN)/python tests/typecheck.py
+
 clean:
-	rm -rf $(VENV) build *.egg-info
+	rm -rf $(VENV) build *.egg-info .mypy_cache

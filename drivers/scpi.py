@@ -255,7 +255,7 @@ class ScpiLink:
 
     def drain_errors(self) -> list[tuple[int, str]]:
         """Read the error queue until it reports 0; return the errors, oldest first."""
-        errors = []
+        errors: list[tuple[int, str]] = []
         for _ in range(self.max_queued_errors):
             reply = self.query(self.error_query)
             try:

@@ -15,7 +15,7 @@ from typing import TextIO
 from .live.snapshot import AlertView, Snapshot
 
 
-def fmt_si(value: float, unit: str) -> str:
+def fmt_si(value: float | None, unit: str) -> str:
     """``1.23 MPa``-style text with an SI prefix (k, M, G; m, u below 1)."""
     if value is None or not math.isfinite(value):
         return f"- {unit}".strip()

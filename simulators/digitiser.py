@@ -75,7 +75,7 @@ def quantise(volts: np.ndarray, range_v: float, offset_v: float,
     Values beyond the range clip at the rails. For float32 the codes are volts.
     """
     dtype, lo, hi = FORMATS[data_format]
-    if lo is None:
+    if lo is None or hi is None:
         half = range_v / 2
         return np.clip(volts, offset_v - half, offset_v + half).astype(dtype), 1.0, 0.0
     scale = range_v / (hi - lo + 1)
@@ -160,7 +160,7 @@ class SimulatedDigitiser(ScpiDevice):
         self.free_run_shift_s = 0.0
         self.acquisitions = 0
         self._trace: tuple[np.ndarray, float, float] | None = None
-        self._trace_for: int | None = None
+        self._trace_for: tuple[int, int] | None = None
         self._pre_key: tuple | None = None
         self._pre_blocks: list[bytes] = []
         self._pre_next = 0
@@ -256,7 +256,7 @@ class SimulatedDigitiser(ScpiDevice):
     def _scaling(self) -> tuple[float, float]:
         ch = self.state.channels[self.state.wave_source]
         _, lo, hi = FORMATS[self.state.data_format]
-        if lo is None:
+        if lo is None or hi is None:
             return 1.0, 0.0
         return ch.range_v / (hi - lo + 1), ch.offset_v
 

@@ -226,7 +226,8 @@ class Scene:
         self.params = params or SceneParameters()
         self.hydrophone = hydrophone or HydrophoneModel()
         self._drive = drive or Drive()
-        self._position = tuple(float(v) for v in position_m)
+        x, y, z = position_m
+        self._position = (float(x), float(y), float(z))
         self._lock = threading.Lock()
         self.version = 0
         self._response_cache: dict[tuple[int, float], np.ndarray] = {}

@@ -143,7 +143,13 @@ class AcquisitionLoop:
         return tuple(self.digitiser.device.ranges_v) if self.digitiser else ()
 
     def current_range_v(self) -> float:
-        return float(self.digitiser.device.settings.range_v)
+        return float(self._digitiser().device.settings.range_v)
+
+    def _digitiser(self) -> OpenInstrument:
+        digitiser = self.digitiser
+        if digitiser is None:  # pragma: no cover - every caller runs after connect()
+            raise RuntimeError("acquisition: the digitiser is not connected")
+        return digitiser
 
     # -- handshake with the processing stage -------------------------------------
     def verdict(self, seq: int) -> None:
@@ -211,7 +217,7 @@ class AcquisitionLoop:
         self._emit(AcqEvent(self.clock(), kind, detail, seq=seq, alert=alert))
 
     def _acquire_one(self) -> None:
-        dev = self.digitiser.device
+        dev = self._digitiser().device
         try:
             raw = dev.acquire(self.seq, trigger_timeout_s=self.trigger_timeout_s)
         except NoTrigger as err:
@@ -242,17 +248,18 @@ class AcquisitionLoop:
 
     def _recover(self, err: Exception) -> None:
         try:
-            self.digitiser.link.resync()
+            self._digitiser().link.resync()
         except InstrumentError:
             self._reconnect(err)
             return
         self._event("resync", {"after": type(err).__name__})
 
     def _reconnect(self, err: Exception) -> None:
-        _close(self.digitiser)
+        lost = self._digitiser()
+        _close(lost)
         self.connected = False
         self.reconnecting = True
-        settings = getattr(self.digitiser.device, "settings", None)
+        settings = getattr(lost.device, "settings", None)
         started = time.monotonic()
         attempt = 0
         last_error = err
@@ -303,6 +310,12 @@ class AcquisitionLoop:
         if ranges:
             self._set_range(*ranges[-1][1:])
 
+    def _open_generator(self) -> OpenInstrument:
+        open_generator = self.open_generator
+        if open_generator is None:  # pragma: no cover - no generator is open without it
+            raise RuntimeError("acquisition: no generator is configured")
+        return open_generator()
+
     def _safe_off(self, cause: dict) -> None:
         if self.generator is None:
             self._event("safe-off", {"done": False, "why": "no generator configured", **cause},
@@ -315,7 +328,7 @@ class AcquisitionLoop:
         except InstrumentError as err:
             try:
                 _close(self.generator)
-                self.generator = self.open_generator()
+                self.generator = self._open_generator()
                 self.generator.device.set_output(False)
                 still_on = self.generator.device.output_is_on()
             except InstrumentError as again:
@@ -373,7 +386,7 @@ class AcquisitionLoop:
         if new_v == old_v:
             return
         try:
-            self.digitiser.device.set_range(new_v)
+            self._digitiser().device.set_range(new_v)
         except InstrumentError as err:
             self._event("range-change", {"done": False, "from_v": old_v, "to_v": new_v,
                                          "error": str(err), **cause},

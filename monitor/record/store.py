@@ -25,6 +25,7 @@ import time
 import uuid
 from collections.abc import Callable
 from pathlib import Path
+from typing import NoReturn
 
 import numpy as np
 
@@ -283,7 +284,7 @@ class SessionStore:
         self._pending += 1
         return out
 
-    def _fail(self, err: sqlite3.Error, doing: str):
+    def _fail(self, err: sqlite3.Error, doing: str) -> NoReturn:
         mapped = _map_error(err, doing, self.path)
         self._failed = str(mapped)
         try:
