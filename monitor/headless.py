@@ -28,7 +28,8 @@ def fmt_si(value: float | None, unit: str) -> str:
 
 
 def status_line(snap: Snapshot, alert_count: int | None = None) -> str:
-    """One line: seq, rate, source state, p_c/p_r/MI of the last trace, narrowband, counts, queue."""
+    """One line: seq, rate, source state, p_c/p_r/MI of the last trace, narrowband, counts,
+    queue."""
     r = snap.result or {}
     if snap.narrowband_ok is None:
         nb = "narrowband -"

@@ -4,7 +4,8 @@ Identity ``TANKSIDE,SIMDIG-2,0001,1.0``. Two channels; channel 1 carries the hyd
 the shared :class:`~tankside.simulators.scene.Scene`, channel 2 is unconnected (noise only).
 The trigger comes from the generator's sync output on EXT (one per burst period) unless
 the source is IMMediate: then the record starts at once, at a random moment of the burst
-cycle, so it holds the pulse only by chance (as on a real free-running digitiser). Commands (short forms in capitals, ``#`` = optional channel suffix):
+cycle, so it holds the pulse only by chance (as on a real free-running digitiser).
+Commands (short forms in capitals, ``#`` = optional channel suffix):
 
 =====================================  ==================================================
 ``ACQuire:POINts <n>`` / ``?``          record length, 16 .. 4,000,000 samples
@@ -203,14 +204,17 @@ class SimulatedDigitiser(ScpiDevice):
     # ------------------------------------------------------------ registration
     def _register(self) -> None:
         a = self.add
-        a("ACQuire:POINts", write=self._set_points, query=lambda x, s: self._q(x, self.state.points))
-        a("ACQuire:SRATe", write=self._set_rate, query=lambda x, s: self._qf(x, self.sample_rate_hz))
+        a("ACQuire:POINts", write=self._set_points,
+          query=lambda x, s: self._q(x, self.state.points))
+        a("ACQuire:SRATe", write=self._set_rate,
+          query=lambda x, s: self._qf(x, self.sample_rate_hz))
         a("ACQuire:AVERage", write=self._set_averages,
           query=lambda x, s: self._q(x, self.state.averages))
         a("ACQuire:DONE", query=lambda x, s: self._q(x, int(self.done())))
         a("INITiate[:IMMediate]", write=self._arm)
         a("ABORt", write=self._abort)
-        a("CHANnel#:RANGe", write=self._set_range, query=lambda x, s: self._qf(x, self._ch(s).range_v))
+        a("CHANnel#:RANGe", write=self._set_range,
+          query=lambda x, s: self._qf(x, self._ch(s).range_v))
         a("CHANnel#:OFFSet", write=self._set_offset,
           query=lambda x, s: self._qf(x, self._ch(s).offset_v))
         a("CHANnel#:COUPling", write=self._set_coupling,
@@ -221,7 +225,8 @@ class SimulatedDigitiser(ScpiDevice):
           query=lambda x, s: self._q(x, self.state.trigger_source))
         a("TRIGger:LEVel", write=self._set_trigger_level,
           query=lambda x, s: self._qf(x, self.state.trigger_level_v))
-        a("TRIGger:SLOPe", write=self._set_slope, query=lambda x, s: self._q(x, self.state.trigger_slope))
+        a("TRIGger:SLOPe", write=self._set_slope,
+          query=lambda x, s: self._q(x, self.state.trigger_slope))
         a("TRIGger:DELay", write=self._set_delay,
           query=lambda x, s: self._qf(x, self.state.trigger_delay_s))
         a("WAVeform:SOURce", write=self._set_wave_source,

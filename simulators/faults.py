@@ -173,7 +173,8 @@ class FaultPlan:
 
 
 def apply_block_fault(reply: bytes, kind: str, arg: int | None) -> tuple[bytes, bool]:
-    """Corrupt a block reply (``#<n><len><data>\\n``); return the bytes to send and whether to close.
+    """Corrupt a block reply (``#<n><len><data>\\n``); return the bytes to send and whether
+    to close.
 
     Pure, so the corruption itself is testable without a socket.
     """

@@ -45,12 +45,14 @@ class SimulatedGenerator(ScpiDevice):
         self.scene = scene
         self.power_on = power_on or scene.drive
         a = self.add
-        a("OUTPut[:STATe]", write=self._set_output, query=lambda x, s: self._q(x, int(self.drive.output_on)))
+        a("OUTPut[:STATe]", write=self._set_output,
+          query=lambda x, s: self._q(x, int(self.drive.output_on)))
         a("[SOURce]:VOLTage[:AMPLitude]", write=self._set_amplitude,
           query=lambda x, s: self._qf(x, self.drive.amplitude_vpp))
         a("[SOURce]:FREQuency[:CW]", write=self._set_frequency,
           query=lambda x, s: self._qf(x, self.drive.frequency_hz))
-        a("BURSt:NCYCles", write=self._set_cycles, query=lambda x, s: self._q(x, self.drive.burst_cycles))
+        a("BURSt:NCYCles", write=self._set_cycles,
+          query=lambda x, s: self._q(x, self.drive.burst_cycles))
         a("BURSt:PERiod", write=self._set_period,
           query=lambda x, s: self._qf(x, self.drive.burst_period_s))
 

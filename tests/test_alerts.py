@@ -59,7 +59,8 @@ def _rst_tables(text):
                 else:
                     cells = [line[a:b].strip() for a, b in spans]
                     if not cells[0] and rows:
-                        rows[-1] = [f"{old} {new}".strip() for old, new in zip(rows[-1], cells, strict=True)]
+                        rows[-1] = [f"{old} {new}".strip()
+                                    for old, new in zip(rows[-1], cells, strict=True)]
                     else:
                         rows.append(cells)
                 i += 1

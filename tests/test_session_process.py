@@ -290,6 +290,7 @@ class TestTransferable:
 
     def test_errors_with_several_arguments_keep_message_and_family(self):
         cal = transferable(CalibrationError("cal.csv", 4, "magnitude must be positive"))
-        assert type(cal) is TanksideError and str(cal) == "cal.csv, line 4: magnitude must be positive"
+        assert type(cal) is TanksideError
+        assert str(cal) == "cal.csv, line 4: magnitude must be positive"
         inst = transferable(InstrumentReportedError(-222, "Data out of range", command="VOLT 9"))
         assert type(inst) is InstrumentError and "-222" in str(inst) and "VOLT 9" in str(inst)

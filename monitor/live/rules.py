@@ -9,44 +9,55 @@ Rules
 -----
 Every threshold is inclusive: a rule fires when its value *reaches* the threshold.
 
-============================  ==========================================================  ========  ===============================
-rule                          fires when                                                  severity  default actions
-============================  ==========================================================  ========  ===============================
-clipping                      samples at the ADC rails >= min_samples                     warning   record, bell, auto-range
-over_pressure                 max(p_c, |p_r|) >= the lower of rated_max_pa and limit_pa   critical  record, bell, safe-off
-range_under_use               fraction of full scale <= below_fraction for                info      record, auto-range
-                              consecutive_traces traces in a row on one range
-no_trigger                    seconds since the last trigger >= after_s                   warning   record, bell
-pr_drift                      p_r moves by >= max_change_percent between the first and    warning   record, bell
-                              last half of a window_traces window at one position
-narrowband_fail               narrowband check fails while the narrowband method is used  warning   record
-conversion_failed             a trace could not be converted to pressure                  warning   record
-no_pulse                      the trace holds no pulse: its peak from the median is       info      record
-                              below noise_factor robust noise sigmas (edge_fraction)
-disk_space_low                free bytes on the session disk <= min_free_bytes            warning   record, bell
-falling_behind                queue depth / queue capacity >= queue_fraction              warning   record, bell
-store_lag                     oldest trace not yet committed is >= max_lag_s old          warning   record
-============================  ==========================================================  ========  ===============================
+=================  =============================================  ========  ========================
+rule               fires when                                     severity  default actions
+=================  =============================================  ========  ========================
+clipping           samples at the ADC rails >= min_samples        warning   record, bell, auto-range
+over_pressure      max(p_c, |p_r|) >= the lower of rated_max_pa   critical  record, bell, safe-off
+                   and limit_pa
+range_under_use    fraction of full scale <= below_fraction for   info      record, auto-range
+                   consecutive_traces traces in a row on one
+                   range
+no_trigger         seconds since the last trigger >= after_s      warning   record, bell
+pr_drift           p_r moves by >= max_change_percent between     warning   record, bell
+                   the first and last half of a window_traces
+                   window at one position
+narrowband_fail    narrowband check fails while the narrowband    warning   record
+                   method is used
+conversion_failed  a trace could not be converted to pressure     warning   record
+no_pulse           the trace holds no pulse: its peak from the    info      record
+                   median is below noise_factor robust noise
+                   sigmas (edge_fraction)
+disk_space_low     free bytes on the session disk <=              warning   record, bell
+                   min_free_bytes
+falling_behind     queue depth / queue capacity >=                warning   record, bell
+                   queue_fraction
+store_lag          oldest trace not yet committed is >=           warning   record
+                   max_lag_s old
+=================  =============================================  ========  ========================
 
 Thresholds
 ----------
-================  ==================  =======  =============  ============================================
-rule              key                 units    default        meaning
-================  ==================  =======  =============  ============================================
-clipping          min_samples         samples  1              samples at either rail in one trace
-over_pressure     rated_max_pa        Pa       1.0e7          hydrophone's rated maximum pressure
-over_pressure     limit_pa            Pa       unset          optional user limit (the lower one applies)
-range_under_use   below_fraction      1        0.3            fraction of half the full-scale span
-range_under_use   consecutive_traces  traces   10             under-used traces in a row before firing
-no_trigger        after_s             s        5.0            time without a trigger
-pr_drift          max_change_percent  %        10.0           change of p_r relative to the first half
-pr_drift          window_traces       traces   20             traces in the window (at one position)
-no_pulse          noise_factor        1        8.0            peak over robust noise sigma that counts as a pulse
-no_pulse          edge_fraction       1        0.1            share of the record at each end for the noise
-disk_space_low    min_free_bytes      bytes    1000000000     free space left on the session disk
-falling_behind    queue_fraction      1        0.8            share of the processing queue in use
-store_lag         max_lag_s           s        5.0            age of the oldest uncommitted trace
-================  ==================  =======  =============  ============================================
+===============  ==================  =======  ==========  ==========================================
+rule             key                 units    default     meaning
+===============  ==================  =======  ==========  ==========================================
+clipping         min_samples         samples  1           samples at either rail in one trace
+over_pressure    rated_max_pa        Pa       1.0e7       hydrophone's rated maximum pressure
+over_pressure    limit_pa            Pa       unset       optional user limit (the lower one
+                                                          applies)
+range_under_use  below_fraction      1        0.3         fraction of half the full-scale span
+range_under_use  consecutive_traces  traces   10          under-used traces in a row before firing
+no_trigger       after_s             s        5.0         time without a trigger
+pr_drift         max_change_percent  %        10.0        change of p_r relative to the first half
+pr_drift         window_traces       traces   20          traces in the window (at one position)
+no_pulse         noise_factor        1        8.0         peak over robust noise sigma that counts
+                                                          as a pulse
+no_pulse         edge_fraction       1        0.1         share of the record at each end for the
+                                                          noise
+disk_space_low   min_free_bytes      bytes    1000000000  free space left on the session disk
+falling_behind   queue_fraction      1        0.8         share of the processing queue in use
+store_lag        max_lag_s           s        5.0         age of the oldest uncommitted trace
+===============  ==================  =======  ==========  ==========================================
 
 The default ``rated_max_pa`` is a placeholder of the order of a needle hydrophone's
 rating (common practice); set it from the hydrophone's data sheet.

@@ -625,7 +625,8 @@ class LiveSession:
 
     def _publish(self, state: str | None = None, **fields) -> None:
         snap = dataclasses.replace(
-            self._snap, **fields, converted=self._converted, traces_per_s=self._rate.rate(time.monotonic()),
+            self._snap, **fields, converted=self._converted,
+            traces_per_s=self._rate.rate(time.monotonic()),
             range_v=self._range_v, range_fraction_used=self._fraction,
             clipped_traces=self._clipped, instruments=self._instrument_views(),
             drive_on=self._drive_on,

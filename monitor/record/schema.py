@@ -64,7 +64,7 @@ EVENT_SAFE_OFF = "safe-off"
 EVENT_DRIVE_ON = "drive-on"
 EVENT_DRIVE_OFF = "drive-off"
 
-# -- result columns, in the order of tankside.monitor.acoustics.converter.RESULT_FIELDS ---------------
+# -- result columns, in the order of tankside.monitor.acoustics.converter.RESULT_FIELDS ----
 RESULT_COLUMNS: tuple[tuple[str, str], ...] = (
     ("method", "TEXT"),
     ("peak_compressional_pa", "REAL"),

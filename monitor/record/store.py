@@ -323,10 +323,12 @@ class SessionStore:
             self._conn.execute(
                 f"INSERT INTO traces VALUES ({','.join('?' * len(TRACE_COLUMNS))})", trace_row)
             self._conn.execute(
-                f"INSERT INTO results VALUES ({','.join('?' * len(RESULT_ROW_COLUMNS))})", result_row)
+                f"INSERT INTO results VALUES ({','.join('?' * len(RESULT_ROW_COLUMNS))})",
+                result_row)
             if not self._codes_described:
                 self._conn.execute(
-                    "INSERT OR REPLACE INTO descriptors VALUES ('codes', 'traces', 'code', ?, ?, ?)",
+                    "INSERT OR REPLACE INTO descriptors "
+                    "VALUES ('codes', 'traces', 'code', ?, ?, ?)",
                     (codes.dtype.str, strict_json([int(codes.shape[0])]), self._source))
         self._write(f"recording trace {raw.seq}", insert)
         self._codes_described = True
