@@ -4,13 +4,18 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed
 
-.PHONY: demo test bench lint clean setup
+# pip -qq: errors only; the rest of what pip prints on a first set-up is not for a newcomer.
+PIP    := $(BIN)/python -m pip -qq
+
+.PHONY: demo test bench lint typecheck clean setup
 
 $(STAMP): pyproject.toml
-	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
-	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test]'
-	touch $(STAMP)
+	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	@echo "Installing tankside and its test tools into $(VENV) ..."
+	@$(PIP) install --upgrade pip
+	@$(PIP) install -e '.[test]'
+	@touch $(STAMP)
+	@echo "Ready: $(BIN)/tankside --help"
 
 setup: $(STAMP)
 
@@ -19,6 +24,7 @@ demo: $(STAMP)
 
 test: $(STAMP)
 	$(BIN)/ruff check monitor drivers simulators tests
+	$(BIN)/python tests/typecheck.py
 	$(BIN)/python -m pytest -q
 
 bench: $(STAMP)
@@ -27,5 +33,8 @@ bench: $(STAMP)
 lint: $(STAMP)
 	$(BIN)/ruff check monitor drivers simulators tests
 
+typecheck: $(STAMP)
+	$(BIN)/python tests/typecheck.py
+
 clean:
-	rm -rf $(VENV) build *.egg-info
+	rm -rf $(VENV) build *.egg-info .mypy_cache

@@ -85,7 +85,7 @@ class DigitiserSettings:
         return dataclasses.replace(self, **changes)
 
 
-def decode_codes(payload: bytes, dtype: np.dtype) -> np.ndarray:
+def decode_codes(payload: bytes | bytearray, dtype: np.dtype) -> np.ndarray:
     """Samples of a block payload, in native byte order, values exactly as sent.
 
     Raises

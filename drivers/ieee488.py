@@ -28,12 +28,12 @@ _NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
 _ERROR = re.compile(r'\s*([+-]?\d+)\s*,\s*"((?:[^"]|"")*)"\s*')
 
 
-def _show(data: bytes, limit: int = 24) -> str:
+def _show(data: bytes | bytearray, limit: int = 24) -> str:
     text = repr(bytes(data[:limit]))
     return text + ("..." if len(data) > limit else "")
 
 
-def header_digit_count(prefix: bytes) -> int:
+def header_digit_count(prefix: bytes | bytearray) -> int:
     """Number of length digits announced by the first two bytes of a block, ``#<n>``.
 
     Parameters
@@ -66,7 +66,7 @@ def header_digit_count(prefix: bytes) -> int:
     return int(digit)
 
 
-def payload_length(digits: bytes, n_digits: int) -> int:
+def payload_length(digits: bytes | bytearray, n_digits: int) -> int:
     """Payload byte count from the ``<len>`` digits of a block header.
 
     Raises

@@ -70,6 +70,13 @@ class Prober:
         self.profile = profile
         self.rows: list[Row] = []
 
+    @property
+    def _profile(self) -> Profile:
+        """The profile; the operations below are tried only when one was given."""
+        if self.profile is None:  # pragma: no cover - run() returns first without one
+            raise RuntimeError("probe: no profile to try")
+        return self.profile
+
     def _try(self, operation: str, command: str, action) -> str | None:
         """Run ``action()``; record ok with its detail, or failed with the reason."""
         try:
@@ -108,9 +115,9 @@ class Prober:
 
     def queries(self, keys, parse=None) -> None:
         for key in keys:
-            if not self.profile.has(key):
+            if not self._profile.has(key):
                 continue
-            command = self.profile.command(key, channel=1)
+            command = self._profile.command(key, channel=1)
 
             def action(command=command, key=key):
                 reply = self._query(command)
@@ -121,14 +128,14 @@ class Prober:
 
     def settings(self, steps) -> None:
         for set_key, read_key, placeholder in steps:
-            if not self.profile.has(set_key):
+            if not self._profile.has(set_key):
                 continue
-            template = self.profile.commands[set_key]
-            if not self.profile.has(read_key):
+            template = self._profile.commands[set_key]
+            if not self._profile.has(read_key):
                 self.rows.append(Row(set_key, template, Outcome.NOT_TRIED,
                                      f"no {read_key} in the profile to restore it"))
                 continue
-            read_cmd = self.profile.command(read_key, channel=1)
+            read_cmd = self._profile.command(read_key, channel=1)
             try:
                 before = self._query(read_cmd)
             except ConnectionLost:
@@ -138,7 +145,7 @@ class Prober:
                                      f"cannot read it back ({read_key}): {err.message}"))
                 continue
             try:
-                command = self.profile.command(set_key, channel=1, **{placeholder: before})
+                command = self._profile.command(set_key, channel=1, **{placeholder: before})
             except (ValueError, KeyError) as err:
                 self.rows.append(Row(set_key, template, Outcome.NOT_TRIED,
                                      f"read-back {before!r} does not fill the template: {err}"))
@@ -155,18 +162,19 @@ class Prober:
             self._try(set_key, command, action)
 
     def output_state(self) -> None:
-        values = self.profile.values
+        values = self._profile.values
         try:
-            on = ieee488.parse_bool(self._query(self.profile.command("get_output")),
+            on = ieee488.parse_bool(self._query(self._profile.command("get_output")),
                                     true_replies=values["output_on_replies"],
                                     false_replies=values["output_off_replies"])
         except ConnectionLost:
             raise
         except InstrumentError as err:
-            self.rows.append(Row("set_output", self.profile.commands["set_output"], Outcome.NOT_TRIED,
+            self.rows.append(Row("set_output", self._profile.commands["set_output"],
+                                 Outcome.NOT_TRIED,
                                  f"output state unreadable: {err.message}"))
             return
-        command = self.profile.command("set_output",
+        command = self._profile.command("set_output",
                                        state=values["output_on" if on else "output_off"])
 
         def action():
@@ -178,17 +186,17 @@ class Prober:
         keys = ("arm_single", "acquisition_done", "fetch_waveform")
         if not allowed:
             for key in keys:
-                if self.profile.has(key):
-                    self.rows.append(Row(key, self.profile.commands[key], Outcome.NOT_TRIED,
+                if self._profile.has(key):
+                    self.rows.append(Row(key, self._profile.commands[key], Outcome.NOT_TRIED,
                                          "use --acquire"))
             return
-        arm = self.profile.command("arm_single", channel=1)
+        arm = self._profile.command("arm_single", channel=1)
 
         def arm_action():
             self.link.write_step(arm)
         self._try("arm_single", arm, arm_action)
-        if self.profile.has("acquisition_done"):
-            done = self.profile.command("acquisition_done", channel=1)
+        if self._profile.has("acquisition_done"):
+            done = self._profile.command("acquisition_done", channel=1)
 
             def wait_done():
                 deadline = time.monotonic() + self.trigger_timeout_s
@@ -199,27 +207,27 @@ class Prober:
                 return "1"
             if self._try("acquisition_done", done, wait_done) is None:
                 return
-        fetch = self.profile.command("fetch_waveform", channel=1)
+        fetch = self._profile.command("fetch_waveform", channel=1)
 
         def fetch_action():
-            codes = decode_codes(self.link.query_block(fetch), self.profile.dtype)
-            return f"{codes.size} samples ({self.profile.data_format})"
+            codes = decode_codes(self.link.query_block(fetch), self._profile.dtype)
+            return f"{codes.size} samples ({self._profile.data_format})"
         self._try("fetch_waveform", fetch, fetch_action)
 
     def run(self, acquire: bool) -> None:
         self.common()
         if self.profile is None:
             return
-        if self.profile.kind == "digitiser":
+        if self._profile.kind == "digitiser":
             self.queries(("get_time_step", "get_time_origin", "get_volts_per_code", "get_offset"))
             self.settings(_DIGITISER_SETTINGS)
             self.acquisition(acquire)
         else:
             self.queries(("get_output",), parse=lambda r: ieee488.parse_bool(
-                r, true_replies=self.profile.values["output_on_replies"],
-                false_replies=self.profile.values["output_off_replies"]))
+                r, true_replies=self._profile.values["output_on_replies"],
+                false_replies=self._profile.values["output_off_replies"]))
             self.settings(_GENERATOR_SETTINGS)
             self.output_state()
-        if self.profile.has("reset"):
-            self.rows.append(Row("reset", self.profile.commands["reset"], Outcome.NOT_TRIED,
+        if self._profile.has("reset"):
+            self.rows.append(Row("reset", self._profile.commands["reset"], Outcome.NOT_TRIED,
                                  "would change every setting"))

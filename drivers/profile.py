@@ -198,7 +198,8 @@ def parse_profile(text: str, source: str = "<text>") -> Profile:
         if key in transport:
             value = transport[key]
             if not isinstance(value, str) or not value.isascii():
-                raise _fail(source, f"[transport] {key}", f"expected an ASCII string, got {value!r}")
+                raise _fail(source, f"[transport] {key}",
+                            f"expected an ASCII string, got {value!r}")
             out[key] = value
     if "timeout_s" in transport:
         out["timeout_s"] = _number(source, "[transport] timeout_s", transport["timeout_s"],

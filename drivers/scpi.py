@@ -27,9 +27,9 @@ from .errors import (
     InstrumentTimeout,
     ProtocolError,
 )
+from .pyvisa_py_internals import raise_recv_size
 from .visa import (
     DirectReader,
-    backend_session,
     flush_input,
     open_resource,
     peer_closed,
@@ -109,9 +109,7 @@ class ScpiLink:
         self.resource = resource
         self._rterm = (resource.read_termination or "").encode("ascii")
         self._wterm = (resource.write_termination or "").encode("ascii")
-        backend = backend_session(resource)
-        if backend is not None and isinstance(getattr(backend, "max_recv_size", None), int):
-            backend.max_recv_size = max(backend.max_recv_size, BLOCK_RECV_SIZE)
+        raise_recv_size(resource, BLOCK_RECV_SIZE)
         self._direct = DirectReader.for_resource(resource) if self.direct_block_reads else None
 
     @property
@@ -255,7 +253,7 @@ class ScpiLink:
 
     def drain_errors(self) -> list[tuple[int, str]]:
         """Read the error queue until it reports 0; return the errors, oldest first."""
-        errors = []
+        errors: list[tuple[int, str]] = []
         for _ in range(self.max_queued_errors):
             reply = self.query(self.error_query)
             try:

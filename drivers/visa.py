@@ -16,6 +16,7 @@ import pyvisa
 from pyvisa import constants
 
 from .errors import ConnectionLost, InstrumentError, InstrumentTimeout
+from .pyvisa_py_internals import backend_socket, buffered_socket, pending_buffer
 
 # VISA status codes that mean the link itself is gone (VPP-4.3 status names).
 _LINK_GONE = {
@@ -62,30 +63,6 @@ def translate_error(err: BaseException, *, resource: str | None, doing: str) -> 
     return ConnectionLost(f"unexpected failure during {doing}: {err!r}", resource=resource)
 
 
-def backend_socket(res) -> socket.socket | None:
-    """The socket under a pyvisa-py TCPIP SOCKET resource, or None for other backends."""
-    sock = getattr(backend_session(res), "interface", None)
-    return sock if isinstance(sock, socket.socket) else None
-
-
-def backend_session(res):
-    """pyvisa-py's session object for ``res``, or None for other backends."""
-    sessions = getattr(getattr(res, "visalib", None), "sessions", None)
-    if not isinstance(sessions, dict):
-        return None
-    return sessions.get(getattr(res, "session", None))
-
-
-def _buffered_socket(res):
-    """``(backend, socket)`` of a pyvisa-py SOCKET resource that keeps its own receive
-    buffer (``_pending_buffer``, pyvisa-py 0.7 and 0.8), or None for anything else."""
-    backend = backend_session(res)
-    sock = backend_socket(res)
-    if sock is None or not isinstance(getattr(backend, "_pending_buffer", None), bytearray):
-        return None
-    return backend, sock
-
-
 class DirectReader:
     """Exact byte counts read straight from the socket under a pyvisa-py SOCKET resource.
 
@@ -105,7 +82,7 @@ class DirectReader:
     @classmethod
     def for_resource(cls, res) -> DirectReader | None:
         """A reader for ``res``, or None when it is not a pyvisa-py socket resource."""
-        found = _buffered_socket(res)
+        found = buffered_socket(res)
         if found is None or not hasattr(socket, "MSG_DONTWAIT"):   # not on Windows
             return None
         return cls(*found)
@@ -123,9 +100,9 @@ class DirectReader:
         out = bytearray(count)
         with memoryview(out) as view:
             # pyvisa-py replaces its buffer object on every read: look it up each time
-            pending = self._backend._pending_buffer
-            got = min(len(pending), count)
-            if got:
+            pending = pending_buffer(self._backend)
+            got = min(len(pending), count) if pending is not None else 0
+            if pending is not None and got:
                 view[:got] = pending[:got]
                 del pending[:got]
             deadline = None
@@ -260,12 +237,14 @@ def flush_input(res, *, quiet_s: float = 0.05, limit_s: float = 2.0) -> None:
     ConnectionLost
         The peer has closed the connection.
     """
-    found = _buffered_socket(res)
+    found = buffered_socket(res)
     if found is None:
         res.clear()
         return
     backend, sock = found
-    backend._pending_buffer.clear()
+    pending = pending_buffer(backend)
+    if pending is not None:
+        pending.clear()
     deadline = time.monotonic() + limit_s
     while time.monotonic() < deadline:
         readable, _, _ = select.select([sock], [], [], quiet_s)

@@ -49,6 +49,9 @@ class OutOfBandError(TanksideError):
 class ConfigError(TanksideError):
     """A bench file, profile choice or command-line setting that cannot be used."""
 
+    key: str | None = None
+    """The setting at fault (``"clipping.min_samples"``), where the raiser names one."""
+
 
 class StoreError(TanksideError):
     """The session store cannot be written or read."""

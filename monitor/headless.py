@@ -16,7 +16,7 @@ from .live.snapshot import AlertView, Snapshot
 from .outcome import ExitStatus
 
 
-def fmt_si(value: float, unit: str) -> str:
+def fmt_si(value: float | None, unit: str) -> str:
     """``1.23 MPa``-style text with an SI prefix (k, M, G; m, u below 1)."""
     if value is None or not math.isfinite(value):
         return f"- {unit}".strip()
@@ -29,7 +29,8 @@ def fmt_si(value: float, unit: str) -> str:
 
 
 def status_line(snap: Snapshot, alert_count: int | None = None) -> str:
-    """One line: seq, rate, source state, p_c/p_r/MI of the last trace, narrowband, counts, queue."""
+    """One line: seq, rate, source state, p_c/p_r/MI of the last trace, narrowband, counts,
+    queue."""
     r = snap.result or {}
     if snap.narrowband_ok is None:
         nb = "narrowband -"

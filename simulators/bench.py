@@ -68,7 +68,8 @@ class SimulatedBench:
                  scene_parameters: SceneParameters | None = None, drive: Drive | None = None,
                  noise_v_rms: float = 0.3e-3, jitter_s: float = 0.5e-9, start: bool = True):
         if not (port == 0 or 1 <= port <= 65534):
-            raise ValueError(f"port must be 0 or 1..65534 (the generator takes port + 1), got {port}")
+            raise ValueError(f"port must be 0 or 1..65534 (the generator takes port + 1), "
+                             f"got {port}")
         self.faults = faults if faults is not None else FaultPlan()
         self.seed = seed
         drive = drive or Drive()
@@ -142,7 +143,8 @@ class SimulatedBench:
 
     # ------------------------------------------------------------ bench file
     def bench_file_text(self, *, session_folder: str = "sessions") -> str:
-        """The bench TOML (the layout tankside.monitor.live.benchfile reads) for this bench, as text."""
+        """The bench TOML (the layout tankside.monitor.live.benchfile reads) for this bench,
+        as text."""
         d = self.scene.drive
         s = BENCH_DEFAULTS
         return "\n".join([

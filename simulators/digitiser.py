@@ -4,7 +4,8 @@ Identity ``TANKSIDE,SIMDIG-2,0001,1.0``. Two channels; channel 1 carries the hyd
 the shared :class:`~tankside.simulators.scene.Scene`, channel 2 is unconnected (noise only).
 The trigger comes from the generator's sync output on EXT (one per burst period) unless
 the source is IMMediate: then the record starts at once, at a random moment of the burst
-cycle, so it holds the pulse only by chance (as on a real free-running digitiser). Commands (short forms in capitals, ``#`` = optional channel suffix):
+cycle, so it holds the pulse only by chance (as on a real free-running digitiser).
+Commands (short forms in capitals, ``#`` = optional channel suffix):
 
 =====================================  ==================================================
 ``ACQuire:POINts <n>`` / ``?``          record length, 16 .. 4,000,000 samples
@@ -75,7 +76,7 @@ def quantise(volts: np.ndarray, range_v: float, offset_v: float,
     Values beyond the range clip at the rails. For float32 the codes are volts.
     """
     dtype, lo, hi = FORMATS[data_format]
-    if lo is None:
+    if lo is None or hi is None:
         half = range_v / 2
         return np.clip(volts, offset_v - half, offset_v + half).astype(dtype), 1.0, 0.0
     scale = range_v / (hi - lo + 1)
@@ -160,7 +161,7 @@ class SimulatedDigitiser(ScpiDevice):
         self.free_run_shift_s = 0.0
         self.acquisitions = 0
         self._trace: tuple[np.ndarray, float, float] | None = None
-        self._trace_for: int | None = None
+        self._trace_for: tuple[int, int] | None = None
         self._pre_key: tuple | None = None
         self._pre_blocks: list[bytes] = []
         self._pre_next = 0
@@ -232,7 +233,8 @@ class SimulatedDigitiser(ScpiDevice):
         self.add("WAVeform:FORMat", write=self._set_format,
                  query=self.text_reply(lambda s: self.state.data_format.upper()))
         self.add("WAVeform:BORDer", write=self._set_border,
-                 query=self.text_reply(lambda s: "LSBF" if self.state.byte_order == "little" else "MSBF"))
+                 query=self.text_reply(lambda s: "LSBF"
+                                              if self.state.byte_order == "little" else "MSBF"))
         self.add("WAVeform:DATA", query=self._fetch)
         self.add("WAVeform:XINCrement", query=self.number_reply(lambda s: self.time_step_s))
         self.add("WAVeform:XORigin", query=self.number_reply(lambda s: self.state.trigger_delay_s))
@@ -261,7 +263,7 @@ class SimulatedDigitiser(ScpiDevice):
     def _scaling(self) -> tuple[float, float]:
         ch = self.state.channels[self.state.wave_source]
         _, lo, hi = FORMATS[self.state.data_format]
-        if lo is None:
+        if lo is None or hi is None:
             return 1.0, 0.0
         return ch.range_v / (hi - lo + 1), ch.offset_v
 

@@ -44,7 +44,7 @@ class FaultPlan:
         self._lock = threading.Lock()
         self._drop: dict[str, int] = {}
         self._stall: dict[str, list[float]] = {}
-        self._block: dict[str, list[tuple[str, object]]] = {}
+        self._block: dict[str, list[tuple[str, int | None]]] = {}
         self._missed: dict[str, int] = {}
         self._errors: dict[str, list[_ErrorFault]] = {}
         self.fired: list[tuple[str, str]] = []
@@ -140,7 +140,7 @@ class FaultPlan:
             self._fire(device, "stall")
             return stalls.pop(0)
 
-    def take_block_fault(self, device: str) -> tuple[str, object] | None:
+    def take_block_fault(self, device: str) -> tuple[str, int | None] | None:
         with self._lock:
             blocks = self._block.get(device)
             if not blocks:
@@ -172,8 +172,9 @@ class FaultPlan:
             return None
 
 
-def apply_block_fault(reply: bytes, kind: str, arg: object) -> tuple[bytes, bool]:
-    """Corrupt a block reply (``#<n><len><data>\\n``); return the bytes to send and whether to close.
+def apply_block_fault(reply: bytes, kind: str, arg: int | None) -> tuple[bytes, bool]:
+    """Corrupt a block reply (``#<n><len><data>\\n``); return the bytes to send and whether
+    to close.
 
     Pure, so the corruption itself is testable without a socket.
     """

@@ -109,7 +109,8 @@ def calibration_frequencies_hz() -> np.ndarray:
 def calibration_csv_text(model: HydrophoneModel | None = None,
                          frequency_hz: np.ndarray | None = None, *,
                          magnitude: str = "db") -> str:
-    """The calibration CSV text for ``model`` (``#`` comment lines, a header, one row per frequency).
+    """The calibration CSV text for ``model`` (``#`` comment lines, a header, one row per
+    frequency).
 
     ``magnitude="db"`` writes dB re 1 V/uPa with 4 decimals (the shipped file);
     ``magnitude="v_per_pa"`` writes V/Pa with 6 significant digits. Phase in degrees, 3 decimals.

@@ -118,7 +118,10 @@ def fubini_coefficients(sigma: np.ndarray | float, n_max: int) -> np.ndarray:
 
 def shock_distance_m(amplitude_pa: float, frequency_hz: float, *, beta: float,
                      density_kg_per_m3: float, sound_speed_m_per_s: float) -> float:
-    """Plane-wave shock formation distance x_bar = rho c^3 / (beta w p), m (Hamilton & Blackstock 4.2)."""
+    """Plane-wave shock formation distance x_bar = rho c^3 / (beta w p), m.
+
+    Hamilton & Blackstock 4.2.
+    """
     if amplitude_pa <= 0:
         return float("inf")
     omega = 2 * np.pi * frequency_hz
@@ -226,7 +229,8 @@ class Scene:
         self.params = params or SceneParameters()
         self.hydrophone = hydrophone or HydrophoneModel()
         self._drive = drive or Drive()
-        self._position = tuple(float(v) for v in position_m)
+        x, y, z = position_m
+        self._position = (float(x), float(y), float(z))
         self._lock = threading.Lock()
         self.version = 0
         self._response_cache: dict[tuple[int, float], np.ndarray] = {}

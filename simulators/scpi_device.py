@@ -68,7 +68,8 @@ class ScpiDevice:
     # --- registration and lookup
     def add(self, pattern: str, *, write: Handler | None = None,
             query: Handler | None = None) -> None:
-        """Register a header; ``write(args, suffixes)`` and/or ``query(args, suffixes) -> reply``."""
+        """Register a header;
+        ``write(args, suffixes)`` and/or ``query(args, suffixes) -> reply``."""
         self._table.append(_Entry(pattern, compile_pattern(pattern), write, query))
 
     def lookup(self, nodes: tuple[str, ...]) -> tuple[_Entry, tuple[int, ...]] | None:
@@ -79,7 +80,8 @@ class ScpiDevice:
         return None
 
     def canonical(self, header: str) -> str | None:
-        """The registered pattern a typed header resolves to (``"acq:poin?"`` -> ``"ACQuire:POINts"``)."""
+        """The registered pattern a typed header resolves to (``"acq:poin?"`` ->
+        ``"ACQuire:POINts"``)."""
         try:
             command = parse_command(header)
         except ScpiError:

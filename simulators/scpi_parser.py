@@ -223,8 +223,9 @@ def parse_number(arg: str, *, minimum: float | None = None, maximum: float | Non
     word = arg.strip().upper()
     keywords = {"MIN": minimum, "MINIMUM": minimum, "MAX": maximum, "MAXIMUM": maximum,
                 "DEF": default, "DEFAULT": default}
-    if word in keywords and keywords[word] is not None:
-        return float(keywords[word])
+    keyword_value = keywords.get(word)
+    if keyword_value is not None:
+        return float(keyword_value)
     try:
         value = float(word)
     except ValueError as err:

@@ -13,13 +13,21 @@ from __future__ import annotations
 
 import socket
 import threading
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
+from typing import Protocol, runtime_checkable
 
 from .faults import FaultPlan, apply_block_fault
 from .scpi_device import ScpiDevice
 
 LOOPBACK = "127.0.0.1"
 MAX_LINE_BYTES = 1 << 20
+
+
+@runtime_checkable
+class _WaitingDevice(Protocol):
+    """A device model that waits (for a trigger) through its own ``sleep``."""
+
+    sleep: Callable[[float], object]
 
 
 class InstrumentServer:
@@ -64,7 +72,7 @@ class InstrumentServer:
             device.interceptor = lambda pattern, q: faults.take_error(
                 name, pattern, q, device.canonical)
         inner_sleep = getattr(device, "sleep", None)
-        if callable(inner_sleep):
+        if callable(inner_sleep) and isinstance(device, _WaitingDevice):
             device.sleep = lambda seconds: self._sleep_unlocked(inner_sleep, seconds)
 
     def _sleep_unlocked(self, inner, seconds: float):
@@ -188,19 +196,19 @@ class InstrumentServer:
                         self._lock_owner = None
                 if reply is None:
                     continue
-                if faults is not None and not self._send_with_faults(conn, reply):
+                if faults is not None and not self._send_with_faults(conn, reply, faults):
                     return
                 if faults is None:
                     conn.sendall(reply)
 
-    def _send_with_faults(self, conn: socket.socket, reply: bytes) -> bool:
+    def _send_with_faults(self, conn: socket.socket, reply: bytes, faults: FaultPlan) -> bool:
         """Send ``reply`` with any armed stall or block fault; False to close the connection."""
-        stall = self.faults.take_stall(self.name)
+        stall = faults.take_stall(self.name)
         if stall and self.stop_event.wait(stall):
             return False
         close = False
         if reply.startswith(b"#"):
-            hit = self.faults.take_block_fault(self.name)
+            hit = faults.take_block_fault(self.name)
             if hit is not None:
                 reply, close = apply_block_fault(reply, *hit)
         conn.sendall(reply)

@@ -8,6 +8,8 @@ import io
 
 from rich.console import Console
 
+from tankside.monitor.dashboard.textual_internals import painted_screen
+
 
 def sync(test):
     """Run an async Pilot test in its own event loop (no asyncio plugin needed)."""
@@ -21,5 +23,5 @@ def screen_text(app) -> str:
     """The screen as plain text, one line per terminal row."""
     console = Console(file=io.StringIO(), width=app.size.width, height=app.size.height,
                       color_system=None, legacy_windows=False)
-    console.print(app.screen._compositor.render_update(full=True))
+    console.print(painted_screen(app.screen))
     return console.file.getvalue()

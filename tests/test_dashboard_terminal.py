@@ -27,7 +27,9 @@ from tankside.monitor.record.store import SessionReader
 pytestmark = pytest.mark.skipif(sys.platform == "win32", reason="POSIX pseudo-terminals")
 
 # control sequences (ECMA-48 CSI and OSC) between the words on screen
-_CONTROL = re.compile(r"\x1b\[[0-9;?<>=]*[ -/]*[@-~]|\x1b\][^\x07\x1b]*(\x07|\x1b\\)|\x1b[=>()][0-9A-Za-z]?")
+_CONTROL = re.compile(r"\x1b\[[0-9;?<>=]*[ -/]*[@-~]"       # CSI
+                      r"|\x1b\][^\x07\x1b]*(\x07|\x1b\\)"    # OSC, ended by BEL or ST
+                      r"|\x1b[=>()][0-9A-Za-z]?")
 
 
 class Terminal:

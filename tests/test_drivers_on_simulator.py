@@ -22,8 +22,9 @@ from tankside.drivers.errors import (
 )
 from tankside.drivers.generator import Generator
 from tankside.drivers.profile import load_profile
+from tankside.drivers.pyvisa_py_internals import backend_socket
 from tankside.drivers.scpi import ScpiLink
-from tankside.drivers.visa import backend_socket, open_resource
+from tankside.drivers.visa import open_resource
 from tankside.monitor.live.benchfile import InstrumentConfig
 from tankside.monitor.live.instruments import digitiser_opener
 from tankside.simulators.bench import SimulatedBench

@@ -188,7 +188,8 @@ def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, st
         return OpenInstrument(dev, FakeSession(scene, resync_ok), identity="FAKE,DIGITISER,0,1")
 
     def open_generator():
-        return OpenInstrument(FakeGenerator(scene), FakeSession(scene), identity="FAKE,GENERATOR,0,1")
+        return OpenInstrument(FakeGenerator(scene), FakeSession(scene),
+                              identity="FAKE,GENERATOR,0,1")
 
     def open_store(path, meta):
         store = SessionStore.create(path, meta, commit_interval_s=commit_interval_s)
@@ -199,7 +200,8 @@ def make_session(tmp_path, scene, *, alerts=None, max_traces=40, range_v=0.5, st
 
     session = LiveSession(
         open_digitiser=open_digitiser, open_generator=open_generator if generator else None,
-        converter=converter or FakeConverter(), rules=RuleEngine(AlertConfig.from_table(alerts or {})),
+        converter=converter or FakeConverter(),
+        rules=RuleEngine(AlertConfig.from_table(alerts or {})),
         open_store=open_store, metadata=lambda ids: {"instruments": ids, "test": True},
         session_path=tmp_path / "s.db", trigger_timeout_s=0.05, queue_capacity=queue_capacity,
         max_traces=max_traces, give_up_s=give_up_s, duration_s=duration_s, bell=bell)

@@ -20,6 +20,7 @@ from tankside.drivers.errors import (
     InstrumentTimeout,
     ProtocolError,
 )
+from tankside.drivers.pyvisa_py_internals import backend_session, pending_buffer
 from tankside.drivers.scpi import ScpiLink
 from tankside.drivers.visa import open_resource
 
@@ -199,8 +200,8 @@ class TestOverTcp:
         with LineServer(handler) as server:
             s = ScpiLink.open(server.resource, timeout_s=2.0, direct_block_reads=direct)
             assert s.query("BOTH?") == "1.25"
-            backend = s.resource.visalib.sessions[s.resource.session]
-            assert len(backend._pending_buffer) > 0   # one loopback segment, read whole
+            pending = pending_buffer(backend_session(s.resource))
+            assert pending is not None and len(pending) > 0  # one loopback segment, read whole
             assert s.query_block("WAIT?") == payload
             assert s.identify() == IDN.decode().strip()  # nothing left over
             s.close()

@@ -297,7 +297,8 @@ class TestErrors:
 
     def test_unknown_seq(self, tmp_path):
         write_session(tmp_path / "s.db")
-        with SessionReader(tmp_path / "s.db") as reader, pytest.raises(SessionFileError, match="seq 99"):
+        with (SessionReader(tmp_path / "s.db") as reader,
+              pytest.raises(SessionFileError, match="seq 99")):
             reader.trace(99)
 
     def test_repeated_seq_is_refused_alone(self, tmp_path):

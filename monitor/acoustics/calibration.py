@@ -141,7 +141,7 @@ def parse_calibration(text: str, source: str = "<text>") -> Calibration:
     """
     header, rows = _split(text, source)
     columns = _check_header(header, source)
-    values = {name: [] for name in columns}
+    values: dict[str, list[float]] = {name: [] for name in columns}
     lines = []
     for lineno, line in rows:
         fields = [f.strip() for f in line.split(",")]
@@ -182,8 +182,8 @@ def parse_calibration(text: str, source: str = "<text>") -> Calibration:
 
 
 def _split(text: str, source: str) -> tuple[tuple[int, str], list[tuple[int, str]]]:
-    header = None
-    rows = []
+    header: tuple[int, str] | None = None
+    rows: list[tuple[int, str]] = []
     for lineno, line in enumerate(text.splitlines(), start=1):
         stripped = line.strip()
         if not stripped or stripped.startswith("#"):

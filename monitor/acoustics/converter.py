@@ -18,6 +18,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, fields
+from typing import Any
 
 import numpy as np
 import scipy.fft
@@ -175,7 +176,7 @@ class TraceResult:
 
     def to_json_dict(self) -> dict:
         """The ``tankside convert --json`` object (SI units; non-finite numbers as null)."""
-        out = {"method": self.method}
+        out: dict[str, Any] = {"method": self.method}
         for key in _PARAMETER_KEYS:
             out[key] = _finite_or_none(getattr(self.parameters, key))
         out["water"] = self.water.as_dict()

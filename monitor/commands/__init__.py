@@ -1,1 +1,4 @@
-"""One module per `tankside` sub-command; each defines ``add_parser(subparsers)`` and ``run(args)``."""
+"""One module per `tankside` sub-command.
+
+Each defines ``add_parser(subparsers)`` and ``run(args)``.
+"""

@@ -41,7 +41,8 @@ def add_parser(subparsers) -> None:
     r.add_argument("--band-high", metavar="HZ", type=float,
                    help="upper edge of the deconvolution band, Hz (default: calibration's highest)")
     r.add_argument("--taper-octaves", metavar="OCT", type=float, default=d.taper_octaves,
-                   help=f"raised-cosine taper inside each band edge, octaves (default {d.taper_octaves:g})")
+                   help=f"raised-cosine taper inside each band edge, octaves "
+                        f"(default {d.taper_octaves:g})")
     r.add_argument("--regularisation", metavar="EPS", type=float, default=d.regularisation,
                    help="Tikhonov weight relative to the largest sensitivity in the band "
                         f"(default {d.regularisation:g}; 0: plain division)")

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from collections.abc import Callable
 from pathlib import Path
 
 from ..errors import ConfigError
@@ -91,7 +92,7 @@ def run(args) -> int:
 
 
 def _watch(session, bench_path: Path, *, headless: bool, first_run: bool, run_headless) -> int:
-    dashboard = None
+    dashboard: Callable[..., int] | None = None
     if not headless:
         from ..dashboard.app import run_dashboard as dashboard
 

@@ -29,7 +29,8 @@ def add_loading_options(parser: argparse.ArgumentParser, *, title: str) -> None:
 
 
 def add_progress_options(parser: argparse.ArgumentParser) -> None:
-    """``--progress`` / ``--no-progress``: ``args.progress`` is True, False or None (= on a terminal)."""
+    """``--progress`` / ``--no-progress``: ``args.progress`` is True, False or None
+    (= on a terminal)."""
     bar = parser.add_mutually_exclusive_group()
     bar.add_argument("--progress", dest="progress", action="store_const", const=True,
                      default=None, help="always show the progress bar (default: on a terminal)")

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 import tomllib
+from collections.abc import Callable
 from pathlib import Path
 
 from ..acoustics.settings import Method
@@ -128,8 +129,8 @@ def overrides_from_args(args) -> dict:
     if args.rated_max is not None:
         o["alerts.over_pressure.rated_max_pa"] = args.rated_max
     for text in args.alert:
-        key, value = _parse_alert(text)
-        o[key] = value
+        alert_key, alert_value = _parse_alert(text)
+        o[alert_key] = alert_value
     return o
 
 
@@ -152,7 +153,7 @@ def run(args) -> int:
         raise ConfigError("--traces must be at least 1")
     bench = load_bench(args.bench, overrides_from_args(args))
 
-    dashboard = None
+    dashboard: Callable[..., int] | None = None
     if not args.headless:
         try:
             from ..dashboard.app import run_dashboard as dashboard
@@ -176,7 +177,7 @@ def run(args) -> int:
     def show() -> int:
         session.start()
         print(f"tankside: recording to {session.session_path}", file=sys.stderr, flush=True)
-        if headless:
+        if dashboard is None:       # headless
             if first_run:
                 print("CAUTION: high-power ultrasound, high drive voltages and cavitation can "
                       "hurt people and destroy hydrophones; safe-off is a convenience, never "

@@ -234,7 +234,8 @@ class DashboardApp(App[None]):
             saved = [Path(self.save_screenshot(filename=f"{stem}.svg", path=str(folder)))]
             if snap.times_s.size and snap.voltage_v.size == snap.times_s.size:
                 saved.append(write_columns_csv(folder / f"{stem}-voltage.csv",
-                                               ("time_s", "voltage_v"), snap.times_s, snap.voltage_v))
+                                               ("time_s", "voltage_v"), snap.times_s,
+                                               snap.voltage_v))
             if snap.times_s.size and snap.pressure_pa.size == snap.times_s.size:
                 saved.append(write_columns_csv(folder / f"{stem}-pressure.csv",
                                                ("time_s", "pressure_pa"), snap.times_s,

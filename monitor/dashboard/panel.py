@@ -10,6 +10,8 @@ nothing, a changed one repaints only its border row.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 from rich.cells import cell_len
 from rich.segment import Segment
 from rich.style import Style
@@ -130,7 +132,7 @@ def style_of(spec: str | None, base: Style | None = None) -> Style | None:
     return style
 
 
-def text_strip(pieces: list[tuple[str, str | None]], cols: int,
+def text_strip(pieces: Sequence[tuple[str, str | None]], cols: int,
                base: Style | None = None) -> Strip:
     """One line of (text, style string) pieces over ``base``, cut or padded to ``cols`` cells."""
     segments = [Segment(text, style_of(spec, base)) for text, spec in pieces if text]
@@ -142,7 +144,7 @@ def text_strip(pieces: list[tuple[str, str | None]], cols: int,
     return Strip(segments).adjust_cell_length(cols, _blank_style(base))
 
 
-def text_strips(lines: list[list[tuple[str, str | None]]], rows: int, cols: int,
+def text_strips(lines: Sequence[Sequence[tuple[str, str | None]]], rows: int, cols: int,
                 base: Style | None = None) -> list[Strip]:
     """``rows`` strips: the first ``rows`` lines, then blank lines in ``base``."""
     strips = [text_strip(line, cols, base) for line in lines[:rows]]

@@ -185,9 +185,10 @@ class PlotGrid:
         # where a run of one style starts: column 0 of every row, and each change of key
         starts = np.ones((rows, cols), dtype=bool)
         starts[:, 1:] = key[:, 1:] != key[:, :-1]
-        run_row, run_col = np.nonzero(starts)
-        run_key = key[run_row, run_col].tolist()
-        run_row, run_col = run_row.tolist(), run_col.tolist()
+        run_row_index, run_col_index = np.nonzero(starts)
+        run_key: list[int] = key[run_row_index, run_col_index].tolist()
+        run_row: list[int] = run_row_index.tolist()
+        run_col: list[int] = run_col_index.tolist()
         strips = []
         segments: list[Segment] = []
         for i, (r, c, k) in enumerate(zip(run_row, run_col, run_key, strict=True)):

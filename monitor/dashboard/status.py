@@ -80,7 +80,8 @@ class BenchStatus(LinePanel):
             pair("acq/conv/sto", "/".join(count(n) for n in (snap.acquired, snap.converted,
                                                              snap.stored)))
         lines.append([])
-        q_style = WARN if snap.queue_capacity and snap.queue_depth > snap.queue_capacity // 2 else VALUE
+        half_full = snap.queue_capacity and snap.queue_depth > snap.queue_capacity // 2
+        q_style = WARN if half_full else VALUE
         pair("queue", f"{snap.queue_depth}/{snap.queue_capacity}", q_style)
         pair("file", size(snap.session_bytes))
         lines.append([(os.path.basename(snap.session_path) if snap.session_path else "-", VALUE)])

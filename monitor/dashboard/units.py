@@ -21,7 +21,7 @@ DISPLAY_UNITS = {
 }
 
 
-def number(value: float, width: int = 7) -> str:
+def number(value: float | None, width: int = 7) -> str:
     """Three significant figures in at most ``width`` characters; "-" for NaN/None."""
     if value is None or not math.isfinite(value):
         return "-".rjust(width)
@@ -43,14 +43,14 @@ def number(value: float, width: int = 7) -> str:
     return text.rjust(width)
 
 
-def in_display_unit(key: str, value_si: float) -> float:
+def in_display_unit(key: str, value_si: float | None) -> float:
     """An SI value of figure ``key`` in its display unit."""
     if value_si is None:
         return math.nan
     return float(value_si) * DISPLAY_UNITS[key][2]
 
 
-def volts(value_v: float) -> str:
+def volts(value_v: float | None) -> str:
     """A voltage with mV below 1 V."""
     if value_v is None or not math.isfinite(value_v):
         return "-"
@@ -69,7 +69,7 @@ def size(nbytes: int) -> str:
     return f"{n:.1f} GB"  # pragma: no cover
 
 
-def clock(seconds: float) -> str:
+def clock(seconds: float | None) -> str:
     """An elapsed time as H:MM:SS."""
     if seconds is None or not math.isfinite(seconds) or seconds < 0:
         return "0:00:00"
@@ -77,7 +77,7 @@ def clock(seconds: float) -> str:
     return f"{s // 3600}:{s % 3600 // 60:02d}:{s % 60:02d}"
 
 
-def wall_time(time_s: float) -> str:
+def wall_time(time_s: float | None) -> str:
     """A Unix time as local HH:MM:SS; small values (seconds into a session) as +H:MM:SS."""
     if time_s is None or not math.isfinite(time_s):
         return "--:--:--"

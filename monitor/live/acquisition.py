@@ -148,7 +148,13 @@ class AcquisitionLoop:
         return tuple(self.digitiser.device.ranges_v) if self.digitiser else ()
 
     def current_range_v(self) -> float:
-        return float(self.digitiser.device.settings.range_v)
+        return float(self._digitiser().device.settings.range_v)
+
+    def _digitiser(self) -> OpenInstrument:
+        digitiser = self.digitiser
+        if digitiser is None:  # pragma: no cover - every caller runs after connect()
+            raise RuntimeError("acquisition: the digitiser is not connected")
+        return digitiser
 
     # -- handshake with the processing stage -------------------------------------
     def verdict(self, seq: int) -> None:
@@ -217,7 +223,7 @@ class AcquisitionLoop:
         self._emit(AcqEvent(self.clock(), kind, detail, seq=seq, alert=alert))
 
     def _acquire_one(self) -> None:
-        dev = self.digitiser.device
+        dev = self._digitiser().device
         try:
             raw = dev.acquire(self.seq, trigger_timeout_s=self.trigger_timeout_s)
         except NoTrigger as err:
@@ -228,7 +234,8 @@ class AcquisitionLoop:
             kind = FaultKind.MALFORMED_REPLY if isinstance(err, ProtocolError) \
                 else FaultKind.STALLED
             self._event(EventKind.FAULT, {"kind": kind, "message": str(err), "at_seq": self.seq},
-                        alert=RaisedAlert("instrument-fault", "warning", f"digitiser {kind}: {err}"))
+                        alert=RaisedAlert("instrument-fault", "warning",
+                                          f"digitiser {kind}: {err}"))
             self._recover(err)
             return
         except ConnectionLost as err:
@@ -249,17 +256,18 @@ class AcquisitionLoop:
 
     def _recover(self, err: Exception) -> None:
         try:
-            self.digitiser.link.resync()
+            self._digitiser().link.resync()
         except InstrumentError:
             self._reconnect(err)
             return
         self._event(EventKind.RESYNC, {"after": type(err).__name__})
 
     def _reconnect(self, err: Exception) -> None:
-        _close(self.digitiser)
+        lost = self._digitiser()
+        _close(lost)
         self.connected = False
         self.reconnecting = True
-        settings = getattr(self.digitiser.device, "settings", None)
+        settings = getattr(lost.device, "settings", None)
         started = time.monotonic()
         attempt = 0
         last_error = err
@@ -316,6 +324,12 @@ class AcquisitionLoop:
         self.abandon.set()
         self.verdict(_NO_MORE_VERDICTS)
 
+    def _open_generator(self) -> OpenInstrument:
+        open_generator = self.open_generator
+        if open_generator is None:  # pragma: no cover - no generator is open without it
+            raise RuntimeError("acquisition: no generator is configured")
+        return open_generator()
+
     def _safe_off(self, cause: dict) -> None:
         if self.generator is None:
             self._event(EventKind.SAFE_OFF,
@@ -329,7 +343,7 @@ class AcquisitionLoop:
         except InstrumentError as err:
             try:
                 _close(self.generator)
-                self.generator = self.open_generator()
+                self.generator = self._open_generator()
                 self.generator.device.set_output(False)
                 still_on = self.generator.device.output_is_on()
             except InstrumentError as again:
@@ -388,11 +402,12 @@ class AcquisitionLoop:
         if new_v == old_v:
             return
         try:
-            self.digitiser.device.set_range(new_v)
+            self._digitiser().device.set_range(new_v)
         except InstrumentError as err:
             self._event(EventKind.RANGE_CHANGE, {"done": False, "from_v": old_v,
                                                  "to_v": new_v, "error": str(err), **cause},
-                        alert=RaisedAlert("auto-range-failed", "warning", f"range change failed: {err}"))
+                        alert=RaisedAlert("auto-range-failed", "warning",
+                                          f"range change failed: {err}"))
             return
         self._next_flags = {"range_changed": True, "previous_range_v": old_v}
         self._event(EventKind.RANGE_CHANGE, {"done": True, "from_v": old_v, "to_v": new_v,

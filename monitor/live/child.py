@@ -35,7 +35,7 @@ import tempfile
 import threading
 import time
 from pathlib import Path
-from typing import TYPE_CHECKING, TextIO
+from typing import TYPE_CHECKING, Any, TextIO
 
 from ...drivers.errors import InstrumentError
 from ..acoustics.settings import Method
@@ -98,9 +98,9 @@ class SessionProcess:
         self.session_path = Path(spec.session_path)
         self._status = SessionStatus()
         self._snap = Snapshot(session_path=str(self.session_path), state="starting")
-        self._process = None
-        self._commands = None
-        self._snapshots = None
+        self._process: multiprocessing.process.BaseProcess | None = None
+        self._commands: multiprocessing.connection.Connection | None = None
+        self._snapshots: multiprocessing.connection.Connection | None = None
         self._asked = False            # a snapshot request is in flight
         self._serial = 0               # of the last command sent
         self._ended = False            # the child has exited (or was never started)
@@ -135,6 +135,8 @@ class SessionProcess:
         self._commands, self._snapshots = commands, snapshots
         # until the child's first message or its exit (a message sent before exiting is read)
         multiprocessing.connection.wait([commands, self._process.sentinel])
+        kind: str
+        payload: Any
         try:
             kind, payload = commands.recv() if commands.poll() else ("gone", None)
         except (EOFError, OSError):
@@ -246,7 +248,8 @@ class SessionProcess:
 
     # ---------------------------------------------------------------- internals
     def _call(self, op: str, *args) -> None:
-        if self._commands is None or self._ended or not self._process.is_alive():
+        if (self._commands is None or self._ended or self._process is None
+                or not self._process.is_alive()):
             raise TanksideError("the session has ended")
         self._serial += 1
         deadline = time.monotonic() + ANSWER_WAIT_S
@@ -371,6 +374,7 @@ def _serve_commands(session, commands) -> None:
         if op == "stop":
             session.stop(*args)
             continue
+        answer: tuple[int, str, BaseException | None]
         try:
             if op not in COMMANDS:
                 raise ValueError(f"unknown session command {op!r}")

@@ -11,11 +11,14 @@ import queue
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from ..errors import StoreError
 from ..outcome import ExitStatus
 from ..record.schema import EventKind
+
+if TYPE_CHECKING:
+    from ..record.store import SessionStore
 
 END = object()
 
@@ -71,13 +74,13 @@ class Writer:
         Bounded queue of ``*Item`` objects; :data:`END` or a :class:`CloseItem` ends it.
     """
 
-    def __init__(self, open_store: Callable[[], Any], items: queue.Queue,
+    def __init__(self, open_store: Callable[[], SessionStore], items: queue.Queue,
                  counts: Callable[[], dict]):
         self.open_store = open_store
         self.items = items
         self.counts = counts
         self.ready = threading.Event()
-        self.store = None
+        self.store: SessionStore | None = None
         self.stored = 0             # traces written (committed or not)
         self.committed = 0          # traces known durable (at the last commit)
         self.error: StoreError | None = None
@@ -92,8 +95,14 @@ class Writer:
         oldest = self._oldest_uncommitted_s
         return max(0.0, now_s - oldest) if oldest is not None else 0.0
 
+    def _open_store(self) -> SessionStore:
+        store = self.store
+        if store is None:  # pragma: no cover - only called once run() has opened it
+            raise RuntimeError("writer: the session store is not open")
+        return store
+
     def _commit_maybe(self) -> None:
-        if self.store.maybe_commit():
+        if self._open_store().maybe_commit():
             self._oldest_uncommitted_s = None
             self.committed = self.stored
 
@@ -106,7 +115,7 @@ class Writer:
 
     def run(self) -> None:
         try:
-            self.store = self.open_store()
+            store = self.store = self.open_store()
         except BaseException as err:  # reported to start(), which raises it in its thread
             self.open_error = err
             self.ready.set()
@@ -127,11 +136,11 @@ class Writer:
                     break
                 self._handle(item)
                 self._commit_maybe()
-            self.store.commit()
+            store.commit()
             self._oldest_uncommitted_s = None
             self.committed = self.stored
             if close is not None:
-                self.store.close(close.exit_status, close.reason, close.counts())
+                store.close(close.exit_status, close.reason, close.counts())
                 self.closed = True
         except StoreError as err:
             self.error = err
@@ -142,13 +151,13 @@ class Writer:
         # file then reads as "not stopped cleanly", which is the truth. The first error
         # is the one reported.
         try:
-            self.store.close(ExitStatus.STORE_ERROR, str(err), self.counts())
+            self._open_store().close(ExitStatus.STORE_ERROR, str(err), self.counts())
             self.closed = True
         except StoreError as again:
             self.close_error = again
 
-    def _handle(self, item) -> None:
-        store = self.store
+    def _handle(self, item: object) -> None:
+        store = self._open_store()
         if isinstance(item, TraceItem):
             store.add_trace(item.raw, item.result, item.flags or None, item.error)
             self.stored += 1

@@ -84,7 +84,8 @@ class RuleSpec:
 
 RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for spec in (
     RuleSpec("clipping", Severity.WARNING, (Action.RECORD, Action.BELL, Action.AUTO_RANGE), (
-        Param(key="min_samples", kind=ParamKind.INT, default=1, unit="samples", low=1, low_inclusive=True,
+        Param(key="min_samples", kind=ParamKind.INT, default=1, unit="samples", low=1,
+              low_inclusive=True,
               meaning="samples at either rail in one trace"),)),
     RuleSpec("over_pressure", Severity.CRITICAL, (Action.RECORD, Action.BELL, Action.SAFE_OFF), (
         Param(key="rated_max_pa", kind=ParamKind.FLOAT, default=1.0e7, unit="Pa", low=0.0,
@@ -94,7 +95,8 @@ RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for s
     RuleSpec("range_under_use", Severity.INFO, (Action.RECORD, Action.AUTO_RANGE), (
         Param(key="below_fraction", kind=ParamKind.FLOAT, default=0.3, unit="1", low=0.0, high=1.0,
               meaning="fraction of half the full-scale span"),
-        Param(key="consecutive_traces", kind=ParamKind.INT, default=10, unit="traces", low=1, low_inclusive=True,
+        Param(key="consecutive_traces", kind=ParamKind.INT, default=10, unit="traces", low=1,
+              low_inclusive=True,
               meaning="under-used traces in a row before firing"))),
     RuleSpec("no_trigger", Severity.WARNING, (Action.RECORD, Action.BELL), (
         Param(key="after_s", kind=ParamKind.FLOAT, default=5.0, unit="s", low=0.0,
@@ -102,17 +104,21 @@ RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for s
     RuleSpec("pr_drift", Severity.WARNING, (Action.RECORD, Action.BELL), (
         Param(key="max_change_percent", kind=ParamKind.FLOAT, default=10.0, unit="%", low=0.0,
               meaning="change of p_r relative to the first half"),
-        Param(key="window_traces", kind=ParamKind.INT, default=20, unit="traces", low=2, low_inclusive=True,
+        Param(key="window_traces", kind=ParamKind.INT, default=20, unit="traces", low=2,
+              low_inclusive=True,
               meaning="traces in the window (at one position)"))),
     RuleSpec("narrowband_fail", Severity.WARNING, (Action.RECORD,)),
     RuleSpec("conversion_failed", Severity.WARNING, (Action.RECORD,)),
     RuleSpec("no_pulse", Severity.INFO, (Action.RECORD,), (
-        Param(key="noise_factor", kind=ParamKind.FLOAT, default=DEFAULT_FACTOR, unit="1", low=0.0, low_inclusive=True,
+        Param(key="noise_factor", kind=ParamKind.FLOAT, default=DEFAULT_FACTOR, unit="1", low=0.0,
+              low_inclusive=True,
               meaning="peak over robust noise sigma that counts as a pulse"),
-        Param(key="edge_fraction", kind=ParamKind.FLOAT, default=DEFAULT_EDGE_FRACTION, unit="1", low=0.0, high=0.5,
+        Param(key="edge_fraction", kind=ParamKind.FLOAT, default=DEFAULT_EDGE_FRACTION, unit="1",
+              low=0.0, high=0.5,
               meaning="share of the record at each end for the noise"))),
     RuleSpec("disk_space_low", Severity.WARNING, (Action.RECORD, Action.BELL), (
-        Param(key="min_free_bytes", kind=ParamKind.INT, default=1_000_000_000, unit="bytes", low=0, low_inclusive=True,
+        Param(key="min_free_bytes", kind=ParamKind.INT, default=1_000_000_000, unit="bytes", low=0,
+              low_inclusive=True,
               meaning="free space left on the session disk"),)),
     RuleSpec("falling_behind", Severity.WARNING, (Action.RECORD, Action.BELL), (
         Param(key="queue_fraction", kind=ParamKind.FLOAT, default=0.8, unit="1", low=0.0, high=1.0,
@@ -231,10 +237,13 @@ def _parse_rule(spec: RuleSpec, table) -> RuleConfig:
                      f"expected one of {', '.join(SEVERITIES)}, got {severity!r}")
     actions = _parse_actions(spec.name, table.get("actions", list(spec.actions)))
     repeat = _parse_number(f"{spec.name}.repeat_after_s", table.get("repeat_after_s", 0.0),
-                           Param(key="repeat_after_s", kind=ParamKind.FLOAT, default=0.0, unit="s", low=0.0, low_inclusive=True))
+                           Param(key="repeat_after_s", kind=ParamKind.FLOAT, default=0.0, unit="s",
+                                 low=0.0, low_inclusive=True))
     clear_after = _parse_number(f"{spec.name}.clear_after_traces",
                                 table.get("clear_after_traces", DEFAULT_CLEAR_AFTER),
-                                Param(key="clear_after_traces", kind=ParamKind.INT, default=DEFAULT_CLEAR_AFTER, unit="traces", low=1, low_inclusive=True))
+                                Param(key="clear_after_traces", kind=ParamKind.INT,
+                                      default=DEFAULT_CLEAR_AFTER, unit="traces", low=1,
+                                      low_inclusive=True))
     values = {p.key: (_parse_number(f"{spec.name}.{p.key}", table[p.key], p)
                       if p.key in table else p.default) for p in spec.params}
     return RuleConfig(name=spec.name, enabled=enabled, severity=Severity(severity),

@@ -304,6 +304,7 @@ class RuleEngine:
         self._quiet = False
         window = self.config.rules["pr_drift"].params["window_traces"]
         self._pr_window: deque[float] = deque(maxlen=window)
+        self._pr_window_traces = int(window)
 
     # -- public -----------------------------------------------------------------
     @property
@@ -450,7 +451,7 @@ class RuleEngine:
 
     def _pr_drift(self, obs: TraceObservation) -> _Verdict:
         window = self._pr_window
-        if obs.result is None or len(window) < window.maxlen:
+        if obs.result is None or len(window) < self._pr_window_traces:
             return None
         half = len(window) // 2
         values = list(window)

@@ -49,6 +49,7 @@ import csv
 import hashlib
 import math
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -132,7 +133,7 @@ _TRACE_STRS = ("dtype", "data_format", "state_json")
 
 def _h5():
     try:
-        import h5py
+        import h5py  # type: ignore[import-untyped]  # h5py ships no type information
     except ImportError as err:  # pragma: no cover - h5py is a dependency
         raise ConfigError("HDF5 export needs h5py (pip install h5py)") from err
     return h5py
@@ -181,6 +182,8 @@ def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) 
 
 
 def _write_traces(g, reader, n_traces, layouts, uniform, bar):
+    starts: list[int] = []      # where each trace's codes begin, when not uniform
+    counts: list[int] = []
     if uniform and n_traces:
         dtype_str, n = next(iter(layouts))
         codes = g.create_dataset("codes", shape=(n_traces, n), dtype=np.dtype(dtype_str),
@@ -188,9 +191,8 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar):
     else:
         common = np.result_type(*[np.dtype(d) for d, _ in layouts]) if layouts else np.int16
         codes = g.create_dataset("codes", shape=(reader.total_samples(),), dtype=common)
-        starts, counts = [], []
     codes.attrs["units"] = "code"
-    cols = {c: [] for c in (*_TRACE_FLOATS, *_TRACE_INTS, *_TRACE_STRS)}
+    cols: dict[str, list[Any]] = {c: [] for c in (*_TRACE_FLOATS, *_TRACE_INTS, *_TRACE_STRS)}
     pos = 0
     for i, stored in enumerate(reader.iter_traces()):
         raw = stored.raw
@@ -222,8 +224,8 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar):
 
 
 def _write_results(g, reader):
-    cols = {c: [] for c in ("seq", *RESULT_NAMES, "converted", "clipped", "range_changed",
-                            "error")}
+    cols: dict[str, list[Any]] = {c: [] for c in ("seq", *RESULT_NAMES, "converted", "clipped",
+                                                  "range_changed", "error")}
     kinds = dict(RESULT_COLUMNS)
     for r in reader.iter_results():
         for c in cols:

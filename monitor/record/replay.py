@@ -275,7 +275,7 @@ def _differs(old: dict | None, new: dict | None) -> bool:
 def result_differences(path_a, path_b) -> list[tuple[int, str, object, object]]:
     """(seq, field, value in a, value in b) for every result that differs between two
     sessions (NaN equals NaN; a trace missing from one side is reported as ``"trace"``)."""
-    diffs = []
+    diffs: list[tuple[int, str, object, object]] = []
     with SessionReader(path_a) as a, SessionReader(path_b) as b:
         rows_b = {r["seq"]: r for r in b.iter_results()}
         for ra in a.iter_results():

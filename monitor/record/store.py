@@ -25,6 +25,7 @@ import time
 import uuid
 from collections.abc import Callable
 from pathlib import Path
+from typing import NoReturn
 
 import numpy as np
 
@@ -284,7 +285,7 @@ class SessionStore:
         self._pending += 1
         return out
 
-    def _fail(self, err: sqlite3.Error, doing: str):
+    def _fail(self, err: sqlite3.Error, doing: str) -> NoReturn:
         mapped = _map_error(err, doing, self.path)
         self._failed = str(mapped)
         try:
@@ -323,10 +324,12 @@ class SessionStore:
             self._conn.execute(
                 f"INSERT INTO traces VALUES ({','.join('?' * len(TRACE_COLUMNS))})", trace_row)
             self._conn.execute(
-                f"INSERT INTO results VALUES ({','.join('?' * len(RESULT_ROW_COLUMNS))})", result_row)
+                f"INSERT INTO results VALUES ({','.join('?' * len(RESULT_ROW_COLUMNS))})",
+                result_row)
             if not self._codes_described:
                 self._conn.execute(
-                    "INSERT OR REPLACE INTO descriptors VALUES ('codes', 'traces', 'code', ?, ?, ?)",
+                    "INSERT OR REPLACE INTO descriptors "
+                    "VALUES ('codes', 'traces', 'code', ?, ?, ?)",
                     (codes.dtype.str, strict_json([int(codes.shape[0])]), self._source))
         self._write(f"recording trace {raw.seq}", insert)
         self._codes_described = True

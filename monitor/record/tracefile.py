@@ -37,7 +37,7 @@ def parse_trace(text: str, source: str = "<text>") -> tuple[np.ndarray, float, f
         Wrong header, a bad row or number, too few samples, or a non-uniform time step
         (the message names the file and line).
     """
-    header = None
+    header: list[str] | None = None
     times: list[float] = []
     volts: list[float] = []
     lines: list[int] = []
@@ -68,18 +68,18 @@ def parse_trace(text: str, source: str = "<text>") -> tuple[np.ndarray, float, f
         raise TraceFileError(f"{source}: empty file (expected header 'time_s,voltage_v')")
     if len(times) < MIN_SAMPLES:
         raise TraceFileError(f"{source}: {len(times)} samples, at least {MIN_SAMPLES} needed")
-    t = np.array(times)
-    n = t.size
-    dt = (t[-1] - t[0]) / (n - 1)
+    time_s = np.array(times)
+    n = time_s.size
+    dt = (time_s[-1] - time_s[0]) / (n - 1)
     if not dt > 0:
         raise TraceFileError(f"{source}: times must increase")
-    err = np.abs(t - (t[0] + dt * np.arange(n)))
-    worst = int(np.argmax(err))
-    if err[worst] > STEP_TOLERANCE * dt:
+    off_grid = np.abs(time_s - (time_s[0] + dt * np.arange(n)))
+    worst = int(np.argmax(off_grid))
+    if off_grid[worst] > STEP_TOLERANCE * dt:
         raise TraceFileError(f"{source}, line {lines[worst]}: time step not uniform "
-                             f"(time {t[worst]!r} s is {err[worst] / dt:.3g} steps off a "
-                             f"uniform grid of {dt!r} s)")
-    return np.array(volts), float(dt), float(t[0])
+                             f"(time {time_s[worst]!r} s is {off_grid[worst] / dt:.3g} steps "
+                             f"off a uniform grid of {dt!r} s)")
+    return np.array(volts), float(dt), float(time_s[0])
 
 
 def read_trace(path: str | Path) -> tuple[np.ndarray, float, float]:
