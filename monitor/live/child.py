@@ -47,7 +47,7 @@ if TYPE_CHECKING:
     from .benchfile import BenchConfig
 
 #: The session methods the parent may call in the child (stop has no answer).
-COMMANDS = ("mark", "acknowledge", "set_method")
+COMMANDS = ("mark", "acknowledge", "set_method", "switch_drive")
 #: How long a command waits for the child's answer, s.
 ANSWER_WAIT_S = 10.0
 #: How long the child waits, after its session has ended, for the parent to ask for
@@ -63,6 +63,7 @@ class SessionSpec:
     session_path: Path
     max_traces: int | None = None
     duration_s: float | None = None
+    drive_on_at_start: str | None = None
 
 
 @dataclasses.dataclass
@@ -172,6 +173,9 @@ class SessionProcess:
 
     def set_method(self, method: str) -> None:
         self._call("set_method", str(method))
+
+    def switch_drive(self, on: bool, cause: str = "operator") -> None:
+        self._call("switch_drive", bool(on), str(cause))
 
     def stop(self, reason: str = "operator") -> None:
         """Ask the child to stop its session cleanly; returns at once.
@@ -334,7 +338,8 @@ def child_main(spec: SessionSpec, commands, snapshots, log_path: str) -> None:
     try:
         session = LiveSession.from_bench(spec.bench, session_path=spec.session_path,
                                          max_traces=spec.max_traces,
-                                         duration_s=spec.duration_s)
+                                         duration_s=spec.duration_s,
+                                         drive_on_at_start=spec.drive_on_at_start)
         session.start()
     except (TanksideError, InstrumentError) as err:
         _send_quietly(commands, ("failed", transferable(err)))
@@ -449,7 +454,7 @@ def transferable(err: BaseException) -> BaseException:
 
 def session_for_display(bench, *, own_process: bool, session_path: str | Path | None = None,
                         max_traces: int | None = None, duration_s: float | None = None,
-                        bell=None):
+                        bell=None, drive_on_at_start: str | None = None):
     """The session a command shows: in this process (headless), or in a child (dashboard).
 
     Parameters
@@ -458,7 +463,7 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
     own_process : bool
         Run the session in a child process (:class:`SessionProcess`); False builds a
         :class:`~tankside.monitor.live.session.LiveSession` here (``bell`` rings on alerts).
-    session_path, max_traces, duration_s
+    session_path, max_traces, duration_s, drive_on_at_start
         As for :meth:`LiveSession.from_bench`.
     """
     from .build import new_session_path
@@ -466,6 +471,8 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
 
     if not own_process:
         return LiveSession.from_bench(bench, session_path=session_path, max_traces=max_traces,
-                                      duration_s=duration_s, bell=bell)
+                                      duration_s=duration_s, bell=bell,
+                                      drive_on_at_start=drive_on_at_start)
     path = new_session_path(bench.session_folder, session_path)
-    return SessionProcess(SessionSpec(bench, path, max_traces=max_traces, duration_s=duration_s))
+    return SessionProcess(SessionSpec(bench, path, max_traces=max_traces, duration_s=duration_s,
+                                      drive_on_at_start=drive_on_at_start))
