@@ -14,6 +14,7 @@ they go through VISA with the termination character switched off for the block.
 
 from __future__ import annotations
 
+import contextlib
 import time
 from collections.abc import Callable
 
@@ -310,7 +311,11 @@ class ScpiLink:
         """
         self.counts["resyncs"] += 1
         self.needs_resync = True
-        saved = self.resource.timeout
+        try:
+            saved = self.resource.timeout
+        except Exception as err:  # noqa: BLE001 - a closed resource: translated and chained
+            raise ConnectionLost(f"link closed, cannot resynchronise: {err}",
+                                 resource=self.name) from err
         deadline = time.monotonic() + self.resync_timeout_s
         try:
             self._flush_input()
@@ -331,7 +336,8 @@ class ScpiLink:
                 if line == self.identity:
                     break
         finally:
-            self.resource.timeout = saved
+            with contextlib.suppress(Exception):   # a resource closed meanwhile: the
+                self.resource.timeout = saved      # error that ended the loop is raised
         self.needs_resync = False
 
     def add_reopen_hook(self, hook: Callable[[], None]) -> None:

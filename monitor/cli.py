@@ -8,6 +8,7 @@ Exit codes (:class:`tankside.monitor.outcome.ExitCode`, also in the README):
 3  a session that ended on an instrument failure it could not recover from
 4  the session store could not be written (disk full, permissions); committed data intact
 5  a session that ended on an internal error (a bug); committed data intact
+6  the generator output could not be confirmed off: the drive may still be on
 """
 
 from __future__ import annotations

@@ -25,6 +25,8 @@ class ExitCode(enum.IntEnum):
     """The session store could not be written (disk full, permissions); committed data intact."""
     INTERNAL = 5
     """A session ended by an internal error (a bug); committed data intact."""
+    DRIVE_MAY_BE_ON = 6
+    """The generator output could not be confirmed off: the drive may still be on."""
 
 
 class ExitStatus(enum.StrEnum):
@@ -50,6 +52,9 @@ class ExitStatus(enum.StrEnum):
     """A store closed by its ``with`` block on an exception, or a replay that did not finish."""
     STORE_ERROR = "store-error"
     """The session store could not be written (disk full, I/O error)."""
+    DRIVE_MAY_BE_ON = "drive-may-be-on"
+    """A safe-off, or the switch-off at the end, could not be confirmed: the generator
+    output may still be on (the worst ending: someone must act at the instrument)."""
 
     @property
     def rank(self) -> int:
@@ -71,4 +76,5 @@ _EXIT_CODES = {
     ExitStatus.INTERNAL_ERROR: ExitCode.INTERNAL,
     ExitStatus.ERROR: ExitCode.INTERNAL,
     ExitStatus.STORE_ERROR: ExitCode.STORE,
+    ExitStatus.DRIVE_MAY_BE_ON: ExitCode.DRIVE_MAY_BE_ON,
 }

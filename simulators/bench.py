@@ -56,7 +56,8 @@ class SimulatedBench:
         serves this many pre-computed traces in turn (for fetch benchmarks).
     scene_parameters : SceneParameters, optional
     drive : Drive, optional
-        The generator's power-on drive.
+        The generator's power-on drive; by default the demo's settings with the
+        output off, as most real generators power on.
     noise_v_rms, jitter_s : float
         Digitiser front-end noise (V rms) and trigger jitter (s rms).
     start : bool
@@ -72,7 +73,7 @@ class SimulatedBench:
                              f"got {port}")
         self.faults = faults if faults is not None else FaultPlan()
         self.seed = seed
-        drive = drive or Drive()
+        drive = drive or Drive(output_on=False)
         if trigger_period_s is not None:
             drive = Drive(drive.output_on, drive.amplitude_vpp, drive.frequency_hz,
                           drive.burst_cycles, float(trigger_period_s))
@@ -168,7 +169,9 @@ class SimulatedBench:
             f"frequency_hz = {d.frequency_hz!r}",
             f"burst_cycles = {d.burst_cycles}",
             f"burst_period_s = {d.burst_period_s!r}",
-            "output = true",
+            "# Applied with the output off. tankside never switches the output on by",
+            "# itself: use the dashboard's drive key, or watch --drive-on.",
+            "leave_on_at_end = false",
             "",
             "[calibration]",
             f"file = {_toml_str(self.calibration_path)}",

@@ -373,7 +373,7 @@ def live(tmp_path, quick_keys):
     with SimulatedBench(seed=5, trigger_period_s=0.02) as bench:
         path = bench.write_bench_file(tmp_path / "bench.toml",
                                       session_folder=str(tmp_path / "sessions"))
-        session = LiveSession.from_bench(load_bench(path, {}))
+        session = LiveSession.from_bench(load_bench(path, {}), drive_on_at_start="test operator")
         session.start()
         try:
             yield bench, session

@@ -92,6 +92,9 @@ def test_demo_in_a_terminal_caution_keys_and_clean_quit(tmp_path):
     try:
         # first run in an empty folder: the caution comes first and waits for Enter
         term.wait_for(lambda: "press Enter to continue" in term.text, 60, "the caution")
+        # nothing reaches an instrument before the caution is acknowledged
+        time.sleep(0.5)
+        assert not list(folder.glob("session-*.db"))
         term.type("\r")
         term.wait_for(lambda: _committed(folder) >= 10, 60, "committed traces")
         term.type("m")
@@ -119,4 +122,10 @@ def test_demo_in_a_terminal_caution_keys_and_clean_quit(tmp_path):
         assert any(e["kind"] == "method-change" and e["detail"]["to"] == "deconvolve"
                    for e in events)
         assert reader.stop["counts"]["stored"] == len(reader.seqs()) >= 10
+        # the demo alone switches its (simulated) drive on, after the caution, and says so
+        drive = [(e["kind"], e["detail"]["cause"]) for e in events
+                 if e["kind"] in ("drive-on", "drive-off")]
+        assert drive == [("drive-off", "start"), ("drive-on", "demo (simulated generator)"),
+                         ("drive-off", "end of session")]
+    assert "output was switched on" in re.sub(r"[\s│▌▐]+", " ", text)   # the notice
     assert not list(tmp_path.glob("tankside-session-*.log"))   # the child's log removed

@@ -28,6 +28,7 @@ from tankside.drivers.visa import open_resource
 from tankside.monitor.live.benchfile import InstrumentConfig
 from tankside.monitor.live.instruments import digitiser_opener
 from tankside.simulators.bench import SimulatedBench
+from tankside.simulators.scene import Drive
 
 SETTINGS = DigitiserSettings(record_length=2000, sample_rate_hz=250e6, range_v=0.1,
                              trigger_source="EXT", trigger_level_v=1.0)
@@ -35,7 +36,10 @@ SETTINGS = DigitiserSettings(record_length=2000, sample_rate_hz=250e6, range_v=0
 
 @pytest.fixture
 def bench():
-    with SimulatedBench(seed=3, trigger_period_s=0.005) as b:
+    # a generator left with its output on by the operator: these tests are of the
+    # instruments, not of tankside's drive policy
+    with SimulatedBench(seed=3, trigger_period_s=0.005,
+                        drive=Drive()) as b:
         yield b
 
 

@@ -53,7 +53,8 @@ def test_noise_after_safe_off_then_drive_back_on(sim, tmp_path):
     sim.write_bench_file(tmp_path / "bench.toml", session_folder="sessions")
     bench = load_bench(tmp_path / "bench.toml",
                        {**FAST, "alerts.over_pressure.limit_pa": LIMIT_PA})
-    session = LiveSession.from_bench(bench, session_path=tmp_path / "s.db", duration_s=60)
+    session = LiveSession.from_bench(bench, session_path=tmp_path / "s.db", duration_s=60,
+                                     drive_on_at_start="test operator")
     session.start()
     try:
         # Safe-off on trace 0, then a good stretch of noise (at least 120 traces, so a
@@ -96,8 +97,11 @@ def test_noise_after_safe_off_then_drive_back_on(sim, tmp_path):
     assert not [e for e in events if e["kind"] == "range-change"]
     drive = [(e["kind"], e["detail"]["cause"]) for e in events
              if e["kind"] in ("drive-on", "drive-off")]
-    assert drive == [("drive-on", "start"), ("drive-off", "safe-off"),
-                     ("drive-on", "generator")]
+    # off as found, on by the operator, off by the rule, on again at the instrument,
+    # off at the end of the session
+    assert drive == [("drive-off", "start"), ("drive-on", "test operator"),
+                     ("drive-off", "safe-off"), ("drive-on", "generator"),
+                     ("drive-off", "end of session")]
     on_again = next(e for e in events if e["kind"] == "drive-on"
                     and e["detail"]["cause"] == "generator")["detail"]["before_seq"]
     assert quiet_until <= on_again

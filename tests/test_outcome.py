@@ -19,12 +19,13 @@ def test_stored_status_strings_are_those_of_existing_session_files():
     # renaming one would make old files read differently.
     assert {s.value for s in ExitStatus} == {
         "completed", "ok", "operator", "stopped-by-rule", "instrument-failure",
-        "internal-error", "error", "store-error"}
+        "internal-error", "error", "store-error", "drive-may-be-on"}
 
 
 def test_the_worse_status_has_the_higher_rank():
     order = [ExitStatus.COMPLETED, ExitStatus.OPERATOR, ExitStatus.STOPPED_BY_RULE,
-             ExitStatus.INSTRUMENT_FAILURE, ExitStatus.INTERNAL_ERROR, ExitStatus.STORE_ERROR]
+             ExitStatus.INSTRUMENT_FAILURE, ExitStatus.INTERNAL_ERROR, ExitStatus.STORE_ERROR,
+             ExitStatus.DRIVE_MAY_BE_ON]
     ranks = [s.rank for s in order]
     assert ranks == sorted(ranks) and len(set(ranks)) == len(ranks)
 

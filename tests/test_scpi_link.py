@@ -122,6 +122,25 @@ class TestTranscript:
             ScpiLink(fake).write("*RST")
         assert isinstance(info.value.__cause__, VisaIOError)
 
+    def test_resync_on_a_closed_resource_is_connection_lost(self):
+        # pyvisa raises InvalidSession for an attribute of a closed resource; a resync
+        # asked for after the link was closed (a late generator during a safe-off) must
+        # be a typed, catchable error, not an untyped one that ends a session.
+        from pyvisa.errors import InvalidSession
+
+        class Closed(FakeResource):
+            @property
+            def timeout(self):
+                raise InvalidSession()
+
+            @timeout.setter
+            def timeout(self, value):
+                pass
+
+        with pytest.raises(ConnectionLost) as info:
+            ScpiLink(Closed([])).resync()
+        assert isinstance(info.value.__cause__, InvalidSession)
+
     def test_reopen_runs_hooks(self):
         first = FakeResource([])
         second = FakeResource([(b"ACQ:POIN 100\n", None)])

@@ -45,7 +45,8 @@ def _bench(sim, tmp_path, overrides=None):
 
 @pytest.fixture
 def child(sim, tmp_path):
-    session = SessionProcess(SessionSpec(_bench(sim, tmp_path), tmp_path / "c.db"),
+    session = SessionProcess(SessionSpec(_bench(sim, tmp_path), tmp_path / "c.db",
+                                         drive_on_at_start="test operator"),
                              report=io.StringIO())
     session.start()
     try:
@@ -56,6 +57,25 @@ def child(sim, tmp_path):
 
 
 class TestCommandsAndSnapshots:
+    def test_the_operator_switches_the_drive_through_the_child(self, child, sim):
+        # read back from the simulated generator over its own TCP link, not our flag
+        wait_for(lambda: sim.scene.drive.output_on, 10, "drive on at start")
+        child.switch_drive(False, "test operator")
+        wait_for(lambda: not sim.scene.drive.output_on, 10, "drive off")
+        wait_for(lambda: child.snapshot().drive_on is False, 10, "snapshot says off")
+        child.switch_drive(True, "test operator, confirmed")
+        wait_for(lambda: sim.scene.drive.output_on, 10, "drive on again")
+        child.stop("test done")
+        assert child.wait(30)
+        assert not sim.scene.drive.output_on        # switched off at the end
+        with SessionReader(child.session_path) as r:
+            drive = [(e["kind"], e["detail"]["cause"]) for e in r.events()
+                     if e["kind"] in ("drive-on", "drive-off")]
+        assert drive == [("drive-off", "start"), ("drive-on", "test operator"),
+                         ("drive-off", "test operator"),
+                         ("drive-on", "test operator, confirmed"),
+                         ("drive-off", "end of session")]
+
     def test_snapshots_advance_and_commands_reach_the_file(self, child):
         assert child.pid != os.getpid() and child.running
         first = wait_for(lambda: child.snapshot().seq >= 3 and child.snapshot(), what="traces")

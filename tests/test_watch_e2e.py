@@ -52,6 +52,8 @@ def bench_file(sim, tmp_path, extra: str = ""):
 def live(sim, tmp_path, overrides=None, **kw):
     sim.write_bench_file(tmp_path / "bench.toml", session_folder="sessions")
     bench = load_bench(tmp_path / "bench.toml", {**FAST, **(overrides or {})})
+    # the simulated generator powers on with its output off; the test is the operator
+    kw.setdefault("drive_on_at_start", "test operator")
     return LiveSession.from_bench(bench, session_path=tmp_path / "s.db", **kw)
 
 
@@ -182,16 +184,21 @@ def _free_port():
         return sock.getsockname()[1]
 
 
+# The operator's part on a first, scripted run: the caution read, the drive switched on.
+OPERATOR = ("--accept-caution", "--drive-on")
+
+
 class TestCommand:
     def _watch(self, *args, **kw):
         env = dict(os.environ, PYTHONUNBUFFERED="1")
-        return subprocess.Popen([sys.executable, "-m", "tankside.monitor.cli", "watch", *args],
+        return subprocess.Popen([sys.executable, "-m", "tankside.monitor.cli", "watch",
+                                 *OPERATOR, *args],
                                 stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                                 env=env, **kw)
 
     def test_headless_traces_then_exit(self, sim, tmp_path, capsys):
         path = bench_file(sim, tmp_path)
-        code = main(["watch", "--bench", str(path), "--headless", "--traces", "40",
+        code = main(["watch", *OPERATOR, "--bench", str(path), "--headless", "--traces", "40",
                      "--session", str(tmp_path / "w.db"), "--status-every", "0.2"])
         out = capsys.readouterr().out
         assert code == ExitCode.OK
@@ -277,14 +284,14 @@ class TestCommand:
         assert "Traceback" not in err
         path = bench_file(sim, tmp_path)
         port = _free_port()
-        code = main(["watch", "--bench", str(path), "--headless", "--traces", "3",
+        code = main(["watch", *OPERATOR, "--bench", str(path), "--headless", "--traces", "3",
                      "--digitiser", f"TCPIP0::127.0.0.1::{port}::SOCKET",
                      "--session", str(tmp_path / "never.db")])
         err = capsys.readouterr().err
         assert code == ExitCode.USAGE
         assert str(port) in err and err.count("\n") == 1
         assert not (tmp_path / "never.db").exists()
-        code = main(["watch", "--bench", str(path), "--headless",
+        code = main(["watch", *OPERATOR, "--bench", str(path), "--headless",
                      "--digitiser-profile", "no-such-profile"])
         err = capsys.readouterr().err
         assert code == ExitCode.USAGE and "no-such-profile" in err

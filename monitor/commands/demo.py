@@ -26,6 +26,10 @@ only interlock. tankside does not replace calibrated compliance measurements, lo
 rules or licensed practice."""
 
 BENCH_FILE_NAME = "demo-bench.toml"
+# The demo alone switches a drive on by itself: its simulated one, after the caution.
+DEMO_DRIVE_CAUSE = "demo (simulated generator)"
+DEMO_DRIVE_NOTE = ("demo: the simulated generator's output was switched on (simulated "
+                   "instruments only; on a real bench tankside never does this by itself)")
 
 
 def add_parser(subparsers) -> None:
@@ -86,7 +90,8 @@ def run(args) -> int:
         # with the dashboard the session runs in a child process; the simulated
         # instruments stay here, behind their sockets, like instruments of their own
         session = session_for_display(load_bench(bench_path), own_process=not args.headless,
-                                      duration_s=args.duration)
+                                      duration_s=args.duration,
+                                      drive_on_at_start=DEMO_DRIVE_CAUSE)
         return _watch(session, bench_path, headless=args.headless, first_run=first_run,
                       run_headless=run_headless)
 
@@ -101,12 +106,14 @@ def _watch(session, bench_path: Path, *, headless: bool, first_run: bool, run_he
             print(CAUTION, file=sys.stderr, flush=True)
         print(f"tankside demo: simulated bench on 127.0.0.1 (bench file {bench_path})",
               file=sys.stderr, flush=True)
-        session.start()
         print(f"tankside demo: recording to {session.session_path}", file=sys.stderr,
               flush=True)
         if dashboard is None:
+            session.start()
+            print(f"tankside {DEMO_DRIVE_NOTE}", file=sys.stderr, flush=True)
             return run_headless(session)
-        code = dashboard(session, first_run_notice=first_run)
+        code = dashboard(session, first_run_notice=first_run, start_session=True,
+                         started_note=DEMO_DRIVE_NOTE)
         snap = session.snapshot()
         status = session.exit_status or ExitStatus.COMPLETED
         why = status if session.stop_reason in ("", status) else \

@@ -49,6 +49,13 @@ def add_parser(subparsers) -> None:
                    help="no dashboard: print a status line every few seconds and every alert")
     p.add_argument("--status-every", type=float, default=2.0, metavar="S",
                    help="headless status line interval, s (default 2)")
+    p.add_argument("--drive-on", action="store_true",
+                   help="switch the generator output on once the session runs (recorded "
+                        "as an operator action); without it tankside never switches the "
+                        "drive on: use the dashboard's drive key (d)")
+    p.add_argument("--accept-caution", action="store_true",
+                   help="headless without a terminal: the safety caution (README, 'Safety "
+                        "first') has been read; needed on the first session in a folder")
 
     o = p.add_argument_group("overrides of the bench file")
     o.add_argument("--digitiser", metavar="RESOURCE",
@@ -142,6 +149,36 @@ def _first_run(folder: Path, current: Path) -> bool:
         return True
 
 
+CAUTION = ("CAUTION: high-power ultrasound, high drive voltages and cavitation can hurt "
+           "people and destroy hydrophones; safe-off is a convenience, never the only "
+           "interlock. tankside does not replace calibrated compliance measurements, local "
+           "rules or licensed practice.")
+
+
+def acknowledge_caution_headless(*, accepted: bool) -> None:
+    """Show the caution and have it acknowledged before anything reaches an instrument.
+
+    On a terminal the operator presses Enter; without one, ``--accept-caution`` is the
+    acknowledgement.
+
+    Raises
+    ------
+    ConfigError
+        No terminal to ask, and the caution not accepted on the command line.
+    """
+    print(CAUTION, flush=True)
+    if accepted:
+        print("caution accepted (--accept-caution)", flush=True)
+        return
+    if not sys.stdin or not sys.stdin.isatty():
+        raise ConfigError("first session in this folder: read the caution above, then run "
+                          "again with --accept-caution (nothing was sent to any instrument)")
+    try:
+        input("press Enter to continue (Ctrl-C to leave; nothing has been sent yet) ")
+    except EOFError as err:
+        raise ConfigError("the caution was not acknowledged; nothing was sent") from err
+
+
 def run(args) -> int:
     from ..headless import run_headless
     from ..live.benchfile import load_bench
@@ -171,20 +208,22 @@ def run(args) -> int:
     session = session_for_display(
         bench, own_process=not headless,
         session_path=_abs(args.session) if args.session else None,
-        max_traces=args.traces, duration_s=args.duration, bell=bell if headless else None)
+        max_traces=args.traces, duration_s=args.duration, bell=bell if headless else None,
+        drive_on_at_start="--drive-on" if args.drive_on else None)
     first_run = _first_run(session.session_path.parent, session.session_path)
 
     def show() -> int:
-        session.start()
-        print(f"tankside: recording to {session.session_path}", file=sys.stderr, flush=True)
         if dashboard is None:       # headless
             if first_run:
-                print("CAUTION: high-power ultrasound, high drive voltages and cavitation can "
-                      "hurt people and destroy hydrophones; safe-off is a convenience, never "
-                      "the only interlock. tankside does not replace calibrated compliance "
-                      "measurements, local rules or licensed practice.", flush=True)
+                acknowledge_caution_headless(accepted=args.accept_caution)
+            session.start()
+            print(f"tankside: recording to {session.session_path}", file=sys.stderr,
+                  flush=True)
             return run_headless(session, status_every_s=args.status_every)
-        code = dashboard(session, first_run_notice=first_run)
+        print(f"tankside: recording to {session.session_path}", file=sys.stderr, flush=True)
+        code = dashboard(session, first_run_notice=first_run, start_session=True,
+                         started_note=("generator output switched on (--drive-on)"
+                                       if args.drive_on else ""))
         return session.exit_code if session.exit_code else code
 
     return run_to_end(session, show, leftover_reason="dashboard closed")

@@ -23,6 +23,7 @@ from .alerts import AlertList, open_alerts
 from .banner import Banner
 from .capture import write_columns_csv
 from .caution import CautionScreen
+from .driveconfirm import DriveConfirmScreen
 from .figures import RunningFigures
 from .marknote import MarkNoteScreen
 from .spectrum import SpectrumView
@@ -59,14 +60,20 @@ class DashboardApp(App[None]):
         Binding("l", "toggle_scale", "dB/lin"),
         Binding("z", "toggle_zoom", "zoom"),
         Binding("s", "save_capture", "save"),
+        Binding("d", "drive", "drive"),
         Binding("q", "quit_session", "quit"),
     ]
 
     def __init__(self, session, *, first_run_notice: bool = True,
-                 capture_dir: str | Path | None = None, refresh_hz: float = REFRESH_HZ):
+                 capture_dir: str | Path | None = None, refresh_hz: float = REFRESH_HZ,
+                 start_session: bool = False, started_note: str = ""):
         super().__init__()
         self.session = session
         self.first_run_notice = first_run_notice
+        # Start the session here, after the caution: nothing reaches an instrument first.
+        self.start_session = start_session
+        self.started_note = started_note
+        self.start_error: BaseException | None = None
         self.capture_dir = Path(capture_dir) if capture_dir is not None else None
         self.refresh_hz = refresh_hz
         self.held = False
@@ -103,7 +110,27 @@ class DashboardApp(App[None]):
         self.set_interval(1.0 / self.refresh_hz, self.refresh_from_session)
         self.refresh_from_session()
         if self.first_run_notice:
-            self.push_screen(CautionScreen())
+            self.push_screen(CautionScreen(), callback=lambda _: self._begin())
+        else:
+            self._begin()
+
+    def _begin(self) -> None:
+        if self.start_session:
+            self.run_worker(self._start_in_thread, thread=True, exclusive=True,
+                            name="session-start")
+        elif self.started_note:
+            self.notify(self.started_note, timeout=8)
+
+    def _start_in_thread(self) -> None:
+        # connecting blocks (a slow or unreachable instrument): not on the UI thread
+        try:
+            self.session.start()
+        except BaseException as err:  # noqa: BLE001 - re-raised by run_dashboard
+            self.start_error = err
+            self.call_from_thread(self.exit)
+            return
+        if self.started_note:
+            self.call_from_thread(self.notify, self.started_note, timeout=8)
 
     def on_unmount(self) -> None:
         sys.setswitchinterval(self._previous_switch_interval_s)
@@ -246,6 +273,26 @@ class DashboardApp(App[None]):
         self.saved = saved
         self.notify(f"saved {len(saved)} files in {folder}", timeout=4)
 
+    def action_drive(self) -> None:
+        """Switch the generator output off at once, or on after a confirmation."""
+        snap = self.latest
+        if snap is None or not snap.drive_detail:
+            self.notify("no generator on this bench", severity="warning", timeout=4)
+            return
+        if snap.drive_on:
+            self._call_session(self.session.switch_drive, False, "operator (dashboard)")
+            self.notify("switching the generator output off", timeout=4)
+            return
+
+        def confirmed(yes: bool | None) -> None:
+            if yes and self._call_session(self.session.switch_drive, True,
+                                          "operator (dashboard, confirmed)"):
+                self.notify("switching the generator output ON", severity="warning",
+                            timeout=6)
+            elif not yes:
+                self.notify("drive left off", timeout=3)
+        self.push_screen(DriveConfirmScreen(), callback=confirmed)
+
     def action_quit_session(self) -> None:
         """Stop the session cleanly, then leave."""
         self._call_session(self.session.stop, "operator")
@@ -271,16 +318,22 @@ def _initial_method(session) -> Method:
 
 
 def run_dashboard(session, *, first_run_notice: bool = True,
-                  capture_dir: str | Path | None = None) -> int:
-    """Show the dashboard on a started live session until the operator quits.
+                  capture_dir: str | Path | None = None, start_session: bool = False,
+                  started_note: str = "") -> int:
+    """Show the dashboard on a live session until the operator quits.
 
     Parameters
     ----------
     session : LiveSession or SessionProcess
-        Already started; the dashboard calls only its snapshot/mark/acknowledge/
-        set_method/stop/wait methods and its ``exit_code`` and ``running`` attributes.
+        The dashboard calls only its start/snapshot/mark/acknowledge/set_method/
+        switch_drive/stop/wait methods and its ``exit_code`` and ``running`` attributes.
     first_run_notice : bool
         Show the caution about high-power ultrasound before the live view.
+    start_session : bool
+        The session is not started yet: start it once the caution is acknowledged (so
+        nothing is sent to an instrument before); a failure to start is raised here.
+    started_note : str
+        Shown once the session runs (e.g. that the demo switched its drive on).
     capture_dir : path, optional
         Where the save key writes; default ``captures/`` beside the session file.
 
@@ -289,11 +342,16 @@ def run_dashboard(session, *, first_run_notice: bool = True,
     int
         The session's exit code (see :mod:`tankside.monitor.cli`).
     """
-    app = DashboardApp(session, first_run_notice=first_run_notice, capture_dir=capture_dir)
+    app = DashboardApp(session, first_run_notice=first_run_notice, capture_dir=capture_dir,
+                       start_session=start_session, started_note=started_note)
+    if start_session:
+        session.prepare()
     try:
         app.run()
     finally:
         if session.running:
             session.stop("operator")
         session.wait(timeout_s=STOP_WAIT_S)
+    if app.start_error is not None:
+        raise app.start_error
     return session.exit_code

@@ -1,17 +1,12 @@
-"""The acquisition thread: blocking instrument I/O, instrument actions, reconnects.
+"""The acquisition thread: blocking digitiser I/O, range changes, reconnects.
 
-It owns the digitiser and the generator. It never waits on the display or the disk:
-each trace goes into a bounded queue, and a full queue blocks it (throttling
-acquisition; nothing is dropped). Before each acquisition it carries out the actions
-the processing stage asked for (safe-off first, then a range change), and when
-``gate`` is set it first waits until the rules have seen the previous trace, so that a
-safe-off decided on trace N takes effect before trace N+1 is acquired.
-
-With a generator, it also knows the output state: off after a safe-off, and asked
-of the generator about once a second (``DRIVE_POLL_S``, between acquisitions), so
-that an operator switching the output on or off at the instrument is noticed. Each
-change is an event (``drive-on`` / ``drive-off``, detail ``{"output_on", "cause",
-"before_seq"}``, cause "start", "safe-off" or "generator"), in order with the traces.
+It owns the digitiser. It never waits on the display, the disk or the generator (which
+has a thread of its own, :mod:`tankside.monitor.live.generator`): each trace goes into
+a bounded queue, and a full queue blocks it (throttling acquisition; nothing is
+dropped). Before each acquisition it carries out the range change the processing stage
+asked for, and when ``gate`` is set it first waits until the rules have seen the
+previous trace, so that an action decided on trace N takes effect before trace N+1 is
+acquired.
 """
 
 from __future__ import annotations
@@ -31,16 +26,14 @@ from ...drivers.errors import (
     ProtocolError,
 )
 from ..record.schema import EventKind, FaultKind
-from .actions import InstrumentAction, RaisedAlert, SafeOff, SetRange
+from .actions import RaisedAlert, SetRange
 
 BACKOFF_S = (0.1, 0.2, 0.5, 1.0, 2.0, 5.0)
-DRIVE_POLL_S = 1.0          # output-state query interval (cheap; not one per trace)
-DRIVE_RETRY_S = 5.0         # after a failed query: do not stall acquisition every second
 
 
 @dataclass
 class OpenInstrument:
-    """A connected instrument: the driver object and its SCPI session (resync, close)."""
+    """A connected instrument: the driver object, its link (resync, close) and identity."""
 
     device: Any
     link: Any
@@ -84,25 +77,22 @@ class AcquisitionLoop:
     ----------
     open_digitiser : callable () -> OpenInstrument
         Opens, identifies and configures the digitiser (settings applied).
-    open_generator : callable () -> OpenInstrument, or None
     out : queue.Queue
         Bounded queue of :class:`Acquired` and :class:`AcqEvent` items.
     stop : threading.Event
         Set to end the loop after the current acquisition.
     trigger_timeout_s : float
     give_up_s : float
-        How long to keep trying to reconnect a lost instrument.
+        How long to keep trying to reconnect a lost digitiser.
     max_traces : int or None
     first_seq : int
     """
 
-    def __init__(self, *, open_digitiser: Callable[[], OpenInstrument],
-                 open_generator: Callable[[], OpenInstrument] | None, out: queue.Queue,
+    def __init__(self, *, open_digitiser: Callable[[], OpenInstrument], out: queue.Queue,
                  stop: threading.Event, trigger_timeout_s: float, give_up_s: float = 60.0,
                  max_traces: int | None = None, first_seq: int = 0, gate: bool = True,
                  clock: Callable[[], float] = time.time):
         self.open_digitiser = open_digitiser
-        self.open_generator = open_generator
         self.out = out
         self.stop = stop
         self.trigger_timeout_s = trigger_timeout_s
@@ -112,8 +102,9 @@ class AcquisitionLoop:
         self.gate = gate
         self.clock = clock
         self.digitiser: OpenInstrument | None = None
-        self.generator: OpenInstrument | None = None
-        self.commands: queue.Queue[InstrumentAction] = queue.Queue()
+        self.commands: queue.Queue[SetRange] = queue.Queue()
+        # Waits (bounded) for a pending safe-off's first attempt before each acquisition.
+        self.hold: Callable[[], None] | None = None
         # Set only when nothing downstream reads the queue any more (a fatal error there).
         self.abandon = threading.Event()
         self.connected = False
@@ -126,22 +117,11 @@ class AcquisitionLoop:
         self._verdict = threading.Condition()
         self._verdict_seq = first_seq - 1
         self._next_flags: dict = {}
-        # Generator output: True/False, None while unknown; only this thread writes it.
-        self.drive_on: bool | None = None
-        self.drive_cause = ""
-        self._next_drive_poll = 0.0
-        self._drive_fault: str | None = None
 
     # -- connection, called from the starting thread before run() --------------
     def connect(self) -> None:
         self.digitiser = self.open_digitiser()
         self.connected = True
-        if self.open_generator is not None:
-            try:
-                self.generator = self.open_generator()
-            except BaseException:
-                self.close_links()
-                raise
 
     @property
     def ranges_v(self) -> tuple[float, ...]:
@@ -182,20 +162,27 @@ class AcquisitionLoop:
                 if self.gate:
                     self._wait_verdict()
                 self._apply_commands()
-                self._poll_drive()
+                if self.hold is not None:
+                    self.hold()
                 if self.stop.is_set():
                     break
                 self._acquire_one()
         except Fatal as err:
             self.fatal = str(err)
         finally:
-            self._apply_commands()      # a safe-off asked for at the very end still happens
             self.close_links()
 
     def close_links(self) -> None:
-        for link in (self.digitiser, self.generator):
-            _close(link)
+        _close(self.digitiser)
         self.connected = False
+
+    def event(self, kind: EventKind, detail: dict, alert: RaisedAlert | None = None,
+              seq: int | None = None) -> None:
+        """Queue an event in order with the traces (blocks while the queue is full).
+
+        Safe to call from another thread (the generator's).
+        """
+        self._emit(AcqEvent(self.clock(), kind, detail, seq=seq, alert=alert))
 
     def _emit(self, item) -> None:
         # Blocks while the queue is full: acquisition is throttled, never lossy.
@@ -218,34 +205,31 @@ class AcquisitionLoop:
             self.blocked_s += time.monotonic() - t0
             self.blocked_now = False
 
-    def _event(self, kind: EventKind, detail: dict, alert: RaisedAlert | None = None,
-               seq: int | None = None) -> None:
-        self._emit(AcqEvent(self.clock(), kind, detail, seq=seq, alert=alert))
 
     def _acquire_one(self) -> None:
         dev = self._digitiser().device
         try:
             raw = dev.acquire(self.seq, trigger_timeout_s=self.trigger_timeout_s)
         except NoTrigger as err:
-            self._event(EventKind.NO_TRIGGER, {"message": str(err),
+            self.event(EventKind.NO_TRIGGER, {"message": str(err),
                                        "timeout_s": self.trigger_timeout_s})
             return
         except (ProtocolError, InstrumentTimeout) as err:
             kind = FaultKind.MALFORMED_REPLY if isinstance(err, ProtocolError) \
                 else FaultKind.STALLED
-            self._event(EventKind.FAULT, {"kind": kind, "message": str(err), "at_seq": self.seq},
+            self.event(EventKind.FAULT, {"kind": kind, "message": str(err), "at_seq": self.seq},
                         alert=RaisedAlert("instrument-fault", "warning",
                                           f"digitiser {kind}: {err}"))
             self._recover(err)
             return
         except ConnectionLost as err:
-            self._event(EventKind.FAULT, {"kind": FaultKind.CONNECTION_LOST,
+            self.event(EventKind.FAULT, {"kind": FaultKind.CONNECTION_LOST,
                                           "message": str(err), "at_seq": self.seq},
                         alert=RaisedAlert("instrument-fault", "warning", f"digitiser lost: {err}"))
             self._reconnect(err)
             return
         except InstrumentError as err:
-            self._event(EventKind.FAULT, {"kind": FaultKind.INSTRUMENT_ERROR,
+            self.event(EventKind.FAULT, {"kind": FaultKind.INSTRUMENT_ERROR,
                                           "message": str(err), "at_seq": self.seq},
                         alert=RaisedAlert("instrument-fault", "warning", f"digitiser: {err}"))
             return
@@ -260,7 +244,7 @@ class AcquisitionLoop:
         except InstrumentError:
             self._reconnect(err)
             return
-        self._event(EventKind.RESYNC, {"after": type(err).__name__})
+        self.event(EventKind.RESYNC, {"after": type(err).__name__})
 
     def _reconnect(self, err: Exception) -> None:
         lost = self._digitiser()
@@ -290,7 +274,7 @@ class AcquisitionLoop:
                     continue
                 self.digitiser = link
                 self.connected = True
-                self._event(EventKind.RECONNECT,
+                self.event(EventKind.RECONNECT,
                             {"attempts": attempt,
                              "after_s": round(time.monotonic() - started, 3),
                              "cause": str(err), "identity": link.identity,
@@ -303,99 +287,19 @@ class AcquisitionLoop:
 
     # -- actions -----------------------------------------------------------------
     def _apply_commands(self) -> None:
-        pending: list[InstrumentAction] = []
+        pending: list[SetRange] = []
         while True:
             try:
                 pending.append(self.commands.get_nowait())
             except queue.Empty:
                 break
-        if not pending:
-            return
-        # Safe-off before anything else, however the requests arrived.
-        for cmd in pending:
-            if isinstance(cmd, SafeOff):
-                self._safe_off(cmd.cause.as_detail())
-        ranges = [cmd for cmd in pending if isinstance(cmd, SetRange)]
-        if ranges:
-            self._set_range(ranges[-1].range_v, ranges[-1].cause.as_detail())
+        if pending:     # only the newest range asked for counts
+            self._set_range(pending[-1].range_v, pending[-1].cause.as_detail())
 
     def release_all(self) -> None:
         """Nothing downstream judges traces any more: never wait for a verdict again."""
         self.abandon.set()
         self.verdict(_NO_MORE_VERDICTS)
-
-    def _open_generator(self) -> OpenInstrument:
-        open_generator = self.open_generator
-        if open_generator is None:  # pragma: no cover - no generator is open without it
-            raise RuntimeError("acquisition: no generator is configured")
-        return open_generator()
-
-    def _safe_off(self, cause: dict) -> None:
-        if self.generator is None:
-            self._event(EventKind.SAFE_OFF,
-                        {"done": False, "why": "no generator configured", **cause},
-                        alert=RaisedAlert("safe-off-failed", "critical",
-                               "safe-off asked for but no generator is configured"))
-            return
-        try:
-            self.generator.device.set_output(False)
-            still_on = self.generator.device.output_is_on()
-        except InstrumentError as err:
-            try:
-                _close(self.generator)
-                self.generator = self._open_generator()
-                self.generator.device.set_output(False)
-                still_on = self.generator.device.output_is_on()
-            except InstrumentError as again:
-                self._event(EventKind.SAFE_OFF, {"done": False, "error": str(again), **cause},
-                            alert=RaisedAlert("safe-off-failed", "critical",
-                                   f"generator output could not be switched off: {err}"))
-                return
-        if still_on:
-            self._event(EventKind.SAFE_OFF,
-                        {"done": False, "error": "output still on", **cause},
-                        alert=RaisedAlert("safe-off-failed", "critical",
-                               "generator reports output still on after safe-off"))
-            return
-        self._event(EventKind.SAFE_OFF, {"done": True, "before_seq": self.seq, **cause})
-        self._set_drive(False, "safe-off")
-
-    # -- generator output state ----------------------------------------------------
-    def _set_drive(self, on: bool, cause: str) -> None:
-        self._drive_fault = None
-        if on == self.drive_on:
-            return
-        self.drive_on = on
-        self.drive_cause = cause
-        self._event(EventKind.DRIVE_ON if on else EventKind.DRIVE_OFF,
-                    {"output_on": on, "cause": cause, "before_seq": self.seq})
-
-    def _poll_drive(self) -> None:
-        """Ask the generator for its output state when the poll interval is up."""
-        if self.generator is None:
-            return
-        now = time.monotonic()
-        if now < self._next_drive_poll:
-            return
-        try:
-            on = bool(self.generator.device.output_is_on())
-        except InstrumentError as err:
-            self._next_drive_poll = now + DRIVE_RETRY_S
-            try:
-                # a late reply must not be read as the answer to the next query
-                self.generator.link.resync()
-            except InstrumentError:
-                pass  # the link is gone; safe-off reopens it when it is needed
-            if self._drive_fault is None:
-                self._drive_fault = str(err)
-                self.drive_on = None
-                self._event(EventKind.FAULT, {"kind": FaultKind.GENERATOR_QUERY,
-                                              "message": str(err), "at_seq": self.seq},
-                            alert=RaisedAlert("instrument-fault", "warning",
-                                   f"generator output state unknown: {err}"))
-            return
-        self._next_drive_poll = now + DRIVE_POLL_S
-        self._set_drive(on, "start" if self.drive_cause == "" else "generator")
 
     def _set_range(self, new_v: float, cause: dict) -> None:
         old_v = self.current_range_v()
@@ -404,13 +308,13 @@ class AcquisitionLoop:
         try:
             self._digitiser().device.set_range(new_v)
         except InstrumentError as err:
-            self._event(EventKind.RANGE_CHANGE, {"done": False, "from_v": old_v,
+            self.event(EventKind.RANGE_CHANGE, {"done": False, "from_v": old_v,
                                                  "to_v": new_v, "error": str(err), **cause},
                         alert=RaisedAlert("auto-range-failed", "warning",
                                           f"range change failed: {err}"))
             return
         self._next_flags = {"range_changed": True, "previous_range_v": old_v}
-        self._event(EventKind.RANGE_CHANGE, {"done": True, "from_v": old_v, "to_v": new_v,
+        self.event(EventKind.RANGE_CHANGE, {"done": True, "from_v": old_v, "to_v": new_v,
                                              "before_seq": self.seq, **cause})
 
 

@@ -17,6 +17,9 @@ Layout (every section except ``[digitiser]`` and ``[calibration]`` is optional):
     [generator]
     resource = "..."
     profile = "..."
+    amplitude_vpp = 0.1           # applied at start with the output off
+    leave_on_at_end = false       # default: output switched off when the session ends
+    safe_off_give_up_s = 10.0     # retry a safe-off this long, then stop the session
 
     [calibration]
     file = "cal.csv"
@@ -63,6 +66,8 @@ _GENERATOR_KEYS = {
     "burst_cycles": int,
     "burst_period_s": float,
     "output": bool,
+    "leave_on_at_end": bool,
+    "safe_off_give_up_s": float,
 }
 _SESSION_KEYS = {
     "folder": str,
@@ -86,13 +91,22 @@ class InstrumentConfig:
 
 @dataclass(frozen=True)
 class GeneratorConfig(InstrumentConfig):
-    """The generator connection, and settings applied at start (None = leave as found)."""
+    """The generator connection, and settings applied at start (None = leave as found).
+
+    The settings are applied with the output off; tankside never switches it on by
+    itself (``output`` may only be false: switch it off at start). ``leave_on_at_end``
+    false (the default) switches the output off when the session ends;
+    ``safe_off_give_up_s`` bounds how long a safe-off is retried before the session
+    stops saying the drive may still be on.
+    """
 
     amplitude_vpp: float | None = None
     frequency_hz: float | None = None
     burst_cycles: int | None = None
     burst_period_s: float | None = None
     output: bool | None = None
+    leave_on_at_end: bool = False
+    safe_off_give_up_s: float = 10.0
 
 
 @dataclass(frozen=True)
@@ -318,6 +332,13 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
         for key in gen_rest:
             if key not in _GENERATOR_KEYS:
                 raise ConfigError(f"{source}: [generator] {key}: unknown key")
+        if gen_rest.get("output") is True:
+            raise ConfigError(
+                f"{source}: [generator] output = true: tankside never switches the drive on "
+                "by itself; remove the key (or set it false) and switch the output on with "
+                "the dashboard's drive key or watch --drive-on")
+        if gen_rest.get("safe_off_give_up_s", 1.0) <= 0:
+            raise ConfigError(f"{source}: [generator] safe_off_give_up_s: must be above 0")
         if ("burst_cycles" in gen_rest) != ("burst_period_s" in gen_rest):
             raise ConfigError(f"{source}: [generator] burst_cycles and burst_period_s: "
                               "give both or neither")

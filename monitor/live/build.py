@@ -48,9 +48,17 @@ def session_parts(bench: Any, *, session_path: str | Path | None = None) -> dict
         return SessionStore.create(p, meta, commit_interval_s=bench.commit_interval_s)
 
     resources = {"digitiser": bench.digitiser.resource}
+    generator: dict[str, Any] = {}
     if bench.generator is not None:
         resources["generator"] = bench.generator.resource
-    return {"open_digitiser": open_dig, "open_generator": open_gen, "converter": converter,
+        gen_config = bench.generator
+        generator = {
+            "apply_generator_settings":
+                lambda device: instruments.apply_generator_settings(device, gen_config),
+            "leave_drive_on_at_end": gen_config.leave_on_at_end,
+            "safe_off_give_up_s": gen_config.safe_off_give_up_s}
+    return {**generator, "open_digitiser": open_dig, "open_generator": open_gen,
+            "converter": converter,
             "rules": rules, "open_store": open_store, "metadata": metadata,
             "session_path": path, "trigger_timeout_s": bench.trigger_timeout_s,
             "queue_capacity": bench.queue_capacity, "give_up_s": bench.reconnect_give_up_s,

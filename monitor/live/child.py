@@ -47,7 +47,7 @@ if TYPE_CHECKING:
     from .benchfile import BenchConfig
 
 #: The session methods the parent may call in the child (stop has no answer).
-COMMANDS = ("mark", "acknowledge", "set_method")
+COMMANDS = ("mark", "acknowledge", "set_method", "switch_drive")
 #: How long a command waits for the child's answer, s.
 ANSWER_WAIT_S = 10.0
 #: How long the child waits, after its session has ended, for the parent to ask for
@@ -63,6 +63,7 @@ class SessionSpec:
     session_path: Path
     max_traces: int | None = None
     duration_s: float | None = None
+    drive_on_at_start: str | None = None
 
 
 @dataclasses.dataclass
@@ -108,6 +109,14 @@ class SessionProcess:
         self._reported = ""            # what the child printed, once copied to report
 
     # ---------------------------------------------------------------- start
+    def prepare(self) -> None:
+        """Start multiprocessing's helper process now, while the standard streams are
+        the terminal's: a display that captures them (Textual does) would make the
+        spawn in :meth:`start` fail. Sends nothing to any instrument."""
+        from multiprocessing import resource_tracker
+
+        resource_tracker.ensure_running()
+
     def start(self) -> None:
         """Start the child and wait until its session is running.
 
@@ -174,6 +183,9 @@ class SessionProcess:
 
     def set_method(self, method: str) -> None:
         self._call("set_method", str(method))
+
+    def switch_drive(self, on: bool, cause: str = "operator") -> None:
+        self._call("switch_drive", bool(on), str(cause))
 
     def stop(self, reason: str = "operator") -> None:
         """Ask the child to stop its session cleanly; returns at once.
@@ -337,7 +349,8 @@ def child_main(spec: SessionSpec, commands, snapshots, log_path: str) -> None:
     try:
         session = LiveSession.from_bench(spec.bench, session_path=spec.session_path,
                                          max_traces=spec.max_traces,
-                                         duration_s=spec.duration_s)
+                                         duration_s=spec.duration_s,
+                                         drive_on_at_start=spec.drive_on_at_start)
         session.start()
     except (TanksideError, InstrumentError) as err:
         _send_quietly(commands, ("failed", err))
@@ -435,7 +448,7 @@ def _remove_if_empty(path: str) -> None:
 
 def session_for_display(bench, *, own_process: bool, session_path: str | Path | None = None,
                         max_traces: int | None = None, duration_s: float | None = None,
-                        bell=None):
+                        bell=None, drive_on_at_start: str | None = None):
     """The session a command shows: in this process (headless), or in a child (dashboard).
 
     Parameters
@@ -444,7 +457,7 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
     own_process : bool
         Run the session in a child process (:class:`SessionProcess`); False builds a
         :class:`~tankside.monitor.live.session.LiveSession` here (``bell`` rings on alerts).
-    session_path, max_traces, duration_s
+    session_path, max_traces, duration_s, drive_on_at_start
         As for :meth:`LiveSession.from_bench`.
     """
     from .build import new_session_path
@@ -452,6 +465,8 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
 
     if not own_process:
         return LiveSession.from_bench(bench, session_path=session_path, max_traces=max_traces,
-                                      duration_s=duration_s, bell=bell)
+                                      duration_s=duration_s, bell=bell,
+                                      drive_on_at_start=drive_on_at_start)
     path = new_session_path(bench.session_folder, session_path)
-    return SessionProcess(SessionSpec(bench, path, max_traces=max_traces, duration_s=duration_s))
+    return SessionProcess(SessionSpec(bench, path, max_traces=max_traces, duration_s=duration_s,
+                                      drive_on_at_start=drive_on_at_start))

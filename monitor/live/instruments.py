@@ -50,36 +50,44 @@ def digitiser_opener(config, settings):
 
 
 def generator_opener(config):
-    """Returns ``open() -> OpenInstrument`` for the generator, applying the bench's settings once.
+    """Returns ``open() -> OpenInstrument``: connect and identify the generator.
 
-    Settings given in the bench file (amplitude, frequency, burst, output) are applied
-    at the first opening only: a reconnect during a link must not switch a drive
-    back on that safe-off switched off.
+    Nothing is set and the output is not touched: settings are applied once, by
+    :func:`apply_generator_settings`, after the session file exists.
     """
     profile = load_profile(config.profile)
-    first = [True]
 
     def open_generator() -> OpenInstrument:
         link = _open_link(config, profile, "generator")
         try:
             device = Generator(link, profile)
             identity = device.identity
-            if first[0]:
-                if config.frequency_hz is not None:
-                    device.set_frequency(config.frequency_hz)
-                if config.amplitude_vpp is not None:
-                    device.set_amplitude(config.amplitude_vpp)
-                if config.burst_cycles is not None or config.burst_period_s is not None:
-                    device.set_burst(config.burst_cycles, config.burst_period_s)
-                if config.output is not None:
-                    device.set_output(config.output)
         except InstrumentError:
             _close_quietly(link)
             raise
-        first[0] = False
         return OpenInstrument(device=device, link=link, identity=identity)
 
     return open_generator
+
+
+def apply_generator_settings(device, config) -> None:
+    """Apply the bench's generator settings with the output off.
+
+    The drive is the operator's: the output is switched off first when it is on (a
+    new amplitude or burst never reaches the transducer unannounced) and is never
+    switched on here.
+    """
+    settings = (config.frequency_hz, config.amplitude_vpp, config.burst_cycles,
+                config.burst_period_s)
+    changes = any(value is not None for value in settings)
+    if config.output is False or (changes and device.output_is_on()):
+        device.set_output(False)
+    if config.frequency_hz is not None:
+        device.set_frequency(config.frequency_hz)
+    if config.amplitude_vpp is not None:
+        device.set_amplitude(config.amplitude_vpp)
+    if config.burst_cycles is not None or config.burst_period_s is not None:
+        device.set_burst(config.burst_cycles, config.burst_period_s)
 
 
 def _close_quietly(link: ScpiLink) -> None:

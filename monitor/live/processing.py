@@ -32,6 +32,7 @@ from .acquisition import AcqEvent, Acquired, AcquisitionLoop
 from .actions import Cause, SafeOff, SetRange
 from .autorange import range_after
 from .figures import FigureSet, RateMeter
+from .generator import GeneratorWorker
 from .recorder import AlertItem, EventItem, TraceItem
 from .rules import Firing, observation_from_trace
 from .snapshot import AlertView, InstrumentView, Snapshot
@@ -50,7 +51,9 @@ class TraceProcessor:
         ``.process(voltage_v, dt_s) -> TraceResult`` and ``.with_method(m)``.
     rules : RuleEngine
     acquisition : AcquisitionLoop
-        Where instrument actions go, and what the instrument views are read from.
+        Where range changes go, and what the digitiser's view is read from.
+    generator : GeneratorWorker or None
+        Where safe-off goes (None: no generator; a safe-off then raises an alert).
     record : callable (item) -> None
         Hands an item to the recorder (blocks while its queue is full).
     stop_by_rule : callable (reason) -> None
@@ -66,12 +69,14 @@ class TraceProcessor:
     """
 
     def __init__(self, *, converter: Any, rules: Any, acquisition: AcquisitionLoop,
-                 record: Callable[[Any], None], stop_by_rule: Callable[[str], None],
+                 generator: GeneratorWorker | None, record: Callable[[Any], None],
+                 stop_by_rule: Callable[[str], None],
                  session_path: Path, method: str, bell: Callable[[], None] | None = None,
                  autorange_options: dict | None = None, resources: dict | None = None):
         self._converter = converter
         self._rules = rules
         self._acq = acquisition
+        self._generator = generator
         self._record = record
         self._stop_by_rule = stop_by_rule
         self._bell = bell
@@ -135,7 +140,10 @@ class TraceProcessor:
             self._drive_on = kind == EventKind.DRIVE_ON
             self._drive_cause = str(ev.detail.get("cause", ""))
             self.publish()
-        elif kind == EventKind.FAULT and ev.detail.get("kind") == FaultKind.GENERATOR_QUERY:
+        elif (kind == EventKind.FAULT and ev.detail.get("kind") == FaultKind.GENERATOR_QUERY) or (
+                kind in (EventKind.SAFE_OFF, EventKind.DRIVE_OFF_FAILED)
+                and ev.detail.get("done") is False):
+            # the output state is not known while a switch-off is unconfirmed
             self._drive_on = None
             self._drive_cause = ""
             self.publish()
@@ -215,7 +223,7 @@ class TraceProcessor:
                                        firing.message, actions, firing.seq))
             cause = Cause(rule=firing.rule, seq=firing.seq)
             if "safe-off" in actions:
-                self._acq.commands.put(SafeOff(cause))
+                self._safe_off(cause, time_s)
             if "auto-range" in actions and judged_trace:
                 self._auto_range(firing, cause)
             if "bell" in actions and self._bell is not None:
@@ -224,6 +232,17 @@ class TraceProcessor:
                 self._stop_by_rule(f"{firing.rule}: {firing.message}")
         if firings:
             self.snap = dataclasses.replace(self.snap, alerts=self._alerts_copy())
+
+    def _safe_off(self, cause: Cause, time_s: float) -> None:
+        if self._generator is not None:
+            self._generator.request(SafeOff(cause))
+            return
+        detail = {"done": False, "why": "no generator configured", **cause.as_detail()}
+        self._record(EventItem(time_s, EventKind.SAFE_OFF, detail, seq=cause.seq))
+        self.handle_firings([Firing(rule="safe-off-failed", severity="critical",
+                                    message="safe-off asked for but no generator is configured",
+                                    actions=("record",), seq=cause.seq, detail=detail,
+                                    time_s=time_s)], judged_trace=False)
 
     def _auto_range(self, firing: Firing, cause: Cause) -> None:
         ranges = self._acq.ranges_v
@@ -243,21 +262,22 @@ class TraceProcessor:
     # -- snapshots --------------------------------------------------------------------
     def _instrument_views(self) -> list[InstrumentView]:
         views = []
-        for name, inst in (("digitiser", self._acq.digitiser),
-                           ("generator", self._acq.generator)):
-            if inst is None:
-                continue
-            connected = self._acq.connected if name == "digitiser" else True
-            detail = drive_text(self._drive_on, self._drive_cause) if name == "generator" else ""
-            views.append(InstrumentView(name=name, resource=self._resources.get(name, ""),
-                                        identity=inst.identity, connected=connected,
-                                        detail=detail))
+        if self._acq.digitiser is not None:
+            views.append(InstrumentView(name="digitiser",
+                                        resource=self._resources.get("digitiser", ""),
+                                        identity=self._acq.digitiser.identity,
+                                        connected=self._acq.connected))
+        if self._generator is not None:
+            views.append(InstrumentView(name="generator",
+                                        resource=self._resources.get("generator", ""),
+                                        identity=self._generator.identity, connected=True,
+                                        detail=drive_text(self._drive_on, self._drive_cause)))
         return views
 
     def publish(self, state: str | None = None, stop_reason: str | None = None,
                 **fields: Any) -> None:
         """Replace the snapshot with one holding the current counts and ``fields``."""
-        has_generator = self._acq.generator is not None
+        has_generator = self._generator is not None
         self.snap = dataclasses.replace(
             self.snap, **fields, converted=self.converted,
             traces_per_s=self._rate.rate(time.monotonic()),

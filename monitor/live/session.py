@@ -34,9 +34,11 @@ from pathlib import Path
 from typing import Any
 
 from ..acoustics.settings import Method
+from ..errors import ConfigError
 from ..outcome import ExitStatus
 from ..record.schema import EventKind
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop, OpenInstrument
+from .generator import DEFAULT_SAFE_OFF_GIVE_UP_S, DriveOff, DriveOn, GeneratorWorker
 from .processing import TraceProcessor
 from .recorder import END, AckItem, CloseItem, EventItem, Writer
 from .rules import TickObservation
@@ -56,6 +58,19 @@ class LiveSession:
     open_digitiser : callable () -> OpenInstrument
         Opens the digitiser and applies its settings; called again to reconnect.
     open_generator : callable () -> OpenInstrument, or None
+        Connects and identifies the generator (sets nothing); called again to reopen.
+    apply_generator_settings : callable (device) -> None, optional
+        Applies the bench's generator settings with the output off, once, after the
+        session file exists.
+    drive_on_at_start : str, optional
+        Switch the generator output on once the session runs, recorded with this
+        cause (``--drive-on``, the demo). None (the default) never switches it on.
+    leave_drive_on_at_end : bool
+        False (the default): the output is switched off, and confirmed off, when the
+        session ends, however it ends.
+    safe_off_give_up_s : float
+        How long a safe-off is retried before the session stops with the status
+        ``drive-may-be-on``.
     converter : Converter
         ``.process(voltage_v, dt_s) -> TraceResult`` and ``.with_method(m)``.
     rules : RuleEngine
@@ -89,7 +104,10 @@ class LiveSession:
                  duration_s: float | None = None, give_up_s: float = 60.0,
                  bell: Callable[[], None] | None = None, gate: bool = True,
                  autorange_options: dict | None = None, resources: dict | None = None,
-                 method: str | None = None):
+                 method: str | None = None,
+                 apply_generator_settings: Callable[[Any], None] | None = None,
+                 drive_on_at_start: str | None = None, leave_drive_on_at_end: bool = False,
+                 safe_off_give_up_s: float = DEFAULT_SAFE_OFF_GIVE_UP_S):
         self.session_path = Path(session_path)
         self._rules = rules
         self._open_store = open_store
@@ -99,15 +117,26 @@ class LiveSession:
         self._stop = threading.Event()
         self._raw_q: queue.Queue = queue.Queue(maxsize=queue_capacity)
         self._items_q: queue.Queue = queue.Queue(maxsize=queue_capacity)
-        self._acq = AcquisitionLoop(open_digitiser=open_digitiser,
-                                    open_generator=open_generator, out=self._raw_q,
+        self._acq = AcquisitionLoop(open_digitiser=open_digitiser, out=self._raw_q,
                                     stop=self._stop, trigger_timeout_s=trigger_timeout_s,
                                     give_up_s=give_up_s, max_traces=max_traces, gate=gate)
+        self._gen: GeneratorWorker | None = None
+        if open_generator is not None:
+            self._gen = GeneratorWorker(
+                open_generator=open_generator,
+                apply_settings=apply_generator_settings or (lambda device: None),
+                emit=lambda kind, detail, alert: self._acq.event(kind, detail, alert),
+                current_seq=lambda: self._acq.seq, on_unsafe=self._drive_unsafe,
+                safe_off_give_up_s=safe_off_give_up_s)
+            self._acq.hold = self._gen.hold
+        self._drive_on_at_start = drive_on_at_start
+        self._leave_drive_on = bool(leave_drive_on_at_end)
         self._writer = Writer(lambda: self._open_store(self.session_path, self._meta),
                               self._items_q, self._counts)
         self._meta: dict = {}
         self._proc = TraceProcessor(
-            converter=converter, rules=rules, acquisition=self._acq, record=self._put,
+            converter=converter, rules=rules, acquisition=self._acq, generator=self._gen,
+            record=self._put,
             stop_by_rule=lambda reason: self._request_stop(ExitStatus.STOPPED_BY_RULE, reason),
             session_path=self.session_path, method=method or _method_of(converter),
             bell=bell, autorange_options=autorange_options, resources=self._resources)
@@ -126,16 +155,28 @@ class LiveSession:
     @classmethod
     def from_bench(cls, bench: Any, *, session_path: str | Path | None = None,
                    max_traces: int | None = None, duration_s: float | None = None,
-                   bell: Callable[[], None] | None = None) -> LiveSession:
-        """A session on the instruments of a bench file (see :mod:`.build`)."""
+                   bell: Callable[[], None] | None = None,
+                   drive_on_at_start: str | None = None) -> LiveSession:
+        """A session on the instruments of a bench file (see :mod:`.build`).
+
+        ``drive_on_at_start`` (the cause, e.g. ``"--drive-on"``) switches the generator
+        output on once the session runs; None never does.
+        """
         from .build import session_parts
 
         return cls(**session_parts(bench, session_path=session_path), max_traces=max_traces,
-                   duration_s=duration_s, bell=bell)
+                   duration_s=duration_s, bell=bell, drive_on_at_start=drive_on_at_start)
 
     # ---------------------------------------------------------------- public API
     def start(self) -> None:
         """Connect the instruments, create the session file and start the threads.
+
+        Order: the digitiser is connected and configured, the generator connected and
+        identified (nothing is set on it), the session file created, and only then are
+        the generator's settings applied, with its output off. A start that fails
+        before the file exists touches no generator setting and leaves no file; one
+        that fails applying the generator's settings ends the file as an instrument
+        failure. The output is never switched on here (see ``drive_on_at_start``).
 
         Raises the instrument or store error when either cannot be opened (nothing
         keeps running then).
@@ -145,26 +186,43 @@ class LiveSession:
         self._started = True
         try:
             self._acq.connect()
+            if self._gen is not None:
+                self._gen.connect()
         except BaseException:
+            self._close_instruments()
             self._done.set()        # never ran: not running, nothing to wait for
             raise
-        identities = {}
-        for name, inst in (("digitiser", self._acq.digitiser),
-                           ("generator", self._acq.generator)):
-            if inst is not None:
-                identities[name] = {"resource": self._resources.get(name, ""),
-                                    "identity": inst.identity}
+        digitiser = self._acq.digitiser
+        identities = {"digitiser": {"resource": self._resources.get("digitiser", ""),
+                                    "identity": digitiser.identity if digitiser else ""}}
+        if self._gen is not None:
+            identities["generator"] = {"resource": self._resources.get("generator", ""),
+                                       "identity": self._gen.identity}
+        wt = threading.Thread(target=self._writer.run, name="tankside-writer", daemon=True)
         try:
             self._meta = self._metadata(identities)
-            wt = threading.Thread(target=self._writer.run, name="tankside-writer", daemon=True)
             wt.start()
             self._writer.ready.wait()
             if self._writer.open_error is not None:
                 raise self._writer.open_error
         except BaseException:
-            self._acq.close_links()
+            self._close_instruments()
+            if not wt.is_alive():
+                _remove_unwritten(self.session_path)
             self._done.set()
             raise
+        self._writer_thread = wt
+        if self._gen is not None:
+            try:
+                self._gen.apply_settings()
+            except BaseException as err:
+                self._close_instruments()
+                self._status = ExitStatus.INSTRUMENT_FAILURE
+                self._reason = f"generator: {err}"
+                self._put(CloseItem(self._status, self._reason, self._counts))
+                wt.join()
+                self._done.set()
+                raise
         self._proc.set_range(self._acq.current_range_v())
         self._t_start_mono = time.monotonic()
         self._acq.last_trigger_mono = self._t_start_mono
@@ -172,10 +230,30 @@ class LiveSession:
                               daemon=True)
         at = threading.Thread(target=self._acquire_main, name="tankside-acquisition",
                               daemon=True)
-        self._writer_thread, self._acquisition_thread = wt, at
+        self._acquisition_thread = at
         self._proc.publish(state="running")
         pt.start()
         at.start()
+        if self._gen is not None:
+            self._gen.start()
+            if self._drive_on_at_start:
+                self._gen.request(DriveOn(self._drive_on_at_start))
+
+    def prepare(self) -> None:
+        """Nothing to prepare in this process (see ``SessionProcess.prepare``)."""
+
+    def switch_drive(self, on: bool, cause: str = "operator") -> None:
+        """Switch the generator output on or off: an operator's action, recorded as an
+        event with ``cause``. Returns at once; the state read back is in the snapshot.
+
+        Raises
+        ------
+        ConfigError
+            The bench has no generator.
+        """
+        if self._gen is None:
+            raise ConfigError("the bench has no generator to switch")
+        self._gen.request(DriveOn(str(cause)) if on else DriveOff(str(cause)))
 
     def snapshot(self) -> Snapshot:
         """The latest state, with live counters; never blocks."""
@@ -209,7 +287,9 @@ class LiveSession:
         self._request_stop(ExitStatus.OPERATOR, reason)
 
     def wait(self, timeout_s: float | None = None) -> bool:
-        """Wait until the session has finished; True when it has."""
+        """Wait until the session has finished; True when it has (or never started)."""
+        if not self._started:
+            return True
         return self._done.wait(timeout_s)
 
     @property
@@ -269,6 +349,14 @@ class LiveSession:
                     self.message_for_operator = message
         self._stop.set()
 
+    def _drive_unsafe(self, message: str) -> None:
+        self._request_stop(ExitStatus.DRIVE_MAY_BE_ON, "output not confirmed off", message)
+
+    def _close_instruments(self) -> None:
+        self._acq.close_links()
+        if self._gen is not None:
+            self._gen.close()
+
     def _put(self, item: Any) -> None:
         """Hand an item to the writer; blocks while its queue is full, unless it died."""
         while True:
@@ -294,6 +382,9 @@ class LiveSession:
             elif self._acq.max_traces is not None and self._acq.seq >= self._acq.max_traces:
                 self._request_stop(ExitStatus.COMPLETED, f"{self._acq.max_traces} traces acquired")
             self._stop.set()
+            if self._gen is not None:
+                # recorded before the end marker, so the file holds the final state
+                self._gen.stop(leave_on=self._leave_drive_on)
             while True:
                 try:
                     self._raw_q.put(END, timeout=0.1)
@@ -380,6 +471,16 @@ class LiveSession:
         self._proc.handle_firings(self._rules.on_tick(tick), judged_trace=False)
         self._proc.flush_latest()
         self._proc.publish(stop_reason=self._reason)
+
+
+def _remove_unwritten(path: Path) -> None:
+    """Remove what a store that failed to open left behind (it holds no data)."""
+    for p in (path, path.with_name(path.name + "-wal"), path.with_name(path.name + "-shm"),
+              path.with_name(path.name + "-journal")):
+        try:
+            p.unlink(missing_ok=True)
+        except OSError:
+            pass  # cannot remove: the error that brought us here is the one to report
 
 
 def _method_of(converter: Any) -> str:

@@ -83,14 +83,21 @@ class EventKind(enum.StrEnum):
     """An instrument misbehaved and the session went on: ``kind`` (a :class:`FaultKind`),
     ``message``, ``at_seq``."""
     SAFE_OFF = "safe-off"
-    """The generator output was switched off for a rule: ``done``, then ``before_seq``, or
-    ``error`` / ``why`` when it could not be."""
+    """The generator output was switched off for a rule: ``done``, then ``attempts`` and
+    ``before_seq``; or, for each attempt that failed, ``attempt``, ``error``, ``after_s``
+    (``why`` when there is no generator)."""
     DRIVE_ON = "drive-on"
-    """The generator output is on: ``output_on``, ``cause`` (``start``, ``generator``),
-    ``before_seq``."""
+    """The generator output is on: ``output_on``, ``cause`` (``start``, ``generator`` when
+    switched at the instrument, or the operator's action: the dashboard's confirmed key,
+    ``--drive-on``, the demo), ``before_seq``."""
+    DRIVE_ON_FAILED = "drive-on-failed"
+    """An operator's switch-on did not take: ``cause``, ``error``."""
+    DRIVE_OFF_FAILED = "drive-off-failed"
+    """A switch-off (operator's, or at the end of the session) was not confirmed:
+    ``done`` (false), ``attempt``, ``error``, ``cause``, ``after_s``."""
     DRIVE_OFF = "drive-off"
     """The generator output is off: ``output_on``, ``cause`` (``start``, ``safe-off``,
-    ``generator``), ``before_seq``."""
+    ``generator``, ``end of session``, an operator's action), ``before_seq``."""
     NO_TRIGGER = "no-trigger"
     """The digitiser did not trigger within the trigger timeout: ``message``, ``timeout_s``."""
     RESYNC = "resync"
@@ -111,6 +118,8 @@ class FaultKind(enum.StrEnum):
     """Any other digitiser error (one in its error queue, a refused setting)."""
     GENERATOR_QUERY = "generator-query"
     """The generator did not say whether its output is on (state now unknown)."""
+    GENERATOR_THREAD = "generator-thread"
+    """The generator's thread met an unexpected error (a bug); the session went on."""
 
 
 # -- result columns: one per field of a trace's result, declared with its unit and dtype
