@@ -45,6 +45,12 @@ class ParamKind(StrEnum):
 
 
 SEVERITIES = tuple(Severity)
+# A clipped trace's pressure is a floor on the true one: over_pressure counts it when
+# that floor reaches (1 - CLIPPED_MARGIN) of the limit. 0.5 assumes the rails hide at
+# most a factor of 2 of the peak (the signal at most twice the rail: about one step of
+# a 1-2-5 range ladder); a deeper clip that still measures below half the limit is not
+# caught. 1 counts every clipped trace as an over-pressure.
+CLIPPED_MARGIN = 0.5
 ACTIONS = tuple(Action)
 # Only these rules say which way the vertical range should go.
 AUTO_RANGE_RULES = ("clipping", "range_under_use")
@@ -90,7 +96,10 @@ RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for s
         Param(key="rated_max_pa", kind=ParamKind.FLOAT, default=1.0e7, unit="Pa", low=0.0,
               meaning="hydrophone's rated maximum pressure"),
         Param(key="limit_pa", kind=ParamKind.OPTIONAL_FLOAT, default=None, unit="Pa", low=0.0,
-              meaning="optional user limit (the lower one applies)"))),
+              meaning="optional user limit (the lower one applies)"),
+        Param(key="clipped_margin", kind=ParamKind.FLOAT, default=CLIPPED_MARGIN, unit="1",
+              low=0.0, low_inclusive=True, high=1.0,
+              meaning="share of the limit a clipped trace's peak may fall short of and still count"))),
     RuleSpec("range_under_use", Severity.INFO, (Action.RECORD, Action.AUTO_RANGE), (
         Param(key="below_fraction", kind=ParamKind.FLOAT, default=0.3, unit="1", low=0.0, high=1.0,
               meaning="fraction of half the full-scale span"),
