@@ -10,7 +10,12 @@ from ..acoustics.converter import Converter, TraceResult
 from ..acoustics.loading import Loading
 from ..acoustics.settings import AWF_METHODS, METHODS, ConversionSettings
 from ..record.tracefile import read_trace, write_pressure
-from .options import add_loading_options, loading_overrides
+from .options import (
+    add_calibration_check_options,
+    add_loading_options,
+    calibration_checks,
+    loading_overrides,
+)
 
 
 def add_parser(subparsers) -> None:
@@ -26,6 +31,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--calibration", "-c", metavar="CAL", required=True,
                    help="hydrophone calibration CSV (frequency_hz, sensitivity_v_per_pa or "
                         "sensitivity_db_re_1v_per_upa, optional phase_deg or phase_rad)")
+    add_calibration_check_options(p)
     p.add_argument("--method", choices=METHODS, default="auto",
                    help="deconvolve, narrowband, or auto: narrowband only when the narrowband "
                         "check passes (default: auto)")
@@ -43,7 +49,7 @@ def add_parser(subparsers) -> None:
     r.add_argument("--taper-octaves", metavar="OCT", type=float, default=d.taper_octaves,
                    help=f"raised-cosine taper inside each band edge, octaves (default {d.taper_octaves:g})")
     r.add_argument("--regularisation", metavar="EPS", type=float, default=d.regularisation,
-                   help="Tikhonov weight relative to the largest sensitivity in the band "
+                   help="Tikhonov weight relative to the median sensitivity in the band "
                         f"(default {d.regularisation:g}; 0: plain division)")
     r.add_argument("--awf-method", choices=AWF_METHODS, default=d.awf_method,
                    help="acoustic working frequency from the -3 dB points of the spectrum, or "
@@ -54,7 +60,7 @@ def add_parser(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    calibration = load_calibration(args.calibration)
+    calibration = load_calibration(args.calibration, **calibration_checks(args))
     loading = Loading(**loading_overrides(args))
     temperature_c = 20.0 if args.water_temperature is None else args.water_temperature
     settings = ConversionSettings(method=args.method, band_low_hz=args.band_low,

@@ -8,7 +8,12 @@ import tomllib
 from pathlib import Path
 
 from ..errors import ConfigError
-from .options import add_loading_options, loading_overrides
+from .options import (
+    add_calibration_check_options,
+    add_loading_options,
+    calibration_checks,
+    loading_overrides,
+)
 from .running import run_to_end
 
 EPILOG = """\
@@ -61,6 +66,7 @@ def add_parser(subparsers) -> None:
     o.add_argument("--no-generator", action="store_true",
                    help="ignore the bench file's generator (safe-off is then unavailable)")
     o.add_argument("--calibration", metavar="CAL.csv", help="hydrophone calibration file")
+    add_calibration_check_options(o)
     o.add_argument("--method", choices=("auto", "deconvolve", "narrowband"),
                    help="conversion method at the start (can be switched live)")
     o.add_argument("--pressure-limit", type=float, metavar="PA",
@@ -116,6 +122,8 @@ def overrides_from_args(args) -> dict:
             o["generator.profile"] = _profile(args.generator_profile)
     if args.calibration:
         o["calibration.file"] = _abs(args.calibration)
+    for key, value in calibration_checks(args).items():
+        o[f"calibration.{key}"] = value
     for key, value in loading_overrides(args).items():
         o[f"loading.{key}"] = value
     if args.method:

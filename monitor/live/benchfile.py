@@ -20,6 +20,8 @@ Layout (every section except ``[digitiser]`` and ``[calibration]`` is optional):
 
     [calibration]
     file = "cal.csv"
+    max_step_db = 20.0         # largest magnitude step between neighbouring rows (inf: off)
+    check_phase_steps = true   # refuse unwrapped phase that steps over 180 degrees
 
     [loading]              # Loading fields
     hydrophone_capacitance_f = 100e-12
@@ -70,6 +72,8 @@ _SESSION_KEYS = {
     "queue_capacity": int,
     "reconnect_give_up_s": float,
 }
+# Plausibility checks of the calibration loader (tankside.monitor.acoustics.calibration).
+_CALIBRATION_CHECKS = {"max_step_db": float, "check_phase_steps": bool}
 _SECTIONS = ("digitiser", "generator", "calibration", "loading", "conversion", "water",
              "alerts", "session")
 
@@ -118,6 +122,7 @@ class BenchConfig:
     queue_capacity: int = 64
     reconnect_give_up_s: float = 60.0
     tables: dict = field(default_factory=dict)
+    calibration_checks: dict = field(default_factory=dict)
 
     def digitiser_settings(self):
         """The :class:`tankside.drivers.digitiser.DigitiserSettings` of ``[digitiser]``."""
@@ -132,7 +137,7 @@ class BenchConfig:
         if not self.calibration_path.is_file():
             raise ConfigError(f"{self.source}: [calibration] file: no such file "
                               f"{str(self.calibration_path)!r}")
-        return load_calibration(self.calibration_path)
+        return load_calibration(self.calibration_path, **self.calibration_checks)
 
     def loading(self):
         from ..acoustics.loading import Loading
@@ -172,11 +177,11 @@ def _build(cls, table: dict, source: str, section: str):
         raise ConfigError(f"{source}: [{section}]: {err}") from err
 
 
-def _typed(value: Any, kind: type, source: str, where: str):
+def _typed(value: Any, kind: type, source: str, where: str, *, allow_infinite: bool = False):
     if kind is float:
         if isinstance(value, bool) or not isinstance(value, int | float):
             raise ConfigError(f"{source}: {where}: expected a number, got {value!r}")
-        if not math.isfinite(value):
+        if math.isnan(value) or (math.isinf(value) and not allow_infinite):
             raise ConfigError(f"{source}: {where}: expected a finite number, got {value!r}")
         return float(value)
     if kind is int:
@@ -326,9 +331,17 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
     cal = _section(data, "calibration", source, True)
     if "file" not in cal:
         raise ConfigError(f"{source}: [calibration] file: missing")
-    for key in cal:
-        if key != "file":
+    cal_checks: dict[str, Any] = {}
+    for key, value in cal.items():
+        if key == "file":
+            continue
+        if key not in _CALIBRATION_CHECKS:
             raise ConfigError(f"{source}: [calibration] {key}: unknown key")
+        cal_checks[key] = _typed(value, _CALIBRATION_CHECKS[key], source, f"[calibration] {key}",
+                                 allow_infinite=True)
+    if cal_checks.get("max_step_db", 1.0) <= 0:
+        raise ConfigError(f"{source}: [calibration] max_step_db: must be above 0 dB "
+                          "(inf switches the check off)")
     cal_path = _resolve(_typed(cal["file"], str, source, "[calibration] file"), base)
 
     water = _section(data, "water", source, False)
@@ -357,7 +370,7 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
     tables.setdefault("digitiser", {})["profile"] = dig_conn["profile"]
     if gen is not None:
         tables["generator"]["profile"] = gen.profile
-    tables["calibration"] = {"file": str(cal_path)}
+    tables["calibration"] = {"file": str(cal_path), **cal_checks}
     tables.setdefault("session", {})["folder"] = str(folder)
 
     return BenchConfig(
@@ -373,5 +386,6 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
         alerts_table=copy.deepcopy(_section(data, "alerts", source, False)),
         session_folder=folder,
         tables=tables,
+        calibration_checks=cal_checks,
         **sess_values,
     )
