@@ -213,3 +213,44 @@ class TestCalibrationChecks:
         text = GOOD.replace('file = "cal/hydrophone.csv"', f'file = "cal/hydrophone.csv"\n{line}')
         with pytest.raises(ConfigError, match=r"\[calibration\] " + words):
             load_bench(write(tmp_path, text))
+
+
+class TestCommandText:
+    """Digitiser settings become command text: typed, printable ASCII, one command."""
+
+    @pytest.mark.parametrize(("line", "words"), [
+        ('coupling = "DC;:CHAN1:RANG 5"', "contains ';'"),
+        ('trigger_slope = "POS;*RST"', "contains ';'"),
+        ('coupling = "DC\\n"', "line break"),
+        ('trigger_source = "EXT\\r"', "line break"),
+        ('coupling = "D\u00c7"', "only printable ASCII"),
+        ('coupling = "DC\\t"', "only printable ASCII"),
+        ("coupling = 5", "expected a non-empty string, got 5"),
+        ('trigger_source = ["EXT"]', "expected a non-empty string, got ['EXT']"),
+        ("trigger_slope = { word = \"POS\" }", "expected a non-empty string"),
+        ('coupling = ""', "expected a non-empty string"),
+        ('record_length = "2000"', "expected a whole number"),
+        ("range_v = [0.5]", "expected a number"),
+    ])
+    def test_bad_value_names_file_and_key(self, tmp_path, line, words):
+        key = line.split(" =")[0]
+        text = GOOD.replace("range_v = 0.5\n", f"range_v = 0.5\n{line}\n")
+        if key == "range_v" or key == "record_length":
+            text = GOOD.replace(f"{key} = {'0.5' if key == 'range_v' else '2000'}\n", line + "\n")
+        path = write(tmp_path, text)
+        with pytest.raises(ConfigError) as info:
+            load_bench(path)
+        message = str(info.value)
+        assert message.startswith(f"{path}: [digitiser] {key}:"), message
+        assert words in message
+
+    def test_override_from_the_command_line_is_checked_too(self, tmp_path):
+        path = write(tmp_path, GOOD)
+        with pytest.raises(ConfigError, match=r"\[digitiser\] coupling: .*contains ';'"):
+            load_bench(path, {"digitiser.coupling": "AC;*RST"})
+
+    def test_good_words_pass_and_reach_the_settings(self, tmp_path):
+        text = GOOD.replace("range_v = 0.5\n",
+                            'range_v = 0.5\ncoupling = "AC"\ntrigger_slope = "NEG"\n')
+        settings = load_bench(write(tmp_path, text)).digitiser_settings()
+        assert (settings.coupling, settings.trigger_slope) == ("AC", "NEG")

@@ -197,6 +197,31 @@ def _typed(value: Any, kind: type, source: str, where: str, *, allow_infinite: b
     return value
 
 
+def _check_digitiser_values(table: dict, source: str) -> None:
+    """Type-check the digitiser settings; their strings become command text.
+
+    A string setting must be a non-empty string of printable ASCII without ``;`` or a
+    line break (``coupling = "DC;:CHAN1:RANG 5"`` would set a range the session does not
+    record). Unknown keys are left to :func:`_build`.
+    """
+    from ...drivers.digitiser import DigitiserSettings
+    from ...drivers.profile import command_text_problem
+
+    kinds = {f.name: f.type for f in dataclasses.fields(DigitiserSettings)}
+    for key, value in table.items():
+        kind = {"str": str, "float": float, "int": int}.get(str(kinds.get(key)))
+        if kind is None:
+            continue
+        where = f"[digitiser] {key}"
+        checked = _typed(value, kind, source, where)
+        if kind is str:
+            problem = command_text_problem(checked)
+            if problem is not None:
+                raise ConfigError(f"{source}: {where}: {value!r} {problem}; it is sent to the "
+                                  "digitiser as part of a command")
+        table[key] = checked
+
+
 def _resolve(path_text: str, base: Path) -> Path:
     p = Path(path_text).expanduser()
     return p if p.is_absolute() else (base / p).resolve()
@@ -312,6 +337,7 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
 
     dig_conn, dig_rest = _instrument(_section(data, "digitiser", source, True), "digitiser",
                                      source, base, _DIGITISER_EXTRA)
+    _check_digitiser_values(dig_rest, source)
     trigger_timeout_s = dig_rest.pop("trigger_timeout_s", 2.0)
     if trigger_timeout_s <= 0:
         raise ConfigError(f"{source}: [digitiser] trigger_timeout_s: must be above 0")
