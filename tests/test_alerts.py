@@ -17,6 +17,7 @@ from alert_samples import engine, obs, result
 from tankside.drivers.trace import RawTrace, count_at_rails
 from tankside.monitor.errors import ConfigError, TanksideError
 from tankside.monitor.live.autorange import range_after
+from tankside.monitor.live.rule_specs import protection_warnings
 from tankside.monitor.live.rules import (
     RULES,
     AlertConfig,
@@ -494,3 +495,21 @@ def test_closed_loop_settles_on_one_range(start_v):
         history.append(range_v)
     assert history[-1] == 1.0
     assert history[-30:] == [1.0] * 30
+
+
+class TestProtectionWarnings:
+    def test_defaults_and_extra_actions_warn_of_nothing(self):
+        assert protection_warnings(AlertConfig.defaults()) == ()
+        config = AlertConfig.from_table(
+            {"over_pressure": {"actions": ["record", "safe-off", "stop"]}})
+        assert protection_warnings(config) == ()
+
+    @pytest.mark.parametrize(("table", "words"), [
+        ({"enabled": False}, "over_pressure is disabled"),
+        ({"actions": []}, "over_pressure has no actions"),
+        ({"actions": ["record", "bell"]}, 'actions = ["record", "bell"], without "safe-off"'),
+        ({"actions": ["stop"]}, "does not switch the drive off"),
+    ])
+    def test_disabled_protection_is_named(self, table, words):
+        warning, = protection_warnings(AlertConfig.from_table({"over_pressure": table}))
+        assert words in warning

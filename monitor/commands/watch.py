@@ -158,6 +158,8 @@ def run(args) -> int:
     if args.traces is not None and args.traces < 1:
         raise ConfigError("--traces must be at least 1")
     bench = load_bench(args.bench, overrides_from_args(args))
+    for warning in bench.protection_warnings():
+        print(f"tankside: WARNING: protection off: {warning}", file=sys.stderr, flush=True)
 
     dashboard = None
     if not args.headless:

@@ -157,6 +157,13 @@ class BenchConfig:
         except ConfigError as err:
             raise ConfigError(f"{self.source}: [alerts] {err}") from err
 
+    def protection_warnings(self) -> tuple[str, ...]:
+        """What the alert settings switch off of the protection (see
+        :func:`tankside.monitor.live.rule_specs.protection_warnings`); empty when none."""
+        from .rule_specs import protection_warnings
+
+        return protection_warnings(self.alert_config())
+
     def converter(self):
         """A :class:`tankside.monitor.acoustics.converter.Converter` for this bench."""
         from ..acoustics.converter import Converter

@@ -216,6 +216,28 @@ class AlertConfig:
         return {name: rule.as_dict() for name, rule in self.rules.items()}
 
 
+def protection_warnings(config: AlertConfig) -> tuple[str, ...]:
+    """What the settings switch off of the hydrophone's protection, in operator words.
+
+    Empty when ``over_pressure`` is enabled and its actions include ``safe-off``. Such
+    settings are accepted (a bench may have no drive to protect), but said aloud: the
+    commands print each line and the session records them in its metadata
+    (``protection_warnings``).
+    """
+    rule = config["over_pressure"]
+    if not rule.enabled:
+        return ("over_pressure is disabled (over_pressure.enabled = false): no pressure, "
+                "however high, raises an alert or switches the drive off",)
+    if not rule.actions:
+        return ("over_pressure has no actions (over_pressure.actions = []): an over-pressure "
+                "is shown but neither recorded nor followed by a safe-off",)
+    if Action.SAFE_OFF not in rule.actions:
+        listed = ", ".join(f'"{a}"' for a in rule.actions)
+        return (f"over_pressure does not switch the drive off (over_pressure.actions = "
+                f"[{listed}], without \"safe-off\")",)
+    return ()
+
+
 def _error(key: str, problem: str) -> ConfigError:
     err = ConfigError(f"{key}: {problem}")
     err.key = key
