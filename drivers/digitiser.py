@@ -16,7 +16,7 @@ import numpy as np
 
 from . import ieee488
 from .errors import InstrumentTimeout, NoTrigger, ProtocolError, SettingError
-from .profile import Profile
+from .profile import Profile, command_text_problem
 from .scpi import ScpiLink
 from .trace import RawTrace, count_at_rails
 
@@ -77,6 +77,13 @@ class DigitiserSettings:
             raise SettingError(f"averages must be an integer >= 1, got {self.averages!r}")
         if not (isinstance(self.channel, int) and self.channel >= 1):
             raise SettingError(f"channel must be an integer >= 1, got {self.channel!r}")
+        for name in ("coupling", "trigger_source", "trigger_slope"):
+            value = getattr(self, name)
+            if not (isinstance(value, str) and value):
+                raise SettingError(f"{name} must be a non-empty string, got {value!r}")
+            problem = command_text_problem(value)
+            if problem is not None:
+                raise SettingError(f"{name} = {value!r} {problem}")
 
     def as_dict(self) -> dict:
         return dataclasses.asdict(self)

@@ -4,6 +4,15 @@ A profile is validated completely when it is loaded. Every problem raises
 :class:`tankside.drivers.errors.ProfileError` naming the file and the key, so a user
 adding an instrument learns what to fix without reading code. The schema is described
 in ``drivers/profiles/generic-scpi-digitiser.toml``.
+
+Command text: every template, every word a profile gives for a placeholder (the output
+on/off words), and every value filled into a template at run time is one command of
+printable ASCII, without ``;`` (the IEEE 488.2 separator that would chain a second
+command the session knows nothing about) or a line break (which would end the command
+early and send the rest as another). :func:`command_text_problem` is that check;
+:meth:`Profile.command` applies it to the values it fills in, so a setting that got past
+the bench file still never reaches the instrument. No profile key holds a list of
+commands, so the rule has no exception.
 """
 
 from __future__ import annotations
@@ -15,7 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import ProfileError
+from .errors import ProfileError, SettingError
 
 PROFILE_DIR = Path(__file__).with_name("profiles")
 
@@ -112,15 +121,37 @@ class Profile:
         ------
         ProfileError
             If the profile does not define ``key``.
+        SettingError
+            If a value would not be safe command text (:func:`command_text_problem`).
         """
         if key not in self.commands:
             raise ProfileError(f"{self.source}: [commands] {key}: not defined in this profile")
+        for name, value in fields.items():
+            problem = command_text_problem(str(value))
+            if problem is not None:
+                raise SettingError(f"{self.source}: [commands] {key}: {{{name}}} = {value!r} "
+                                   f"{problem}; nothing was sent")
         return self.commands[key].format(**fields)
 
     @property
     def dtype(self) -> np.dtype:
         """numpy dtype of the samples as sent (with their byte order)."""
         return np.dtype(self.data_format).newbyteorder("<" if self.byte_order == "little" else ">")
+
+
+def command_text_problem(text: str) -> str | None:
+    """Why ``text`` cannot be (part of) one command sent to an instrument, or None.
+
+    Allowed: printable ASCII (space to ``~``) except ``;``.
+    """
+    for ch in text:
+        if ch == ";":
+            return "contains ';', which would chain another command"
+        if ch in "\r\n":
+            return "contains a line break, which would end the command early"
+        if not " " <= ch <= "~":
+            return f"contains {ch!r}: only printable ASCII is sent to an instrument"
+    return None
 
 
 def _fail(source: str, key: str, problem: str) -> ProfileError:
@@ -138,6 +169,9 @@ def _check_template(source: str, key: str, template, allowed: tuple) -> None:
     where = f"[commands] {key}"
     if not isinstance(template, str) or not template.strip():
         raise _fail(source, where, "expected a non-empty string")
+    problem = command_text_problem(template)
+    if problem is not None:
+        raise _fail(source, where, f"template {template!r} {problem}")
     try:
         names = [name for _, name, _, _ in string.Formatter().parse(template) if name is not None]
     except ValueError as err:
@@ -276,6 +310,9 @@ def _parse_values(source: str, doc: dict) -> dict:
         if key in values:
             if not isinstance(values[key], str) or not values[key]:
                 raise _fail(source, f"[values] {key}", "expected a non-empty string")
+            problem = command_text_problem(values[key])
+            if problem is not None:
+                raise _fail(source, f"[values] {key}", f"{values[key]!r} {problem}")
             out[key] = values[key]
     for key in ("output_on_replies", "output_off_replies"):
         if key in values:

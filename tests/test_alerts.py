@@ -17,6 +17,7 @@ from alert_samples import engine, obs, result
 from tankside.drivers.trace import RawTrace, count_at_rails
 from tankside.monitor.errors import ConfigError, TanksideError
 from tankside.monitor.live.autorange import range_after
+from tankside.monitor.live.rule_specs import protection_warnings
 from tankside.monitor.live.rules import (
     RULES,
     AlertConfig,
@@ -197,6 +198,42 @@ class TestOverPressure:
         assert not fired(eng.on_trace(obs(result=None, error="all zero")), "over_pressure")
         nan = float("nan")
         assert not fired(eng.on_trace(obs(result=result(p_c=nan, p_r=nan))), "over_pressure")
+
+    def test_clipped_trace_counts_within_the_margin(self):
+        # 124 kPa measured on a clipped trace against a 150 kPa limit (the case of a
+        # 185 kPa field cut by the rails): the floor is within 50 % of the limit.
+        tables = {"over_pressure": {"limit_pa": 1.5e5}}
+        firing, = fired(engine(**tables).on_trace(
+            obs(clipped_high=40, result=result(p_c=1.24e5, p_r=-0.9e5))), "over_pressure")
+        assert "at least 124 kPa (clipped)" in firing.message
+        assert "user limit of 150 kPa" in firing.message
+        assert firing.detail["clipped"] is True
+        assert firing.detail["counts_from_pa"] == pytest.approx(0.75e5)
+        assert "safe-off" in firing.actions
+        # the same pressure on a trace that is not clipped is a measurement, under the limit
+        assert not fired(engine(**tables).on_trace(obs(result=result(p_c=1.24e5, p_r=-0.9e5))),
+                         "over_pressure")
+
+    def test_clipped_margin_boundary(self):
+        limit = 2.0e5
+        for margin in (0.0, 0.2, 0.5):
+            tables = {"over_pressure": {"limit_pa": limit, "clipped_margin": margin}}
+            edge = limit * (1.0 - margin)
+            assert fired(engine(**tables).on_trace(
+                obs(clipped_low=1, result=result(p_c=edge, p_r=0.0))), "over_pressure"), margin
+            assert not fired(engine(**tables).on_trace(
+                obs(clipped_low=1, result=result(p_c=below(edge), p_r=0.0))),
+                "over_pressure"), margin
+
+    def test_margin_of_one_counts_every_clipped_trace(self):
+        tables = {"over_pressure": {"limit_pa": 1e6, "clipped_margin": 1.0}}
+        assert fired(engine(**tables).on_trace(
+            obs(clipped_low=1, result=result(p_c=10.0, p_r=-5.0))), "over_pressure")
+
+    def test_clipped_margin_setting_is_checked(self):
+        for bad in (-0.1, 1.5, "half"):
+            with pytest.raises(ConfigError, match="over_pressure.clipped_margin"):
+                AlertConfig.from_table({"over_pressure": {"clipped_margin": bad}})
 
     def test_critical_firings_come_first(self):
         eng = engine(over_pressure={"rated_max_pa": 1e6})
@@ -458,3 +495,21 @@ def test_closed_loop_settles_on_one_range(start_v):
         history.append(range_v)
     assert history[-1] == 1.0
     assert history[-30:] == [1.0] * 30
+
+
+class TestProtectionWarnings:
+    def test_defaults_and_extra_actions_warn_of_nothing(self):
+        assert protection_warnings(AlertConfig.defaults()) == ()
+        config = AlertConfig.from_table(
+            {"over_pressure": {"actions": ["record", "safe-off", "stop"]}})
+        assert protection_warnings(config) == ()
+
+    @pytest.mark.parametrize(("table", "words"), [
+        ({"enabled": False}, "over_pressure is disabled"),
+        ({"actions": []}, "over_pressure has no actions"),
+        ({"actions": ["record", "bell"]}, 'actions = ["record", "bell"], without "safe-off"'),
+        ({"actions": ["stop"]}, "does not switch the drive off"),
+    ])
+    def test_disabled_protection_is_named(self, table, words):
+        warning, = protection_warnings(AlertConfig.from_table({"over_pressure": table}))
+        assert words in warning

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import pytest
 
-from tankside.monitor.errors import ConfigError
+from tankside.monitor.errors import CalibrationError, ConfigError
 from tankside.monitor.live.benchfile import load_bench, merge_overrides
 
 CAL_TEXT = Path(__file__).resolve().parents[1] / "simulators" / "data" / "demo-hydrophone.csv"
@@ -167,3 +167,90 @@ def test_commented_examples_in_the_simulated_bench_file_are_valid(tmp_path):
     assert bench.loading().hydrophone_capacitance_f == 100e-12
     assert bench.alert_config().rules["over_pressure"].params["rated_max_pa"] == 5.0e6
     assert "safe-off" in bench.alert_config().rules["over_pressure"].actions
+
+
+class TestCalibrationChecks:
+    @staticmethod
+    def _typo(tmp_path):
+        lines = CAL_TEXT.read_text().splitlines()
+        i = next(k for k, ln in enumerate(lines) if ln.startswith("3500000,"))
+        fields = lines[i].split(",")
+        lines[i] = ",".join([fields[0], "-53.9165", fields[2]])   # for -253.9165
+        (tmp_path / "cal" / "hydrophone.csv").write_text("\n".join(lines) + "\n")
+        return i + 1
+
+    def test_default_refuses_a_mistyped_row(self, tmp_path):
+        bench = load_bench(write(tmp_path, GOOD))
+        line = self._typo(tmp_path)
+        with pytest.raises(CalibrationError) as info:
+            bench.calibration()
+        assert info.value.line == line and "-53.9165" in info.value.problem
+
+    def test_relaxed_in_the_bench_file_and_recorded(self, tmp_path):
+        text = GOOD.replace('file = "cal/hydrophone.csv"',
+                            'file = "cal/hydrophone.csv"\nmax_step_db = inf\n'
+                            'check_phase_steps = false')
+        bench = load_bench(write(tmp_path, text))
+        self._typo(tmp_path)
+        assert bench.calibration().magnitude_v_per_pa.max() > 1e3
+        assert bench.tables["calibration"]["max_step_db"] == float("inf")
+        assert bench.tables["calibration"]["check_phase_steps"] is False
+
+    def test_relaxed_by_override(self, tmp_path):
+        bench = load_bench(write(tmp_path, GOOD), {"calibration.max_step_db": 250.0})
+        self._typo(tmp_path)
+        assert bench.calibration().band_hz[0] > 0
+
+    @pytest.mark.parametrize(("line", "words"), [
+        ("max_step_db = 0", "max_step_db: must be above 0"),
+        ("max_step_db = -5.0", "max_step_db: must be above 0"),
+        ("max_step_db = nan", "max_step_db: expected a finite number"),
+        ('max_step_db = "20 dB"', "max_step_db: expected a number"),
+        ("check_phase_steps = 1", "check_phase_steps: expected true or false"),
+        ("max_steps_db = 20", "max_steps_db: unknown key"),
+    ])
+    def test_bad_values_name_the_key(self, tmp_path, line, words):
+        text = GOOD.replace('file = "cal/hydrophone.csv"', f'file = "cal/hydrophone.csv"\n{line}')
+        with pytest.raises(ConfigError, match=r"\[calibration\] " + words):
+            load_bench(write(tmp_path, text))
+
+
+class TestCommandText:
+    """Digitiser settings become command text: typed, printable ASCII, one command."""
+
+    @pytest.mark.parametrize(("line", "words"), [
+        ('coupling = "DC;:CHAN1:RANG 5"', "contains ';'"),
+        ('trigger_slope = "POS;*RST"', "contains ';'"),
+        ('coupling = "DC\\n"', "line break"),
+        ('trigger_source = "EXT\\r"', "line break"),
+        ('coupling = "D\u00c7"', "only printable ASCII"),
+        ('coupling = "DC\\t"', "only printable ASCII"),
+        ("coupling = 5", "expected a non-empty string, got 5"),
+        ('trigger_source = ["EXT"]', "expected a non-empty string, got ['EXT']"),
+        ("trigger_slope = { word = \"POS\" }", "expected a non-empty string"),
+        ('coupling = ""', "expected a non-empty string"),
+        ('record_length = "2000"', "expected a whole number"),
+        ("range_v = [0.5]", "expected a number"),
+    ])
+    def test_bad_value_names_file_and_key(self, tmp_path, line, words):
+        key = line.split(" =")[0]
+        text = GOOD.replace("range_v = 0.5\n", f"range_v = 0.5\n{line}\n")
+        if key == "range_v" or key == "record_length":
+            text = GOOD.replace(f"{key} = {'0.5' if key == 'range_v' else '2000'}\n", line + "\n")
+        path = write(tmp_path, text)
+        with pytest.raises(ConfigError) as info:
+            load_bench(path)
+        message = str(info.value)
+        assert message.startswith(f"{path}: [digitiser] {key}:"), message
+        assert words in message
+
+    def test_override_from_the_command_line_is_checked_too(self, tmp_path):
+        path = write(tmp_path, GOOD)
+        with pytest.raises(ConfigError, match=r"\[digitiser\] coupling: .*contains ';'"):
+            load_bench(path, {"digitiser.coupling": "AC;*RST"})
+
+    def test_good_words_pass_and_reach_the_settings(self, tmp_path):
+        text = GOOD.replace("range_v = 0.5\n",
+                            'range_v = 0.5\ncoupling = "AC"\ntrigger_slope = "NEG"\n')
+        settings = load_bench(write(tmp_path, text)).digitiser_settings()
+        assert (settings.coupling, settings.trigger_slope) == ("AC", "NEG")

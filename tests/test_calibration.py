@@ -187,3 +187,99 @@ def test_very_narrow_band_stays_bounded():
     # a (useless) calibration 1 uHz wide must not make the phase estimate explode
     cal = parse_calibration(HEADER + "1e6,1e-7\n1.000000000001e6,2e-7\n1.000000000002e6,1e-7\n")
     assert np.all(np.isfinite(cal.phase_rad))
+
+
+# -- plausibility: a mistyped row is refused, not divided by ----------------------------
+
+def _typo_table(bad_row: int | None = 4, bad_value: str = "-51.6") -> str:
+    rows = ["# invented test hydrophone, flat at -251.6 dB re 1 V/uPa",
+            "frequency_hz,sensitivity_db_re_1v_per_upa,phase_deg"]
+    for i in range(8):
+        level = bad_value if i == bad_row else "-251.6"
+        rows.append(f"{(i + 1) * 1e6!r},{level},{-10.0 * i!r}")
+    return "\n".join(rows) + "\n"
+
+
+class TestPlausibility:
+    def test_typo_of_200_db_is_refused_naming_file_line_and_values(self, tmp_path):
+        path = tmp_path / "cal.csv"
+        path.write_text(_typo_table())
+        with pytest.raises(CalibrationError) as info:
+            load_calibration(path)
+        err = info.value
+        # data rows start on line 3: the fifth row (index 4) is line 7
+        assert err.source == str(path) and err.line == 7
+        assert "-51.6 dB re 1 V/uPa" in err.problem
+        assert "-251.6 dB re 1 V/uPa on line 6" in err.problem
+        assert "back to -251.6 dB re 1 V/uPa on line 8" in err.problem
+        assert "+200.0 dB" in err.problem and "at most 20 dB" in err.problem
+        assert "max_step_db" in err.problem
+        assert str(err).startswith(f"{path}, line 7:")
+
+    def test_the_step_limit_is_inclusive_and_settable(self):
+        text = HEADER + "1e6,1e-7\n2e6,1e-6\n3e6,1e-6\n"   # one 20 dB step
+        assert parse_calibration(text).magnitude_v_per_pa[1] == pytest.approx(1e-6)
+        with pytest.raises(CalibrationError, match="steps by \\+20.0 dB"):
+            parse_calibration(text, max_step_db=19.9)
+        step = HEADER + "1e6,1e-7\n2e6,1e-5\n3e6,1e-5\n"   # 40 dB
+        with pytest.raises(CalibrationError) as info:
+            parse_calibration(step, source="s.csv")
+        assert info.value.line == 3 and "1e-05 V/Pa" in info.value.problem
+        assert "1e-07 V/Pa on line 2" in info.value.problem
+        assert parse_calibration(step, max_step_db=40.5).band_hz == (1e6, 3e6)
+
+    def test_relaxed_check_loads_the_typo(self, tmp_path):
+        path = tmp_path / "cal.csv"
+        path.write_text(_typo_table())
+        cal = load_calibration(path, max_step_db=float("inf"))
+        levels = v_per_pa_to_db_re_1v_per_upa(cal.magnitude_v_per_pa)
+        assert levels[4] == pytest.approx(-51.6) and levels[3] == pytest.approx(-251.6)
+
+    def test_a_bad_end_row_is_caught(self):
+        with pytest.raises(CalibrationError) as info:
+            parse_calibration(_typo_table(bad_row=7))
+        assert info.value.line == 10 and "-51.6" in info.value.problem
+        with pytest.raises(CalibrationError) as info:
+            parse_calibration(_typo_table(bad_row=0))
+        assert info.value.line == 4 and "-51.6 dB re 1 V/uPa on line 3" in info.value.problem
+
+    def test_step_limit_must_be_positive(self):
+        with pytest.raises(ValueError, match="max_step_db"):
+            parse_calibration(GOOD, max_step_db=0.0)
+
+    def test_wrapped_phase_steps_are_wraps(self):
+        # a delay of 0.2 us: -72 degrees per MHz, written wrapped into -180..180
+        f = np.arange(1, 9) * 1e6
+        wrapped = np.rad2deg(np.angle(np.exp(-2j * np.pi * f * 0.2e-6)))
+        rows = "".join(f"{a!r},1e-7,{b!r}\n" for a, b in zip(f.tolist(), wrapped.tolist(),
+                                                               strict=True))
+        cal = parse_calibration("frequency_hz,sensitivity_v_per_pa,phase_deg\n" + rows)
+        assert np.diff(np.rad2deg(cal.phase_rad)) == pytest.approx(np.full(7, -72.0))
+        # the same wraps written in 0..360
+        rows = "".join(f"{a!r},1e-7,{b % 360.0!r}\n" for a, b in zip(f.tolist(), wrapped.tolist(),
+                                                                       strict=True))
+        cal = parse_calibration("frequency_hz,sensitivity_v_per_pa,phase_deg\n" + rows)
+        assert np.diff(np.rad2deg(cal.phase_rad)) == pytest.approx(np.full(7, -72.0))
+
+    def test_unwrapped_phase_that_jumps_more_than_half_a_turn_is_refused(self):
+        # unwrapped phase (it leaves -180..180), with one row mistyped by 250 degrees
+        text = ("frequency_hz,sensitivity_v_per_pa,phase_deg\n"
+                "1e6,1e-7,-100\n2e6,1e-7,-200\n3e6,1e-7,-550\n4e6,1e-7,-400\n")
+        with pytest.raises(CalibrationError) as info:
+            parse_calibration(text, source="p.csv")
+        assert info.value.line == 4
+        assert "phase_deg = -550.0 steps by -350.0 degrees from -200.0 on line 3" in \
+            info.value.problem
+        assert "check_phase_steps" in info.value.problem
+        # without the check, unwrapping quietly reads -550 as -190 (a wrap of one turn)
+        cal = parse_calibration(text, check_phase_steps=False)
+        assert np.rad2deg(cal.phase_rad)[2] == pytest.approx(-190.0)
+
+    def test_unwrapped_phase_in_radians_is_checked_too(self):
+        text = ("frequency_hz,sensitivity_v_per_pa,phase_rad\n"
+                "1e6,1e-7,-3.0\n2e6,1e-7,-4.0\n3e6,1e-7,-8.0\n")
+        with pytest.raises(CalibrationError, match="phase_rad = -8.0 steps by -229.2 degrees"):
+            parse_calibration(text)
+        smooth = ("frequency_hz,sensitivity_v_per_pa,phase_rad\n"
+                  "1e6,1e-7,-3.0\n2e6,1e-7,-4.0\n3e6,1e-7,-5.0\n")
+        assert parse_calibration(smooth).phase_source == "measured"

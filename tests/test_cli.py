@@ -62,6 +62,17 @@ def test_watch_takes_capacitance_in_pf():
     assert o["water.temperature_c"] == 25
 
 
+def test_watch_relaxes_the_calibration_checks():
+    parser = build_parser()
+    o = overrides_from_args(parser.parse_args(["watch", "--bench", "b.toml"]))
+    assert not any(key.startswith("calibration.") for key in o)
+    o = overrides_from_args(parser.parse_args(
+        ["watch", "--bench", "b.toml", "--calibration-max-step", "30",
+         "--no-calibration-phase-check"]))
+    assert o["calibration.max_step_db"] == 30.0
+    assert o["calibration.check_phase_steps"] is False
+
+
 def test_missing_trace_file_is_one_line_exit_2(tmp_path, capsys):
     cal = tmp_path / "cal.csv"
     cal.write_text("frequency_hz,sensitivity_v_per_pa\n1e6,1e-7\n2e6,1e-7\n3e6,1e-7\n")

@@ -105,3 +105,24 @@ class TestTraceFile:
     def test_non_uniform_step_names_the_line(self):
         with pytest.raises(TraceFileError, match="line 5.*not uniform"):
             parse_trace("time_s,voltage_v\n0,0\n1,0\n2,0\n3.5,0\n4,0\n5,0\n")
+
+
+def test_mistyped_calibration_row_is_refused_unless_relaxed(files, tmp_path, capsys):
+    # -60 for -260 dB re 1 V/uPa on one row at 20 MHz: refused by default (exit 2,
+    # one line naming file, line and both values); relaxed, the 5 MHz pulse comes through
+    trace, cal, p = files
+    lines = cal.read_text().splitlines()
+    typo_line = next(i for i, ln in enumerate(lines) if ln.startswith("2e+07,"))
+    lines[typo_line] = "2e+07,-60"
+    cal.write_text("\n".join(lines) + "\n")
+    assert main(["convert", str(trace), "--calibration", str(cal), "--json"]) == 2
+    err = capsys.readouterr().err
+    assert f"{cal}, line {typo_line + 1}:" in err
+    assert "-60.0 dB re 1 V/uPa" in err and "-260.0 dB re 1 V/uPa" in err
+    assert main(["convert", str(trace), "--calibration", str(cal), "--json",
+                 "--method", "deconvolve", "--calibration-max-step", "inf"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["peak_compressional_pa"] == pytest.approx(p.max(), rel=0.02)
+    assert main(["convert", str(trace), "--calibration", str(cal),
+                 "--calibration-max-step", "0"]) == 2
+    assert "--calibration-max-step" in capsys.readouterr().err

@@ -8,7 +8,11 @@ import scipy.signal
 
 from tankside.monitor.acoustics.calibration import parse_calibration
 from tankside.monitor.acoustics.converter import Converter, UnusableTraceError
-from tankside.monitor.acoustics.deconvolve import band_window
+from tankside.monitor.acoustics.deconvolve import (
+    band_window,
+    make_plan,
+    regularisation_reference_v_per_pa,
+)
 from tankside.monitor.acoustics.loading import Loading
 from tankside.monitor.acoustics.pulse import pulse_parameters
 from tankside.monitor.acoustics.settings import AwfMethod, ConversionSettings, Method
@@ -122,12 +126,19 @@ class TestRegularisation:
         assert 0.4 < w[1] < 0.6
 
     def test_tikhonov_weight_limits_gain(self):
-        # with eps, the inverse gain never exceeds 1 / (2 eps max|M|) (Tikhonov bound)
+        # with eps, the inverse gain never exceeds 1 / (2 eps M_ref): m / (m^2 + lam) is
+        # largest, 1 / (2 sqrt(lam)), at m = sqrt(lam) (Tikhonov and Arsenin 1977); M_ref is
+        # the median |M_L| over the band, here taken on the plan's own grid
         s = DECONV.replace(regularisation=0.1)
-        conv = Converter(model_calibration(), settings=s)
-        plan = conv.plan(N, DT)
-        ref = np.nanmax(plan.sensitivity_abs_v_per_pa)
+        cal = model_calibration()
+        plan = make_plan(cal, Loading(), s, N, DT)
+        inside = (plan.freqs_hz >= CAL_F[0]) & (plan.freqs_hz <= CAL_F[-1])
+        ref = float(np.median(plan.sensitivity_abs_v_per_pa[inside]))
+        assert ref < 0.5 * np.nanmax(plan.sensitivity_abs_v_per_pa)   # resonant: far from max
         assert np.max(plan.inverse_abs_pa_per_v) <= 1 / (2 * 0.1 * ref) * (1 + 1e-9)
+        # a reference at the largest |M_L| would bound the gain lower still; the plan's does not
+        assert np.max(plan.inverse_abs_pa_per_v) > 1 / (2 * 0.1 * np.nanmax(
+            plan.sensitivity_abs_v_per_pa))
 
     def test_settings_in_result(self):
         s = DECONV.replace(regularisation=0.02, taper_octaves=0.5)
@@ -255,3 +266,38 @@ def test_zero_crossing_window_reused_gives_the_same_parameters(method):
     for field in ("pulse_intensity_integral_j_per_m2", "pulse_duration_s",
                   "pulse_start_s", "pulse_end_s", "mechanical_index"):
         assert getattr(r.parameters, field) == pytest.approx(getattr(again, field), rel=1e-9)
+
+
+class TestRobustReference:
+    """One mistyped calibration row must not scale every pressure down (regularisation)."""
+
+    @staticmethod
+    def _flat_db_table(typo_at_hz=None):
+        # invented flat hydrophone at -251.6 dB re 1 V/uPa; the typo row says -51.6
+        rows = ["frequency_hz,sensitivity_db_re_1v_per_upa,phase_deg"]
+        rows += [f"{f!r},{-51.6 if f == typo_at_hz else -251.6},0.0" for f in CAL_F.tolist()]
+        return "\n".join(rows) + "\n"
+
+    def test_median_of_the_band(self):
+        values = np.array([1.0, 2.0, np.nan, 3.0, 1e10])
+        assert regularisation_reference_v_per_pa(values) == 2.5   # numpy.median of the finite
+        assert regularisation_reference_v_per_pa(np.array([np.nan])) == 1.0
+
+    def test_typo_row_does_not_collapse_the_pressure(self):
+        clean = parse_calibration(self._flat_db_table())
+        typo = parse_calibration(self._flat_db_table(typo_at_hz=20e6), max_step_db=np.inf)
+        m = float(clean.magnitude_v_per_pa[0])
+        assert float(typo.magnitude_v_per_pa.max()) == pytest.approx(m * 1e10, rel=1e-9)
+        p = pressure_pulse(fc=5e6)                      # far below the typo row at 20 MHz
+        v = p * m                                       # a flat hydrophone, no phase
+        settings = ConversionSettings(method="deconvolve", regularisation=0.01)
+        p_c_clean = Converter(clean, settings=settings).process(v, DT).peak_compressional_pa
+        p_c_typo = Converter(typo, settings=settings).process(v, DT).peak_compressional_pa
+        assert p_c_clean == pytest.approx(p.max(), rel=0.01)
+        assert p_c_typo == pytest.approx(p_c_clean, rel=0.02)
+        # scaled to the largest value instead, the same typo takes every pressure down
+        # by about 1e8 to 1e9 (what the loader must refuse by default)
+        plan = make_plan(typo, Loading(), settings, N, DT,
+                         reference_v_per_pa=float(typo.magnitude_v_per_pa.max()))
+        collapsed = np.fft.irfft(np.fft.rfft(v) * plan.inverse_pa_per_v, N).max()
+        assert collapsed < 1e-7 * p_c_clean

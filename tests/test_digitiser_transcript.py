@@ -148,3 +148,25 @@ def test_settings_validated():
         DigitiserSettings(sample_rate_hz=-1.0)
     with pytest.raises(SettingError):
         DigitiserSettings(averages=0)
+
+
+@pytest.mark.parametrize("name, value", [("coupling", "DC;:CHAN1:RANG 5"),
+                                         ("trigger_slope", "POS;*RST"),
+                                         ("trigger_source", "EXT\n"),
+                                         ("coupling", 5)])
+def test_settings_refuse_words_that_are_not_one_command(name, value):
+    with pytest.raises(SettingError, match=name):
+        SETTINGS.replace(**{name: value})
+
+
+def test_a_chained_command_never_reaches_the_wire():
+    # Settings that got past every check before the driver (built here by going round
+    # the dataclass's own check): configure refuses them before writing anything, and
+    # the empty transcript shows that nothing was sent.
+    bad = SETTINGS.replace()
+    object.__setattr__(bad, "coupling", "DC;:CHAN1:RANG 5")
+    with FakeResource([]) as fake:
+        dig = Digitiser(ScpiLink(fake), PROFILE)
+        with pytest.raises(SettingError, match="coupling = 'DC;:CHAN1:RANG 5' contains ';'"):
+            dig.configure(bad)
+    assert dig.settings is None

@@ -90,3 +90,55 @@ def test_missing_command_at_use():
     profile = parse_profile(edited('reset = "*RST"\n', ""), source="p.toml")
     with pytest.raises(ProfileError, match=r"p.toml: \[commands\] reset"):
         profile.command("reset")
+
+
+@pytest.mark.parametrize("old, new, where, words", [
+    ('set_coupling = "CHAN{channel}:COUP {coupling}"',
+     'set_coupling = "CHAN{channel}:COUP {coupling};:CHAN{channel}:RANG 5"',
+     "[commands] set_coupling", "contains ';'"),
+    ('arm_single = "INIT"', 'arm_single = "INIT\\n*RST"', "[commands] arm_single",
+     "line break"),
+    ('arm_single = "INIT"', 'arm_single = "INIT\\r"', "[commands] arm_single", "line break"),
+    ('arm_single = "INIT"', 'arm_single = "INIT\u00b5"', "[commands] arm_single",
+     "only printable ASCII"),
+    ('arm_single = "INIT"', "arm_single = [\"INIT\"]", "[commands] arm_single",
+     "non-empty string"),
+])
+def test_templates_are_one_command_of_printable_ascii(old, new, where, words):
+    with pytest.raises(ProfileError) as info:
+        parse_profile(edited(old, new), source="my-scope.toml")
+    assert str(info.value).startswith(f"my-scope.toml: {where}:"), str(info.value)
+    assert words in str(info.value)
+
+
+def test_generator_output_words_are_command_text():
+    from tankside.simulators.bench import GENERATOR_PROFILE_PATH
+
+    text = GENERATOR_PROFILE_PATH.read_text()
+    assert 'output_on = "ON"' in text
+    for bad, words in (('"ON;*RST"', "contains ';'"), ('"ON\\n"', "line break"),
+                       ("1", "non-empty string")):
+        with pytest.raises(ProfileError) as info:
+            parse_profile(text.replace('output_on = "ON"', f"output_on = {bad}"),
+                          source="gen.toml")
+        assert str(info.value).startswith("gen.toml: [values] output_on:")
+        assert words in str(info.value)
+
+
+@pytest.mark.parametrize("value, words", [
+    ("DC;:CHAN1:RANG 5", "contains ';'"),
+    ("POS;*RST", "contains ';'"),
+    ("DC\n", "line break"),
+    ("DC\r\n", "line break"),
+    ("D\u00c7", "only printable ASCII"),
+])
+def test_values_filled_at_run_time_are_checked(value, words):
+    from tankside.drivers.errors import SettingError
+
+    profile = load_profile("generic-scpi-digitiser")
+    with pytest.raises(SettingError) as info:
+        profile.command("set_coupling", channel=1, coupling=value)
+    message = str(info.value)
+    assert "generic-scpi-digitiser.toml: [commands] set_coupling: {coupling}" in message
+    assert words in message and "nothing was sent" in message
+    assert profile.command("set_coupling", channel=1, coupling="DC") == "CHAN1:COUP DC"

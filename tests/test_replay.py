@@ -42,11 +42,12 @@ def _raws(n_traces: int):
     return raws
 
 
-def record_session(path, *, n_traces=10, switch_to_narrowband_at=None, tmp_cal=None):
+def record_session(path, *, n_traces=10, switch_to_narrowband_at=None, tmp_cal=None,
+                   cal_text=None, checks=None):
     """Convert and store traces as the live pipeline does (same Converter, same calls)."""
     cal_path = tmp_cal
-    cal_path.write_text(calibration_text())
-    cal = load_calibration(cal_path)
+    cal_path.write_text(calibration_text() if cal_text is None else cal_text)
+    cal = load_calibration(cal_path, **(checks or {}))
     conv = Converter(cal, loading=LOADING, settings=SETTINGS, temperature_c=TEMPERATURE_C)
     meta = session_metadata(configuration={"calibration": {"file": str(cal_path)}},
                             instruments={}, calibration=cal, loading=LOADING,
@@ -199,3 +200,32 @@ class TestRefusals:
         assert main(["replay", str(tmp_path / "no.db"), "--out", str(tmp_path / "o.db")]) \
             == ExitCode.USAGE
         assert "no such session file" in capsys.readouterr().err
+
+
+def _with_typo(text: str) -> str:
+    # one row 1e6 times too sensitive (120 dB), near the top of the band
+    lines = text.splitlines()
+    i = next(k for k, ln in enumerate(lines) if ln.startswith("1.4e+07,"))
+    f, m, ph = lines[i].split(",")
+    lines[i] = ",".join([f, repr(float(m) * 1e6), ph])
+    return "\n".join(lines) + "\n"
+
+
+def test_session_recorded_with_relaxed_checks_replays_exactly(tmp_path):
+    # the calibration a session used is replayed as it was accepted, checks relaxed or not
+    src, out = tmp_path / "live.db", tmp_path / "again.db"
+    record_session(src, tmp_cal=tmp_path / "cal.csv", cal_text=_with_typo(calibration_text()),
+                   checks={"max_step_db": math.inf})
+    assert replay_session(src, out, check=True).differences == 0
+
+
+def test_replacement_calibration_is_checked_unless_relaxed(tmp_path):
+    src = tmp_path / "live.db"
+    record_session(src, tmp_cal=tmp_path / "cal.csv")
+    typo = tmp_path / "typo.csv"
+    typo.write_text(_with_typo(calibration_text()))
+    with pytest.raises(TanksideError, match="steps by \\+119.9 dB from 4.325e-08 V/Pa on line 29"):
+        replay_session(src, tmp_path / "a.db", calibration_path=typo)
+    summary = replay_session(src, tmp_path / "b.db", calibration_path=typo,
+                             calibration_checks={"max_step_db": math.inf})
+    assert summary.converted == 9

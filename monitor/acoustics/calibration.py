@@ -20,6 +20,24 @@ pressure by ``tau`` has phase ``-360 f tau`` degrees.
 
 Without a phase column, the phase is the minimum-phase estimate from the magnitude
 (:func:`minimum_phase_rad`) and ``phase_source`` is ``"minimum-phase"``.
+
+Plausibility
+------------
+One mistyped row can wreck every pressure (``-51.6`` for ``-251.6 dB re 1 V/uPa`` makes
+the sensitivity 1e10 times too large there), so the loader refuses:
+
+* a magnitude that steps by more than ``max_step_db`` (default :data:`MAX_STEP_DB`,
+  20 dB) from a neighbouring row; ``max_step_db=math.inf`` switches this off;
+* a phase step of more than 180 degrees between neighbouring rows that unwrapping cannot
+  settle. Unwrapping takes any step above 180 degrees for a wrap, which is right only
+  when the file gives its phase within one turn (every value within -180..180 degrees,
+  or within 0..360): then such a step is a wrap. A file whose phase leaves that turn
+  gives its phase unwrapped, and a step above 180 degrees in it is a jump unwrapping
+  would silently rewrite. ``check_phase_steps=False`` switches this off.
+
+The smooth sensitivity of a hydrophone changes by a few dB between neighbouring
+calibration frequencies even across a resonance (common practice); 20 dB is an order
+of magnitude beyond that.
 """
 
 from __future__ import annotations
@@ -35,6 +53,13 @@ from ..errors import CalibrationError
 
 #: Fewest calibration points accepted (interpolation and the phase estimate need a band).
 MIN_POINTS = 3
+#: Largest magnitude step between neighbouring rows accepted by default, dB.
+MAX_STEP_DB = 20.0
+# Where the operator relaxes the plausibility checks (the bench file, the commands).
+_RELAX_MAGNITUDE = ("max_step_db in the bench file's [calibration], or "
+                    "--calibration-max-step DB; inf switches the check off")
+_RELAX_PHASE = ("check_phase_steps = false in the bench file's [calibration], or "
+                "--no-calibration-phase-check")
 
 FREQUENCY = "frequency_hz"
 MAGNITUDE_COLUMNS = ("sensitivity_v_per_pa", "sensitivity_db_re_1v_per_upa")
@@ -106,8 +131,9 @@ class Calibration:
         return out
 
 
-def load_calibration(path: str | Path) -> Calibration:
-    """Read a calibration CSV file (layout in the module notes).
+def load_calibration(path: str | Path, *, max_step_db: float = MAX_STEP_DB,
+                     check_phase_steps: bool = True) -> Calibration:
+    """Read a calibration CSV file (layout and plausibility checks in the module notes).
 
     Raises
     ------
@@ -123,13 +149,26 @@ def load_calibration(path: str | Path) -> Calibration:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as err:
         raise CalibrationError(str(path), None, "not UTF-8 text") from err
-    cal = parse_calibration(text, source=str(path))
+    cal = parse_calibration(text, source=str(path), max_step_db=max_step_db,
+                            check_phase_steps=check_phase_steps)
     return Calibration(cal.frequency_hz, cal.sensitivity_v_per_pa, cal.phase_source,
                        cal.source, cal.text, hashlib.sha256(raw).hexdigest())
 
 
-def parse_calibration(text: str, source: str = "<text>") -> Calibration:
+def parse_calibration(text: str, source: str = "<text>", *,
+                      max_step_db: float = MAX_STEP_DB,
+                      check_phase_steps: bool = True) -> Calibration:
     """Parse calibration CSV text (layout in the module notes).
+
+    Parameters
+    ----------
+    text : str
+    source : str
+        File name or label, for the messages.
+    max_step_db : float
+        Largest magnitude step between neighbouring rows, dB (> 0; ``math.inf``: no check).
+    check_phase_steps : bool
+        Refuse a phase step above 180 degrees that unwrapping cannot settle.
 
     Raises
     ------
@@ -137,8 +176,11 @@ def parse_calibration(text: str, source: str = "<text>") -> Calibration:
         Empty file; missing, unknown, repeated or conflicting columns; a row with the
         wrong number of fields or an unparsable number; frequencies negative, non-finite
         or not strictly increasing; magnitude non-positive or non-finite; non-finite
-        phase; fewer than ``MIN_POINTS`` rows.
+        phase; fewer than ``MIN_POINTS`` rows; a magnitude or phase step between
+        neighbouring rows that fails the plausibility checks (module notes).
     """
+    if not max_step_db > 0:
+        raise ValueError(f"max_step_db must be above 0 dB, got {max_step_db!r}")
     header, rows = _split(text, source)
     columns = _check_header(header, source)
     values: dict[str, list[float]] = {name: [] for name in columns}
@@ -161,12 +203,15 @@ def parse_calibration(text: str, source: str = "<text>") -> Calibration:
     freq = np.array(values[FREQUENCY])
     magnitude = _magnitude(values, columns, lines, source)
     _check_frequencies(freq, lines, source)
+    _check_magnitude_steps(magnitude, values, columns, lines, source, max_step_db)
     if "phase_deg" in columns or "phase_rad" in columns:
         name = "phase_deg" if "phase_deg" in columns else "phase_rad"
         phase = np.array(values[name])
         bad = np.flatnonzero(~np.isfinite(phase))
         if bad.size:
             raise CalibrationError(source, lines[bad[0]], f"{name} is not finite")
+        if check_phase_steps:
+            _check_phase_steps(phase, name, lines, source)
         if name == "phase_deg":
             phase = np.deg2rad(phase)
         phase = np.unwrap(phase)
@@ -246,6 +291,50 @@ def _check_frequencies(freq: np.ndarray, lines: list[int], source: str) -> None:
         i = bad[0] + 1
         raise CalibrationError(source, lines[i], f"frequencies not strictly increasing: "
                                f"{freq[i]!r} Hz follows {freq[i - 1]!r} Hz")
+
+
+def _check_magnitude_steps(magnitude: np.ndarray, values: dict, columns: list[str],
+                           lines: list[int], source: str, max_step_db: float) -> None:
+    if not math.isfinite(max_step_db):
+        return
+    name = next(c for c in columns if c in MAGNITUDE_COLUMNS)
+    written = values[name]
+    unit = " dB re 1 V/uPa" if name == "sensitivity_db_re_1v_per_upa" else " V/Pa"
+    steps_db = np.diff(20.0 * np.log10(magnitude))
+    bad = np.flatnonzero(np.abs(steps_db) > max_step_db)
+    if not bad.size:
+        return
+    k = int(bad[0])
+    # A row that jumps away from both neighbours is the odd one; otherwise name the pair.
+    spike = (k + 1 < steps_db.size and abs(steps_db[k + 1]) > max_step_db
+             and np.sign(steps_db[k + 1]) != np.sign(steps_db[k]))
+    i = k + 1
+    after = (f" and back to {written[k + 2]!r}{unit} on line {lines[k + 2]}" if spike else "")
+    raise CalibrationError(
+        source, lines[i],
+        f"{name} = {written[i]!r}{unit} steps by {steps_db[k]:+.1f} dB from "
+        f"{written[k]!r}{unit} on line {lines[k]}{after}; neighbouring rows may differ by "
+        f"at most {max_step_db:g} dB (a typing error? if the certificate really says so, "
+        f"allow a larger step: {_RELAX_MAGNITUDE})")
+
+
+def _check_phase_steps(phase: np.ndarray, name: str, lines: list[int], source: str) -> None:
+    degrees = np.rad2deg(phase) if name == "phase_rad" else phase
+    one_turn = bool(np.all(np.abs(degrees) <= 180.0) or np.all((degrees >= 0) & (degrees <= 360.0)))
+    if one_turn:
+        return      # wrapped phase: a step above 180 degrees is a wrap
+    steps = np.diff(degrees)
+    bad = np.flatnonzero(np.abs(steps) > 180.0)
+    if not bad.size:
+        return
+    k = int(bad[0])
+    raise CalibrationError(
+        source, lines[k + 1],
+        f"{name} = {float(phase[k + 1])!r} steps by {steps[k]:+.1f} degrees from "
+        f"{float(phase[k])!r} on "
+        f"line {lines[k]}; the phase leaves one turn, so it is given unwrapped, and a step "
+        f"above 180 degrees between neighbouring rows is one unwrapping cannot tell from a "
+        f"wrap (a typing error? if the certificate really says so: {_RELAX_PHASE})")
 
 
 def db_re_1v_per_upa_to_v_per_pa(level_db):

@@ -25,7 +25,12 @@ import scipy.fft
 
 from ..errors import OutOfBandError
 from .calibration import Calibration
-from .deconvolve import Plan, deconvolution_band_hz, make_plan
+from .deconvolve import (
+    Plan,
+    deconvolution_band_hz,
+    make_plan,
+    regularisation_reference_v_per_pa,
+)
 from .loading import Loading
 from .narrowband import NarrowbandCheck, SensitivityCurve, narrowband_check
 from .pulse import (
@@ -222,8 +227,9 @@ class Converter:
         lo, hi = self.band_hz
         f = self.profile.freqs_hz
         inside = (f >= lo) & (f <= hi)
-        # the same regularisation reference for every grid: max |M_L| over the band
-        self._reference = float(10.0 ** (self.profile.level_db[inside].max() / 20.0))
+        # the same regularisation reference for every grid: median |M_L| over the band
+        self._reference = regularisation_reference_v_per_pa(
+            10.0 ** (self.profile.level_db[inside] / 20.0))
         self._impedance = self.water.impedance_rayl
         self._settings_dict = self.settings.as_dict()
         self._plans: dict[tuple[int, float], tuple[Plan, np.ndarray]] = {}

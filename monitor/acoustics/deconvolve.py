@@ -5,10 +5,12 @@ depends only on the grid (record length ``n`` and time step ``dt_s``), the calib
 the loading and the settings, so that converting a trace costs one ``rfft``, one
 multiply and one ``irfft``.
 
-The inverse filter is ``W(f) conj(M_L) / (|M_L|^2 + (eps max|M_L|)^2)``: ``W`` is 1
+The inverse filter is ``W(f) conj(M_L) / (|M_L|^2 + (eps M_ref)^2)``: ``W`` is 1
 inside the deconvolution band, falls to 0 at its edges with a raised-cosine taper, and
 is 0 outside; the band is always inside the calibrated band, so no extrapolated
-sensitivity is ever divided by. ``eps`` is the Tikhonov (Wiener-type) weight.
+sensitivity is ever divided by. ``eps`` is the Tikhonov (Wiener-type) weight and
+``M_ref`` the median of ``|M_L|`` over the band (:func:`regularisation_reference_v_per_pa`),
+a robust in-band level: one outlying calibration row does not move it.
 
 Time dependence ``exp(+j 2 pi f t)`` as :func:`numpy.fft.rfft`; see
 :mod:`tankside.monitor.acoustics.calibration`.
@@ -81,6 +83,19 @@ def band_window(freqs_hz: np.ndarray, low_hz: float, high_hz: float,
     return w
 
 
+def regularisation_reference_v_per_pa(magnitude_v_per_pa: np.ndarray) -> float:
+    """The level ``M_ref`` the regularisation is scaled to: median of ``|M_L|``, V/Pa.
+
+    ``magnitude_v_per_pa`` holds ``|M_L|`` on a grid over the deconvolution band (NaN
+    ignored). The median, not the largest value: a single wrong calibration row that
+    spikes the sensitivity would otherwise raise ``eps M_ref`` with it and scale every
+    pressure down by the size of the spike. 1.0 when nothing finite is given.
+    """
+    m = np.asarray(magnitude_v_per_pa, dtype=float)
+    m = m[np.isfinite(m)]
+    return float(np.median(m)) if m.size else 1.0
+
+
 def inverse_filter(sensitivity_v_per_pa: np.ndarray, window: np.ndarray,
                    regularisation: float, reference_v_per_pa: float) -> np.ndarray:
     """Regularised inverse ``W conj(M) / (|M|^2 + (eps * M_ref)^2)``, Pa/V; 0 where W is 0.
@@ -130,9 +145,9 @@ def make_plan(calibration: Calibration, loading: Loading, settings: ConversionSe
               n: int, dt_s: float, *, reference_v_per_pa: float | None = None) -> Plan:
     """Build the deconvolution plan for records of ``n`` samples at step ``dt_s`` (s).
 
-    ``reference_v_per_pa`` is ``max |M_L|`` over the deconvolution band, for the
-    regularisation; by default it is taken on this grid (pass it to make it the same for
-    every grid).
+    ``reference_v_per_pa`` is ``M_ref`` (:func:`regularisation_reference_v_per_pa` of
+    ``|M_L|`` over the deconvolution band), for the regularisation; by default it is taken
+    on this grid (pass it to make it the same for every grid).
     """
     if n < 2 or not (math.isfinite(dt_s) and dt_s > 0):
         raise ConfigError(f"cannot plan a conversion for n={n}, dt={dt_s!r} s")
@@ -142,7 +157,7 @@ def make_plan(calibration: Calibration, loading: Loading, settings: ConversionSe
     window = band_window(freqs, lo, hi, settings.taper_octaves)
     if reference_v_per_pa is None:
         inside = (freqs >= lo) & (freqs <= hi)
-        reference_v_per_pa = float(np.abs(sens[inside]).max()) if inside.any() else 1.0
+        reference_v_per_pa = regularisation_reference_v_per_pa(np.abs(sens[inside]))
     inverse = inverse_filter(sens, window, settings.regularisation, reference_v_per_pa)
     arrays = (freqs, sens, np.abs(sens), inverse, np.abs(inverse))
     for a in arrays:

@@ -48,8 +48,8 @@ class ConversionSettings:
         Width of the raised-cosine taper inside each band edge, octaves.
     regularisation : float
         Tikhonov (Wiener-type) weight ``eps``: the inverse is
-        ``conj(M) / (|M|^2 + (eps * max|M|)^2)``, ``max`` over the band. 0 is a plain
-        division inside the band.
+        ``conj(M) / (|M|^2 + (eps * M_ref)^2)``, ``M_ref`` the median of ``|M|`` over
+        the band. 0 is a plain division inside the band.
     awf_method : AwfMethod
         ``"spectrum"`` (mean of the -3 dB frequencies of the pressure spectrum) or
         ``"zero-crossing"``.

@@ -10,7 +10,12 @@ from ..acoustics.converter import Converter, TraceResult
 from ..acoustics.loading import Loading
 from ..acoustics.settings import AwfMethod, ConversionSettings, Method
 from ..record.tracefile import read_trace, write_pressure
-from .options import add_loading_options, loading_overrides
+from .options import (
+    add_calibration_check_options,
+    add_loading_options,
+    calibration_checks,
+    loading_overrides,
+)
 
 
 def add_parser(subparsers) -> None:
@@ -26,6 +31,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--calibration", "-c", metavar="CAL", required=True,
                    help="hydrophone calibration CSV (frequency_hz, sensitivity_v_per_pa or "
                         "sensitivity_db_re_1v_per_upa, optional phase_deg or phase_rad)")
+    add_calibration_check_options(p)
     p.add_argument("--method", choices=[m.value for m in Method], default=Method.AUTO.value,
                    help="deconvolve, narrowband, or auto: narrowband only when the narrowband "
                         "check passes (default: auto)")
@@ -44,7 +50,7 @@ def add_parser(subparsers) -> None:
                    help=f"raised-cosine taper inside each band edge, octaves "
                         f"(default {d.taper_octaves:g})")
     r.add_argument("--regularisation", metavar="EPS", type=float, default=d.regularisation,
-                   help="Tikhonov weight relative to the largest sensitivity in the band "
+                   help="Tikhonov weight relative to the median sensitivity in the band "
                         f"(default {d.regularisation:g}; 0: plain division)")
     r.add_argument("--awf-method", choices=[m.value for m in AwfMethod],
                    default=d.awf_method.value,
@@ -56,7 +62,7 @@ def add_parser(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    calibration = load_calibration(args.calibration)
+    calibration = load_calibration(args.calibration, **calibration_checks(args))
     loading = Loading(**loading_overrides(args))
     temperature_c = 20.0 if args.water_temperature is None else args.water_temperature
     settings = ConversionSettings(method=args.method, band_low_hz=args.band_low,

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from ..errors import ConfigError
+
 PF = 1e-12
 
 
@@ -26,6 +28,35 @@ def add_loading_options(parser: argparse.ArgumentParser, *, title: str) -> None:
                    help="preamplifier voltage gain, dB (default 0)")
     g.add_argument("--temperature", metavar="DEGC", dest="water_temperature", type=float,
                    help="water temperature, degC, for density and sound speed (default 20)")
+
+
+def add_calibration_check_options(parser: argparse.ArgumentParser) -> None:
+    """The calibration loader's plausibility checks, relaxed from the command line.
+
+    ``args.calibration_max_step_db`` is None when not given; ``args.calibration_phase_check``
+    is False with ``--no-calibration-phase-check``.
+    """
+    parser.add_argument("--calibration-max-step", metavar="DB", type=float,
+                        dest="calibration_max_step_db",
+                        help="largest sensitivity step between neighbouring calibration "
+                             "rows, dB (default 20; inf: no check); a larger step is refused "
+                             "as a likely typing error")
+    parser.add_argument("--no-calibration-phase-check", dest="calibration_phase_check",
+                        action="store_false",
+                        help="accept unwrapped calibration phase that steps by more than "
+                             "180 degrees between neighbouring rows")
+
+
+def calibration_checks(args: argparse.Namespace) -> dict:
+    """The keywords of ``load_calibration`` given on the command line (``[calibration]`` keys)."""
+    out: dict = {}
+    if args.calibration_max_step_db is not None:
+        if not args.calibration_max_step_db > 0:
+            raise ConfigError("--calibration-max-step must be above 0 dB (inf: no check)")
+        out["max_step_db"] = args.calibration_max_step_db
+    if not args.calibration_phase_check:
+        out["check_phase_steps"] = False
+    return out
 
 
 def add_progress_options(parser: argparse.ArgumentParser) -> None:

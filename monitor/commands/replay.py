@@ -6,7 +6,7 @@ import argparse
 
 from ..acoustics.settings import Method
 from ..progress import bar_factory
-from .options import add_progress_options
+from .options import add_calibration_check_options, add_progress_options, calibration_checks
 
 
 def add_parser(subparsers) -> argparse.ArgumentParser:
@@ -24,6 +24,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="the new session file to write (must not be FILE.db)")
     p.add_argument("--calibration", metavar="CAL.csv",
                    help="use this hydrophone calibration file instead of the recorded one")
+    add_calibration_check_options(p)
     p.add_argument("--method", choices=[m.value for m in Method],
                    help="conversion method for every trace, instead of the recorded one(s)")
     p.add_argument("--force", action="store_true", help="replace NEW.db if it exists")
@@ -38,6 +39,7 @@ def run(args) -> int:
     from ..record.replay import replay_session
 
     summary = replay_session(args.session, args.out, calibration_path=args.calibration,
+                             calibration_checks=calibration_checks(args),
                              method=args.method, force=args.force, check=args.check,
                              progress=bar_factory(args.progress))
     line = (f"replayed {summary.traces} traces into {summary.out_path}: "

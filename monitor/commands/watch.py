@@ -10,7 +10,12 @@ from pathlib import Path
 
 from ..acoustics.settings import Method
 from ..errors import ConfigError
-from .options import add_loading_options, loading_overrides
+from .options import (
+    add_calibration_check_options,
+    add_loading_options,
+    calibration_checks,
+    loading_overrides,
+)
 from .running import run_to_end
 
 EPILOG = """\
@@ -70,6 +75,7 @@ def add_parser(subparsers) -> None:
     o.add_argument("--no-generator", action="store_true",
                    help="ignore the bench file's generator (safe-off is then unavailable)")
     o.add_argument("--calibration", metavar="CAL.csv", help="hydrophone calibration file")
+    add_calibration_check_options(o)
     o.add_argument("--method", choices=[m.value for m in Method],
                    help="conversion method at the start (can be switched live)")
     o.add_argument("--pressure-limit", type=float, metavar="PA",
@@ -125,6 +131,8 @@ def overrides_from_args(args) -> dict:
             o["generator.profile"] = _profile(args.generator_profile)
     if args.calibration:
         o["calibration.file"] = _abs(args.calibration)
+    for key, value in calibration_checks(args).items():
+        o[f"calibration.{key}"] = value
     for key, value in loading_overrides(args).items():
         o[f"loading.{key}"] = value
     if args.method:
@@ -189,6 +197,8 @@ def run(args) -> int:
     if args.traces is not None and args.traces < 1:
         raise ConfigError("--traces must be at least 1")
     bench = load_bench(args.bench, overrides_from_args(args))
+    for warning in bench.protection_warnings():
+        print(f"tankside: WARNING: protection off: {warning}", file=sys.stderr, flush=True)
 
     dashboard: Callable[..., int] | None = None
     if not args.headless:

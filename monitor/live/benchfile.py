@@ -23,6 +23,8 @@ Layout (every section except ``[digitiser]`` and ``[calibration]`` is optional):
 
     [calibration]
     file = "cal.csv"
+    max_step_db = 20.0         # largest magnitude step between neighbouring rows (inf: off)
+    check_phase_steps = true   # refuse unwrapped phase that steps over 180 degrees
 
     [loading]              # Loading fields
     hydrophone_capacitance_f = 100e-12
@@ -75,6 +77,8 @@ _SESSION_KEYS = {
     "queue_capacity": int,
     "reconnect_give_up_s": float,
 }
+# Plausibility checks of the calibration loader (tankside.monitor.acoustics.calibration).
+_CALIBRATION_CHECKS = {"max_step_db": float, "check_phase_steps": bool}
 _SECTIONS = ("digitiser", "generator", "calibration", "loading", "conversion", "water",
              "alerts", "session")
 
@@ -132,6 +136,7 @@ class BenchConfig:
     queue_capacity: int = 64
     reconnect_give_up_s: float = 60.0
     tables: dict = field(default_factory=dict)
+    calibration_checks: dict = field(default_factory=dict)
 
     def digitiser_settings(self):
         """The :class:`tankside.drivers.digitiser.DigitiserSettings` of ``[digitiser]``."""
@@ -146,7 +151,7 @@ class BenchConfig:
         if not self.calibration_path.is_file():
             raise ConfigError(f"{self.source}: [calibration] file: no such file "
                               f"{str(self.calibration_path)!r}")
-        return load_calibration(self.calibration_path)
+        return load_calibration(self.calibration_path, **self.calibration_checks)
 
     def loading(self):
         from ..acoustics.loading import Loading
@@ -165,6 +170,13 @@ class BenchConfig:
             return AlertConfig.from_table(copy.deepcopy(self.alerts_table))
         except ConfigError as err:
             raise ConfigError(f"{self.source}: [alerts] {err}") from err
+
+    def protection_warnings(self) -> tuple[str, ...]:
+        """What the alert settings switch off of the protection (see
+        :func:`tankside.monitor.live.rule_specs.protection_warnings`); empty when none."""
+        from .rule_specs import protection_warnings
+
+        return protection_warnings(self.alert_config())
 
     def converter(self):
         """A :class:`tankside.monitor.acoustics.converter.Converter` for this bench."""
@@ -186,11 +198,11 @@ def _build(cls, table: dict, source: str, section: str):
         raise ConfigError(f"{source}: [{section}]: {err}") from err
 
 
-def _typed(value: Any, kind: type, source: str, where: str):
+def _typed(value: Any, kind: type, source: str, where: str, *, allow_infinite: bool = False):
     if kind is float:
         if isinstance(value, bool) or not isinstance(value, int | float):
             raise ConfigError(f"{source}: {where}: expected a number, got {value!r}")
-        if not math.isfinite(value):
+        if math.isnan(value) or (math.isinf(value) and not allow_infinite):
             raise ConfigError(f"{source}: {where}: expected a finite number, got {value!r}")
         return float(value)
     if kind is int:
@@ -204,6 +216,31 @@ def _typed(value: Any, kind: type, source: str, where: str):
     if not isinstance(value, str) or not value:
         raise ConfigError(f"{source}: {where}: expected a non-empty string, got {value!r}")
     return value
+
+
+def _check_digitiser_values(table: dict, source: str) -> None:
+    """Type-check the digitiser settings; their strings become command text.
+
+    A string setting must be a non-empty string of printable ASCII without ``;`` or a
+    line break (``coupling = "DC;:CHAN1:RANG 5"`` would set a range the session does not
+    record). Unknown keys are left to :func:`_build`.
+    """
+    from ...drivers.digitiser import DigitiserSettings
+    from ...drivers.profile import command_text_problem
+
+    kinds = {f.name: f.type for f in dataclasses.fields(DigitiserSettings)}
+    for key, value in table.items():
+        kind = {"str": str, "float": float, "int": int}.get(str(kinds.get(key)))
+        if kind is None:
+            continue
+        where = f"[digitiser] {key}"
+        checked = _typed(value, kind, source, where)
+        if kind is str:
+            problem = command_text_problem(checked)
+            if problem is not None:
+                raise ConfigError(f"{source}: {where}: {value!r} {problem}; it is sent to the "
+                                  "digitiser as part of a command")
+        table[key] = checked
 
 
 def _resolve(path_text: str, base: Path) -> Path:
@@ -321,6 +358,7 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
 
     dig_conn, dig_rest = _instrument(_section(data, "digitiser", source, True), "digitiser",
                                      source, base, _DIGITISER_EXTRA)
+    _check_digitiser_values(dig_rest, source)
     trigger_timeout_s = dig_rest.pop("trigger_timeout_s", 2.0)
     if trigger_timeout_s <= 0:
         raise ConfigError(f"{source}: [digitiser] trigger_timeout_s: must be above 0")
@@ -347,9 +385,17 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
     cal = _section(data, "calibration", source, True)
     if "file" not in cal:
         raise ConfigError(f"{source}: [calibration] file: missing")
-    for key in cal:
-        if key != "file":
+    cal_checks: dict[str, Any] = {}
+    for key, value in cal.items():
+        if key == "file":
+            continue
+        if key not in _CALIBRATION_CHECKS:
             raise ConfigError(f"{source}: [calibration] {key}: unknown key")
+        cal_checks[key] = _typed(value, _CALIBRATION_CHECKS[key], source, f"[calibration] {key}",
+                                 allow_infinite=True)
+    if cal_checks.get("max_step_db", 1.0) <= 0:
+        raise ConfigError(f"{source}: [calibration] max_step_db: must be above 0 dB "
+                          "(inf switches the check off)")
     cal_path = _resolve(_typed(cal["file"], str, source, "[calibration] file"), base)
 
     water = _section(data, "water", source, False)
@@ -378,7 +424,7 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
     tables.setdefault("digitiser", {})["profile"] = dig_conn["profile"]
     if gen is not None:
         tables["generator"]["profile"] = gen.profile
-    tables["calibration"] = {"file": str(cal_path)}
+    tables["calibration"] = {"file": str(cal_path), **cal_checks}
     tables.setdefault("session", {})["folder"] = str(folder)
 
     return BenchConfig(
@@ -394,5 +440,6 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
         alerts_table=copy.deepcopy(_section(data, "alerts", source, False)),
         session_folder=folder,
         tables=tables,
+        calibration_checks=cal_checks,
         **sess_values,
     )

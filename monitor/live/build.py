@@ -12,8 +12,10 @@ from typing import Any
 
 from ..acoustics.converter import Converter
 from ..errors import ConfigError
+from ..record.schema import META_PROTECTION_WARNINGS
 from ..record.store import SessionStore, session_metadata
 from . import instruments
+from .rule_specs import protection_warnings
 from .rules import RuleEngine
 
 
@@ -31,7 +33,9 @@ def session_parts(bench: Any, *, session_path: str | Path | None = None) -> dict
     settings = bench.conversion_settings()
     converter = Converter(calibration, loading=loading, settings=settings,
                           temperature_c=bench.temperature_c)
-    rules = RuleEngine(bench.alert_config())
+    alerts = bench.alert_config()
+    rules = RuleEngine(alerts)
+    warnings = list(protection_warnings(alerts))
     dig_settings = bench.digitiser_settings()
     path = new_session_path(bench.session_folder, session_path)
     open_dig = instruments.digitiser_opener(bench.digitiser, dig_settings)
@@ -42,7 +46,7 @@ def session_parts(bench: Any, *, session_path: str | Path | None = None) -> dict
         return session_metadata(
             configuration=bench.tables, instruments=identities, calibration=calibration,
             loading=loading, settings=settings, temperature_c=bench.temperature_c,
-            extra={"bench_file": bench.source})
+            extra={"bench_file": bench.source, META_PROTECTION_WARNINGS: warnings})
 
     def open_store(p: Path, meta: dict) -> SessionStore:
         return SessionStore.create(p, meta, commit_interval_s=bench.commit_interval_s)

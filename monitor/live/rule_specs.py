@@ -45,6 +45,12 @@ class ParamKind(StrEnum):
 
 
 SEVERITIES = tuple(Severity)
+# A clipped trace's pressure is a floor on the true one: over_pressure counts it when
+# that floor reaches (1 - CLIPPED_MARGIN) of the limit. 0.5 assumes the rails hide at
+# most a factor of 2 of the peak (the signal at most twice the rail: about one step of
+# a 1-2-5 range ladder); a deeper clip that still measures below half the limit is not
+# caught. 1 counts every clipped trace as an over-pressure.
+CLIPPED_MARGIN = 0.5
 ACTIONS = tuple(Action)
 # Only these rules say which way the vertical range should go.
 AUTO_RANGE_RULES = ("clipping", "range_under_use")
@@ -91,7 +97,11 @@ RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for s
         Param(key="rated_max_pa", kind=ParamKind.FLOAT, default=1.0e7, unit="Pa", low=0.0,
               meaning="hydrophone's rated maximum pressure"),
         Param(key="limit_pa", kind=ParamKind.OPTIONAL_FLOAT, default=None, unit="Pa", low=0.0,
-              meaning="optional user limit (the lower one applies)"))),
+              meaning="optional user limit (the lower one applies)"),
+        Param(key="clipped_margin", kind=ParamKind.FLOAT, default=CLIPPED_MARGIN, unit="1",
+              low=0.0, low_inclusive=True, high=1.0,
+              meaning=("share of the limit a clipped trace's peak may fall short of "
+                       "and still count")))),
     RuleSpec("range_under_use", Severity.INFO, (Action.RECORD, Action.AUTO_RANGE), (
         Param(key="below_fraction", kind=ParamKind.FLOAT, default=0.3, unit="1", low=0.0, high=1.0,
               meaning="fraction of half the full-scale span"),
@@ -211,6 +221,28 @@ class AlertConfig:
     def as_dict(self) -> dict:
         """JSON- and TOML-able form; ``from_table(as_dict())`` gives an equal config."""
         return {name: rule.as_dict() for name, rule in self.rules.items()}
+
+
+def protection_warnings(config: AlertConfig) -> tuple[str, ...]:
+    """What the settings switch off of the hydrophone's protection, in operator words.
+
+    Empty when ``over_pressure`` is enabled and its actions include ``safe-off``. Such
+    settings are accepted (a bench may have no drive to protect), but said aloud: the
+    commands print each line and the session records them in its metadata
+    (``protection_warnings``).
+    """
+    rule = config["over_pressure"]
+    if not rule.enabled:
+        return ("over_pressure is disabled (over_pressure.enabled = false): no pressure, "
+                "however high, raises an alert or switches the drive off",)
+    if not rule.actions:
+        return ("over_pressure has no actions (over_pressure.actions = []): an over-pressure "
+                "is shown but neither recorded nor followed by a safe-off",)
+    if Action.SAFE_OFF not in rule.actions:
+        listed = ", ".join(f'"{a}"' for a in rule.actions)
+        return (f"over_pressure does not switch the drive off (over_pressure.actions = "
+                f"[{listed}], without \"safe-off\")",)
+    return ()
 
 
 def _error(key: str, problem: str) -> ConfigError:

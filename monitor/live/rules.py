@@ -22,7 +22,10 @@ off from one trace to the next raises one alert, not one per flicker. A
 change of vertical range re-arms clipping and range_under_use (the condition on a
 new range is a new one, so auto-range can take the next step); a change of
 position or of vertical range restarts the p_r drift window, and clipped traces are
-left out of it (their p_r is a floor, not a measurement). A rule that cannot be evaluated on a trace
+left out of it (their p_r is a floor, not a measurement). For the same reason
+over_pressure counts a clipped trace whose pressure comes within ``clipped_margin``
+of the limit (see :data:`~tankside.monitor.live.rule_specs.CLIPPED_MARGIN`), whether or
+not auto-range could still step the range up. A rule that cannot be evaluated on a trace
 (for example no result because the conversion failed) keeps its state.
 
 No pulse, drive off
@@ -431,10 +434,23 @@ class RuleEngine:
         else:
             limit, source = rated, "hydrophone rated maximum"
         which = "p_c" if peak == p_c else "p_r"
+        detail = {"peak_pa": peak, "peak_compressional_pa": p_c,
+                  "peak_rarefactional_pa": p_r, "limit_pa": limit, "limit_source": source,
+                  "clipped": False}
+        if obs.clipped_low + obs.clipped_high > 0:
+            # The rails cut the trace: its pressure is a floor on the true peak, which
+            # may lie above the limit even when the floor does not reach it.
+            margin = self._p("over_pressure", "clipped_margin")
+            counts_from = limit * (1.0 - margin)
+            message = (f"Over-pressure: {which} at least {_fmt_pa(peak)} (clipped), within "
+                       f"{100 * margin:.3g} % of the {source} of {_fmt_pa(limit)} "
+                       f"(counts from {_fmt_pa(counts_from)}; p_c {_fmt_pa(p_c)}, "
+                       f"p_r {_fmt_pa(p_r)}, {obs.clipped_low + obs.clipped_high} samples at "
+                       f"the rails of the {_fmt_v(obs.range_v)} range), trace {obs.seq}.")
+            detail.update(clipped=True, clipped_margin=margin, counts_from_pa=counts_from)
+            return peak >= counts_from, message, detail
         message = (f"Over-pressure: {which} = {_fmt_pa(peak)} is at or above the {source} of "
                    f"{_fmt_pa(limit)} (p_c {_fmt_pa(p_c)}, p_r {_fmt_pa(p_r)}), trace {obs.seq}.")
-        detail = {"peak_pa": peak, "peak_compressional_pa": p_c,
-                  "peak_rarefactional_pa": p_r, "limit_pa": limit, "limit_source": source}
         return peak >= limit, message, detail
 
     def _range_under_use(self, obs: TraceObservation) -> _Verdict:

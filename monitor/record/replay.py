@@ -107,9 +107,12 @@ def conversion_inputs(metadata: dict, *, calibration=None, method: str | None = 
     if missing:
         raise SessionFileError(f"the session lacks what replay needs: {', '.join(missing)}")
     if calibration is None:
+        # The recorded calibration is the one the session used, checks relaxed or not:
+        # replay takes it as it was accepted, so its results stay reproducible.
         calibration = parse_calibration(metadata[META_CALIBRATION_TEXT],
                                         source=metadata.get(META_CALIBRATION_SOURCE)
-                                        or "<stored calibration>")
+                                        or "<stored calibration>",
+                                        max_step_db=math.inf, check_phase_steps=False)
     loading = _rebuild(Loading, metadata[META_LOADING], "loading")
     settings = _rebuild(ConversionSettings, metadata[META_SETTINGS], "conversion settings")
     if method is not None:
@@ -159,8 +162,8 @@ def _check_paths(src: Path, out: Path, force: bool) -> None:
         raise ConfigError(f"--out {out}: file exists (use --force to replace it)")
 
 
-def replay_session(src, out, *, calibration_path=None, method: str | None = None,
-                   force: bool = False, check: bool = False,
+def replay_session(src, out, *, calibration_path=None, calibration_checks: dict | None = None,
+                   method: str | None = None, force: bool = False, check: bool = False,
                    progress: StepsFactory = silent) -> ReplaySummary:
     """Recompute every result of session ``src`` into the new session ``out``.
 
@@ -171,6 +174,9 @@ def replay_session(src, out, *, calibration_path=None, method: str | None = None
         with ``force``).
     calibration_path : str or Path, optional
         Another calibration file instead of the recorded one.
+    calibration_checks : dict, optional
+        Keywords of ``load_calibration`` for that file (``max_step_db``,
+        ``check_phase_steps``); the recorded calibration is taken as it was accepted.
     method : str, optional
         Another conversion method (a :class:`~tankside.monitor.acoustics.settings.Method`).
     check : bool
@@ -185,7 +191,8 @@ def replay_session(src, out, *, calibration_path=None, method: str | None = None
     t_start = time.perf_counter()
     with SessionReader(src) as reader:
         meta = reader.metadata
-        calibration = load_calibration(calibration_path) if calibration_path else None
+        calibration = (load_calibration(calibration_path, **(calibration_checks or {}))
+                       if calibration_path else None)
         from ..acoustics.converter import Converter
 
         cal, loading, settings, temp0 = conversion_inputs(meta, calibration=calibration,

@@ -50,6 +50,8 @@ META_SETTINGS = "settings"                    # dict, ConversionSettings.as_dict
 META_TEMPERATURE_C = "temperature_c"          # float, water temperature used, degC
 META_START_TIME_S = "start_time_s"            # float, s since the Unix epoch
 META_REPLAY_OF = "replay_of"                  # dict, set by replay: source file, id, overrides
+META_PROTECTION_WARNINGS = "protection_warnings"  # list of str, the protection the alert
+                                                  # settings switch off (empty: none)
 
 REQUIRED_FOR_REPLAY = (META_CALIBRATION_TEXT, META_LOADING, META_SETTINGS, META_TEMPERATURE_C)
 
