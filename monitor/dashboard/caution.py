@@ -18,8 +18,10 @@ CAUTION_TEXT = """\
 • Cavitation and high peak pressures destroy hydrophones. Start at low
   drive, watch p_r and the clipping count, and respect the hydrophone's
   rated maximum.
-• Alert actions such as safe-off are a convenience, never the only
-  interlock.
+• tankside never switches the generator output on by itself: press d
+  (and confirm with y) when you are ready; it is switched off when the
+  session ends. Alert actions such as safe-off are a convenience, never
+  the only interlock.
 • tankside does not replace calibrated compliance measurements, your local
   rules or licensed practice; follow them first.
 """
