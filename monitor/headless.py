@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 import sys
 import time
+from datetime import datetime
 from typing import TextIO
 
 from .live.snapshot import AlertView, Snapshot
@@ -65,9 +66,16 @@ def source_text(snap: Snapshot) -> str:
     return f"{words}{why} | "
 
 
+def iso_time(time_s: float) -> str:
+    """ISO 8601 local time with its UTC offset, to the second (``2026-12-02T06:41:09+00:00``).
+    """
+    if not math.isfinite(time_s):
+        return "----------T--:--:--"
+    return datetime.fromtimestamp(time_s).astimezone().isoformat(timespec="seconds")
+
+
 def alert_line(alert: AlertView) -> str:
-    stamp = time.strftime("%H:%M:%S", time.localtime(alert.time_s)) \
-        if math.isfinite(alert.time_s) else "--:--:--"
+    stamp = iso_time(alert.time_s)
     seq = f" seq {alert.seq}" if alert.seq is not None else ""
     return (f"ALERT {stamp} {alert.severity.upper()} {alert.rule}{seq}: {alert.message} "
             f"[{', '.join(alert.actions)}]")
@@ -94,7 +102,8 @@ def run_headless(session, *, out: TextIO | None = None, status_every_s: float = 
                 print(alert_line(alert), file=out, flush=True)
         if final or time.monotonic() >= next_status:
             next_status = time.monotonic() + status_every_s
-            print(status_line(snap, alert_total), file=out, flush=True)
+            print(f"{iso_time(time.time())} {status_line(snap, alert_total)}", file=out,
+                  flush=True)
 
     while True:
         try:
@@ -102,7 +111,7 @@ def run_headless(session, *, out: TextIO | None = None, status_every_s: float = 
                 break
             show()
         except KeyboardInterrupt:
-            print("stopping (Ctrl-C) ...", file=out, flush=True)
+            print(f"{iso_time(time.time())} stopping (Ctrl-C) ...", file=out, flush=True)
             session.stop("interrupted (Ctrl-C)")
     show(final=True)
     snap = session.snapshot()
@@ -110,6 +119,7 @@ def run_headless(session, *, out: TextIO | None = None, status_every_s: float = 
         where = f"traces committed before the error are intact in {snap.session_path}"
     else:
         where = f"{snap.stored} traces in {snap.session_path}"
-    print(f"session stopped: {session.exit_status or ExitStatus.COMPLETED}: "
+    status = session.exit_status or ExitStatus.COMPLETED
+    print(f"{iso_time(time.time())} session stopped: {status}: "
           f"{session.stop_reason or '-'}; {where}", file=out, flush=True)
     return session.exit_code

@@ -198,7 +198,11 @@ class SimulatedBench:
     def write_bench_file(self, path: str | Path, *, session_folder: str = "sessions") -> Path:
         """Write the bench TOML to ``path``; return the path."""
         path = Path(path)
-        path.write_text(self.bench_file_text(session_folder=session_folder), encoding="utf-8")
+        # written beside and renamed: a reader never sees half a bench file
+        partial = path.with_name(f".{path.name}.partial")
+        partial.write_text(self.bench_file_text(session_folder=session_folder),
+                           encoding="utf-8")
+        partial.replace(path)
         return path
 
 

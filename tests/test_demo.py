@@ -29,9 +29,11 @@ def test_headless_demo_records_a_session_with_the_demo_calibration(tmp_path, cap
 
 @pytest.mark.parametrize("duration", ["0", "-2"])
 def test_demo_refuses_a_duration_that_is_not_positive(tmp_path, capsys, duration):
-    assert main(["demo", "--sessions", str(tmp_path), "--headless", "--duration", duration]) \
-        == ExitCode.USAGE
-    assert "--duration" in capsys.readouterr().err
+    with pytest.raises(SystemExit) as info:     # refused by the parser, before anything
+        main(["demo", "--sessions", str(tmp_path), "--headless", "--duration", duration])
+    assert info.value.code == ExitCode.USAGE
+    assert "argument --duration" in capsys.readouterr().err
+    assert not list(tmp_path.iterdir())
 
 
 def test_demo_help_names_every_option(capsys):

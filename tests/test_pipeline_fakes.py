@@ -462,6 +462,7 @@ def test_duration_stop(tmp_path, gate):
 class TestHeadless:
     def test_status_lines_alerts_and_bell(self, tmp_path):
         import io
+        from datetime import datetime
 
         from tankside.monitor.headless import run_headless
 
@@ -482,7 +483,12 @@ class TestHeadless:
         assert len(alert_lines) == 1 and "CRITICAL over_pressure seq 5" in alert_lines[0]
         assert "safe-off" in alert_lines[0]
         assert rings == [1]            # over_pressure rings by default
-        last = [ln for ln in text.splitlines() if ln.startswith("[stopped]")][-1]
+        # status lines begin with an ISO 8601 time (with its UTC offset)
+        status = [ln for ln in text.splitlines() if " [" in ln and not ln.startswith("ALERT")]
+        for ln in status:
+            stamp = datetime.fromisoformat(ln.split(" ", 1)[0])
+            assert stamp.tzinfo is not None and ln.split(" ", 2)[1].startswith("[")
+        last = [ln for ln in status if " [stopped] " in ln][-1]
         assert "acquired 40 converted 40 stored 40" in last and "alerts 1" in last
         assert "session stopped: completed" in text.splitlines()[-1]
 

@@ -375,11 +375,22 @@ class TestSimulateCommand:
         assert "TCPIP0::127.0.0.1::" in out
         assert tomllib.loads(path.read_text())["digitiser"]["resource"] in out
 
+    def test_an_existing_bench_file_is_kept_unless_forced(self, tmp_path, capsys):
+        path = tmp_path / "b.toml"
+        path.write_text("# hand-edited\n")
+        assert cli_main(["simulate", "--duration", "0.2", "--bench-file", str(path)]) == 2
+        assert "--force" in capsys.readouterr().err
+        assert path.read_text() == "# hand-edited\n"
+        assert cli_main(["simulate", "--duration", "0.2", "--bench-file", str(path),
+                         "--force"]) == 0
+        port = tomllib.loads(path.read_text())["digitiser"]["resource"].split("::")[2]
+        assert f"::{port}::" in capsys.readouterr().out      # the ports really served
+        assert not list(tmp_path.glob(".*partial"))
+
     @pytest.mark.parametrize("argv, words", [
         (["--inject", "explode"], "unknown fault"),
         (["--inject", "stall:soon"], "bad value"),
         (["--position-mm", "1,2"], "three numbers"),
-        (["--port", "70000"], "--port"),
     ])
     def test_bad_options_are_one_line_errors(self, capsys, argv, words):
         assert cli_main(["simulate", *argv]) == 2

@@ -15,6 +15,7 @@ from pathlib import Path
 
 from ..errors import ConfigError
 from ..outcome import ExitStatus
+from .options import SECONDS, SEED
 from .running import run_to_end
 
 CAUTION = """\
@@ -47,9 +48,9 @@ def add_parser(subparsers) -> None:
                         "(default: ./sessions)")
     p.add_argument("--headless", action="store_true",
                    help="no dashboard: print a status line every few seconds and every alert")
-    p.add_argument("--duration", type=float, metavar="S",
+    p.add_argument("--duration", type=SECONDS, metavar="S",
                    help="stop after S seconds (default: until q, Ctrl-C or SIGTERM)")
-    p.add_argument("--seed", type=int, default=0, metavar="N",
+    p.add_argument("--seed", type=SEED, default=0, metavar="N",
                    help="seed of the simulated digitiser's noise and jitter (default 0)")
     p.set_defaults(func=run)
 

@@ -7,7 +7,7 @@ import sys
 
 from ..errors import ConfigError
 from ..progress import bar_factory
-from .options import add_progress_options
+from .options import add_progress_options, number
 
 
 def add_parser(subparsers) -> argparse.ArgumentParser:
@@ -22,7 +22,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--results", metavar="OUT.csv",
                    help="one row per trace: seq, time_s and the parameters under the names "
                         "of `convert --json`, then converted, clipped, range_changed, error")
-    p.add_argument("--trace", type=int, metavar="SEQ",
+    p.add_argument("--trace", type=number(low=0, high=2**62, whole=True), metavar="SEQ",
                    help="sequence number of one trace to write with --out")
     p.add_argument("--out", metavar="TRACE.csv",
                    help="where --trace goes: time_s,voltage_v in volts, the form `convert` reads")

@@ -3,10 +3,44 @@
 from __future__ import annotations
 
 import argparse
+import math
+from collections.abc import Callable
 
 from ..errors import ConfigError
 
 PF = 1e-12
+
+
+def number(*, low: float | None = None, high: float | None = None, low_open: bool = False,
+           whole: bool = False, allow_inf: bool = False) -> Callable[[str], float]:
+    """An argparse ``type`` for a number checked where it enters.
+
+    The value must be finite (``allow_inf`` admits +inf, meaning "no limit"), at least
+    ``low`` (above it with ``low_open``) and at most ``high``; ``whole`` asks for an
+    integer. argparse names the option in its message and exits with the usage code.
+    """
+    def parse(text: str) -> float:
+        try:
+            value = float(text) if not whole else int(text, 10)
+        except ValueError:
+            kind = "a whole number" if whole else "a number"
+            raise argparse.ArgumentTypeError(f"expected {kind}, got {text!r}") from None
+        if math.isnan(value) or (math.isinf(value) and not (allow_inf and value > 0)):
+            raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
+        if low is not None and (value <= low if low_open else value < low):
+            raise argparse.ArgumentTypeError(
+                f"must be {'above' if low_open else 'at least'} {low:g}, got {text}")
+        if high is not None and value > high:
+            raise argparse.ArgumentTypeError(f"must be at most {high:g}, got {text}")
+        return value
+    parse.__name__ = "whole number" if whole else "number"
+    return parse
+
+
+# Common ranges: wide enough for any bench, narrow enough that arithmetic stays finite.
+SECONDS = number(low=0.0, low_open=True, high=1e7)            # up to about 4 months
+COUNT = number(low=1, high=10**12, whole=True)
+SEED = number(low=0, high=2**32 - 1, whole=True)
 
 
 def add_loading_options(parser: argparse.ArgumentParser, *, title: str) -> None:
@@ -15,18 +49,21 @@ def add_loading_options(parser: argparse.ArgumentParser, *, title: str) -> None:
     Capacitances are given in pF on the command line and carried in F everywhere else.
     """
     g = parser.add_argument_group(title)
-    g.add_argument("--hydrophone-capacitance", metavar="PF", type=float,
+    g.add_argument("--hydrophone-capacitance", metavar="PF",
+                   type=number(low=0.0, low_open=True, high=1e6),
                    help="hydrophone capacitance, pF (e.g. 100); it switches on the loading "
                         "correction of an open-circuit calibration")
-    g.add_argument("--cable-capacitance", metavar="PF", type=float,
+    g.add_argument("--cable-capacitance", metavar="PF", type=number(low=0.0, high=1e6),
                    help="cable capacitance across the hydrophone, pF (default 0)")
-    g.add_argument("--input-resistance", metavar="OHM", type=float,
+    g.add_argument("--input-resistance", metavar="OHM",
+                   type=number(low=0.0, low_open=True, high=1e15),
                    help="digitiser (or preamplifier) input resistance, ohm (default: infinite)")
-    g.add_argument("--input-capacitance", metavar="PF", type=float,
+    g.add_argument("--input-capacitance", metavar="PF", type=number(low=0.0, high=1e6),
                    help="digitiser (or preamplifier) input capacitance, pF (default 0)")
-    g.add_argument("--preamp-gain", metavar="DB", type=float,
+    g.add_argument("--preamp-gain", metavar="DB", type=number(low=-100.0, high=100.0),
                    help="preamplifier voltage gain, dB (default 0)")
-    g.add_argument("--temperature", metavar="DEGC", dest="water_temperature", type=float,
+    g.add_argument("--temperature", metavar="DEGC", dest="water_temperature",
+                   type=number(low=0.0, high=60.0),
                    help="water temperature, degC, for density and sound speed (default 20)")
 
 
@@ -36,7 +73,8 @@ def add_calibration_check_options(parser: argparse.ArgumentParser) -> None:
     ``args.calibration_max_step_db`` is None when not given; ``args.calibration_phase_check``
     is False with ``--no-calibration-phase-check``.
     """
-    parser.add_argument("--calibration-max-step", metavar="DB", type=float,
+    parser.add_argument("--calibration-max-step", metavar="DB",
+                        type=number(low=0.0, low_open=True, allow_inf=True),
                         dest="calibration_max_step_db",
                         help="largest sensitivity step between neighbouring calibration "
                              "rows, dB (default 20; inf: no check); a larger step is refused "

@@ -13,6 +13,7 @@ from ...drivers.probe import Outcome, Prober, Row
 from ...drivers.profile import load_profile
 from ...drivers.scpi import ScpiLink
 from ..outcome import ExitCode
+from .options import number
 
 EPILOG = """\
 results:
@@ -43,12 +44,14 @@ def add_parser(subparsers) -> None:
                         "without it only *IDN?, *OPC? and the error queue are tried")
     p.add_argument("--visa-library", default="@py", metavar="L",
                    help='VISA library for pyvisa (default "@py", the pure-Python backend)')
-    p.add_argument("--timeout", type=float, default=None, metavar="S",
+    p.add_argument("--timeout", type=number(low=0.001, high=3600.0), default=None,
+                   metavar="S",
                    help="I/O timeout in seconds (default: the profile's, else 5)")
     p.add_argument("--acquire", action="store_true",
                    help="also arm one acquisition and fetch it (a digitiser that was "
                         "free-running is left stopped after a single acquisition)")
-    p.add_argument("--trigger-timeout", type=float, default=5.0, metavar="S",
+    p.add_argument("--trigger-timeout", type=number(low=0.001, high=3600.0), default=5.0,
+                   metavar="S",
                    help="with --acquire: how long to wait for the trigger, s (default 5)")
     p.set_defaults(func=run)
 

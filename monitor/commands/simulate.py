@@ -8,8 +8,10 @@ import signal
 import sys
 import threading
 import time
+from pathlib import Path
 
 from ..errors import ConfigError
+from .options import SECONDS, SEED, number
 
 FAULT_KINDS = ("drop", "stall", "bad-block", "short-block", "miss", "error")
 
@@ -37,13 +39,19 @@ def add_parser(subparsers) -> None:
     p = subparsers.add_parser(
         "simulate", help="run the simulated digitiser and generator on 127.0.0.1",
         description=HELP, formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("--port", type=int, default=0, metavar="N",
+    p.add_argument("--port", type=number(low=0, high=65534, whole=True), default=0,
+                   metavar="N",
                    help="digitiser TCP port (generator on N+1); default 0 picks free ports")
     p.add_argument("--bench-file", metavar="PATH",
-                   help="write the bench TOML for these instruments to PATH")
-    p.add_argument("--seed", type=int, default=0, metavar="N",
+                   help="write the bench TOML for these instruments to PATH (a new file; "
+                        "see --force)")
+    p.add_argument("--force", action="store_true",
+                   help="with --bench-file: overwrite an existing file (it may be a "
+                        "hand-edited bench, or one another simulate is serving)")
+    p.add_argument("--seed", type=SEED, default=0, metavar="N",
                    help="seed of the simulated noise and trigger jitter (default 0)")
-    p.add_argument("--trigger-period", type=float, default=None, metavar="SECONDS",
+    p.add_argument("--trigger-period", type=number(low=1e-5, high=60.0), default=None,
+                   metavar="SECONDS",
                    help="burst (trigger) period at start, s (default 0.05, 20 traces/s)")
     p.add_argument("--position-mm", default=None, metavar="X,Y,Z",
                    help="hydrophone position relative to the focus, mm (default 0,0,0; "
@@ -52,9 +60,10 @@ def add_parser(subparsers) -> None:
                    help="arm a fault (see the list above); repeatable")
     p.add_argument("--inject-device", choices=("digitiser", "generator"), default="digitiser",
                    help="instrument the --inject faults apply to (default digitiser)")
-    p.add_argument("--inject-every", type=float, default=None, metavar="SECONDS",
+    p.add_argument("--inject-every", type=number(low=0.01, high=1e6), default=None,
+                   metavar="SECONDS",
                    help="re-arm the --inject faults every SECONDS (default: once, at start)")
-    p.add_argument("--duration", type=float, default=None, metavar="SECONDS",
+    p.add_argument("--duration", type=SECONDS, default=None, metavar="SECONDS",
                    help="stop by itself after SECONDS (default: run until Ctrl-C)")
     p.set_defaults(func=run)
 
@@ -129,6 +138,9 @@ def run(args) -> int:
         raise ConfigError(f"--inject-every {args.inject_every}: expected a time above 0 s")
     if args.trigger_period is not None and not 1e-4 <= args.trigger_period <= 100:
         raise ConfigError(f"--trigger-period {args.trigger_period}: expected 1e-4..100 s")
+    if args.bench_file and not args.force and Path(args.bench_file).exists():
+        raise ConfigError(f"--bench-file {args.bench_file}: the file exists (a hand-edited "
+                          "bench, or another simulate's); choose a new name or add --force")
     try:
         bench = SimulatedBench(seed=args.seed, port=args.port,
                                trigger_period_s=args.trigger_period)

@@ -11,10 +11,13 @@ from pathlib import Path
 from ..acoustics.settings import Method
 from ..errors import ConfigError
 from .options import (
+    COUNT,
+    SECONDS,
     add_calibration_check_options,
     add_loading_options,
     calibration_checks,
     loading_overrides,
+    number,
 )
 from .running import run_to_end
 
@@ -47,12 +50,13 @@ def add_parser(subparsers) -> None:
                    help="new session file (default: session-DATE-TIME.db in the bench "
                         "file's session folder); must not exist")
     stop = p.add_mutually_exclusive_group()
-    stop.add_argument("--duration", type=float, metavar="S",
+    stop.add_argument("--duration", type=SECONDS, metavar="S",
                       help="stop after S seconds (default: run until stopped)")
-    stop.add_argument("--traces", type=int, metavar="N", help="stop after N traces")
+    stop.add_argument("--traces", type=COUNT, metavar="N", help="stop after N traces")
     p.add_argument("--headless", action="store_true",
                    help="no dashboard: print a status line every few seconds and every alert")
-    p.add_argument("--status-every", type=float, default=2.0, metavar="S",
+    p.add_argument("--status-every", type=number(low=0.05, high=3600.0), default=2.0,
+                   metavar="S",
                    help="headless status line interval, s (default 2)")
     p.add_argument("--drive-on", action="store_true",
                    help="switch the generator output on once the session runs (recorded "
@@ -67,7 +71,8 @@ def add_parser(subparsers) -> None:
                    help="digitiser VISA resource, e.g. TCPIP0::192.168.1.20::5025::SOCKET")
     o.add_argument("--digitiser-profile", metavar="NAME|FILE",
                    help="digitiser profile: built-in name or TOML file")
-    o.add_argument("--range", type=float, metavar="V", dest="range_v",
+    o.add_argument("--range", type=number(low=0.0, low_open=True, high=1e4), metavar="V",
+                   dest="range_v",
                    help="starting vertical range, full-scale span peak to peak, V")
     o.add_argument("--generator", metavar="RESOURCE", help="generator VISA resource")
     o.add_argument("--generator-profile", metavar="NAME|FILE",
@@ -78,10 +83,12 @@ def add_parser(subparsers) -> None:
     add_calibration_check_options(o)
     o.add_argument("--method", choices=[m.value for m in Method],
                    help="conversion method at the start (can be switched live)")
-    o.add_argument("--pressure-limit", type=float, metavar="PA",
+    o.add_argument("--pressure-limit", type=number(low=0.0, low_open=True, high=1e10),
+                   metavar="PA",
                    help="over-pressure alert limit, Pa (the lower of this and the rated "
                         "maximum applies)")
-    o.add_argument("--rated-max", type=float, metavar="PA",
+    o.add_argument("--rated-max", type=number(low=0.0, low_open=True, high=1e10),
+                   metavar="PA",
                    help="hydrophone's rated maximum pressure, Pa")
     o.add_argument("--alert", action="append", default=[], metavar="RULE.KEY=VALUE",
                    help="set any alert setting, e.g. no_trigger.after_s=10 or "

@@ -233,11 +233,12 @@ class LiveSession:
         self._acquisition_thread = at
         self._proc.publish(state="running")
         pt.start()
-        at.start()
         if self._gen is not None:
-            self._gen.start()
+            # asked before the first acquisition, which then waits for it (hold)
             if self._drive_on_at_start:
                 self._gen.request(DriveOn(self._drive_on_at_start))
+            self._gen.start()
+        at.start()
 
     def prepare(self) -> None:
         """Nothing to prepare in this process (see ``SessionProcess.prepare``)."""
