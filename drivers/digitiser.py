@@ -130,6 +130,28 @@ _STEPS = (
 )
 
 
+# What a digitiser's scaling replies may hold. Wider than any instrument (10 THz to 1 Hz
+# sampling, 1 kV per code) but narrow enough that the arithmetic on a trace stays finite.
+SCALING_LIMITS = {
+    "dt_s": (1e-13, 1.0),
+    "t0_s": (-1e3, 1e3),
+    "volts_per_code": (-1e3, 1e3),
+    "offset_v": (-1e4, 1e4),
+}
+
+
+def scaling_problems(scaling: dict) -> list[tuple[str, str]]:
+    """``(field, problem)`` for each scaling value that cannot be a real instrument's."""
+    problems = []
+    for key, (low, high) in SCALING_LIMITS.items():
+        value = scaling[key]
+        if not math.isfinite(value) or not low <= value <= high:
+            problems.append((key, f"{value!r} is outside {low:g} to {high:g}"))
+    if scaling["dt_s"] > 0 and scaling["volts_per_code"] == 0:
+        problems.append(("volts_per_code", "0 V per code"))
+    return problems
+
+
 class Digitiser:
     """A digitiser driven by its profile.
 
@@ -245,9 +267,8 @@ class Digitiser:
             scaling = {"dt_s": number("get_time_step"), "t0_s": number("get_time_origin", 0.0),
                        "volts_per_code": number("get_volts_per_code"),
                        "offset_v": number("get_offset", 0.0)}
-            if not scaling["dt_s"] > 0:
-                raise ProtocolError(f"time step must be positive, got {scaling['dt_s']!r}",
-                                    resource=self.link.name)
+            for key, problem in scaling_problems(scaling):
+                raise ProtocolError(f"{key}: {problem}", resource=self.link.name)
             self._scaling = scaling
         return self._scaling
 

@@ -170,3 +170,20 @@ def test_a_chained_command_never_reaches_the_wire():
         with pytest.raises(SettingError, match="coupling = 'DC;:CHAN1:RANG 5' contains ';'"):
             dig.configure(bad)
     assert dig.settings is None
+
+
+@pytest.mark.parametrize("query, reply, field", [
+    (b"WAV:XINC?\n", b"1E-320\n", "dt_s"),            # once made the session die at once
+    (b"WAV:XINC?\n", b"0\n", "dt_s"),
+    (b"WAV:XINC?\n", b"9.9E37\n", "dt_s"),            # SCPI's "not a number" value
+    (b"WAV:YINC?\n", b"0\n", "volts_per_code"),
+    (b"WAV:YOFF?\n", b"1E308\n", "offset_v"),
+])
+def test_scaling_replies_no_instrument_could_give_are_protocol_errors(query, reply, field):
+    scaling = [(q, reply if q == query else r) for q, r in SCALING]
+    steps = configure_steps(SETTINGS) + acquire_steps(scaling=False)[:-1] + scaling
+    with FakeResource(steps) as fake:
+        dig = Digitiser(ScpiLink(fake), PROFILE, poll_interval_s=0)
+        dig.configure(SETTINGS)
+        with pytest.raises(ProtocolError, match=field):
+            dig.acquire(0, trigger_timeout_s=1.0)

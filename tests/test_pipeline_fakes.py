@@ -408,6 +408,33 @@ class TestFaults:
             assert r.trace(5).result is not None
             assert [a["rule"] for a in r.alerts()] == ["conversion_failed"]
 
+    @pytest.mark.parametrize("error", [OverflowError("(34, 'Numerical result out of range')"),
+                                       ValueError("array must not contain infs or NaNs")])
+    def test_a_numeric_error_is_one_bad_trace_not_the_end(self, tmp_path, error, capsys):
+        # an overflowing calibration value once ended the session at once: 0 traces stored
+        class Overflowing(FakeConverter):
+            def process(self, voltage_v, dt_s):
+                if np.max(np.abs(voltage_v)) > 0.07:
+                    raise error
+                return super().process(voltage_v, dt_s)
+
+            def with_method(self, method):
+                return Overflowing(method)
+
+        scene = Scene(amplitude=lambda seq: 0.08 if seq in (2, 6) else 0.05)
+        s = run(make_session(tmp_path, scene, max_traces=10, converter=Overflowing()))
+        assert s.exit_code == ExitCode.OK
+        with SessionReader(tmp_path / "s.db") as r:
+            assert r.seqs() == list(range(10))
+            for seq in (2, 6):
+                assert r.trace(seq).result is None
+                assert type(error).__name__ in r.trace(seq).error
+                assert len(r.trace(seq).raw.codes) == N       # the raw trace is kept
+            assert r.trace(3).result is not None
+            assert "conversion_failed" in [a["rule"] for a in r.alerts()]
+        # the first one's traceback is shown once, for the bug report
+        assert capsys.readouterr().err.count("Traceback") == 1
+
     def test_empty_trace_is_no_pulse_not_a_conversion_failure(self, tmp_path):
         scene = Scene(amplitude=lambda seq: 0.0 if seq == 4 else 0.05)
         s = run(make_session(tmp_path, scene, max_traces=10))

@@ -18,8 +18,10 @@ use on it (see :mod:`tankside.monitor.live.rules`).
 from __future__ import annotations
 
 import dataclasses
+import sys
 import threading
 import time
+import traceback
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -101,6 +103,7 @@ class TraceProcessor:
         self._drive_on: bool | None = None
         self._drive_cause = ""
         self._pulse_present: bool | None = None
+        self._numeric_error_shown = False   # the first one's traceback goes to stderr
         self.snap = Snapshot(session_path=str(session_path), state="starting")
 
     # -- what the session reads and asks --------------------------------------------
@@ -153,10 +156,11 @@ class TraceProcessor:
         self._rate.add(time.monotonic())
         if self.pending_method is not None:
             self._switch_method(self.pending_method, raw.seq)
-        volts = raw.volts()
         result = None
         flat = None
         error = None
+        with np.errstate(all="ignore"):
+            volts = np.asarray(raw.volts(), dtype=float)
         try:
             result = self._converter.process(volts, raw.dt_s)
             flat = result.flat()
@@ -164,6 +168,14 @@ class TraceProcessor:
         except TanksideError as err:
             error = f"{type(err).__name__}: {err}"
             self.failed += 1
+        except (ArithmeticError, ValueError, IndexError) as err:
+            # numerics meeting data they were not written for (an overflowing value, an
+            # odd length): this trace is stored raw with the error, the session goes on
+            error = f"{type(err).__name__}: {err}"
+            self.failed += 1
+            if not self._numeric_error_shown:
+                self._numeric_error_shown = True
+                traceback.print_exc(file=sys.stderr)
         obs = observation_from_trace(raw, flat, error, method_in_use=self.method,
                                      volts_v=volts, drive_on=self._drive_on,
                                      **self._rules.presence_options())
