@@ -65,3 +65,7 @@ class SessionFileError(TanksideError):
     """A session file that cannot be read as asked: missing, not a tankside session,
     newer than this tankside, or without the trace asked for (an input problem, not a
     failure to write)."""
+
+
+class InstrumentBusy(TanksideError):
+    """Another tankside session holds the instrument; its holder is in the message."""

@@ -39,6 +39,7 @@ from ..outcome import ExitStatus
 from ..record.schema import EventKind
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop, OpenInstrument
 from .generator import DEFAULT_SAFE_OFF_GIVE_UP_S, DriveOff, DriveOn, GeneratorWorker
+from .locks import InstrumentLock
 from .processing import TraceProcessor
 from .recorder import END, AckItem, CloseItem, EventItem, Writer
 from .rules import TickObservation
@@ -130,6 +131,7 @@ class LiveSession:
                 safe_off_give_up_s=safe_off_give_up_s)
             self._acq.hold = self._gen.hold
         self._drive_on_at_start = drive_on_at_start
+        self._locks: list[InstrumentLock] = []
         self._leave_drive_on = bool(leave_drive_on_at_end)
         self._writer = Writer(lambda: self._open_store(self.session_path, self._meta),
                               self._items_q, self._counts)
@@ -185,6 +187,7 @@ class LiveSession:
             raise RuntimeError("session already started")
         self._started = True
         try:
+            self._lock_instruments()
             self._acq.connect()
             if self._gen is not None:
                 self._gen.connect()
@@ -353,10 +356,21 @@ class LiveSession:
     def _drive_unsafe(self, message: str) -> None:
         self._request_stop(ExitStatus.DRIVE_MAY_BE_ON, "output not confirmed off", message)
 
+    def _lock_instruments(self) -> None:
+        for name in ("digitiser", "generator"):
+            resource = self._resources.get(name, "")
+            if resource and (name == "digitiser" or self._gen is not None):
+                lock = InstrumentLock(resource, session_path=str(self.session_path))
+                lock.acquire()
+                self._locks.append(lock)
+
     def _close_instruments(self) -> None:
         self._acq.close_links()
         if self._gen is not None:
             self._gen.close()
+        for lock in self._locks:
+            lock.release()
+        self._locks = []
 
     def _put(self, item: Any) -> None:
         """Hand an item to the writer; blocks while its queue is full, unless it died."""
@@ -456,6 +470,9 @@ class LiveSession:
                                f"before it is intact in {self.session_path}")
         self._proc.flush_latest()
         self._proc.publish(state="stopped", stop_reason=self._reason)
+        for lock in self._locks:      # the instruments were closed by their threads
+            lock.release()
+        self._locks = []
         self._done.set()
 
     def _tick(self) -> None:
