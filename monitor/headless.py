@@ -114,12 +114,17 @@ def run_headless(session, *, out: TextIO | None = None, status_every_s: float = 
             print(f"{iso_time(time.time())} stopping (Ctrl-C) ...", file=out, flush=True)
             session.stop("interrupted (Ctrl-C)")
     show(final=True)
+    print(end_summary(session), file=out, flush=True)
+    return session.exit_code
+
+
+def end_summary(session) -> str:
+    """The one line every end of a session prints: time, status, reason, where the data are."""
     snap = session.snapshot()
     if session.exit_status == ExitStatus.STORE_ERROR:
         where = f"traces committed before the error are intact in {snap.session_path}"
     else:
         where = f"{snap.stored} traces in {snap.session_path}"
     status = session.exit_status or ExitStatus.COMPLETED
-    print(f"{iso_time(time.time())} session stopped: {status}: "
-          f"{session.stop_reason or '-'}; {where}", file=out, flush=True)
-    return session.exit_code
+    return (f"{iso_time(time.time())} session stopped: {status}: "
+            f"{session.stop_reason or '-'}; {where}")

@@ -200,9 +200,13 @@ async def test_method_key_cycles_through_the_three_methods(size):
     fake = started_fake()
     app = DashboardApp(fake, first_run_notice=False)
     async with app.run_test(size=size) as pilot:
-        await pilot.press("c", "c", "c")
-        assert fake.methods == ["deconvolve", "narrowband", "auto"]
+        # each switch takes a second press (one stray key never changes the method)
         await pilot.press("c")
+        await pilot.pause(0.1)
+        assert fake.methods == []
+        await pilot.press("c", "c", "c", "c", "c")
+        assert fake.methods == ["deconvolve", "narrowband", "auto"]
+        await pilot.press("c", "c")
         await pilot.pause(0.1)
         assert "method deconvolve" in screen_text(app)
 
@@ -217,7 +221,7 @@ async def test_rejected_method_shows_as_notice_not_traceback(monkeypatch):
     monkeypatch.setattr(fake, "set_method", refuse)
     app = DashboardApp(fake, first_run_notice=False)
     async with app.run_test(size=(80, 24)) as pilot:
-        await pilot.press("c")
+        await pilot.press("c", "c")
         await pilot.pause()
         assert app.method_requested == "auto"
         assert app.is_running
@@ -285,6 +289,9 @@ async def test_q_stops_the_session_and_leaves(size):
     async with app.run_test(size=size) as pilot:
         await pilot.pause(0.1)
         assert sys.getswitchinterval() <= 0.001      # the display yields the GIL sooner
+        await pilot.press("q")                       # one press only asks
+        await pilot.pause(0.1)
+        assert app.is_running and fake.stops == []
         await pilot.press("q")
         await pilot.pause()
         assert not app.is_running
@@ -408,7 +415,7 @@ async def test_live_bench_keys_reach_the_session_and_its_file(live, tmp_path):
         await pilot.press("space")
         await _until(pilot, lambda: app.trace.seq > held_seq)
         await pilot.press("m", *"at focus", "enter")
-        await pilot.press("c")                  # auto -> deconvolve
+        await pilot.press("c", "c")             # auto -> deconvolve, confirmed
         await _until(pilot, lambda: app.latest.method == "deconvolve")
         await pilot.press("l", "s")
         await pilot.pause(0.1)
@@ -421,7 +428,7 @@ async def test_live_bench_keys_reach_the_session_and_its_file(live, tmp_path):
         await pilot.press("A")
         await _until(pilot, lambda: all(a.acknowledged for a in app.latest.alerts
                                         if a.alert_id in pending))
-        await pilot.press("q")
+        await pilot.press("q", "q")
         await pilot.pause()
         assert not app.is_running
     assert session.wait(20) and session.exit_code == 0
@@ -450,5 +457,5 @@ async def test_live_bench_layout_at_160x48(live):
         assert "narrowband PASS" in text or "narrowband FAIL" in text
         assert "TANKSIDE,SIMDIG" in text          # full identity when wide
         assert "session-" in text and ".db" in text
-        await pilot.press("q")
+        await pilot.press("q", "q")
     assert session.wait(20)

@@ -101,8 +101,11 @@ def test_demo_in_a_terminal_caution_keys_and_clean_quit(tmp_path):
         term.wait_for(lambda: "note" in term.text.lower(), 10, "the mark dialog")
         term.type("from the terminal\r")
         time.sleep(0.5)           # keys typed before the dialog has closed would go into it
-        term.type("c")
+        term.type("cc")           # the method key asks, the second press confirms
         time.sleep(1.5)           # a second of traces converted with the new method
+        term.type("q")
+        time.sleep(0.3)
+        assert term.proc.poll() is None      # one q only asks while recording
         term.type("q")
         code = term.proc.wait(60)
         term.wait_for(lambda: "session stopped" in term.text, 10, "the closing line")
@@ -111,7 +114,7 @@ def test_demo_in_a_terminal_caution_keys_and_clean_quit(tmp_path):
     text = term.text
     assert code == 0, text[-3000:]
     assert "Traceback" not in text
-    assert "session stopped (operator)" in text
+    assert "session stopped: operator" in text
     (db,) = folder.glob("session-*.db")
     with SessionReader(db) as reader:
         assert reader.integrity_check() == "ok" and reader.stopped_cleanly

@@ -14,7 +14,6 @@ from collections.abc import Callable
 from pathlib import Path
 
 from ..errors import ConfigError
-from ..outcome import ExitStatus
 from .options import SECONDS, SEED
 from .running import run_to_end
 
@@ -115,12 +114,9 @@ def _watch(session, bench_path: Path, *, headless: bool, first_run: bool, run_he
             return run_headless(session)
         code = dashboard(session, first_run_notice=first_run, start_session=True,
                          started_note=DEMO_DRIVE_NOTE)
-        snap = session.snapshot()
-        status = session.exit_status or ExitStatus.COMPLETED
-        why = status if session.stop_reason in ("", status) else \
-            f"{status}: {session.stop_reason}"
-        print(f"tankside demo: session stopped ({why}); {snap.stored} traces in "
-              f"{session.session_path}", file=sys.stderr)
+        from ..headless import end_summary
+
+        print(end_summary(session), file=sys.stderr)
         return code
 
     return run_to_end(session, show, leftover_reason="demo ended")

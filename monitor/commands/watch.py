@@ -195,7 +195,7 @@ def acknowledge_caution_headless(*, accepted: bool) -> None:
 
 
 def run(args) -> int:
-    from ..headless import run_headless
+    from ..headless import end_summary, run_headless
     from ..live.benchfile import load_bench
     from ..live.child import session_for_display
 
@@ -241,6 +241,7 @@ def run(args) -> int:
         code = dashboard(session, first_run_notice=first_run, start_session=True,
                          started_note=("generator output switched on (--drive-on)"
                                        if args.drive_on else ""))
+        print(end_summary(session), file=sys.stderr)
         return session.exit_code if session.exit_code else code
 
     return run_to_end(session, show, leftover_reason="dashboard closed")

@@ -37,6 +37,8 @@ STATE_STYLE = {
     "stopping": "#ffb35c", "stopped": "#ff6b6b",
 }
 STOP_WAIT_S = 30.0
+# q and c act on a second press within this time: one stray key never ends a long run
+CONFIRM_WITHIN_S = 3.0
 # `watch` and `demo` run the session in a process of its own
 # (tankside.monitor.live.child). Where threads that answer instruments share
 # this process with the display (a LiveSession given directly, the demo's simulated
@@ -74,6 +76,7 @@ class DashboardApp(App[None]):
         self.start_session = start_session
         self.started_note = started_note
         self.start_error: BaseException | None = None
+        self._first_press: dict[str, float] = {}
         self.capture_dir = Path(capture_dir) if capture_dir is not None else None
         self.refresh_hz = refresh_hz
         self.held = False
@@ -224,6 +227,9 @@ class DashboardApp(App[None]):
 
     def action_ack_all(self) -> None:
         pending = open_alerts(self.latest.alerts) if self.latest else []
+        if not pending:
+            self.notify("no open alerts", timeout=2)
+            return
         for alert in pending:
             if not self._call_session(self.session.acknowledge, alert.alert_id):
                 break
@@ -233,6 +239,8 @@ class DashboardApp(App[None]):
         methods = list(Method)
         nxt = methods[(methods.index(self.method_requested) + 1) % len(methods)] \
             if self.method_requested in methods else methods[0]
+        if not self._confirmed("c", f"press c again to switch the conversion method to {nxt}"):
+            return
         if self._call_session(self.session.set_method, nxt):
             self.method_requested = nxt
             self.notify(f"conversion method: {nxt}", timeout=2)
@@ -294,9 +302,23 @@ class DashboardApp(App[None]):
         self.push_screen(DriveConfirmScreen(), callback=confirmed)
 
     def action_quit_session(self) -> None:
-        """Stop the session cleanly, then leave."""
+        """Stop the session cleanly, then leave (a second press confirms while recording)."""
+        if self.session.running and not self._confirmed(
+                "q", "press q again to stop the recording and quit"):
+            return
         self._call_session(self.session.stop, "operator")
         self.exit()
+
+    def _confirmed(self, key: str, question: str) -> bool:
+        """True on the second press of ``key`` within CONFIRM_WITHIN_S; else ask."""
+        now = time.monotonic()
+        last = self._first_press.get(key)
+        if last is not None and now - last <= CONFIRM_WITHIN_S:
+            self._first_press.pop(key)
+            return True
+        self._first_press[key] = now
+        self.notify(question, timeout=CONFIRM_WITHIN_S)
+        return False
 
     def _call_session(self, method, *args) -> bool:
         # expected failures (a rejected method name, a closed store) go on screen, not a traceback
