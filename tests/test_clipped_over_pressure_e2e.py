@@ -12,10 +12,9 @@ way.
 
 from __future__ import annotations
 
-import socket
-
 import pytest
 from polling import wait_for
+from scpi_client import scpi
 
 from tankside.monitor.live.benchfile import load_bench
 from tankside.monitor.live.session import LiveSession
@@ -37,19 +36,6 @@ def sim():
     with SimulatedBench(seed=11, drive=drive) as bench:
         yield bench
 
-
-def scpi(port: int, *lines: str) -> str:
-    """Send lines to a simulated instrument on its own connection; the last one's reply."""
-    with socket.create_connection(("127.0.0.1", port), timeout=2.0) as conn:
-        for line in lines:
-            conn.sendall(line.encode("ascii") + b"\n")
-        reply = b""
-        while not reply.endswith(b"\n"):
-            chunk = conn.recv(256)
-            if not chunk:
-                break
-            reply += chunk
-    return reply.decode("ascii").strip()
 
 
 def bench_without_drive_on(sim, tmp_path):

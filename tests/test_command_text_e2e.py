@@ -9,10 +9,10 @@ range the digitiser reports is the one every stored trace records.
 
 from __future__ import annotations
 
-import socket
 from pathlib import Path
 
 import pytest
+from scpi_client import scpi
 
 from tankside.monitor.cli import main
 from tankside.monitor.errors import ConfigError
@@ -32,19 +32,6 @@ def sim():
     with SimulatedBench(seed=7, trigger_period_s=TRIGGER_PERIOD_S) as bench:
         yield bench
 
-
-def scpi(port: int, *lines: str) -> str:
-    """Send lines to a simulated instrument on its own connection; the last one's reply."""
-    with socket.create_connection(("127.0.0.1", port), timeout=2.0) as conn:
-        for line in lines:
-            conn.sendall(line.encode("ascii") + b"\n")
-        reply = b""
-        while not reply.endswith(b"\n"):
-            chunk = conn.recv(256)
-            if not chunk:
-                break
-            reply += chunk
-    return reply.decode("ascii").strip()
 
 
 def bench_with(sim, tmp_path: Path, line: str) -> Path:

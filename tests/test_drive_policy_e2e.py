@@ -8,13 +8,13 @@ its output off, like most real ones.
 from __future__ import annotations
 
 import resource
-import socket
 import subprocess
 import sys
 import time
 
 import pytest
 from polling import wait_for
+from scpi_client import scpi
 
 from tankside.monitor.cli import main
 from tankside.monitor.live.benchfile import load_bench
@@ -27,19 +27,6 @@ FAST = {"digitiser.record_length": 2000, "digitiser.trigger_timeout_s": 0.5,
         "digitiser.timeout_s": 1.0, "generator.timeout_s": 1.0}
 TRIGGER_PERIOD_S = 0.002
 
-
-def scpi(port: int, *lines: str) -> str:
-    """Send lines to a simulated instrument on its own connection; the last one's reply."""
-    with socket.create_connection(("127.0.0.1", port), timeout=2.0) as conn:
-        for line in lines:
-            conn.sendall(line.encode("ascii") + b"\n")
-        reply = b""
-        while not reply.endswith(b"\n"):
-            chunk = conn.recv(256)
-            if not chunk:
-                break
-            reply += chunk
-    return reply.decode("ascii").strip()
 
 
 def output_on(sim) -> bool:

@@ -9,12 +9,12 @@ the session notices within about two seconds and judges the pulse again.
 
 from __future__ import annotations
 
-import socket
 import time
 
 import numpy as np
 import pytest
 from polling import wait_for
+from scpi_client import scpi
 
 from tankside.monitor.headless import status_line
 from tankside.monitor.live.benchfile import load_bench
@@ -34,19 +34,6 @@ def sim():
     with SimulatedBench(seed=5, trigger_period_s=TRIGGER_PERIOD_S) as bench:
         yield bench
 
-
-def scpi(port: int, *lines: str) -> str:
-    """Send lines to a simulated instrument on its own connection; the last one's reply."""
-    with socket.create_connection(("127.0.0.1", port), timeout=2.0) as conn:
-        for line in lines:
-            conn.sendall(line.encode("ascii") + b"\n")
-        reply = b""
-        while not reply.endswith(b"\n"):
-            chunk = conn.recv(256)
-            if not chunk:
-                break
-            reply += chunk
-    return reply.decode("ascii").strip()
 
 
 def test_noise_after_safe_off_then_drive_back_on(sim, tmp_path):
