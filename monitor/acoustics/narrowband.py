@@ -38,7 +38,7 @@ class SensitivityCurve:
     def build(cls, calibration: Calibration, loading: Loading) -> SensitivityCurve:
         lo, hi = calibration.band_hz
         grid = np.union1d(np.linspace(lo, hi, _PROFILE_POINTS), calibration.frequency_hz)
-        mag = np.abs(calibration.interpolate(grid) * loading.factor(grid))
+        mag = np.abs(calibration.interpolate(grid) * loading.factor(grid, calibration.load))
         with np.errstate(divide="ignore"):
             level = 20.0 * np.log10(mag)
         grid.setflags(write=False)
