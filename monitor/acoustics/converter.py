@@ -559,7 +559,7 @@ def _noise_power(noise: NoiseEstimate, freqs_hz: np.ndarray, h_abs: np.ndarray, 
 #: Samples per cycle of the highest passed frequency (at least) at which the
 #: low-frequency alternatives are evaluated (p_r then refined by a parabola through three
 #: samples).
-_SPREAD_SAMPLES_PER_CYCLE = 6
+_SPREAD_SAMPLES_PER_CYCLE = 4
 
 
 def _p_r_spread(pressure_spectrum: np.ndarray, alternatives: tuple[np.ndarray, ...], n: int,
