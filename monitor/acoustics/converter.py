@@ -131,7 +131,8 @@ class TraceResult:
         fixed band window with ``weighting="none"``); for the narrowband method, the noise
         weights that shaped the f_awf spectrum (the pressure itself is not filtered).
     passband_hz : tuple of float or None
-        Lowest and highest frequency the deconvolution passed (non-zero weight), Hz.
+        Lowest and highest frequency the deconvolution passed (non-zero weight), Hz; None
+        for the narrowband method (nothing is filtered).
     noise_band_hz : tuple of float or None
         Where the gated voltage spectrum stands ``band_snr_db`` above the noise, Hz (None
         without noise weighting).
@@ -373,7 +374,7 @@ class Converter:
             mag = vabs * (2.0 / (n * m))
             f_awf = f_v
             noise_power = (noise.rms_v / m) ** 2
-            passband = noise_band
+            passband = None                 # nothing is filtered
         else:
             # only the bins with a weight: the rest of the spectrum is set to 0
             w = weights[k0:k1]

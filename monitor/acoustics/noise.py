@@ -45,8 +45,8 @@ FIRST_LOOK_MAX_SAMPLES = 256
 #: Noise is not taken below this fraction of the peak excursion (a noise-free synthetic
 #: trace still gets a finite gate and finite weights: 200 dB below the peak).
 NOISE_FLOOR_FRACTION = 1e-10
-#: Welch segments averaged at most (8 segments: the spectrum within about +/-35 % a bin,
-#: +/-16 % after the 5-bin smoothing; under 1 dB on the signal-to-noise spectrum).
+#: Welch segments averaged at most (8 Hann-windowed segments and a 5-bin smoothing: the
+#: spectrum within about +/-25 % a bin, about 1 dB on the signal-to-noise spectrum).
 MAX_NOISE_SEGMENTS = 8
 #: Shortest Welch segment used; below it the noise is taken as white at its RMS.
 MIN_NOISE_SEGMENT = 32

@@ -78,8 +78,9 @@ class ConversionSettings:
         than two).
     awf_blend_db : float
         A secondary spectral hump whose top lies between -3 dB and ``-3 + awf_blend_db``
-        dB counts in proportion, so f_awf moves continuously as it rises (0: plain
-        threshold).
+        dB counts in proportion, so f_awf moves continuously as it rises (0: the plain
+        threshold of the standard; 2 dB: a 1 % change of such a hump moves f_awf by at
+        most about 2 % of the distance between the humps' answers).
     awf_hysteresis_sigma, awf_hysteresis_fraction : float
         Zero crossings are counted only between excursions beyond +/-h, ``h`` the larger
         of this many pressure noise sigmas and this fraction of the gate's peak pressure.
@@ -118,7 +119,7 @@ class ConversionSettings:
     low_snr_db: float = 20.0
     beyond_calibration_share: float = 0.01
     awf_method: str = "spectrum"
-    awf_blend_db: float = 0.5
+    awf_blend_db: float = 2.0
     awf_hysteresis_sigma: float = 4.0
     awf_hysteresis_fraction: float = 0.05
     narrowband_low_factor: float = 0.5
