@@ -81,7 +81,7 @@ MODELS = {"resonant": resonant, "membrane": membrane, "needle": needle,
           "band-limited": band_limited}
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def calibration(model: str, *, phase: bool = True, top_hz: float = 40e6, low_hz: float = 1e6):
     """The model's sensitivity from scipy.signal.freqs, every 0.5 MHz, as a calibration."""
     f = np.arange(low_hz, top_hz + 1.0, 0.5e6)
@@ -189,7 +189,7 @@ def simulate(b, a, pressure, n=N, dt=DT):
     return v
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def clean_voltage(model: str, pulse: str, *, echo: bool = False, n: int = N,
                   centre_s: float = 8e-6) -> np.ndarray:
     """The noise-free voltage of ``pulse`` (centred at ``centre_s``) through ``model``."""
@@ -212,7 +212,7 @@ def noisy(v, snr_db, seed, *, offset_fraction=0.0):
 
 # -- the true parameters ------------------------------------------------------------------
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def truth(pulse: str, centre_s: float = 8e-6) -> dict:
     """p_c, p_r (Pa), PII (J/m^2), pulse duration (s) of the analytic pulse (IEC 62127-1:
     PII = int p^2 dt / (rho c); pulse duration 1.25 (t90 - t10) of the running integral

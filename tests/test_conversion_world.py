@@ -11,8 +11,8 @@ RMS of white Gaussian noise added to the hydrophone voltage.
 
 import numpy as np
 import pytest
-
 from hydrophone_models import DT, MODELS, N, calibration, clean_voltage, errors, noisy, truth
+
 from tankside.monitor.acoustics.converter import Converter
 from tankside.monitor.acoustics.doubts import WarningCode
 from tankside.monitor.acoustics.settings import ConversionSettings
