@@ -213,18 +213,25 @@ class GatedSpectrum:
     padding: float
 
 
-def gated_spectrum(gated: np.ndarray, dt_s: float, record_samples: int) -> GatedSpectrum:
-    """``rfft`` of a gated stretch, zero-padded to the power of two at or above
-    ``GATE_PADDING`` times its length (but to no more than the record's fast length, and
-    never less than the gate)."""
-    m = gated.shape[0]
-    want = GATE_PADDING * m
-    nfft = 1 << (want - 1).bit_length()
+def gated_length(samples: int, record_samples: int) -> int:
+    """FFT length for a gate of ``samples``: the power of two at or above ``GATE_PADDING``
+    times it, but no more than the record's fast length and never less than the gate."""
+    nfft = 1 << (GATE_PADDING * samples - 1).bit_length()
     if nfft > record_samples:
-        nfft = scipy.fft.next_fast_len(max(m, record_samples), real=True)
+        nfft = scipy.fft.next_fast_len(max(samples, record_samples), real=True)
+    return nfft
+
+
+def gated_spectrum(gated: np.ndarray, dt_s: float, record_samples: int, *,
+                   freqs_hz: np.ndarray | None = None) -> GatedSpectrum:
+    """``rfft`` of a gated stretch, zero-padded to :func:`gated_length` (``freqs_hz``: its
+    ``rfftfreq`` grid when the caller keeps it)."""
+    m = gated.shape[0]
+    nfft = gated_length(m, record_samples)
     spec = scipy.fft.rfft(gated, nfft, workers=1)
-    freqs = np.arange(spec.shape[0]) * (1.0 / (nfft * dt_s))
-    return GatedSpectrum(freqs, spec, m, nfft / m)
+    if freqs_hz is None or freqs_hz.shape[0] != spec.shape[0]:
+        freqs_hz = np.arange(spec.shape[0]) * (1.0 / (nfft * dt_s))
+    return GatedSpectrum(freqs_hz, spec, m, nfft / m)
 
 
 def box_smooth(x: np.ndarray, width: int) -> np.ndarray:
@@ -232,13 +239,7 @@ def box_smooth(x: np.ndarray, width: int) -> np.ndarray:
     (so the end bins read low, the safe side for a signal-to-noise test)."""
     if width <= 1:
         return x
-    half = width // 2
-    c = np.zeros(x.shape[0] + width)
-    np.cumsum(x, out=c[half + 1:half + 1 + x.shape[0]])
-    c[half + 1 + x.shape[0]:] = c[half + x.shape[0]]
-    out = c[width:] - c[:-width]
-    out *= 1.0 / width
-    return out
+    return np.convolve(x, np.full(width, 1.0 / width), mode="same")
 
 
 @dataclass(frozen=True, eq=False)

@@ -175,7 +175,7 @@ def measure_trace(voltage_v: np.ndarray, dt_s: float, period_s: float, *,
                   threshold_sigma: float, gap_cycles: float, margin_cycles: float,
                   segment_samples: int, gate_s: tuple[float, float] | None = None,
                   resolution_v: float = 0.0,
-                  window: np.ndarray | None = None) -> tuple[NoiseEstimate, Gate]:
+                  welch: WelchSetup | None = None) -> tuple[NoiseEstimate, Gate]:
     """Baseline, noise level and spectrum, arrivals and the pulse gate of one trace.
 
     Parameters
@@ -196,8 +196,9 @@ def measure_trace(voltage_v: np.ndarray, dt_s: float, period_s: float, *,
         and the arrivals left out).
     resolution_v : float
         Volts per digitiser code: the noise is not taken below ``resolution_v / sqrt(12)``.
-    window : numpy.ndarray, optional
-        ``hann_window(segment_samples)``, when the caller keeps one (else made here).
+    welch : WelchSetup, optional
+        ``WelchSetup.make(segment_samples, dt_s)``, when the caller keeps one (else made
+        here).
 
     Returns
     -------
@@ -212,7 +213,7 @@ def measure_trace(voltage_v: np.ndarray, dt_s: float, period_s: float, *,
     body = v[:nb * blk].reshape(nb, blk)
     ones = np.ones(blk)
     sums = body @ ones            # a matrix-vector product sums rows fastest
-    sq = np.einsum("ij,ij->i", body, body)
+    sq = (body * body) @ ones
     # mean square about the first-look baseline, per block
     energy = sq - (2.0 * b0) * sums
     energy *= 1.0 / blk
@@ -222,16 +223,14 @@ def measure_trace(voltage_v: np.ndarray, dt_s: float, period_s: float, *,
     floor = max(resolution_v / math.sqrt(12.0), NOISE_FLOOR_FRACTION * peak)
     sigma = max(s0, floor)
     gap_blocks = max(1, int(math.ceil(gap_cycles * per / blk)))
-    total_sum, total_sq = float(sums.sum()), float(sq.sum())
     for _ in range(2):
         groups, runs = _arrivals(energy, (threshold_sigma * sigma) ** 2, gap_blocks)
-        q_blocks = sum(r1 - r0 for r0, r1 in runs)
-        if q_blocks == nb:
-            q_sum, q_sq = total_sum, total_sq
-        else:
-            q_sum = sum(float(sums[r0:r1].sum()) for r0, r1 in runs)
-            q_sq = sum(float(sq[r0:r1].sum()) for r0, r1 in runs)
-        q_count = q_blocks * blk
+        q_blocks = q_sum = q_sq = 0.0
+        for r0, r1 in runs:
+            q_blocks += r1 - r0
+            q_sum += float(sums[r0:r1].sum())
+            q_sq += float(sq[r0:r1].sum())
+        q_count = int(q_blocks) * blk
         if q_count >= 2:
             baseline = q_sum / q_count
             rms = math.sqrt(max(q_sq / q_count - baseline * baseline, 0.0))
@@ -264,7 +263,7 @@ def measure_trace(voltage_v: np.ndarray, dt_s: float, period_s: float, *,
         automatic = False
     left_out = tuple(x for x in arrivals if x.stop <= start or x.start >= stop)
     noise = _noise_spectrum(v, dt_s, baseline, rms, [(r0 * blk, r1 * blk) for r0, r1 in runs],
-                            int(q_count), segment_samples, window)
+                            int(q_count), segment_samples, welch)
     return noise, Gate(start, stop, float(dt_s), automatic, bool(at_edge), left_out, found)
 
 
@@ -289,14 +288,31 @@ def _arrivals(energy: np.ndarray, threshold: float, gap_blocks: int):
     return groups, runs
 
 
-def hann_window(samples: int) -> np.ndarray:
-    """The periodic-free (symmetric, end points dropped) Hann window of ``samples`` points."""
-    return np.hanning(samples + 2)[1:-1]
+@dataclass(frozen=True, eq=False)
+class WelchSetup:
+    """What the noise spectrum of one segment length and time step needs (read-only).
+
+    ``window`` is the Hann window scaled to unit energy, so the mean ``|rfft|^2`` of
+    windowed white noise of RMS sigma is sigma^2 in every bin.
+    """
+
+    samples: int
+    window: np.ndarray
+    freqs_hz: np.ndarray
+
+    @classmethod
+    def make(cls, samples: int, dt_s: float) -> WelchSetup:
+        w = np.hanning(samples + 2)[1:-1]
+        w /= math.sqrt(float(np.dot(w, w)))
+        f = np.arange(samples // 2 + 1) * (1.0 / (samples * dt_s))
+        w.setflags(write=False)
+        f.setflags(write=False)
+        return cls(samples, w, f)
 
 
 def _noise_spectrum(v: np.ndarray, dt_s: float, baseline: float, rms: float,
                     runs: list[tuple[int, int]], quiet_samples: int, segment_samples: int,
-                    window: np.ndarray | None) -> NoiseEstimate:
+                    welch: WelchSetup | None) -> NoiseEstimate:
     white = NoiseEstimate(float(baseline), float(rms), _EMPTY, _EMPTY, quiet_samples, 0)
     if rms <= 0:
         return white
@@ -315,16 +331,15 @@ def _noise_spectrum(v: np.ndarray, dt_s: float, baseline: float, rms: float,
         if count >= MAX_NOISE_SEGMENTS:
             break
     segs = pieces[0] - baseline if len(pieces) == 1 else np.concatenate(pieces) - baseline
-    if window is None or window.shape[0] != seg:
-        window = hann_window(seg)
-    segs *= window
+    if welch is None or welch.samples != seg:
+        welch = WelchSetup.make(seg, dt_s)
+    segs *= welch.window
     spec = np.abs(scipy.fft.rfft(segs, axis=1, workers=1))
     spec *= spec
-    power = spec.sum(axis=0) / (count * float(np.dot(window, window)))
-    smooth = np.convolve(power, np.full(5, 2.0 * dt_s / 5.0), mode="same")  # PSD, V^2/Hz
-    smooth[:2] = 2.0 * dt_s * power[:2]       # the end bins keep their own values
-    smooth[-2:] = 2.0 * dt_s * power[-2:]
-    freqs = np.arange(smooth.shape[0]) * (1.0 / (seg * dt_s))
-    freqs.setflags(write=False)
-    smooth.setflags(write=False)
-    return NoiseEstimate(float(baseline), float(rms), freqs, smooth, quiet_samples, count)
+    power = spec.sum(axis=0)
+    # 5-bin smoothing, the two end bins keep their own values; one-sided PSD, V^2/Hz
+    psd = np.convolve(power, np.full(5, 2.0 * dt_s / (5.0 * count)), mode="same")
+    psd[:2] = power[:2] * (2.0 * dt_s / count)
+    psd[-2:] = power[-2:] * (2.0 * dt_s / count)
+    psd.setflags(write=False)
+    return NoiseEstimate(float(baseline), float(rms), welch.freqs_hz, psd, quiet_samples, count)

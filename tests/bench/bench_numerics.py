@@ -1,9 +1,11 @@
 """Speed of the signal chain against a bare scipy.fft round trip of the same length.
 
 Prints, for 10,000 and 100,000 samples: the bare ``irfft(rfft(v) * H)`` time, the
-deconvolution stage through a cached plan, and the full per-trace numerics (conversion,
-all pulse parameters, narrowband check), with ratios (bare time / our time; higher is
-better; targets 0.8 for the stage and 0.35 for the full numerics).
+deconvolution stage through a cached plan, and the full per-trace numerics (baseline,
+noise level and spectrum, pulse gate, noise weights, conversion, all pulse parameters,
+narrowband check, warnings, and for this magnitude-only calibration the p_r spread
+between low-frequency assumptions), with ratios (bare time / our time; higher is better;
+targets 0.8 for the stage and 0.35 for the full numerics).
 """
 
 from __future__ import annotations
