@@ -399,7 +399,7 @@ class Converter:
             self._in_band(f_awf, "pressure spectrum", snr_db)
             nb = narrowband_check(f_awf, self.profile, s)
             noise_power = _noise_power(noise_gate, h_gate, gspec)
-            nz = np.flatnonzero(w)
+            nz = np.flatnonzero(h_abs)     # weights times the band window
             passband = ((float(freqs[k0 + nz[0]]), float(freqs[k0 + nz[-1]])) if nz.size
                         else None)
         assert nb is not None
