@@ -257,3 +257,13 @@ def test_zero_crossing_parameters_against_the_known_pressure(method):
         assert not r.narrowband.ok
         assert r.pulse_intensity_integral_j_per_m2 == pytest.approx(pii, rel=0.5)
         assert r.acoustic_working_frequency_hz == pytest.approx(5e6, rel=0.1)
+
+
+@pytest.mark.parametrize("weighting", ["noise", "none"])
+def test_out_of_band_with_either_weighting(weighting):
+    # a 60 MHz pulse on a 1-40 MHz calibration is out of band however the band is weighted
+    conv = Converter(flat_calibration(), settings=ConversionSettings(method="deconvolve",
+                                                                     weighting=weighting))
+    v = M0 * 1e6 * scipy.signal.gausspulse(T - 8e-6, fc=60e6, bw=0.5)
+    with pytest.raises(OutOfBandError, match="outside the calibrated band"):
+        conv.process(v, DT)

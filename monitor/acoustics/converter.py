@@ -431,14 +431,15 @@ class Converter:
                  entry: _GridEntry, snr_db: float, found: bool
                  ) -> tuple[np.ndarray, np.ndarray, tuple[int, int],
                             tuple[float, float] | None, float]:
-        """The weights on the plan grid and on the gated grid, the bins outside which the
-        weights are 0, the noise band (None without noise weighting) and the share of
+        """The weights on the plan grid (applied to the inverse) and on the gated grid
+        (applied to the gated voltage spectrum for f_awf), the bins outside which the
+        former are 0, the noise band (None without noise weighting) and the share of
         above-noise energy outside the calibrated band."""
         s = self.settings
         plan = entry.plan
         if s.weighting is Weighting.NONE:
-            return (plan.window, np.interp(gspec.freqs_hz, plan.freqs_hz, plan.window),
-                    entry.window_bins, None, 0.0)
+            # the band window is in the inverse already; the voltage spectrum as it is
+            return plan.window, np.ones(gspec.freqs_hz.shape[0]), entry.window_bins, None, 0.0
         nw = noise_weights(gspec, noise_gate, plan.freqs_hz, self.calibration.band_hz,
                            band_snr_db=s.band_snr_db, taper_octaves=s.taper_octaves)
         if nw is None:
