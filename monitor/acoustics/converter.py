@@ -2,7 +2,8 @@
 
 :class:`Converter` binds a calibration, the electrical loading, the conversion settings
 and the water temperature, and keeps one deconvolution plan per FFT grid (record length,
-time step), so the live loop does one ``rfft``, one multiply and one ``irfft`` per trace.
+time step), so the live loop does one ``rfft`` and one ``irfft`` of the record per trace,
+besides the small transforms of the noise segments and the gate.
 
 One trace, in order:
 
