@@ -283,3 +283,46 @@ class TestPlausibility:
         smooth = ("frequency_hz,sensitivity_v_per_pa,phase_rad\n"
                   "1e6,1e-7,-3.0\n2e6,1e-7,-4.0\n3e6,1e-7,-5.0\n")
         assert parse_calibration(smooth).phase_source == "measured"
+class TestDeclaredLoad:
+    ROWS = "frequency_hz,sensitivity_v_per_pa\n1e6,1e-7\n2e6,1e-7\n3e6,1e-7\n"
+
+    def test_nothing_declared_is_open_circuit(self):
+        load = parse_calibration("# from the certificate\n" + self.ROWS).load
+        assert load.kind == "open-circuit" and not load.declared
+
+    def test_end_of_cable_with_its_input(self):
+        text = ("# calibration_kind = end-of-cable\n"
+                "#calibration_input_resistance_ohm=1e6\n"
+                "# calibration_input_capacitance_f = 20e-12\n" + self.ROWS)
+        load = parse_calibration(text).load
+        assert load.kind == "end-of-cable" and load.declared
+        assert load.input_resistance_ohm == 1e6 and load.input_capacitance_f == 20e-12
+
+    @pytest.mark.parametrize(("line", "words"), [
+        ("# calibration_kind = loaded", "open-circuit"),
+        ("# calibration_input_resistance = 1e6", "unknown declaration"),
+        ("# calibration_input_capacitance_f = twenty", "not a number"),
+        ("# calibration_input_resistance_ohm = -5", "positive"),
+    ])
+    def test_bad_declarations_name_the_line(self, line, words):
+        with pytest.raises(CalibrationError, match=words) as info:
+            parse_calibration(line + "\n" + self.ROWS)
+        assert info.value.line == 1
+
+    def test_declared_twice(self):
+        text = "# calibration_kind = open-circuit\n# calibration_kind = end-of-cable\n"
+        with pytest.raises(CalibrationError, match="declared twice"):
+            parse_calibration(text + self.ROWS)
+
+    def test_declaration_reaches_the_conversion(self):
+        # into the certificate's own input an end-of-cable calibration is used as it stands
+        from tankside.monitor.acoustics.deconvolve import loaded_sensitivity
+        from tankside.monitor.acoustics.loading import Loading
+
+        text = ("# calibration_kind = end-of-cable\n# calibration_input_resistance_ohm = 1e6\n"
+                + self.ROWS)
+        cal = parse_calibration(text)
+        same = Loading(100e-12, input_resistance_ohm=1e6)
+        f = np.array([1.5e6, 2.5e6])
+        np.testing.assert_allclose(loaded_sensitivity(cal, same, f), 1e-7, rtol=1e-12)
+        assert abs(loaded_sensitivity(parse_calibration(self.ROWS), same, f)[0]) < 1e-7

@@ -128,3 +128,29 @@ def test_mistyped_calibration_row_is_refused_unless_relaxed(files, tmp_path, cap
               "--calibration-max-step", "0"])
     assert info.value.code == 2
     assert "argument --calibration-max-step" in capsys.readouterr().err
+def test_json_has_noise_gate_and_warnings(files, tmp_path, capsys):
+    trace, cal, p = files
+    t = np.arange(4096) * DT
+    noisy = tmp_path / "noisy.csv"
+    v = M0 * p + 1e-3 * np.random.default_rng(0).standard_normal(t.size)   # 40 dB
+    write_trace(noisy, v, DT)
+    assert main(["convert", str(noisy), "-c", str(cal), "--json", "--method", "deconvolve",
+                 "--gate", "6e-6", "10e-6", "--depth", "0.03"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["snr_db"] == pytest.approx(40.0, abs=0.5)
+    assert out["gate"] == {"start_s": pytest.approx(6e-6), "end_s": pytest.approx(10e-6),
+                           "automatic": False}
+    assert out["derating_depth_m"] == 0.03
+    codes = [w["code"] for w in out["warnings"]]
+    assert "mi_not_derated" not in codes and "phase_estimated" in codes
+    lo, hi = out["deconvolution"]["passband_hz"]
+    assert 1e6 < lo < 3e6 and 7e6 < hi < 12e6
+    assert out["peak_compressional_pa"] == pytest.approx(p.max(), rel=0.03)
+
+
+def test_table_lists_warnings(files, capsys):
+    trace, cal, _ = files
+    assert main(["convert", str(trace), "-c", str(cal), "--low-snr", "400"]) == 0
+    text = capsys.readouterr().out
+    assert "warning" in text and "low_snr" in text and "mi_not_derated" in text
+    assert "pulse gate" in text and "peak voltage over noise" in text

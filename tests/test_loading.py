@@ -6,7 +6,7 @@ import math
 import numpy as np
 import pytest
 
-from tankside.monitor.acoustics.loading import Loading
+from tankside.monitor.acoustics.loading import CalibrationLoad, Loading
 from tankside.monitor.errors import ConfigError
 
 
@@ -82,3 +82,56 @@ def test_from_table_round_trip_and_unknown_key():
     assert Loading.from_table({"input_resistance_ohm": "inf"}).input_resistance_ohm == math.inf
     with pytest.raises(ConfigError, match="cable_capacitance"):
         Loading.from_table({"cable_capacitanc_f": 1e-12})
+
+
+class TestEndOfCableCalibration:
+    # an end-of-cable certificate measured into 1 Mohm || 20 pF, used into 50 ohm or into
+    # the same input. The reference is the same divider written with complex impedances
+    # (exp(+j w t), Z_C = 1/(j w C)): M_cert = M_O Z_cert/(Z_cert + Z_H), and the user's
+    # M_L = M_O Z_user/(Z_user + Z_H), so M_L / M_cert = [Z_user/(Z_user + Z_H)] /
+    # [Z_cert/(Z_cert + Z_H)], the cable across the hydrophone in both loads.
+    f = np.array([0.5e6, 1e6, 5e6, 20e6])
+    c_h, c_c = 400e-12, 100e-12
+
+    def ratio(self, r, c_in):
+        w = 2 * np.pi * self.f
+        z_h = 1 / (1j * w * self.c_h)
+        z_l = 1 / (1 / r + 1j * w * (self.c_c + c_in))
+        return z_l / (z_l + z_h)
+
+    def test_only_the_difference_is_applied(self):
+        cert = CalibrationLoad("end-of-cable", 1e6, 20e-12, True)
+        got = Loading(self.c_h, self.c_c, 50.0, 0.0).factor(self.f, cert)
+        np.testing.assert_allclose(got, self.ratio(50.0, 0.0) / self.ratio(1e6, 20e-12),
+                                   rtol=1e-12)
+
+    def test_same_input_as_the_certificate_changes_nothing(self):
+        # the cable is not counted twice: into the certificate's own input the factor is 1
+        cert = CalibrationLoad("end-of-cable", 1e6, 20e-12, True)
+        got = Loading(self.c_h, self.c_c, 1e6, 20e-12, preamp_gain_db=0.0).factor(self.f, cert)
+        np.testing.assert_allclose(got, 1.0, rtol=1e-12)
+
+    def test_open_circuit_applies_the_whole_loading(self):
+        got = Loading(self.c_h, self.c_c, 50.0).factor(self.f, CalibrationLoad())
+        np.testing.assert_allclose(got, self.ratio(50.0, 0.0), rtol=1e-12)
+
+    def test_settings_override_the_file(self):
+        cert = CalibrationLoad("end-of-cable", 1e6, 20e-12, True)
+        load = Loading(self.c_h, self.c_c, 50.0, calibration_kind="open-circuit")
+        np.testing.assert_allclose(load.factor(self.f, cert), self.ratio(50.0, 0.0), rtol=1e-12)
+        load = Loading(self.c_h, self.c_c, 50.0, calibration_input_capacitance_f=0.0)
+        assert load.calibration_load(cert).input_capacitance_f == 0.0
+        assert load.calibration_load(cert).input_resistance_ohm == 1e6
+
+    def test_without_hydrophone_capacitance_only_the_gain(self):
+        cert = CalibrationLoad("end-of-cable", 1e6, 20e-12, True)
+        np.testing.assert_allclose(Loading(None, preamp_gain_db=6.0).factor(self.f, cert),
+                                   10 ** (6 / 20))
+
+    def test_settings_round_trip_and_bad_kind(self):
+        load = Loading(self.c_h, calibration_kind="end-of-cable",
+                       calibration_input_resistance_ohm=math.inf)
+        text = json.dumps(load.as_dict(), allow_nan=False)
+        assert Loading.from_table(json.loads(text)) == load
+        with pytest.raises(ConfigError, match="open-circuit"):
+            Loading(self.c_h, calibration_kind="loaded")

@@ -114,3 +114,63 @@ def test_zero_and_non_finite_are_unusable():
         awf_spectrum_hz(np.arange(51.0), np.full(51, math.nan))
     with pytest.raises(UnusableTraceError):
         awf_zero_crossing_hz(np.ones(100), DT, 0.0, 1e-7)
+
+
+class TestAwfStability:
+    # IEC 62127-1 arithmetic-mean f_awf of two Gaussian humps (3 and 6 MHz, -3 dB
+    # half-widths 0.5 MHz): the plain threshold jumps when the 6 MHz hump's top crosses
+    # -3 dB; with the blending band the result moves continuously, and away from the
+    # threshold it is the standard's value.
+    F = np.linspace(0, 20e6, 4001)
+
+    def spectrum(self, ratio):
+        hump = lambda fc: np.exp(-np.log(2) / 2 * ((self.F - fc) / 0.5e6) ** 2)  # noqa: E731
+        return hump(3e6) + ratio * hump(6e6)
+
+    def sweep(self, blend_db):
+        ratios = np.arange(0.60, 0.80, 0.01)
+        return np.array([awf_spectrum_hz(self.F, self.spectrum(r), blend_db=blend_db)
+                         for r in ratios])
+
+    def test_plain_threshold_jumps(self):
+        f = self.sweep(0.0)
+        assert np.max(np.abs(np.diff(f)) / f[1:]) > 0.2
+
+    def test_blended_rule_moves_in_small_steps(self):
+        f = self.sweep(2.0)
+        # 1 % steps of the hump's height move f_awf by at most 3 % (against 40 %)
+        assert np.max(np.abs(np.diff(f)) / f[1:]) < 0.03
+
+    @pytest.mark.parametrize(("ratio", "expected"), [(0.5, 3e6), (0.97, 0.5 * (2.5e6 + 6.5e6))])
+    def test_away_from_the_threshold_it_is_the_standard(self, ratio, expected):
+        # one hump: its -3 dB points 2.5 and 3.5 MHz; both humps fully (the second's top
+        # above -1 dB): f1 = 2.5 MHz and f2 = 6.5 MHz (within 3 f1)
+        got = awf_spectrum_hz(self.F, self.spectrum(ratio), blend_db=2.0)
+        assert got == pytest.approx(expected, rel=0.01)
+
+    def test_near_equal_humps_swap_the_peak_smoothly(self):
+        f = [awf_spectrum_hz(self.F, self.spectrum(r), blend_db=2.0) for r in (0.98, 1.0, 1.02)]
+        assert max(f) - min(f) < 0.01 * f[1]
+
+
+class TestZeroCrossingHysteresis:
+    # a 10-cycle 5 MHz burst in a window with 2 us of noise on each side
+    def burst_with_noise(self, seed=0):
+        p = tone_burst(start=3e-6)
+        return p + 0.01e6 * np.random.default_rng(seed).standard_normal(p.size)
+
+    def test_noise_adds_crossings_without_hysteresis(self):
+        f = awf_zero_crossing_hz(self.burst_with_noise(), DT, 1e-6, 7e-6)
+        assert abs(f / 5e6 - 1) > 0.5
+
+    @pytest.mark.parametrize("seed", range(3))
+    def test_hysteresis_counts_only_the_pulse(self, seed):
+        # 4 noise sigmas: one noise sample in ~16,000 reaches it
+        f = awf_zero_crossing_hz(self.burst_with_noise(seed), DT, 1e-6, 7e-6,
+                                 hysteresis_pa=0.05e6)
+        assert f == pytest.approx(5e6, rel=0.005)
+
+    def test_one_cycle_has_too_few_half_cycles(self):
+        p = tone_burst(cycles=1)
+        with pytest.raises(UnusableTraceError, match="too few half cycles"):
+            awf_zero_crossing_hz(p, DT, 0.5e-6, 2e-6, hysteresis_pa=0.05e6)

@@ -38,6 +38,18 @@ the sensitivity 1e10 times too large there), so the loader refuses:
 The smooth sensitivity of a hydrophone changes by a few dB between neighbouring
 calibration frequencies even across a resonance (common practice); 20 dB is an order
 of magnitude beyond that.
+What the sensitivity is
+-----------------------
+Comment lines may declare the electrical condition of the sensitivity
+(:class:`tankside.monitor.acoustics.loading.CalibrationLoad`), one ``name = value`` each::
+
+    # calibration_kind = end-of-cable
+    # calibration_input_resistance_ohm = 1e6
+    # calibration_input_capacitance_f = 20e-12
+
+``calibration_kind`` is ``open-circuit`` (the default when nothing is declared) or
+``end-of-cable``; the input defaults to no resistance (``inf``) and 0 F. Other comments
+are free text. The same names in the bench file's ``[loading]`` table win over the file.
 """
 
 from __future__ import annotations
@@ -49,7 +61,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import CalibrationError
+from ..errors import CalibrationError, ConfigError
+from .loading import CalibrationLoad
 
 #: Fewest calibration points accepted (interpolation and the phase estimate need a band).
 MIN_POINTS = 3
@@ -94,6 +107,9 @@ class Calibration:
         The file verbatim.
     sha256 : str
         Hex SHA-256 of the file's bytes (of the UTF-8 text for in-memory text).
+    load : CalibrationLoad
+        What the sensitivity is (open-circuit, or end-of-cable into a stated input), as
+        the file's comment lines declare it.
     """
 
     frequency_hz: np.ndarray
@@ -102,6 +118,7 @@ class Calibration:
     source: str
     text: str = field(repr=False)
     sha256: str = ""
+    load: CalibrationLoad = field(default_factory=CalibrationLoad)
 
     @property
     def band_hz(self) -> tuple[float, float]:
@@ -152,7 +169,7 @@ def load_calibration(path: str | Path, *, max_step_db: float = MAX_STEP_DB,
     cal = parse_calibration(text, source=str(path), max_step_db=max_step_db,
                             check_phase_steps=check_phase_steps)
     return Calibration(cal.frequency_hz, cal.sensitivity_v_per_pa, cal.phase_source,
-                       cal.source, cal.text, hashlib.sha256(raw).hexdigest())
+                       cal.source, cal.text, hashlib.sha256(raw).hexdigest(), cal.load)
 
 
 def parse_calibration(text: str, source: str = "<text>", *,
@@ -177,11 +194,13 @@ def parse_calibration(text: str, source: str = "<text>", *,
         wrong number of fields or an unparsable number; frequencies negative, non-finite
         or not strictly increasing; magnitude non-positive or non-finite; non-finite
         phase; fewer than ``MIN_POINTS`` rows; a magnitude or phase step between
-        neighbouring rows that fails the plausibility checks (module notes).
+        neighbouring rows that fails the plausibility checks (module notes); a
+        ``calibration_*`` declaration that is unknown, repeated or not valid.
     """
     if not max_step_db > 0:
         raise ValueError(f"max_step_db must be above 0 dB, got {max_step_db!r}")
     header, rows = _split(text, source)
+    load = _declared_load(text, source)
     columns = _check_header(header, source)
     values: dict[str, list[float]] = {name: [] for name in columns}
     lines = []
@@ -223,7 +242,48 @@ def parse_calibration(text: str, source: str = "<text>", *,
     freq.setflags(write=False)
     sens.setflags(write=False)
     return Calibration(freq, sens, phase_source, source, text,
-                       hashlib.sha256(text.encode("utf-8")).hexdigest())
+                       hashlib.sha256(text.encode("utf-8")).hexdigest(), load)
+
+
+DECLARATIONS = ("calibration_kind", "calibration_input_resistance_ohm",
+                "calibration_input_capacitance_f")
+
+
+def _declared_load(text: str, source: str) -> CalibrationLoad:
+    """The ``# calibration_* = value`` comment lines as a CalibrationLoad."""
+    found: dict[str, tuple[int, str]] = {}
+    for lineno, line in enumerate(text.splitlines(), start=1):
+        stripped = line.strip()
+        if not stripped.startswith("#"):
+            continue
+        body = stripped.lstrip("#").strip()
+        if not body.startswith(("calibration_kind", "calibration_input")):
+            continue
+        name, eq, value = (part.strip() for part in body.partition("="))
+        if not eq or name not in DECLARATIONS:
+            raise CalibrationError(source, lineno, f"unknown declaration {body!r}; expected "
+                                   f"'name = value' with name one of {', '.join(DECLARATIONS)}")
+        if name in found:
+            raise CalibrationError(source, lineno, f"{name} declared twice (first on line "
+                                   f"{found[name][0]})")
+        found[name] = (lineno, value)
+    if not found:
+        return CalibrationLoad()
+    kw: dict = {}
+    for name, (lineno, value) in found.items():
+        key = name.removeprefix("calibration_")
+        if key == "kind":
+            kw[key] = value
+            continue
+        try:
+            kw[key] = float(value)
+        except ValueError as err:
+            raise CalibrationError(source, lineno, f"{name}: {value!r} is not a number") from err
+    try:
+        return CalibrationLoad(**kw, declared=True)
+    except ConfigError as err:
+        first = min(lineno for lineno, _ in found.values())
+        raise CalibrationError(source, first, str(err)) from err
 
 
 def _split(text: str, source: str) -> tuple[tuple[int, str], list[tuple[int, str]]]:
@@ -347,7 +407,14 @@ def v_per_pa_to_db_re_1v_per_upa(magnitude_v_per_pa):
     return 20.0 * np.log10(np.asarray(magnitude_v_per_pa, dtype=float) * 1e-6)
 
 
-def minimum_phase_rad(frequency_hz: np.ndarray, magnitude: np.ndarray) -> np.ndarray:
+#: The low-frequency assumptions compared for the ``phase_estimated`` warning: the log-log
+#: slope of ``|M|`` below the calibrated band, 0 (flat) and 2 (40 dB per decade), the
+#: bounds of the range the fitted edge slope is held to (the estimate in use lies between).
+LOW_SLOPE_ASSUMPTIONS = (0.0, 2.0)
+
+
+def minimum_phase_rad(frequency_hz: np.ndarray, magnitude: np.ndarray, *,
+                      low_slope: float | None = None) -> np.ndarray:
     """Minimum-phase estimate of the phase of a sensitivity known by its magnitude only.
 
     Bode's gain-phase relation (the Hilbert transform of the log-magnitude written on a
@@ -359,12 +426,19 @@ def minimum_phase_rad(frequency_hz: np.ndarray, magnitude: np.ndarray) -> np.nda
     between 0 and -40 dB per decade above it (a flat edge is held flat). The slope runs
     on far enough (12 nepers) that the kernel's remaining weight is negligible.
 
+    What lies below the band is not measured, and the phase in the band depends on it
+    (the kernel falls off only logarithmically): ``low_slope`` replaces the fitted slope
+    below the band by a stated one, to see how much (:data:`LOW_SLOPE_ASSUMPTIONS`).
+
     Parameters
     ----------
     frequency_hz : numpy.ndarray
         Strictly increasing frequencies, Hz (at least two positive).
     magnitude : numpy.ndarray
         Positive magnitudes (any unit).
+    low_slope : float, optional, keyword-only
+        Log-log slope of the magnitude below the band (ln|M| per ln f); default: the
+        fitted edge slope, clamped to 0..2.
 
     Returns
     -------
@@ -384,7 +458,8 @@ def minimum_phase_rad(frequency_hz: np.ndarray, magnitude: np.ndarray) -> np.nda
     if fp.size < 2:
         return out
     u_lo, u_hi = math.log(fp[0]), math.log(fp[-1])
-    s_lo = float(np.clip(_edge_slope(fp, ap, low=True), 0.0, _EXTRAPOLATION_MAX_SLOPE))
+    s_lo = float(np.clip(_edge_slope(fp, ap, low=True) if low_slope is None else low_slope,
+                         0.0, _EXTRAPOLATION_MAX_SLOPE))
     s_hi = float(np.clip(_edge_slope(fp, ap, low=False), -_EXTRAPOLATION_MAX_SLOPE, 0.0))
     du = min(_BODE_STEP, (u_hi - u_lo) / 64.0)
     du = max(du, (u_hi - u_lo + 2 * _BODE_MARGIN) / 2**18)   # bounded work for any band

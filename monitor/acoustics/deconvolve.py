@@ -12,12 +12,23 @@ sensitivity is ever divided by. ``eps`` is the Tikhonov (Wiener-type) weight and
 ``M_ref`` the median of ``|M_L|`` over the band (:func:`regularisation_reference_v_per_pa`),
 a robust in-band level: one outlying calibration row does not move it.
 
+Noise weighting (the default): for each trace the plan's inverse is multiplied by
+Wiener-type weights ``SNR / (1 + SNR)`` (:func:`noise_weights`), where ``SNR(f)`` is the
+power of the gated voltage spectrum over the noise expected in the gate (from the
+noise spectrum measured on the quiet part of the record, see
+:mod:`tankside.monitor.acoustics.noise`), and 0 outside the band in which that spectrum
+stands ``band_snr_db`` above the noise (with a raised-cosine taper outside each edge). So
+frequencies where the trace holds only noise are not divided by the sensitivity at all,
+and the weights are those of the minimum-mean-square-error filter where there is signal.
+
 Time dependence ``exp(+j 2 pi f t)`` as :func:`numpy.fft.rfft`; see
 :mod:`tankside.monitor.acoustics.calibration`.
 
 References
 ----------
 A. N. Tikhonov and V. Y. Arsenin, *Solutions of Ill-Posed Problems*, Winston, 1977.
+N. Wiener, *Extrapolation, Interpolation, and Smoothing of Stationary Time Series*,
+MIT Press, 1949 (the weights ``S / (S + N)``).
 K. A. Wear et al., "Improved measurement of acoustic output using complex deconvolution
 of hydrophone sensitivity", IEEE Trans. Ultrason. Ferroelectr. Freq. Control 61 (1),
 62-75 (2014).
@@ -41,7 +52,7 @@ from .settings import ConversionSettings
 def loaded_sensitivity(calibration: Calibration, loading: Loading,
                        freqs_hz: np.ndarray) -> np.ndarray:
     """Complex loaded sensitivity ``M_L`` at ``freqs_hz``, V/Pa; NaN outside the band."""
-    return calibration.interpolate(freqs_hz) * loading.factor(freqs_hz)
+    return calibration.interpolate(freqs_hz) * loading.factor(freqs_hz, calibration.load)
 
 
 def deconvolution_band_hz(calibration: Calibration,
@@ -129,6 +140,8 @@ class Plan:
         Its magnitude.
     band_hz : tuple of float
         Deconvolution band, Hz.
+    window : numpy.ndarray
+        The band window ``W`` (0..1) the inverse includes.
     """
 
     n: int
@@ -139,6 +152,7 @@ class Plan:
     inverse_pa_per_v: np.ndarray
     inverse_abs_pa_per_v: np.ndarray
     band_hz: tuple[float, float]
+    window: np.ndarray
 
 
 def make_plan(calibration: Calibration, loading: Loading, settings: ConversionSettings,
@@ -160,9 +174,9 @@ def make_plan(calibration: Calibration, loading: Loading, settings: ConversionSe
         reference_v_per_pa = regularisation_reference_v_per_pa(np.abs(sens[inside]))
     inverse = inverse_filter(sens, window, settings.regularisation, reference_v_per_pa)
     arrays = (freqs, sens, np.abs(sens), inverse, np.abs(inverse))
-    for a in arrays:
+    for a in (*arrays, window):
         a.setflags(write=False)
-    return Plan(n, float(dt_s), *arrays, (lo, hi))
+    return Plan(n, float(dt_s), *arrays, (lo, hi), window)
 
 
 def deconvolve(voltage_v: np.ndarray, plan: Plan) -> tuple[np.ndarray, np.ndarray]:
@@ -184,3 +198,165 @@ def deconvolve(voltage_v: np.ndarray, plan: Plan) -> tuple[np.ndarray, np.ndarra
 def narrowband_pressure(voltage_v: np.ndarray, sensitivity_at_awf_v_per_pa: float) -> np.ndarray:
     """Narrowband approximation: ``p = v / |M_L(f_awf)|`` (IEC 62127-1)."""
     return voltage_v / sensitivity_at_awf_v_per_pa
+
+
+#: The gated spectrum is zero-padded to at least this many times the gate (to the next
+#: power of two; at most the record's length), so the -3 dB points of f_awf are
+#: interpolated between close bins.
+GATE_PADDING = 3
+
+
+@dataclass(frozen=True, eq=False)
+class GatedSpectrum:
+    """The spectrum of the gated part of a record, zero-padded (arrays read-only).
+
+    Attributes
+    ----------
+    freqs_hz : numpy.ndarray
+        ``rfftfreq(nfft, dt_s)``, Hz.
+    spectrum : numpy.ndarray
+        ``rfft(gated, nfft)`` (complex, unscaled).
+    samples : int
+        Samples in the gate (before padding).
+    padding : float
+        ``nfft / samples``: neighbouring bins closer than this are not independent.
+    """
+
+    freqs_hz: np.ndarray
+    spectrum: np.ndarray
+    samples: int
+    padding: float
+
+
+def gated_length(samples: int, record_samples: int) -> int:
+    """FFT length for a gate of ``samples``: the power of two at or above ``GATE_PADDING``
+    times it, but no more than the record's fast length and never less than the gate."""
+    nfft = 1 << (GATE_PADDING * samples - 1).bit_length()
+    if nfft > record_samples:
+        nfft = scipy.fft.next_fast_len(max(samples, record_samples), real=True)
+    return nfft
+
+
+def gated_spectrum(gated: np.ndarray, dt_s: float, record_samples: int, *,
+                   freqs_hz: np.ndarray | None = None) -> GatedSpectrum:
+    """``rfft`` of a gated stretch, zero-padded to :func:`gated_length` (``freqs_hz``: its
+    ``rfftfreq`` grid when the caller keeps it)."""
+    m = gated.shape[0]
+    nfft = gated_length(m, record_samples)
+    spec = scipy.fft.rfft(gated, nfft, workers=1)
+    if freqs_hz is None or freqs_hz.shape[0] != spec.shape[0]:
+        freqs_hz = np.arange(spec.shape[0]) * (1.0 / (nfft * dt_s))
+    return GatedSpectrum(freqs_hz, spec, m, nfft / m)
+
+
+def box_smooth(x: np.ndarray, width: int) -> np.ndarray:
+    """Moving mean over ``width`` (odd) neighbouring values; zeros assumed beyond the ends
+    (so the end bins read low, the safe side for a signal-to-noise test)."""
+    if width <= 1:
+        return x
+    return np.convolve(x, np.full(width, 1.0 / width), mode="same")
+
+
+@dataclass(frozen=True, eq=False)
+class NoiseWeights:
+    """Per-trace deconvolution weights from the measured noise (arrays read-only).
+
+    Attributes
+    ----------
+    weights : numpy.ndarray
+        Weights 0..1 on the record's ``rfftfreq`` grid (the inverse filter is multiplied
+        by them).
+    gate_weights : numpy.ndarray
+        The same weights on the gated spectrum's grid.
+    band_hz : tuple of float
+        Lowest and highest frequency at which the gated voltage spectrum stands
+        ``band_snr_db`` above the noise, Hz.
+    share_outside : float
+        Share of the gated voltage's above-noise energy outside the calibrated band.
+    bins : (int, int)
+        ``[k0, k1)``: the record's bins outside which ``weights`` are 0.
+    """
+
+    weights: np.ndarray
+    gate_weights: np.ndarray
+    band_hz: tuple[float, float]
+    share_outside: float
+    bins: tuple[int, int]
+
+
+def noise_weights(gated: GatedSpectrum, noise_v2: np.ndarray | float, freqs_hz: np.ndarray,
+                  calibrated_band_hz: tuple[float, float], *,
+                  band_snr_db: float, taper_octaves: float) -> NoiseWeights | None:
+    """Wiener-type weights for one trace from its gated voltage spectrum and its noise.
+
+    ``SNR(f) = P(f) / (m S(f)) - 1``, ``P`` the gated power spectrum smoothed over three
+    independent bins, ``m`` the gate's length and ``S`` the noise variance density; the
+    weight is ``SNR / (1 + SNR)`` (0 where SNR <= 0) inside the band from the lowest to the
+    highest frequency with ``SNR >= band_snr_db``, tapered to 0 over ``taper_octaves``
+    outside each edge, and 0 beyond.
+
+    Parameters
+    ----------
+    gated : GatedSpectrum
+        Of the gated voltage with the baseline removed.
+    noise_v2 : numpy.ndarray or float
+        The noise variance density ``S`` on ``gated.freqs_hz`` (white noise of RMS sigma:
+        sigma^2, which may be given as one number), V^2; see
+        :meth:`NoiseEstimate.variance_density`.
+    freqs_hz : numpy.ndarray
+        The record's ``rfftfreq(n, dt_s)`` grid, Hz: ``weights`` are returned on it.
+    calibrated_band_hz : (float, float)
+        For ``share_outside``.
+    band_snr_db, taper_octaves : float
+        See :class:`ConversionSettings`.
+
+    Returns
+    -------
+    NoiseWeights, or None when no frequency stands ``band_snr_db`` above the noise.
+    """
+    spec, fg = gated.spectrum, gated.freqs_hz
+    power = np.abs(spec)
+    power *= power
+    width = 2 * int(math.ceil(1.5 * gated.padding)) + 1       # three independent bins
+    smooth = box_smooth(power, width)
+    expected = gated.samples * noise_v2
+    signal = smooth - expected                               # the pulse's power, estimated
+    np.maximum(signal, 0.0, out=signal)
+    wg = signal / (smooth + _TINY)                           # SNR / (1 + SNR)
+    above = np.flatnonzero(smooth >= (1.0 + 10.0 ** (band_snr_db / 10.0)) * expected)
+    if above.size == 0:
+        return None
+    dg = float(fg[1])
+    i_lo, i_hi = int(above[0]), int(above[-1])
+    lo, hi = i_lo * dg, i_hi * dg
+    ratio_t = 2.0 ** taper_octaves
+    lo_t, hi_t = lo / ratio_t, hi * ratio_t
+    # the outer tapers, applied on the few bins they cover
+    j0 = int(math.ceil(lo_t / dg))
+    wg[:j0] = 0.0
+    if i_lo > j0:
+        f = fg[j0:i_lo]
+        wg[j0:i_lo] *= 0.5 - 0.5 * np.cos(np.pi * (f - lo_t) / (lo - lo_t))
+    j1 = min(int(math.floor(hi_t / dg)) + 1, fg.shape[0])
+    if j1 > i_hi + 1:
+        f = fg[i_hi + 1:j1]
+        wg[i_hi + 1:j1] *= 0.5 + 0.5 * np.cos(np.pi * (f - hi) / (hi_t - hi))
+    wg[j1:] = 0.0
+    df = float(freqs_hz[1])
+    k0 = max(0, int(math.ceil(lo_t / df)))
+    k1 = min(freqs_hz.shape[0], int(math.floor(hi_t / df)) + 1)
+    weights = np.zeros(freqs_hz.shape[0])
+    weights[k0:k1] = np.interp(freqs_hz[k0:k1], fg, wg)
+    weights.setflags(write=False)
+    wg.setflags(write=False)
+    # above-noise energy in and outside the calibrated band
+    total = float(signal.sum())
+    c_lo, c_hi = calibrated_band_hz
+    b0 = min(int(math.ceil(c_lo / dg)), fg.shape[0])
+    b1 = min(int(math.floor(c_hi / dg)) + 1, fg.shape[0])
+    outside = total - float(signal[b0:b1].sum())
+    return NoiseWeights(weights, wg, (lo, hi), outside / total if total > 0 else 0.0,
+                        (k0, max(k0, k1)))
+
+
+_TINY = 1e-300      # keeps 0 / 0 out of the weights where the spectrum is exactly zero

@@ -38,7 +38,7 @@ class SensitivityCurve:
     def build(cls, calibration: Calibration, loading: Loading) -> SensitivityCurve:
         lo, hi = calibration.band_hz
         grid = np.union1d(np.linspace(lo, hi, _PROFILE_POINTS), calibration.frequency_hz)
-        mag = np.abs(calibration.interpolate(grid) * loading.factor(grid))
+        mag = np.abs(calibration.interpolate(grid) * loading.factor(grid, calibration.load))
         with np.errstate(divide="ignore"):
             level = 20.0 * np.log10(mag)
         grid.setflags(write=False)
@@ -128,10 +128,10 @@ def narrowband_check(awf_hz: float, profile: SensitivityCurve,
     cal_lo, cal_hi = profile.band_hz
     covered = cal_lo <= lo and hi <= cal_hi
     a, b = max(lo, cal_lo), min(hi, cal_hi)
-    ref = profile.level_at_db(awf_hz)
     f, level = profile.freqs_hz, profile.level_db
+    ref, at_a, at_b = np.interp((awf_hz, a, b), f, level).tolist()
     i, j = int(f.searchsorted(a, side="right")), int(f.searchsorted(b, side="left"))
-    dev = max(abs(profile.level_at_db(a) - ref), abs(profile.level_at_db(b) - ref))
+    dev = max(abs(at_a - ref), abs(at_b - ref))
     if j > i:
         inner = level[i:j]
         dev = max(dev, float(inner.max()) - ref, ref - float(inner.min()))

@@ -86,6 +86,44 @@ def robust_sigma(values) -> float:
     return float(MAD_TO_SIGMA * np.median(np.abs(x - np.median(x))))
 
 
+def edge_noise(v: np.ndarray, edge_fraction: float = DEFAULT_EDGE_FRACTION,
+               *, max_samples: int | None = None) -> tuple[float, float]:
+    """Median and robust sigma of the quieter end of a record (V, or the trace's unit).
+
+    The first and last ``edge_fraction`` of the record (each at least 16 samples, and at
+    most ``max_samples`` when given, taken from the outer end) are each reduced to
+    :func:`robust_sigma`; the edge with the smaller sigma gives both figures. A record too
+    short for two such edges is estimated as a whole. This is the one noise estimate the
+    pulse-presence test and the converter's first look at a trace share.
+
+    Returns
+    -------
+    median, sigma : float
+        ``median`` of the quieter edge and its ``1.4826 * MAD``.
+    """
+    edge = max(MIN_EDGE_SAMPLES, int(round(edge_fraction * v.size)))
+    if max_samples is not None:
+        edge = min(edge, max(MIN_EDGE_SAMPLES, max_samples))
+    if 2 * edge > v.size:
+        return float(np.median(v)), robust_sigma(v)
+    m_head, s_head = _median_and_sigma(v[:edge])
+    m_tail, s_tail = _median_and_sigma(v[-edge:])
+    return (m_head, s_head) if s_head <= s_tail else (m_tail, s_tail)
+
+
+def _median_and_sigma(x: np.ndarray) -> tuple[float, float]:
+    """``median(x)`` and ``1.4826 * MAD``, by two sorts (as :func:`numpy.median`: the mean
+    of the two middle values for an even count; the short edges sort faster than
+    :func:`numpy.median` dispatches)."""
+    m = x.shape[0]
+    k = m // 2
+    srt = np.sort(x)
+    med = float(srt[k]) if m % 2 else 0.5 * float(srt[k - 1] + srt[k])
+    dev = np.sort(np.abs(x - med))
+    mad = float(dev[k]) if m % 2 else 0.5 * float(dev[k - 1] + dev[k])
+    return med, MAD_TO_SIGMA * mad
+
+
 def pulse_presence(voltage_v, *, factor: float = DEFAULT_FACTOR,
                    edge_fraction: float = DEFAULT_EDGE_FRACTION,
                    resolution_v: float = 0.0) -> PulsePresence:
@@ -133,12 +171,7 @@ def pulse_presence(voltage_v, *, factor: float = DEFAULT_FACTOR,
     if not (np.isfinite(resolution_v) and resolution_v >= 0):
         raise ValueError(f"resolution_v must be a finite number >= 0 V, got {resolution_v!r}")
     peak_v = float(np.max(np.abs(v - np.median(v))))
-    edge = max(MIN_EDGE_SAMPLES, int(round(edge_fraction * v.size)))
-    if 2 * edge > v.size:
-        sigma_v = robust_sigma(v)
-    else:
-        sigma_v = min(robust_sigma(v[:edge]), robust_sigma(v[-edge:]))
-    sigma_v = max(sigma_v, resolution_v / np.sqrt(12.0))
+    sigma_v = max(edge_noise(v, edge_fraction)[1], resolution_v / np.sqrt(12.0))
     threshold_v = factor * sigma_v
     if sigma_v > 0:
         ratio = peak_v / sigma_v

@@ -48,12 +48,23 @@ class PulseParameters:
     pulse_end_s: float
 
 
-def awf_spectrum_hz(freqs_hz: np.ndarray, magnitude: np.ndarray) -> float:
+def awf_spectrum_hz(freqs_hz: np.ndarray, magnitude: np.ndarray, *,
+                    blend_db: float = 0.0) -> float:
     """Acoustic working frequency from a magnitude spectrum: mean of the -3 dB frequencies.
 
-    ``f1`` is the lowest and ``f2`` the highest frequency, no higher than ``3 f1``, at
-    which the magnitude is 3 dB below its peak (linear interpolation between bins). The
-    0 Hz bin is ignored.
+    The rule of IEC 62127-1 (arithmetic-mean acoustic working frequency): ``f1`` and
+    ``f2`` are the most widely separated frequencies, ``f2`` within ``3 f1``, at which the
+    magnitude is 3 dB below its peak; ``f_awf = (f1 + f2) / 2``. Crossings are
+    interpolated linearly between bins; the 0 Hz bin is ignored; the limit is never below
+    the peak itself.
+
+    With several humps above the threshold the rule jumps when a secondary hump's top
+    crosses -3 dB. With ``blend_db > 0`` a hump whose top lies between -3 dB and
+    ``-3 + blend_db`` dB moves ``f1`` (or ``f2``) towards its own crossing in proportion to
+    how far its top stands above -3 dB, so the result is continuous in the spectrum; humps
+    higher than that count fully, exactly as in the standard, and lower ones not at all.
+    Humps are taken from the peak's own outwards, so a fully counted farther hump still
+    sets the widest crossing.
 
     Parameters
     ----------
@@ -61,6 +72,8 @@ def awf_spectrum_hz(freqs_hz: np.ndarray, magnitude: np.ndarray) -> float:
         Uniform frequency grid from 0 Hz (as from ``numpy.fft.rfftfreq``), Hz.
     magnitude : numpy.ndarray
         Spectrum magnitude on ``freqs_hz`` (any unit).
+    blend_db : float, keyword-only
+        Width of the blending band above -3 dB, dB (0: the plain threshold).
 
     Returns
     -------
@@ -69,9 +82,11 @@ def awf_spectrum_hz(freqs_hz: np.ndarray, magnitude: np.ndarray) -> float:
 
     References
     ----------
-    IEC 62127-1, definition of acoustic working frequency (spectrum method, -3 dB).
+    IEC 62127-1, definition of acoustic working frequency (arithmetic-mean frequency of
+    the -3 dB points of the pressure spectrum, f2 no higher than 3 f1); recalled from the
+    standard's wording as commonly quoted.
     """
-    mag = magnitude[1:]
+    mag = np.asarray(magnitude)[1:]
     if mag.size == 0:
         raise UnusableTraceError("trace too short for a spectrum")
     k = int(mag.argmax())
@@ -80,27 +95,63 @@ def awf_spectrum_hz(freqs_hz: np.ndarray, magnitude: np.ndarray) -> float:
         raise UnusableTraceError("the spectrum is zero or not finite")
     thr = peak * _SQRT_HALF
     df = float(freqs_hz[1] - freqs_hz[0])
-    # lowest -3 dB point: first bin at or above the threshold (the peak is one)
-    above = mag >= thr
-    i1 = int(above.argmax())
-    f1 = (i1 + 1) * df
-    if i1 > 0:
-        f1 -= df * (mag[i1] - thr) / (mag[i1] - mag[i1 - 1])
-    lim = min(mag.size, int(3.0 * f1 / df))   # bins with frequency <= 3 f1
-    lim = max(lim, k + 1)
-    i2 = lim - 1 - int(above[lim - 1::-1].argmax())
-    f2 = (i2 + 1) * df
-    if i2 + 1 < mag.size and mag[i2 + 1] < thr:
-        f2 += df * (mag[i2] - thr) / (mag[i2] - mag[i2 + 1])
+    idx = np.flatnonzero(mag >= thr)
+    if int(idx[-1]) - int(idx[0]) + 1 == idx.shape[0]:      # one hump (the usual case)
+        starts, stops = idx[:1], idx[-1:] + 1                # humps: bins [start, stop)
+        tops = mag[k:k + 1]
+        main = 0
+    else:
+        breaks = np.flatnonzero(idx[1:] - idx[:-1] > 1)
+        starts = idx[np.concatenate(([0], breaks + 1))]
+        stops = idx[np.concatenate((breaks, [idx.shape[0] - 1]))] + 1
+        tops = np.maximum.reduceat(mag, starts)
+        main = int(np.searchsorted(starts, k, side="right")) - 1
+
+    def lower(i):
+        s = int(starts[i])
+        f = (s + 1) * df
+        return f - df * (mag[s] - thr) / (mag[s] - mag[s - 1]) if s > 0 else f
+
+    def upper(i, last):
+        e = int(min(stops[i] - 1, last))
+        f = (e + 1) * df
+        if e + 1 < mag.size and mag[e + 1] < thr:
+            f += df * (mag[e] - thr) / (mag[e] - mag[e + 1])
+        return f
+
+    def weight(top):
+        if blend_db <= 0:
+            return 1.0
+        return min(max(20.0 * math.log10(top / thr) / blend_db, 0.0), 1.0)
+
+    f1 = lower(main)
+    for i in range(main - 1, -1, -1):
+        f1 += weight(float(tops[i])) * (lower(i) - f1)
+    last = max(min(mag.size, int(3.0 * f1 / df)) - 1, k)   # bins with frequency <= 3 f1
+    f2 = upper(main, last)
+    for i in range(main + 1, starts.size):
+        if starts[i] > last:
+            break
+        top = float(mag[starts[i]:min(stops[i], last + 1)].max())
+        f2 += weight(top) * (upper(i, last) - f2)
     return float(0.5 * (f1 + f2))
 
 
 def awf_zero_crossing_hz(pressure_pa: np.ndarray, dt_s: float, start_s: float,
-                         end_s: float) -> float:
+                         end_s: float, *, hysteresis_pa: float = 0.0) -> float:
     """Acoustic working frequency by the zero-crossing method.
 
     The number of half cycles between the first and last zero crossing inside
-    ``[start_s, end_s]`` (times from the first sample), divided by twice that time.
+    ``[start_s, end_s]`` (times from the first sample), divided by twice that time. With
+    ``hysteresis_pa > 0`` a zero crossing counts only between an excursion beyond
+    ``+hysteresis_pa`` and one beyond ``-hysteresis_pa`` (a Schmitt trigger), so noise and
+    ripple near zero add no crossings; the crossing time is the last sign change before
+    the new excursion, interpolated linearly.
+
+    Raises
+    ------
+    UnusableTraceError
+        Fewer than three crossings (less than two half cycles) in the window.
 
     References
     ----------
@@ -112,55 +163,71 @@ def awf_zero_crossing_hz(pressure_pa: np.ndarray, dt_s: float, start_s: float,
     seg = pressure_pa[i0:i1]
     sign = seg < 0
     idx = np.flatnonzero(sign[1:] != sign[:-1])
-    if idx.size < 2:
-        raise UnusableTraceError("fewer than two zero crossings in the pulse: no "
-                                 "zero-crossing acoustic working frequency")
+    if hysteresis_pa > 0 and idx.size:
+        state = np.where(seg > hysteresis_pa, 1, np.where(seg < -hysteresis_pa, -1, 0))
+        nz = np.flatnonzero(state)
+        s = state[nz]
+        turns = nz[1:][s[1:] != s[:-1]]          # first sample of each new excursion
+        # the last sign change before each new excursion
+        idx = idx[np.searchsorted(idx, turns, side="left") - 1]
+    if idx.size < 3:
+        raise UnusableTraceError(f"{idx.size} zero crossing(s) beyond the hysteresis "
+                                 f"({hysteresis_pa:.3g} Pa) in the pulse: too few half "
+                                 "cycles for the zero-crossing acoustic working frequency")
     a, b = seg[idx], seg[idx + 1]
     times = (i0 + idx + a / (a - b)) * dt_s
     return float((idx.size - 1) / (2.0 * (times[-1] - times[0])))
 
 
-def pulse_bounds_s(pressure_pa: np.ndarray, dt_s: float) -> tuple[float, float, float]:
-    """Times at 10 % and 90 % of the cumulative integral of p^2, and that integral.
+def pulse_bounds_s(pressure_pa: np.ndarray, dt_s: float, *, start: int = 0,
+                   stop: int | None = None,
+                   noise_power_pa2: float = 0.0) -> tuple[float, float, float]:
+    """Times at 10 % and 90 % of the running integral of p^2 over a gate, and that integral.
+
+    Parameters
+    ----------
+    pressure_pa : numpy.ndarray
+        Pressure, Pa, time step ``dt_s`` (s).
+    start, stop : int, keyword-only
+        The gate, sample indices ``[start, stop)`` (default: the whole record).
+    noise_power_pa2 : float, keyword-only
+        Mean square of the noise in the pressure, Pa^2: subtracted from every sample's
+        ``p^2`` so the integral is that of the pulse alone (its expected value).
 
     Returns
     -------
     t10_s, t90_s : float
-        From the first sample, s (linear interpolation of the running integral).
+        From the first sample of the record, s (linear interpolation of the running
+        integral; the first time each level is reached).
     energy_pa2_s : float
-        ``int p^2 dt``, Pa^2 s.
+        ``int (p^2 - noise) dt`` over the gate, Pa^2 s.
     """
-    sq = pressure_pa * pressure_pa
-    n = sq.shape[0]
-    # running sums by blocks: a full cumsum is the slowest step of the parameters
-    cum_blocks = np.add.reduceat(sq, np.arange(0, n, _BLOCK)).cumsum()
-    total = float(cum_blocks[-1])
+    seg = pressure_pa[start:stop]
+    sq = seg * seg
+    if noise_power_pa2 > 0:
+        sq -= noise_power_pa2
+    cum = np.cumsum(sq)
+    total = float(cum[-1]) if cum.size else 0.0
     if not (total > 0 and math.isfinite(total)):
+        if noise_power_pa2 > 0 and math.isfinite(total):
+            raise UnusableTraceError("the pulse energy in the gate is not above the noise")
         raise UnusableTraceError("the pressure is zero or not finite everywhere")
-    t10 = _crossing(sq, cum_blocks, 0.1 * total)
-    t90 = _crossing(sq, cum_blocks, 0.9 * total)
-    return t10 * dt_s, t90 * dt_s, total * dt_s
+    t10 = _crossing(cum, 0.1 * total)
+    t90 = _crossing(cum, 0.9 * total)
+    return (start + t10) * dt_s, (start + t90) * dt_s, total * dt_s
 
 
-_BLOCK = 64
-
-
-def _crossing(sq: np.ndarray, cum_blocks: np.ndarray, target: float) -> float:
-    """Fractional sample index where the running sum of ``sq`` reaches ``target``.
+def _crossing(cum: np.ndarray, target: float) -> float:
+    """Fractional sample index where the running sum ``cum`` first reaches ``target``.
 
     The running sum after sample k is the integral up to the end of that sample's
     interval, at time (k + 0.5) dt; it is interpolated linearly within the interval.
     """
-    b = min(int(cum_blocks.searchsorted(target)), cum_blocks.size - 1)
-    before = float(cum_blocks[b - 1]) if b > 0 else 0.0
-    start = b * _BLOCK
-    inner = sq[start:start + _BLOCK].cumsum()
-    inner += before
-    i = min(int(inner.searchsorted(target)), inner.size - 1)
-    prev = float(inner[i - 1]) if i > 0 else before
-    step = float(inner[i]) - prev
+    i = int(np.argmax(cum >= target))
+    prev = float(cum[i - 1]) if i > 0 else 0.0
+    step = float(cum[i]) - prev
     frac = (target - prev) / step if step > 0 else 0.0
-    return start + i - 0.5 + min(max(frac, 0.0), 1.0)
+    return i - 0.5 + min(max(frac, 0.0), 1.0)
 
 
 def derated_pa(pressure_pa: float, frequency_hz: float, depth_m: float,
@@ -181,7 +248,9 @@ def mechanical_index(peak_rarefactional_pa: float, frequency_hz: float) -> float
 def pulse_parameters(pressure_pa: np.ndarray, dt_s: float, acoustic_working_frequency_hz: float,
                      *, impedance_rayl: float, derating_depth_m: float = 0.0,
                      derating_db_per_cm_mhz: float = 0.3,
-                     bounds: tuple[float, float, float] | None = None) -> PulseParameters:
+                     bounds: tuple[float, float, float] | None = None,
+                     gate: tuple[int, int] | None = None,
+                     noise_power_pa2: float = 0.0) -> PulseParameters:
     """All pulse parameters of one pressure waveform, given its acoustic working frequency.
 
     Parameters
@@ -195,12 +264,24 @@ def pulse_parameters(pressure_pa: np.ndarray, dt_s: float, acoustic_working_freq
     derating_depth_m, derating_db_per_cm_mhz : float
         Derating of p_r for the mechanical index.
     bounds : tuple of float, optional
-        ``pulse_bounds_s(pressure_pa, dt_s)`` when the caller has it already (the
-        zero-crossing f_awf needs the same window), so it is not searched again.
+        ``pulse_bounds_s(...)`` for the same gate and noise when the caller has it
+        already (the zero-crossing f_awf needs the same window), so it is not searched
+        again.
+    gate : (int, int), optional
+        Sample range ``[start, stop)`` of the pulse (default: the whole record). Peaks,
+        PII, pulse duration and pulse-average intensity are taken inside it.
+    noise_power_pa2 : float
+        Mean square of the noise in the pressure, Pa^2, subtracted inside the gate from
+        the integral of p^2 (PII and the 10 %/90 % times).
     """
-    t10, t90, energy = pulse_bounds_s(pressure_pa, dt_s) if bounds is None else bounds
-    p_c = float(pressure_pa.max())
-    p_r = max(0.0, -float(pressure_pa.min()))
+    start, stop = (0, pressure_pa.shape[0]) if gate is None else gate
+    if bounds is None:
+        bounds = pulse_bounds_s(pressure_pa, dt_s, start=start, stop=stop,
+                                noise_power_pa2=noise_power_pa2)
+    t10, t90, energy = bounds
+    seg = pressure_pa[start:stop]
+    p_c = float(seg.max())
+    p_r = max(0.0, -float(seg.min()))
     pii = energy / impedance_rayl
     duration = 1.25 * (t90 - t10)
     centre = 0.5 * (t10 + t90)

@@ -8,13 +8,14 @@ import json
 from ..acoustics.calibration import load_calibration
 from ..acoustics.converter import Converter, TraceResult
 from ..acoustics.loading import Loading
-from ..acoustics.settings import AwfMethod, ConversionSettings, Method
+from ..acoustics.settings import AwfMethod, ConversionSettings, Method, Weighting
 from ..record.tracefile import read_trace, write_pressure
 from .options import (
     add_calibration_check_options,
     add_loading_options,
     calibration_checks,
     loading_overrides,
+    number,
 )
 
 
@@ -33,8 +34,9 @@ def add_parser(subparsers) -> None:
                         "sensitivity_db_re_1v_per_upa, optional phase_deg or phase_rad)")
     add_calibration_check_options(p)
     p.add_argument("--method", choices=[m.value for m in Method], default=Method.AUTO.value,
-                   help="deconvolve, narrowband, or auto: narrowband only when the narrowband "
-                        "check passes (default: auto)")
+                   help="deconvolve, narrowband, or auto: deconvolve whenever the calibration "
+                        "has a measured phase, else narrowband only when the narrowband check "
+                        "passes (default: auto)")
     p.add_argument("--json", action="store_true",
                    help="print one JSON object (SI units) instead of a table")
     p.add_argument("--out", metavar="PRESSURE.csv",
@@ -42,21 +44,38 @@ def add_parser(subparsers) -> None:
     add_loading_options(p, title="electrical loading (for an open-circuit calibration) and water")
     d = ConversionSettings()
     r = p.add_argument_group("deconvolution and parameters")
-    r.add_argument("--band-low", metavar="HZ", type=float,
+    r.add_argument("--band-low", metavar="HZ", type=number(low=0.0, high=1e11),
                    help="lower edge of the deconvolution band, Hz (default: calibration's lowest)")
-    r.add_argument("--band-high", metavar="HZ", type=float,
+    r.add_argument("--band-high", metavar="HZ", type=number(low=0.0, low_open=True, high=1e11),
                    help="upper edge of the deconvolution band, Hz (default: calibration's highest)")
-    r.add_argument("--taper-octaves", metavar="OCT", type=float, default=d.taper_octaves,
+    r.add_argument("--taper-octaves", metavar="OCT", type=number(low=0.0, high=10.0),
+                   default=d.taper_octaves,
                    help=f"raised-cosine taper inside each band edge, octaves "
                         f"(default {d.taper_octaves:g})")
-    r.add_argument("--regularisation", metavar="EPS", type=float, default=d.regularisation,
+    r.add_argument("--regularisation", metavar="EPS", type=number(low=0.0, high=1e3),
+                   default=d.regularisation,
                    help="Tikhonov weight relative to the median sensitivity in the band "
                         f"(default {d.regularisation:g}; 0: plain division)")
+    r.add_argument("--weighting", choices=[w.value for w in Weighting], default=d.weighting,
+                   help="noise: per-trace weights from the trace's own signal-to-noise "
+                        "spectrum, nothing passed where there is only noise; none: the fixed "
+                        "band alone (default noise)")
+    r.add_argument("--band-snr", metavar="DB", type=number(low=0.0, high=100.0),
+                   default=d.band_snr_db,
+                   help="the noise band spans where the gated spectrum stands this far above "
+                        f"the noise, dB (default {d.band_snr_db:g})")
+    r.add_argument("--gate", metavar=("START", "END"), type=number(low=-1e3, high=1e3), nargs=2,
+                   help="pulse gate, s from the first sample of the trace (default: found "
+                        "around the strongest arrival)")
+    r.add_argument("--low-snr", metavar="DB", type=number(low=-100.0, high=1000.0),
+                   default=d.low_snr_db,
+                   help="warn (low_snr) below this peak-to-noise ratio, dB "
+                        f"(default {d.low_snr_db:g})")
     r.add_argument("--awf-method", choices=[m.value for m in AwfMethod],
                    default=d.awf_method.value,
                    help="acoustic working frequency from the -3 dB points of the spectrum, or "
                         "by zero crossings (default spectrum)")
-    r.add_argument("--depth", metavar="M", type=float, default=0.0,
+    r.add_argument("--depth", metavar="M", type=number(low=0.0, high=10.0), default=0.0,
                    help="depth for derating p_r in the mechanical index, m (default 0: none)")
     p.set_defaults(func=run)
 
@@ -65,10 +84,13 @@ def run(args: argparse.Namespace) -> int:
     calibration = load_calibration(args.calibration, **calibration_checks(args))
     loading = Loading(**loading_overrides(args))
     temperature_c = 20.0 if args.water_temperature is None else args.water_temperature
+    gate = (None, None) if args.gate is None else tuple(args.gate)
     settings = ConversionSettings(method=args.method, band_low_hz=args.band_low,
                                   band_high_hz=args.band_high, taper_octaves=args.taper_octaves,
                                   regularisation=args.regularisation, awf_method=args.awf_method,
-                                  derating_depth_m=args.depth)
+                                  derating_depth_m=args.depth, weighting=args.weighting,
+                                  band_snr_db=args.band_snr, gate_start_s=gate[0],
+                                  gate_end_s=gate[1], low_snr_db=args.low_snr)
     voltage, dt_s, t0_s = read_trace(args.trace)
     result = Converter(calibration, loading, settings, temperature_c).process(voltage, dt_s)
     if args.out:
@@ -85,6 +107,8 @@ def run(args: argparse.Namespace) -> int:
 def format_table(result: TraceResult) -> str:
     """The readable form of a result, with units."""
     p, nb, w = result.parameters, result.narrowband, result.water
+    gate = result.gate
+    band = result.passband_hz
     rows = [
         ("method", result.method, ""),
         ("peak-compressional pressure", f"{p.peak_compressional_pa / 1e6:.4g}", "MPa"),
@@ -93,7 +117,15 @@ def format_table(result: TraceResult) -> str:
         ("pulse-intensity integral", f"{p.pulse_intensity_integral_j_per_m2:.4g}", "J/m^2"),
         ("pulse duration", f"{p.pulse_duration_s * 1e6:.4g}", "us"),
         ("pulse-average intensity", f"{p.pulse_average_intensity_w_per_m2 / 1e4:.4g}", "W/cm^2"),
-        ("mechanical index", f"{p.mechanical_index:.3g}", ""),
+        ("mechanical index", f"{p.mechanical_index:.3g}",
+         "(not derated)" if result.derating_depth_m is None
+         else f"(derated for {result.derating_depth_m:g} m)"),
+        ("peak voltage over noise", f"{result.snr_db:.1f}", "dB"),
+        ("pulse gate", "" if gate is None else
+         f"{gate.start_s * 1e6:.4g}-{gate.end_s * 1e6:.4g}"
+         f"{'' if gate.automatic else ' (as set)'}", "us"),
+        ("passband", "none" if band is None else f"{band[0] / 1e6:.4g}-{band[1] / 1e6:.4g}",
+         "" if band is None else "MHz"),
         ("water", f"{w.temperature_c:g} degC, {w.density_kg_per_m3:.2f} kg/m^3, "
                   f"{w.sound_speed_m_per_s:.1f} m/s", ""),
         ("narrowband check", f"{'pass' if nb.ok else 'fail'}: {nb.reason}", ""),
@@ -101,5 +133,7 @@ def format_table(result: TraceResult) -> str:
         ("  worst deviation", f"{nb.max_deviation_db:.2f}", "dB"),
         ("phase", result.phase_source, ""),
     ]
+    for warning in result.warnings:
+        rows.append(("warning", f"{warning.code}: {warning.message}", ""))
     width = max(len(r[0]) for r in rows)
     return "\n".join(f"{name:<{width}}  {value} {unit}".rstrip() for name, value, unit in rows)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import math
 from collections.abc import Callable
+from typing import Any
 
 from ..errors import ConfigError
 
@@ -107,9 +108,9 @@ def add_progress_options(parser: argparse.ArgumentParser) -> None:
                      help="never show the progress bar")
 
 
-def loading_overrides(args: argparse.Namespace) -> dict[str, float]:
+def loading_overrides(args: argparse.Namespace) -> dict[str, Any]:
     """The loading fields given on the command line, in SI units (Loading field names)."""
-    out: dict[str, float] = {}
+    out: dict[str, Any] = {}
     if args.hydrophone_capacitance is not None:
         out["hydrophone_capacitance_f"] = args.hydrophone_capacitance * PF
     if args.cable_capacitance is not None:
