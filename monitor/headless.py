@@ -48,7 +48,13 @@ def status_line(snap: Snapshot, alert_count: int | None = None) -> str:
             f"p_r {fmt_si(r.get('peak_rarefactional_pa', math.nan), 'Pa')} MI {mi_txt} | "
             f"{snap.method or '-'} | {nb} | acquired {snap.acquired} converted "
             f"{snap.converted} stored {snap.stored} | queue {snap.queue_depth}/"
-            f"{snap.queue_capacity} | range {fmt_si(snap.range_v, 'V')} | alerts {alerts}")
+            f"{snap.queue_capacity} | range {fmt_si(snap.range_v, 'V')} | alerts {alerts}"
+            f" | doubtful {snap.doubtful_traces}{_last_warnings(snap)}")
+
+
+def _last_warnings(snap: Snapshot) -> str:
+    codes = snap.last_warnings
+    return f" (last: {', '.join(codes)})" if codes else ""
 
 
 def source_text(snap: Snapshot) -> str:

@@ -48,6 +48,9 @@ def fake_result(seq: int) -> dict:
         "water_sound_speed_m_per_s": 1482.3456789012345, "narrowband_ok": bool(seq % 2),
         "narrowband_band_low_hz": float(x[5]), "narrowband_band_high_hz": float(x[6]),
         "narrowband_max_deviation_db": float(x[7]), "phase_source": "measured",
+        "snr_db": float(x[8]), "gate_start_s": float(x[9]), "gate_end_s": float(x[10]),
+        "derating_depth_m": float("nan"),
+        "warnings": '[{"code": "low_snr", "message": "invented"}]',
     }
 
 

@@ -85,6 +85,8 @@ def test_readme_rule_tables_match_code():
         assert meaning == param.meaning, key
         if param.default is None:
             assert default == "unset", key
+        elif isinstance(param.default, tuple):
+            assert default == ", ".join(param.default), key
         else:
             assert float(default) == param.default, key
 

@@ -459,3 +459,18 @@ async def test_live_bench_layout_at_160x48(live):
         assert "session-" in text and ".db" in text
         await pilot.press("q", "q")
     assert session.wait(20)
+
+
+@sync
+async def test_figures_panel_flags_a_doubtful_last_trace():
+    import dataclasses
+
+    fake = started_fake()
+    app = DashboardApp(fake, first_run_notice=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause(0.1)
+        assert "doubtful" not in screen_text(app)
+        fake._snap = dataclasses.replace(fake._snap, seq=fake._snap.seq + 1,
+                                         last_warnings=("low_snr",), doubtful_traces=1)
+        await pilot.pause(0.3)
+        assert "last doubtful: low_snr" in screen_text(app)

@@ -187,7 +187,12 @@ class TestConverter:
             **{f"water_{k}": v for k, v in j["water"].items()},
             "narrowband_ok": nb["ok"], "narrowband_band_low_hz": nb["band_hz"][0],
             "narrowband_band_high_hz": nb["band_hz"][1],
-            "narrowband_max_deviation_db": nb["max_deviation_db"]}
+            "narrowband_max_deviation_db": nb["max_deviation_db"],
+            # inf and "not derated" are null in JSON, NaN-free floats in the flat form
+            "snr_db": r.snr_db, "gate_start_s": j["gate"]["start_s"],
+            "gate_end_s": j["gate"]["end_s"], "derating_depth_m": pytest.approx(float("nan"),
+                                                                            nan_ok=True),
+            "warnings": json.dumps(j["warnings"])}
         assert set(j) == {"method", "peak_compressional_pa", "peak_rarefactional_pa",
                           "acoustic_working_frequency_hz", "pulse_intensity_integral_j_per_m2",
                           "pulse_duration_s", "pulse_average_intensity_w_per_m2",

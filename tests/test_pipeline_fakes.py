@@ -136,7 +136,7 @@ class FakeConverter:
         self.method = method
         self.refuse_above_v = refuse_above_v
 
-    def process(self, voltage_v, dt_s):
+    def process(self, voltage_v, dt_s, *, resolution_v=None):
         if np.max(np.abs(voltage_v)) < 1e-4:
             raise OutOfBandError("no signal: acoustic working frequency undefined")
         if self.refuse_above_v is not None and np.max(np.abs(voltage_v)) > self.refuse_above_v:
@@ -413,7 +413,7 @@ class TestFaults:
     def test_a_numeric_error_is_one_bad_trace_not_the_end(self, tmp_path, error, capsys):
         # an overflowing calibration value once ended the session at once: 0 traces stored
         class Overflowing(FakeConverter):
-            def process(self, voltage_v, dt_s):
+            def process(self, voltage_v, dt_s, *, resolution_v=None):
                 if np.max(np.abs(voltage_v)) > 0.07:
                     raise error
                 return super().process(voltage_v, dt_s)
@@ -462,7 +462,7 @@ class TestFaults:
     def test_a_bug_in_processing_is_an_internal_error_not_an_instrument_failure(
             self, tmp_path, capsys):
         class BuggyConverter(FakeConverter):
-            def process(self, voltage_v, dt_s):
+            def process(self, voltage_v, dt_s, *, resolution_v=None):
                 raise RuntimeError("a bug in the chain")
 
         s = run(make_session(tmp_path, Scene(), max_traces=None, converter=BuggyConverter()))

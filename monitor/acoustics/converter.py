@@ -30,6 +30,7 @@ One trace, in order:
 
 from __future__ import annotations
 
+import json
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field, fields
@@ -136,7 +137,31 @@ RESULT_FIELDS: tuple[ResultField, ...] = (
                 lambda r: r.narrowband.max_deviation_db),
     ResultField("phase_source", "", "str",
                 "phase of the calibration: measured or minimum-phase", lambda r: r.phase_source),
+    ResultField("snr_db", "dB", "float64",
+                "peak voltage in the pulse gate over the noise RMS of the quiet record",
+                lambda r: r.snr_db),
+    ResultField("gate_start_s", "s", "float64",
+                "start of the pulse gate, from the first sample of the record",
+                lambda r: math.nan if r.gate is None else r.gate.start_s),
+    ResultField("gate_end_s", "s", "float64",
+                "end of the pulse gate (its last sample), from the first sample",
+                lambda r: math.nan if r.gate is None else r.gate.end_s),
+    ResultField("derating_depth_m", "m", "float64",
+                "depth the mechanical index is derated to (NaN: not derated)",
+                lambda r: math.nan if r.derating_depth_m is None else r.derating_depth_m),
+    ResultField("warnings", "", "str",
+                "why a number may be doubtful: JSON list of {code, message}, [] when none",
+                lambda r: json.dumps([w.as_dict() for w in r.warnings])),
 )
+
+
+def warning_codes(flat: dict) -> tuple[str, ...]:
+    """The warning codes of a flat result (its ``warnings`` JSON), () when none or unreadable."""
+    try:
+        items = json.loads(flat.get("warnings") or "[]")
+        return tuple(str(w["code"]) for w in items)
+    except (TypeError, ValueError, KeyError):
+        return ()
 
 # the pulse parameters among them, straight from the result as in its JSON form
 _PARAMETER_KEYS = tuple(f.name for f in RESULT_FIELDS

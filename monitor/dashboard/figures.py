@@ -48,7 +48,11 @@ class RunningFigures(LinePanel):
     def show(self, snap: Snapshot) -> None:
         self._figures = snap.figures
         counts = [f.count for f in snap.figures.values()]
-        self.set_titles(subtitle=f"{max(counts)} traces" if counts else "")
+        codes = snap.last_warnings
+        traces = f"{max(counts)} traces" if counts else ""
+        # a doubtful last trace is flagged where its numbers are read
+        self.set_titles(subtitle=(f"last doubtful: {', '.join(codes)} · {traces}" if codes
+                                  else traces))
         self.invalidate()
 
     def build(self, rows: int, cols: int) -> list[Strip]:

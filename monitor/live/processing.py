@@ -28,6 +28,7 @@ from typing import Any
 
 import numpy as np
 
+from ..acoustics.converter import warning_codes
 from ..errors import TanksideError
 from ..record.schema import EventKind, FaultKind
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop
@@ -94,6 +95,8 @@ class TraceProcessor:
         self.converted = 0
         self.failed = 0
         self.clipped = 0
+        self.doubtful = 0           # converted traces whose result carries warnings
+        self._last_warnings: tuple[str, ...] = ()
         self._no_pulse = 0
         self._last_arrays_mono = 0.0
         self._latest: tuple | None = None
@@ -162,7 +165,9 @@ class TraceProcessor:
         with np.errstate(all="ignore"):
             volts = np.asarray(raw.volts(), dtype=float)
         try:
-            result = self._converter.process(volts, raw.dt_s)
+            # one code's worth of volts: the noise floor of a quantised quiet record
+            result = self._converter.process(volts, raw.dt_s,
+                                             resolution_v=abs(float(raw.volts_per_code)))
             flat = result.flat()
             self.converted += 1
         except TanksideError as err:
@@ -195,11 +200,27 @@ class TraceProcessor:
             flags["drive_off"] = True
         if raw.clipped:
             self.clipped += 1
+        counted = self._counted_warnings(flat)
+        if flat is not None:
+            self._last_warnings = counted
+            if counted:
+                self.doubtful += 1
         if flat is not None and not obs.quiet:
             # noise converted to "pressure" is no figure of the field
             self._figures.add(flat)
         self._record(TraceItem(raw, flat, flags, error))
         self._publish_trace(raw, volts, result, flat)
+
+    def _counted_warnings(self, flat: dict | None) -> tuple[str, ...]:
+        """The warning codes of a result that make it doubtful (the doubtful_result rule's
+        ``ignore`` codes, by default mi_not_derated, do not count)."""
+        if flat is None:
+            return ()
+        config = getattr(self._rules, "config", None)
+        ignore: tuple[str, ...] = ()
+        if config is not None and "doubtful_result" in config.rules:
+            ignore = tuple(config.rules["doubtful_result"].params["ignore"])
+        return tuple(c for c in warning_codes(flat) if c not in ignore)
 
     def _switch_method(self, method: str, seq: int) -> None:
         self.pending_method = None
@@ -298,6 +319,7 @@ class TraceProcessor:
             drive_on=self._drive_on,
             drive_detail=drive_text(self._drive_on, self._drive_cause) if has_generator else "",
             pulse_present=self._pulse_present, no_pulse_traces=self._no_pulse,
+            doubtful_traces=self.doubtful, last_warnings=self._last_warnings,
             state=state or self.snap.state,
             stop_reason=self.snap.stop_reason if stop_reason is None else stop_reason)
 

@@ -42,6 +42,7 @@ class ParamKind(StrEnum):
     INT = "int"                        # a whole number
     FLOAT = "float"
     OPTIONAL_FLOAT = "optional_float"  # may be left unset (default None)
+    WORDS = "words"                    # a list of words (a tuple of str)
 
 
 SEVERITIES = tuple(Severity)
@@ -66,7 +67,7 @@ class Param:
 
     key: str
     kind: ParamKind
-    default: float | int | None
+    default: float | int | tuple[str, ...] | None
     unit: str
     low: float
     low_inclusive: bool = False
@@ -118,6 +119,12 @@ RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for s
               low_inclusive=True,
               meaning="traces in the window (at one position)"))),
     RuleSpec("narrowband_fail", Severity.WARNING, (Action.RECORD,)),
+    RuleSpec("doubtful_result", Severity.INFO, (Action.RECORD,), (
+        Param(key="consecutive_traces", kind=ParamKind.INT, default=5, unit="traces", low=1,
+              low_inclusive=True,
+              meaning="traces in a row whose result carries a warning"),
+        Param(key="ignore", kind=ParamKind.WORDS, default=("mi_not_derated",), unit="codes",
+              low=0.0, meaning="warning codes that do not count"))),
     RuleSpec("conversion_failed", Severity.WARNING, (Action.RECORD,)),
     RuleSpec("no_pulse", Severity.INFO, (Action.RECORD,), (
         Param(key="noise_factor", kind=ParamKind.FLOAT, default=DEFAULT_FACTOR, unit="1", low=0.0,
@@ -176,7 +183,8 @@ class RuleConfig:
         out = {"enabled": self.enabled, "severity": str(self.severity),
                "actions": [str(a) for a in self.actions], "repeat_after_s": self.repeat_after_s,
                "clear_after_traces": self.clear_after_traces}
-        out.update({k: v for k, v in self.params.items() if v is not None})
+        out.update({k: list(v) if isinstance(v, tuple) else v
+                    for k, v in self.params.items() if v is not None})
         return out
 
 
@@ -276,7 +284,7 @@ def _parse_rule(spec: RuleSpec, table) -> RuleConfig:
                                 Param(key="clear_after_traces", kind=ParamKind.INT,
                                       default=DEFAULT_CLEAR_AFTER, unit="traces", low=1,
                                       low_inclusive=True))
-    values = {p.key: (_parse_number(f"{spec.name}.{p.key}", table[p.key], p)
+    values = {p.key: (_parse_value(f"{spec.name}.{p.key}", table[p.key], p)
                       if p.key in table else p.default) for p in spec.params}
     return RuleConfig(name=spec.name, enabled=enabled, severity=Severity(severity),
                       actions=actions,
@@ -299,6 +307,15 @@ def _parse_actions(rule: str, value) -> tuple[Action, ...]:
                               f"{' and '.join(AUTO_RANGE_RULES)}")
         seen.append(Action(action))
     return tuple(seen)
+
+
+def _parse_value(key: str, value, param: Param):
+    if param.kind is not ParamKind.WORDS:
+        return _parse_number(key, value, param)
+    if not isinstance(value, list | tuple) or not all(isinstance(w, str) for w in value):
+        raise _error(key, f"expected a list of words such as [\"mi_not_derated\"], "
+                          f"got {value!r}")
+    return tuple(value)
 
 
 def _parse_number(key: str, value, param: Param):

@@ -48,6 +48,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..acoustics.converter import warning_codes
 from ..acoustics.presence import (
     DEFAULT_EDGE_FRACTION,
     DEFAULT_FACTOR,
@@ -303,6 +304,7 @@ class RuleEngine:
                          for name, rule in self.config.rules.items()}
         self._range_v: float | None = None
         self._under_used = 0
+        self._doubtful_run = 0       # converted traces in a row with a counted warning
         self._position: object = _UNSET
         self._quiet = False
         window = self.config.rules["pr_drift"].params["window_traces"]
@@ -373,6 +375,7 @@ class RuleEngine:
             "range_under_use": None if quiet else self._range_under_use(obs),
             "pr_drift": None if quiet else self._pr_drift(obs),
             "narrowband_fail": None if quiet else self._narrowband_fail(obs),
+            "doubtful_result": None if quiet else self._doubtful_result(obs),
             "conversion_failed": None if quiet else self._conversion_failed(obs),
             "no_pulse": self._no_pulse(obs),
         }
@@ -502,6 +505,19 @@ class RuleEngine:
         detail = {"narrowband_ok": ok, "band_low_hz": low, "band_high_hz": high,
                   "max_deviation_db": deviation, "method_in_use": obs.method_in_use}
         return in_use and not ok, message, detail
+
+    def _doubtful_result(self, obs: TraceObservation) -> _Verdict:
+        if obs.result is None:
+            return None
+        ignored = set(self._p("doubtful_result", "ignore"))
+        codes = [c for c in warning_codes(obs.result) if c not in ignored]
+        self._doubtful_run = self._doubtful_run + 1 if codes else 0
+        needed = self._p("doubtful_result", "consecutive_traces")
+        message = (f"Doubtful results: {self._doubtful_run} traces in a row carry warnings "
+                   f"({', '.join(sorted(set(codes))) or '-'}), trace {obs.seq}; see the "
+                   "result's warnings.")
+        return self._doubtful_run >= needed, message, {"codes": codes,
+                                                      "consecutive": self._doubtful_run}
 
     def _conversion_failed(self, obs: TraceObservation) -> _Verdict:
         failed = obs.result is None or obs.error is not None

@@ -114,3 +114,7 @@ class Snapshot:
     # the latest trace holds a pulse above its noise (None before the first trace)
     pulse_present: bool | None = None
     no_pulse_traces: int = 0
+    # converted traces whose result carries warnings (a number may be doubtful), and the
+    # codes of the latest converted trace's warnings that count (() when none)
+    doubtful_traces: int = 0
+    last_warnings: tuple[str, ...] = ()
