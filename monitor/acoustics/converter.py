@@ -420,7 +420,7 @@ class Converter:
         gated = v[gate.start:gate.stop] - b
         peak_v = float(np.abs(gated).max())
         snr_db = 20.0 * math.log10(peak_v / noise.rms_v) if noise.rms_v > 0 else math.inf
-        g_freqs, g_bins = entry.gate_grid(gated_length(gated.shape[0], n))
+        g_freqs, h_gate_full = entry.gate_grid(gated_length(gated.shape[0], n))
         gspec = gated_spectrum(gated, dt_s, n, freqs_hz=g_freqs)
         noise_gate = noise.variance_density(gspec.freqs_hz, dt_s)
         weights, gate_weights, (k0, k1), noise_band, share_outside = self._weights(
@@ -459,8 +459,7 @@ class Converter:
             np.multiply(vabs[k0:k1], h_abs, out=mag[k0:k1])
             # the gated pressure's spectrum: the gated voltage's through |H| (|H| taken at
             # the nearest bin of the record's finer grid)
-            h_gate = plan.inverse_abs_pa_per_v[g_bins]
-            h_gate *= gate_weights
+            h_gate = h_gate_full * gate_weights
             gmag *= h_gate
             f_awf = awf_spectrum_hz(gspec.freqs_hz, gmag, blend_db=blend)
             self._in_band(f_awf, "pressure spectrum", snr_db)
@@ -596,21 +595,22 @@ class _GridEntry:
     alternatives: tuple[np.ndarray, ...]    # exp(j delta phase) per low-frequency assumption
     window_bins: tuple[int, int]            # [k0, k1): the bins where the band window is not 0
     welch: WelchSetup                       # for the noise spectrum at this time step
-    gate_grids: dict = field(default_factory=dict)   # nfft -> (freqs, nearest record bins)
+    gate_grids: dict = field(default_factory=dict)   # nfft -> (freqs, |inverse| on them)
 
     def gate_grid(self, nfft: int) -> tuple[np.ndarray, np.ndarray]:
-        """The gated spectrum's ``rfftfreq`` grid for ``nfft`` and the nearest bins of the
-        record's grid to it (a few gate lengths recur; kept, at most 16)."""
+        """The gated spectrum's ``rfftfreq`` grid for ``nfft`` and ``|H|`` on it, taken at
+        the nearest bins of the record's grid (a few gate lengths recur; kept, at most 16)."""
         grid = self.gate_grids.get(nfft)
         if grid is None:
             n, dt = self.plan.n, self.plan.dt_s
             f = np.arange(nfft // 2 + 1) * (1.0 / (nfft * dt))
             bins = np.minimum(np.rint(f * (n * dt)).astype(np.intp), n // 2)
+            h_abs = self.plan.inverse_abs_pa_per_v[bins]
             f.setflags(write=False)
-            bins.setflags(write=False)
+            h_abs.setflags(write=False)
             if len(self.gate_grids) >= _MAX_PLANS:
                 self.gate_grids.pop(next(iter(self.gate_grids)))
-            grid = self.gate_grids[nfft] = (f, bins)
+            grid = self.gate_grids[nfft] = (f, h_abs)
         return grid
 
 
