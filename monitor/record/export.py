@@ -53,7 +53,7 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import ConfigError
+from ..errors import ConfigError, SessionValueError
 from .schema import (
     META_CALIBRATION_SHA256,
     RESULT_COLUMNS,
@@ -103,6 +103,13 @@ def export_trace_csv(reader: SessionReader, seq: int, out) -> int:
     from .tracefile import write_trace
 
     raw = reader.trace(seq).raw
+    for column, value in (("dt_s", raw.dt_s), ("t0_s", raw.t0_s),
+                          ("volts_per_code", raw.volts_per_code), ("offset_v", raw.offset_v)):
+        if not math.isfinite(value) or (column == "dt_s" and not value > 0):
+            # a trace file needs real times and volts; the session keeps the value as sent
+            raise SessionValueError(str(reader.path), "traces", f"seq {raw.seq}", column,
+                                    f"{value!r} cannot be written as a trace file (expected "
+                                    f"a finite number{' > 0' if column == 'dt_s' else ''})")
     write_trace(out, raw.volts(), raw.dt_s, t0_s=raw.t0_s, comments=[
         f"trace {raw.seq} of session {reader.path.name} ({reader.start['session_uid']})",
         f"acquired at {raw.time_s!r} s since the Unix epoch; dt_s = {raw.dt_s!r}",
@@ -153,8 +160,12 @@ def _numbers(group, name: str, values, dtype, units: str | None = None):
 def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) -> int:
     """Write the whole session to HDF5 (layout in the module docstring); returns N traces."""
     h5py = _h5()
-    n_traces = reader.trace_count()
-    layouts = reader.trace_layouts()
+    # Traces committed while the export runs (a session still being recorded) are left
+    # out, so that every dataset holds the same traces.
+    last = reader.last_seq()
+    stop_seq = None if last is None else last + 1
+    n_traces = len(reader.seqs(stop_seq))
+    layouts = reader.trace_layouts(stop_seq)
     uniform = len(layouts) == 1
     meta = reader.metadata
     stop = reader.stop
@@ -170,8 +181,9 @@ def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) 
             ds = g.create_dataset("calibration_text", data=meta["calibration_text"],
                                   dtype=h5py.string_dtype())
             ds.attrs["sha256"] = meta.get(META_CALIBRATION_SHA256) or ""
-        _write_traces(f.create_group("traces"), reader, n_traces, layouts, uniform, bar)
-        _write_results(f.create_group("results"), reader)
+        _write_traces(f.create_group("traces"), reader, n_traces, layouts, uniform, bar,
+                      stop_seq)
+        _write_results(f.create_group("results"), reader, stop_seq)
         _write_alerts(f.create_group("alerts"), reader.alerts())
         _write_events(f.create_group("events"), reader.events())
         if stop is not None:
@@ -181,7 +193,7 @@ def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) 
     return n_traces
 
 
-def _write_traces(g, reader, n_traces, layouts, uniform, bar):
+def _write_traces(g, reader, n_traces, layouts, uniform, bar, stop_seq):
     starts: list[int] = []      # where each trace's codes begin, when not uniform
     counts: list[int] = []
     if uniform and n_traces:
@@ -190,11 +202,12 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar):
                                  chunks=(1, n))
     else:
         common = np.result_type(*[np.dtype(d) for d, _ in layouts]) if layouts else np.int16
-        codes = g.create_dataset("codes", shape=(reader.total_samples(),), dtype=common)
+        codes = g.create_dataset("codes", shape=(reader.total_samples(stop_seq),),
+                                 dtype=common)
     codes.attrs["units"] = "code"
     cols: dict[str, list[Any]] = {c: [] for c in (*_TRACE_FLOATS, *_TRACE_INTS, *_TRACE_STRS)}
     pos = 0
-    for i, stored in enumerate(reader.iter_traces()):
+    for i, stored in enumerate(reader.iter_traces(stop_seq=stop_seq)):
         raw = stored.raw
         if uniform:
             codes[i] = raw.codes
@@ -223,11 +236,11 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar):
         _strings(g, c, cols[c])
 
 
-def _write_results(g, reader):
+def _write_results(g, reader, stop_seq):
     cols: dict[str, list[Any]] = {c: [] for c in ("seq", *RESULT_NAMES, "converted", "clipped",
                                                   "range_changed", "error")}
     kinds = dict(RESULT_COLUMNS)
-    for r in reader.iter_results():
+    for r in reader.iter_results(stop_seq):
         for c in cols:
             v = r.get(c)
             if c in kinds and kinds[c] == "BOOL":

@@ -23,6 +23,12 @@ A session file is a run record in five parts:
     counts. A file without it was not stopped cleanly (killed, crashed, power lost, or
     still being written).
 
+SQLite keeps any value in any column, so the reader checks each cell it reads
+(:mod:`tankside.monitor.record.cells`): numbers where numbers belong, codes as a BLOB
+whose length is ``n`` samples of their dtype, text as UTF-8 without NUL, and every
+``*_json`` column strict JSON of its kind (an object, or a list for ``actions_json`` and
+``shape_json``).
+
 Float columns are SQLite REAL (IEEE 754 binary64), so every finite float64 and the
 infinities round-trip bit for bit. SQLite stores NaN as NULL; a NULL in a result
 column of a converted trace therefore reads back as NaN. SQLite also folds -0.0 to
@@ -54,6 +60,23 @@ META_PROTECTION_WARNINGS = "protection_warnings"  # list of str, the protection 
                                                   # settings switch off (empty: none)
 
 REQUIRED_FOR_REPLAY = (META_CALIBRATION_TEXT, META_LOADING, META_SETTINGS, META_TEMPERATURE_C)
+
+#: The JSON kinds (Python types) the value of each standard key must be when it is not
+#: null; the reader refuses any other (other keys may hold any JSON).
+METADATA_KINDS: dict[str, tuple[type, ...]] = {
+    META_TOOL_VERSION: (str,),
+    META_CONFIGURATION: (dict,),
+    META_INSTRUMENTS: (dict,),
+    META_CALIBRATION_TEXT: (str,),
+    META_CALIBRATION_SHA256: (str,),
+    META_CALIBRATION_SOURCE: (str,),
+    META_LOADING: (dict,),
+    META_SETTINGS: (dict,),
+    META_TEMPERATURE_C: (int, float),
+    META_START_TIME_S: (int, float),
+    META_REPLAY_OF: (dict,),
+    META_PROTECTION_WARNINGS: (list,),
+}
 
 # -- event kinds ---------------------------------------------------------------------
 
