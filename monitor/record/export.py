@@ -30,7 +30,9 @@ HDF5 layout (``format`` attribute ``"tankside-session-export"``, ``layout_versio
     ``/traces/<column>``     one 1-D dataset per trace column, length N: seq, time_s,
                              volts_per_code, offset_v, dt_s, t0_s, range_v, code_min,
                              code_max, clipped_low, clipped_high, dtype, data_format,
-                             state_json
+                             state_json, and codes_crc32 (the CRC-32 of each trace's codes
+                             as the session recorded and the export checked it; -1 for
+                             a session of layout 1, which records none)
     ``/results/<field>``     one 1-D dataset per result field plus converted, clipped,
                              range_changed and error; ``narrowband_ok`` is int8
                              (1 true, 0 false, -1 no result); NaN for a missing number
@@ -134,7 +136,7 @@ def export_calibration(reader: SessionReader, out) -> str:
 # -- HDF5 --------------------------------------------------------------------------------
 _TRACE_FLOATS = ("time_s", "volts_per_code", "offset_v", "dt_s", "t0_s", "range_v",
                  "code_min", "code_max")
-_TRACE_INTS = ("seq", "clipped_low", "clipped_high")
+_TRACE_INTS = ("seq", "clipped_low", "clipped_high", "codes_crc32")
 _TRACE_STRS = ("dtype", "data_format", "state_json")
 
 
@@ -221,6 +223,7 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar, stop_seq):
         cols["seq"].append(raw.seq)
         cols["clipped_low"].append(raw.clipped_low)
         cols["clipped_high"].append(raw.clipped_high)
+        cols["codes_crc32"].append(-1 if stored.codes_crc32 is None else stored.codes_crc32)
         cols["dtype"].append(raw.codes.dtype.str)
         cols["data_format"].append(raw.data_format)
         cols["state_json"].append(strict_json(raw.state))

@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 import os
 import sqlite3
+import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -21,10 +22,11 @@ from typing import Any
 import numpy as np
 
 from ...drivers.trace import RawTrace
-from ..errors import SessionFileError
+from ..errors import SessionFileError, TraceChecksumError
 from .cells import Row, codes_dtype, decode_text, kind_of
 from .schema import (
     BOOL_RESULTS,
+    CHECKSUM_LAYOUT,
     FORMAT_TAG,
     LAYOUT_VERSION,
     META_CALIBRATION_TEXT,
@@ -42,12 +44,14 @@ __all__ = ["SessionReader", "StoredTrace"]
 @dataclass
 class StoredTrace:
     """One trace read back: the raw trace as sent, its result (None if conversion
-    failed), its flags and the conversion error text."""
+    failed), its flags, the conversion error text, and the CRC-32 of its codes as
+    recorded and checked (None in a layout 1 file, which has none)."""
 
     raw: RawTrace
     result: dict | None
     flags: dict = field(default_factory=dict)
     error: str | None = None
+    codes_crc32: int | None = None
 
 
 def session_size_bytes(path) -> int:
@@ -116,6 +120,15 @@ class SessionReader:
                           "start_time_s": row.real("start_time_s"),
                           "tool_version": row.text("tool_version")}
             self._result_cols = [r[1] for r in self._query("PRAGMA table_info(results)")]
+            # Layout 1 files have no checksum; they are read as they are.
+            self._checksums = layout >= CHECKSUM_LAYOUT
+            self._trace_cols = tuple(c for c in TRACE_COLUMNS
+                                     if self._checksums or c != "codes_crc32")
+            present = {r[1] for r in self._query("PRAGMA table_info(traces)")}
+            missing = [c for c in self._trace_cols if c not in present]
+            if missing:
+                raise SessionFileError(f"{self.path}: table traces of a layout {layout} "
+                                       f"session lacks the column(s) {', '.join(missing)}")
         except SessionFileError:
             self.close()
             raise
@@ -256,9 +269,18 @@ class SessionReader:
         return dt
 
     def _stored(self, trow, rrow) -> StoredTrace:
-        t = self._row("traces", f"seq {trow[0]}", TRACE_COLUMNS, trow)
+        t = self._row("traces", f"seq {trow[0]}", self._trace_cols, trow)
         data = t.blob("codes")
         dt, n = self._layout(t, len(data))
+        recorded = None
+        if self._checksums:
+            recorded = t.integer("codes_crc32", minimum=0)
+            computed = zlib.crc32(data)
+            if computed != recorded:
+                raise TraceChecksumError(
+                    str(self.path), "traces", f"seq {trow[0]}", "codes",
+                    f"the codes do not match their checksum (CRC-32 recorded {recorded:#010x}, "
+                    f"computed {computed:#010x}): the file was damaged after it was written")
         codes = np.frombuffer(data, dtype=dt, count=n)
         raw = RawTrace(codes=codes, volts_per_code=t.real("volts_per_code"),
                        offset_v=t.real("offset_v"), dt_s=t.real("dt_s"), t0_s=t.real("t0_s"),
@@ -269,10 +291,10 @@ class SessionReader:
                        clipped_high=t.integer("clipped_high", minimum=0),
                        data_format=t.text("data_format"), state=t.json("state_json", dict))
         if rrow is None:  # trace written without a results row (older layouts)
-            return StoredTrace(raw, None, {}, None)
+            return StoredTrace(raw, None, {}, None, recorded)
         result, flags, error = self._result_from_row(
             self._row("results", f"seq {trow[0]}", self._result_cols, rrow))
-        return StoredTrace(raw, result, flags, error)
+        return StoredTrace(raw, result, flags, error, recorded)
 
     def _result_from_row(self, r: Row):
         flags: dict[str, Any] = {"clipped": r.flag("clipped"),
@@ -300,13 +322,13 @@ class SessionReader:
         return result, flags, error
 
     def _trace_rows(self, where: str, params):
-        cols = ", ".join(f"t.{c}" for c in TRACE_COLUMNS)
+        cols = ", ".join(f"t.{c}" for c in self._trace_cols)
         rcols = ", ".join(f"r.{c}" for c in self._result_cols)
         return self._query(f"SELECT {cols}, {rcols}, r.seq IS NULL FROM traces t "
                            f"LEFT JOIN results r ON r.seq = t.seq {where}", params)
 
     def _split(self, row) -> StoredTrace:
-        nt = len(TRACE_COLUMNS)
+        nt = len(self._trace_cols)
         return self._stored(row[:nt], None if row[-1] else row[nt:-1])
 
     def trace(self, seq: int) -> StoredTrace:

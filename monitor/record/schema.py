@@ -15,9 +15,10 @@ A session file is a run record in five parts:
     units, dtype, shape and source of each column of ``traces`` and ``results``.
 ``traces``, ``results``, ``alerts``, ``events``
     one row per trace as sent (codes as a BLOB with their numpy dtype string, so the
-    bytes and their byte order come back exactly), one row of parameters per trace,
-    alerts with their acknowledge time, and events (:class:`EventKind`: range changes,
-    reconnects, operator marks, method changes, faults, ...).
+    bytes and their byte order come back exactly, and their CRC-32), one row of
+    parameters per trace, alerts with their acknowledge time, and events
+    (:class:`EventKind`: range changes, reconnects, operator marks, method changes,
+    faults, ...).
 ``session_stop`` (one row, written last)
     stop time, exit status (:class:`tankside.monitor.outcome.ExitStatus`), reason and
     counts. A file without it was not stopped cleanly (killed, crashed, power lost, or
@@ -42,7 +43,18 @@ import enum
 from ..acoustics.converter import RESULT_FIELDS
 
 FORMAT_TAG = "tankside-session"
-LAYOUT_VERSION = 1
+LAYOUT_VERSION = 2
+"""Layout of the files this tankside writes (``session_start.layout_version``); the
+reader reads every layout up to it:
+
+1. The first layout.
+2. ``traces.codes_crc32``: the CRC-32 (:func:`zlib.crc32`, as an unsigned 32-bit
+   integer) of the codes' bytes, checked whenever a trace is read, so that a bit flipped
+   on a disk or in a copy is reported instead of exported or replayed.
+"""
+
+#: The first layout whose traces carry ``codes_crc32``.
+CHECKSUM_LAYOUT = 2
 
 # -- metadata keys (values are JSON) ----------------------------------------------------
 META_TOOL_VERSION = "tool_version"            # str, tankside version that wrote the file
@@ -159,9 +171,9 @@ RESULT_UNITS = {f.name: f.unit for f in RESULT_FIELDS}
 FLAG_COLUMNS = ("clipped", "range_changed")
 
 # Column order of the traces and results tables.
-TRACE_COLUMNS = ("seq", "time_s", "data_format", "dtype", "n", "codes", "volts_per_code",
-                 "offset_v", "dt_s", "t0_s", "range_v", "code_min", "code_max",
-                 "clipped_low", "clipped_high", "state_json")
+TRACE_COLUMNS = ("seq", "time_s", "data_format", "dtype", "n", "codes", "codes_crc32",
+                 "volts_per_code", "offset_v", "dt_s", "t0_s", "range_v", "code_min",
+                 "code_max", "clipped_low", "clipped_high", "state_json")
 RESULT_ROW_COLUMNS = ("seq", "converted", "error", *RESULT_NAMES, *FLAG_COLUMNS,
                       "flags_json", "extra_json")
 BOOL_RESULTS = frozenset(name for name, kind in RESULT_COLUMNS if kind == "BOOL")
@@ -230,6 +242,7 @@ DDL = [
         dtype TEXT NOT NULL,
         n INTEGER NOT NULL,
         codes BLOB NOT NULL,
+        codes_crc32 INTEGER NOT NULL,
         volts_per_code REAL NOT NULL,
         offset_v REAL NOT NULL,
         dt_s REAL NOT NULL,
@@ -276,7 +289,7 @@ STATIC_DESCRIPTORS = (
         ("time_s", "float64"), ("volts_per_code", "float64"), ("offset_v", "float64"),
         ("dt_s", "float64"), ("t0_s", "float64"), ("range_v", "float64"),
         ("code_min", "float64"), ("code_max", "float64"), ("clipped_low", "int64"),
-        ("clipped_high", "int64"))]
+        ("clipped_high", "int64"), ("codes_crc32", "uint32"))]
     + [(f.name, "results", f.unit, f.dtype) for f in RESULT_FIELDS]
     + [(name, "results", units_of(name), "bool") for name in FLAG_COLUMNS]
 )

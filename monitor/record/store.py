@@ -23,6 +23,7 @@ import math
 import sqlite3
 import time
 import uuid
+import zlib
 from collections.abc import Callable
 from pathlib import Path
 from typing import NoReturn
@@ -304,12 +305,13 @@ class SessionStore:
         ``range_changed`` (default False) and any other JSON-able flags.
         """
         codes = np.ascontiguousarray(raw.codes)
+        data = codes.tobytes()
         flags = dict(flags or {})
         clipped = bool(flags.pop("clipped", raw.clipped > 0))
         range_changed = bool(flags.pop("range_changed", False))
         try:
             trace_row = (int(raw.seq), float(raw.time_s), str(raw.data_format),
-                         codes.dtype.str, int(codes.shape[0]), codes.tobytes(),
+                         codes.dtype.str, int(codes.shape[0]), data, zlib.crc32(data),
                          float(raw.volts_per_code), float(raw.offset_v), float(raw.dt_s),
                          float(raw.t0_s), float(raw.range_v), float(raw.code_min),
                          float(raw.code_max), int(raw.clipped_low), int(raw.clipped_high),
@@ -322,7 +324,8 @@ class SessionStore:
 
         def insert():
             self._conn.execute(
-                f"INSERT INTO traces VALUES ({','.join('?' * len(TRACE_COLUMNS))})", trace_row)
+                f"INSERT INTO traces ({', '.join(TRACE_COLUMNS)}) "
+                f"VALUES ({','.join('?' * len(TRACE_COLUMNS))})", trace_row)
             self._conn.execute(
                 f"INSERT INTO results VALUES ({','.join('?' * len(RESULT_ROW_COLUMNS))})",
                 result_row)
