@@ -45,6 +45,8 @@ def run(args) -> int:
         raise ConfigError("nothing to export: give --results, --trace/--out, "
                           "--calibration-out or --hdf5")
     with SessionReader(args.session) as reader:
+        if reader.note:
+            print(f"note: {reader.note}", file=sys.stderr)
         if not reader.stopped_cleanly:
             print(f"note: {args.session} has no stop record: the session was not stopped "
                   "cleanly (or is still being recorded)", file=sys.stderr)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import sys
 
 from ..acoustics.settings import Method
 from ..progress import bar_factory
@@ -42,6 +43,8 @@ def run(args) -> int:
                              calibration_checks=calibration_checks(args),
                              method=args.method, force=args.force, check=args.check,
                              progress=bar_factory(args.progress))
+    if summary.note:
+        print(f"note: {summary.note}", file=sys.stderr)
     line = (f"replayed {summary.traces} traces into {summary.out_path}: "
             f"{summary.converted} converted, {summary.failed} failed, "
             f"{summary.seconds:.1f} s")

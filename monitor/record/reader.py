@@ -23,7 +23,8 @@ import numpy as np
 
 from ...drivers.trace import RawTrace
 from ..errors import SessionFileError, TraceChecksumError
-from .cells import Row, codes_dtype, decode_text, kind_of
+from .cells import Row, codes_dtype, kind_of
+from .opening import OpenedSession, open_read_only, wal_mode
 from .schema import (
     BOOL_RESULTS,
     CHECKSUM_LAYOUT,
@@ -92,18 +93,19 @@ class SessionReader:
     def __init__(self, path):
         self.path = Path(path)
         self._conn: sqlite3.Connection | None = None
+        self._opened: OpenedSession | None = None
         if not self.path.is_file():
             raise SessionFileError(f"{self.path}: no such session file")
-        uri = f"{self.path.resolve().as_uri()}?mode=ro"
+        self._opened = open_read_only(self.path)
+        self._conn = self._opened.conn
         try:
-            self._conn = sqlite3.connect(uri, uri=True, check_same_thread=False)
-            self._conn.text_factory = decode_text
             rows = self._conn.execute(
                 "SELECT format, layout_version, session_uid, start_time_s, tool_version "
                 "FROM session_start").fetchall()
         except sqlite3.Error as err:
+            message = self._why_not_a_session(err)
             self.close()
-            raise SessionFileError(f"{self.path}: not a tankside session file ({err})") from err
+            raise SessionFileError(message) from err
         if len(rows) != 1 or rows[0][0] != FORMAT_TAG:
             self.close()
             raise SessionFileError(f"{self.path}: not a tankside session file")
@@ -133,6 +135,26 @@ class SessionReader:
             self.close()
             raise
 
+    def _why_not_a_session(self, err: sqlite3.Error) -> str:
+        try:
+            tables = self._query("SELECT COUNT(*) FROM sqlite_master")[0][0]
+        except SessionFileError:
+            tables = None
+        wal = Path(f"{self.path}-wal")
+        # (opening a WAL-mode file creates an empty -wal beside it where it can)
+        if tables == 0 and wal_mode(self.path) and (not wal.exists() or
+                                                    wal.stat().st_size == 0):
+            return (f"{self.path}: holds no tables yet; a session's first data are in "
+                    f"{wal.name} until its first checkpoint, and no {wal.name} is beside it "
+                    "(copy the two files together)")
+        return f"{self.path}: not a tankside session file ({err})"
+
+    @property
+    def note(self) -> str | None:
+        """A line for the user when the file is not read in place (a working copy of a
+        session on a read-only medium), else None."""
+        return None if self._opened is None else self._opened.note
+
     def _query(self, sql: str, params=()) -> list[tuple[Any, ...]]:
         if self._conn is None:
             raise SessionFileError(f"{self.path}: the session reader is closed")
@@ -145,9 +167,10 @@ class SessionReader:
         return Row(str(self.path), table, row, dict(zip(columns, values, strict=True)))
 
     def close(self) -> None:
-        if self._conn is not None:
-            self._conn.close()
-            self._conn = None
+        if self._opened is not None:
+            self._opened.close()
+            self._opened = None
+        self._conn = None
 
     def __enter__(self):
         return self

@@ -64,6 +64,7 @@ class ReplaySummary:
     failed: int
     seconds: float
     differences: int | None = None   # results differing from the source (when checked)
+    note: str | None = None          # how the source was read, when not in place
 
 
 def _metadata_error(source: str, key: str, problem: str) -> SessionValueError:
@@ -231,6 +232,7 @@ def replay_session(src, out, *, calibration_path=None, calibration_checks: dict 
     _check_paths(src, out, force)
     t_start = time.perf_counter()
     with SessionReader(src) as reader:
+        note = reader.note
         meta = reader.metadata
         calibration = (load_calibration(calibration_path, **(calibration_checks or {}))
                        if calibration_path else None)
@@ -317,7 +319,7 @@ def replay_session(src, out, *, calibration_path=None, calibration_checks: dict 
             raise
         store.close(ExitStatus.OK, "replay", counts)
     return ReplaySummary(out, total, converted, failed, time.perf_counter() - t_start,
-                         differences if check else None)
+                         differences if check else None, note)
 
 
 def _same(a, b) -> bool:

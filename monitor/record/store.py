@@ -13,6 +13,16 @@ most about that much data is at risk. ``synchronous=NORMAL`` would be as safe ag
 a crash, but in WAL mode it fsyncs only at checkpoints, so a power loss could roll
 back every batch since the last checkpoint (several seconds at 50 traces/s of 10,000
 samples); one fsync per second is cheap, so FULL it is.
+
+Checkpoints
+-----------
+Committed rows live in ``FILE.db-wal`` until a checkpoint copies them into ``FILE.db``.
+SQLite's own checkpoint comes only every 1000 pages (about 200 traces of 10,000
+samples), so a copy of ``FILE.db`` alone, taken after a crash, used to hold not even
+the tables. The store checkpoints right after the start record, and then after a
+commit once ``checkpoint_interval_s`` has passed (a passive checkpoint: it never waits
+for a reader), so ``FILE.db`` alone is a readable session, at most that much older than
+the session with its ``-wal``.
 """
 
 from __future__ import annotations
@@ -192,13 +202,17 @@ class SessionStore:
 
     def __init__(self, conn: sqlite3.Connection, path: Path, commit_interval_s: float,
                  clock: Callable[[], float], wall_clock: Callable[[], float],
-                 source: str = "digitiser"):
+                 source: str = "digitiser", checkpoint_interval_s: float = 10.0):
         self._conn = conn
         self.path = path
         self.commit_interval_s = float(commit_interval_s)
+        self.checkpoint_interval_s = float(checkpoint_interval_s)
         self._clock = clock
         self._wall_clock = wall_clock
         self._last_commit = clock()
+        self._last_checkpoint = self._last_commit
+        self._committed_since_checkpoint = False
+        self.checkpoints = 0
         self._pending = 0
         self._failed: str | None = None
         self._closed = False
@@ -209,6 +223,7 @@ class SessionStore:
     # -- creation -----------------------------------------------------------------------
     @classmethod
     def create(cls, path, metadata: dict, *, commit_interval_s: float = 1.0,
+               checkpoint_interval_s: float = 10.0,
                clock: Callable[[], float] = time.monotonic,
                wall_clock: Callable[[], float] = time.time) -> SessionStore:
         """Create a new session file and write its start record.
@@ -221,6 +236,9 @@ class SessionStore:
             From :func:`session_metadata` (any JSON-able dict is accepted).
         commit_interval_s : float
             Longest time between commits in :meth:`maybe_commit`, s.
+        checkpoint_interval_s : float
+            Shortest time between two checkpoints after commits, s (see the module
+            docstring); the first is right after the start record.
         clock : callable
             Monotonic seconds, for the commit interval (tests inject their own).
         wall_clock : callable
@@ -255,10 +273,15 @@ class SessionStore:
                 [(name, tbl, units, dtype, source if tbl == "traces"
                   else "conversion") for name, tbl, units, dtype in STATIC_DESCRIPTORS])
             conn.execute("COMMIT")
+            # FILE.db alone now holds the tables and the start record (the WAL is empty).
+            conn.execute("PRAGMA wal_checkpoint(TRUNCATE)").fetchall()
         except sqlite3.Error as err:
             conn.close()
             raise _map_error(err, "writing the start record", path) from err
-        return cls(conn, path, commit_interval_s, clock, wall_clock, source)
+        store = cls(conn, path, commit_interval_s, clock, wall_clock, source,
+                    checkpoint_interval_s)
+        store.checkpoints = 1
+        return store
 
     # -- writing ------------------------------------------------------------------------
     def _write(self, doing: str, fn):
@@ -402,8 +425,25 @@ class SessionStore:
                 self._conn.execute("COMMIT")
             except sqlite3.Error as err:
                 self._fail(err, "committing")
+            self._committed_since_checkpoint = True
         self._pending = 0
         self._last_commit = self._clock()
+        if (self._committed_since_checkpoint
+                and self._last_commit - self._last_checkpoint >= self.checkpoint_interval_s):
+            self.checkpoint()
+
+    def checkpoint(self) -> None:
+        """Copy what is committed into ``FILE.db`` (a passive checkpoint: pages a reader
+        still needs stay in the WAL until the next one)."""
+        if self._failed is not None or self._closed:
+            self._write("checkpointing", lambda: None)  # raises the refusal
+        try:
+            self._conn.execute("PRAGMA wal_checkpoint(PASSIVE)").fetchall()
+        except sqlite3.Error as err:
+            self._fail(err, "checkpointing")
+        self._committed_since_checkpoint = False
+        self._last_checkpoint = self._clock()
+        self.checkpoints += 1
 
     @property
     def pending(self) -> int:
