@@ -33,6 +33,7 @@ from .. import __version__
 from ..acoustics.settings import Method
 from ..errors import ConfigError, SessionFileError, SessionValueError, TanksideError
 from ..outcome import ExitStatus
+from .outputs import output_file
 from .schema import (
     META_CALIBRATION_SHA256,
     META_CALIBRATION_SOURCE,
@@ -279,45 +280,54 @@ def replay_session(src, out, *, calibration_path=None, calibration_checks: dict 
                                             f"no conversion with it: {err}") from err
             return converters[key]
 
-        if force:
-            for suffix in ("", "-wal", "-shm"):
-                Path(f"{out}{suffix}").unlink(missing_ok=True)
-        total = reader.trace_count()
+        # Traces committed while the replay runs (a session still being recorded) wait
+        # for the next replay, so that the counts describe one set of traces.
+        last = reader.last_seq()
+        stop_seq = None if last is None else last + 1
+        total = len(reader.seqs(stop_seq))
         converted = failed = differences = 0
-        store = SessionStore.create(out, new_meta)
-        try:
-            with progress(total, "replay") as bar:
-                for stored in reader.iter_traces():
-                    raw = stored.raw
-                    temp = temp0
-                    if stored.result is not None and not math.isnan(
-                            stored.result.get("water_temperature_c", math.nan)):
-                        temp = stored.result["water_temperature_c"]
-                    requested = _requested_method(schedule, raw.seq, raw.time_s, initial_method)
-                    converter = converter_for(requested, temp, raw.seq)
-                    try:
-                        result = converter.process(raw.volts(), raw.dt_s)
-                        flat, error = result.flat(), None
-                        converted += 1
-                    except (TanksideError, ArithmeticError, ValueError) as err:
-                        # Recorded with the trace, as the live pipeline does: one trace
-                        # whose numbers the chain cannot take (a time step of 1e305 s
-                        # read from a damaged file, say) fails alone and is counted.
-                        flat, error = None, f"{type(err).__name__}: {err}"
-                        failed += 1
-                    store.add_trace(raw, flat, stored.flags, error)
-                    store.maybe_commit()
-                    if check and _differs(stored.result, flat):
-                        differences += 1
-                    bar.update()
-            for ev in events:
-                store.add_event(ev["time_s"], ev["kind"], ev["detail"], seq=ev["seq"])
-            counts = {"traces": total, "converted": converted, "failed": failed}
-            store.commit()
-        except BaseException:
-            store.close(ExitStatus.ERROR, "replay did not finish", {"traces": store.traces_written})
-            raise
-        store.close(ExitStatus.OK, "replay", counts)
+        # The new session is written under a temporary name beside --out and renamed
+        # when it is complete; with force, an existing --out is replaced only then.
+        with output_file(out, session=True) as tmp:
+            store = SessionStore.create(tmp, new_meta, label=out)
+            try:
+                with progress(total, "replay") as bar:
+                    for stored in reader.iter_traces(stop_seq=stop_seq):
+                        raw = stored.raw
+                        temp = temp0
+                        if stored.result is not None and not math.isnan(
+                                stored.result.get("water_temperature_c", math.nan)):
+                            temp = stored.result["water_temperature_c"]
+                        requested = _requested_method(schedule, raw.seq, raw.time_s,
+                                                      initial_method)
+                        converter = converter_for(requested, temp, raw.seq)
+                        try:
+                            result = converter.process(raw.volts(), raw.dt_s)
+                            flat, error = result.flat(), None
+                            converted += 1
+                        except (TanksideError, ArithmeticError, ValueError) as err:
+                            # Recorded with the trace, as the live pipeline does: one trace
+                            # whose numbers the chain cannot take (a time step of 1e305 s
+                            # read from a damaged file, say) fails alone and is counted.
+                            flat, error = None, f"{type(err).__name__}: {err}"
+                            failed += 1
+                        store.add_trace(raw, flat, stored.flags, error)
+                        store.maybe_commit()
+                        if check and _differs(stored.result, flat):
+                            differences += 1
+                        bar.update()
+                for ev in events:
+                    store.add_event(ev["time_s"], ev["kind"], ev["detail"], seq=ev["seq"])
+                counts = {"traces": total, "converted": converted, "failed": failed}
+                store.commit()
+            except BaseException:
+                try:
+                    store.close(ExitStatus.ERROR, "replay did not finish",
+                                {"traces": store.traces_written})
+                except TanksideError:
+                    pass  # the file is removed; the first error is the one to report
+                raise
+            store.close(ExitStatus.OK, "replay", counts)
     return ReplaySummary(out, total, converted, failed, time.perf_counter() - t_start,
                          differences if check else None, note)
 

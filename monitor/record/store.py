@@ -202,9 +202,12 @@ class SessionStore:
 
     def __init__(self, conn: sqlite3.Connection, path: Path, commit_interval_s: float,
                  clock: Callable[[], float], wall_clock: Callable[[], float],
-                 source: str = "digitiser", checkpoint_interval_s: float = 10.0):
+                 source: str = "digitiser", checkpoint_interval_s: float = 10.0,
+                 label: Path | None = None):
         self._conn = conn
         self.path = path
+        # the file named in messages (replay writes under a temporary name for it)
+        self.label = path if label is None else label
         self.commit_interval_s = float(commit_interval_s)
         self.checkpoint_interval_s = float(checkpoint_interval_s)
         self._clock = clock
@@ -225,7 +228,8 @@ class SessionStore:
     def create(cls, path, metadata: dict, *, commit_interval_s: float = 1.0,
                checkpoint_interval_s: float = 10.0,
                clock: Callable[[], float] = time.monotonic,
-               wall_clock: Callable[[], float] = time.time) -> SessionStore:
+               wall_clock: Callable[[], float] = time.time,
+               label=None) -> SessionStore:
         """Create a new session file and write its start record.
 
         Parameters
@@ -243,21 +247,25 @@ class SessionStore:
             Monotonic seconds, for the commit interval (tests inject their own).
         wall_clock : callable
             Seconds since the Unix epoch, for the start and stop records.
+        label : str or Path, optional
+            The file to name in messages, when ``path`` is a temporary name for it.
         """
         path = Path(path)
+        label = None if label is None else Path(label)
         if path.exists():
-            raise SessionFileError(f"{path}: session file already exists")
+            raise SessionFileError(f"{label or path}: session file already exists")
         try:
             meta_rows = [(key, strict_json(value)) for key, value in metadata.items()]
         except (TypeError, ValueError) as err:
-            raise StoreError(f"{path}: session metadata is not recordable: {err}") from err
+            raise StoreError(f"{label or path}: session metadata is not recordable: "
+                             f"{err}") from err
         start_time_s = float(metadata.get(META_START_TIME_S, wall_clock()))
         tool_version = str(metadata.get(META_TOOL_VERSION, __version__))
         source = _digitiser_source(metadata)
         try:
             conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
         except sqlite3.Error as err:
-            raise _map_error(err, "creating the session file", path) from err
+            raise _map_error(err, "creating the session file", label or path) from err
         try:
             conn.execute("PRAGMA journal_mode=WAL")
             conn.execute("PRAGMA synchronous=FULL")  # why: see the module docstring
@@ -277,18 +285,18 @@ class SessionStore:
             conn.execute("PRAGMA wal_checkpoint(TRUNCATE)").fetchall()
         except sqlite3.Error as err:
             conn.close()
-            raise _map_error(err, "writing the start record", path) from err
+            raise _map_error(err, "writing the start record", label or path) from err
         store = cls(conn, path, commit_interval_s, clock, wall_clock, source,
-                    checkpoint_interval_s)
+                    checkpoint_interval_s, label)
         store.checkpoints = 1
         return store
 
     # -- writing ------------------------------------------------------------------------
     def _write(self, doing: str, fn):
         if self._closed:
-            raise StoreError(f"{self.path}: session store is closed")
+            raise StoreError(f"{self.label}: session store is closed")
         if self._failed is not None:
-            raise StoreError(f"{self.path}: session store no longer accepts data after an "
+            raise StoreError(f"{self.label}: session store no longer accepts data after an "
                              f"earlier error ({self._failed}); committed data is intact")
         try:
             if not self._conn.in_transaction:
@@ -301,7 +309,7 @@ class SessionStore:
             except sqlite3.IntegrityError as err:
                 self._conn.execute("ROLLBACK TO row")
                 self._conn.execute("RELEASE row")
-                raise StoreError(f"{self.path}: {doing} was refused ({err}); the session "
+                raise StoreError(f"{self.label}: {doing} was refused ({err}); the session "
                                  "goes on without it") from err
             self._conn.execute("RELEASE row")
         except sqlite3.Error as err:
@@ -310,7 +318,7 @@ class SessionStore:
         return out
 
     def _fail(self, err: sqlite3.Error, doing: str) -> NoReturn:
-        mapped = _map_error(err, doing, self.path)
+        mapped = _map_error(err, doing, self.label)
         self._failed = str(mapped)
         try:
             if self._conn.in_transaction:
@@ -343,7 +351,7 @@ class SessionStore:
             result_row = (int(raw.seq), result is not None, error, *values, clipped,
                           range_changed, strict_json(flags), strict_json(extra))
         except (TypeError, ValueError) as err:
-            raise StoreError(f"{self.path}: trace {raw.seq} is not recordable: {err}") from err
+            raise StoreError(f"{self.label}: trace {raw.seq} is not recordable: {err}") from err
 
         def insert():
             self._conn.execute(
@@ -394,7 +402,7 @@ class SessionStore:
             "UPDATE alerts SET acknowledged_time_s = ? WHERE alert_id = ?",
             (float(time_s), int(alert_id))))
         if cur.rowcount != 1:
-            raise StoreError(f"{self.path}: no alert {alert_id} to acknowledge")
+            raise StoreError(f"{self.label}: no alert {alert_id} to acknowledge")
 
     def add_event(self, time_s: float, kind: EventKind | str, detail: dict,
                   seq: int | None = None) -> None:
@@ -403,7 +411,7 @@ class SessionStore:
         try:
             detail_json = strict_json(detail)
         except (TypeError, ValueError) as err:
-            raise StoreError(f"{self.path}: event {kind!r} is not recordable: {err}") from err
+            raise StoreError(f"{self.label}: event {kind!r} is not recordable: {err}") from err
         self._write(f"recording event {kind!r}", lambda: self._conn.execute(
             "INSERT INTO events (time_s, kind, seq, detail_json) VALUES (?, ?, ?, ?)",
             (float(time_s), str(kind), None if seq is None else int(seq), detail_json)))
@@ -475,7 +483,7 @@ class SessionStore:
                 self._conn.execute("COMMIT")
             self._conn.execute("INSERT INTO session_stop VALUES (1, ?, ?, ?, ?)", row)
         except sqlite3.Error as err:
-            mapped = _map_error(err, "writing the stop record", self.path)
+            mapped = _map_error(err, "writing the stop record", self.label)
             self._closed = True
             self._conn.close()
             raise mapped from err
