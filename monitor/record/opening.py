@@ -103,7 +103,8 @@ def open_read_only(path: Path) -> OpenedSession:
         raise SessionFileError(f"{path}: no permission to read the session file")
     try:
         return OpenedSession(_connect(path, "mode=ro"))
-    except sqlite3.DatabaseError as err:
+    except (sqlite3.DatabaseError, UnicodeError) as err:
+        # (a damaged schema can come back as text that is not UTF-8)
         first_error = err
     wal = Path(f"{path}-wal")
     shm = Path(f"{path}-shm")
@@ -118,14 +119,14 @@ def open_read_only(path: Path) -> OpenedSession:
     if _size(wal) <= 0:
         try:
             return OpenedSession(_connect(path, "mode=ro&immutable=1"))
-        except sqlite3.DatabaseError as err:
+        except (sqlite3.DatabaseError, UnicodeError) as err:
             raise SessionFileError(f"{path}: cannot be opened as a session file "
                                    f"({err})") from err
     return _working_copy(path, wal, shm, folder, first_error)
 
 
 def _working_copy(path: Path, wal: Path, shm: Path, folder: Path,
-                  first_error: sqlite3.DatabaseError) -> OpenedSession:
+                  first_error: Exception) -> OpenedSession:
     need = _size(path) + _size(wal)
     where = Path(tempfile.gettempdir())
     free = shutil.disk_usage(where).free
@@ -141,7 +142,7 @@ def _working_copy(path: Path, wal: Path, shm: Path, folder: Path,
         shutil.copyfile(path, copy)
         shutil.copyfile(wal, Path(f"{copy}-wal"))
         conn = _connect(copy, "mode=ro")
-    except (OSError, sqlite3.DatabaseError) as err:
+    except (OSError, sqlite3.DatabaseError, UnicodeError) as err:
         shutil.rmtree(copy_dir, ignore_errors=True)
         raise SessionFileError(f"{path}: on a read-only medium with {wal.name}; a working "
                                f"copy in {copy_dir} could not be read ({err})") from err

@@ -102,7 +102,7 @@ class SessionReader:
             rows = self._conn.execute(
                 "SELECT format, layout_version, session_uid, start_time_s, tool_version "
                 "FROM session_start").fetchall()
-        except sqlite3.Error as err:
+        except (sqlite3.Error, UnicodeError) as err:
             message = self._why_not_a_session(err)
             self.close()
             raise SessionFileError(message) from err
@@ -121,12 +121,12 @@ class SessionReader:
                           "session_uid": row.text("session_uid"),
                           "start_time_s": row.real("start_time_s"),
                           "tool_version": row.text("tool_version")}
-            self._result_cols = [r[1] for r in self._query("PRAGMA table_info(results)")]
+            self._result_cols = self._columns("results")
             # Layout 1 files have no checksum; they are read as they are.
             self._checksums = layout >= CHECKSUM_LAYOUT
             self._trace_cols = tuple(c for c in TRACE_COLUMNS
                                      if self._checksums or c != "codes_crc32")
-            present = {r[1] for r in self._query("PRAGMA table_info(traces)")}
+            present = set(self._columns("traces"))
             missing = [c for c in self._trace_cols if c not in present]
             if missing:
                 raise SessionFileError(f"{self.path}: table traces of a layout {layout} "
@@ -149,6 +149,15 @@ class SessionReader:
                     "(copy the two files together)")
         return f"{self.path}: not a tankside session file ({err})"
 
+    def _columns(self, table: str) -> list[str]:
+        """The column names of ``table``, which the reader puts into its queries."""
+        names = [r[1] for r in self._query(f"PRAGMA table_info({table})")]
+        for name in names:
+            if not (isinstance(name, str) and name.isidentifier() and name.isascii()):
+                raise SessionFileError(f"{self.path}: table {table} has a column named "
+                                       f"{name!r}, which no session file has (damaged)")
+        return names
+
     @property
     def note(self) -> str | None:
         """A line for the user when the file is not read in place (a working copy of a
@@ -160,7 +169,8 @@ class SessionReader:
             raise SessionFileError(f"{self.path}: the session reader is closed")
         try:
             return self._conn.execute(sql, params).fetchall()
-        except sqlite3.Error as err:
+        except (sqlite3.Error, UnicodeError) as err:
+            # (a damaged page can hold text that is not UTF-8 where SQLite keeps names)
             raise SessionFileError(f"{self.path}: reading the session failed ({err})") from err
 
     def _row(self, table: str, row: str, columns, values) -> Row:
