@@ -135,7 +135,7 @@ class SessionReader:
             self.close()
             raise
 
-    def _why_not_a_session(self, err: sqlite3.Error) -> str:
+    def _why_not_a_session(self, err: Exception) -> str:
         try:
             tables = self._query("SELECT COUNT(*) FROM sqlite_master")[0][0]
         except SessionFileError:
