@@ -71,6 +71,11 @@ def _refuse_constant(token: str) -> NoReturn:
     raise ValueError(f"{token} is not strict JSON")
 
 
+# strict JSON: the store writes no NaN or Infinity (json.loads would build one per call)
+_DECODER = json.JSONDecoder(parse_constant=_refuse_constant)
+_MISSING = object()
+
+
 def kind_of(value: Any) -> str:
     """A cell's value in words, for messages (``text 'abc'``, ``a BLOB of 4 bytes``)."""
     if value is None:
@@ -127,16 +132,21 @@ class Row:
     # -- numbers ------------------------------------------------------------------------
     def real(self, column: str) -> float:
         """A REAL (an INTEGER is taken as its float)."""
-        v = self._get(column)
+        v = self.values.get(column, _MISSING)
         if isinstance(v, float):
             return v
         if isinstance(v, int):
             return float(v)
+        if v is _MISSING:
+            self.fail(column, "the column is missing")
         self.fail(column, f"expected a number, found {kind_of(v)}")
 
     def real_or_nan(self, column: str) -> float:
         """A REAL, or NULL read as NaN (SQLite stores NaN as NULL)."""
-        return math.nan if self._get(column) is None else self.real(column)
+        v = self._get(column)
+        if v is None:
+            return math.nan
+        return v if isinstance(v, float) else self.real(column)
 
     def optional_real(self, column: str) -> float | None:
         return None if self._get(column) is None else self.real(column)
@@ -186,7 +196,7 @@ class Row:
         """A JSON text cell, parsed; ``kind`` (dict or list) is what its top level must be."""
         text = self.text(column)
         try:
-            value = json.loads(text, parse_constant=_refuse_constant)
+            value = _DECODER.decode(text)
         except RecursionError:
             self.fail(column, f"JSON nested deeper than {MAX_JSON_DEPTH} levels")
         except ValueError as err:
