@@ -17,6 +17,7 @@ import shutil
 import signal
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -83,28 +84,42 @@ def _written(folder: Path) -> int:
     return total
 
 
-def interrupt_mid_write(argv: list[str], folder: Path, min_bytes: int = 100_000,
+def interrupt_mid_write(argv: list[str], folder: Path, label: str,
                         timeout_s: float = 60.0):
-    """Run ``tankside argv``; once its temporary output holds ``min_bytes``, pause it,
-    queue a SIGINT and resume it. Returns (process result, bytes written when paused)."""
+    """Run ``tankside argv``; once its progress bar (``label``) is drawn and its temporary
+    output exists, pause it, queue a SIGINT and resume it. Returns (process result with
+    stderr as text, bytes of temporary output when paused)."""
     proc = subprocess.Popen([*tankside_command(), *argv], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True)
+                            stderr=subprocess.PIPE)
+    err = bytearray()
+
+    def collect() -> None:
+        for chunk in iter(lambda: os.read(proc.stderr.fileno(), 4096), b""):
+            err.extend(chunk)
+
+    reader = threading.Thread(target=collect, daemon=True)
+    reader.start()
     deadline = time.monotonic() + timeout_s
     try:
-        while _written(folder) < min_bytes:
-            assert proc.poll() is None, proc.communicate()
-            assert time.monotonic() < deadline, "no temporary output appeared"
+        while f"{label} [".encode() not in err or not _written(folder):
+            assert proc.poll() is None, (proc.returncode, bytes(err))
+            assert time.monotonic() < deadline, "no progress bar and temporary output"
             time.sleep(0.002)
         os.kill(proc.pid, signal.SIGSTOP)
         written = _written(folder)
         os.kill(proc.pid, signal.SIGINT)
         os.kill(proc.pid, signal.SIGCONT)
-        out, err = proc.communicate(timeout=timeout_s)
+        out = proc.stdout.read()
+        proc.wait(timeout=timeout_s)
+        reader.join(timeout=timeout_s)
     finally:
         if proc.poll() is None:
             proc.kill()
-            proc.communicate()
-    return subprocess.CompletedProcess(proc.args, proc.returncode, out, err), written
+            proc.wait()
+        proc.stdout.close()
+        proc.stderr.close()
+    return subprocess.CompletedProcess(proc.args, proc.returncode, out.decode(),
+                                       err.decode()), written
 
 
 class TestCtrlC:
@@ -113,22 +128,23 @@ class TestCtrlC:
     def test_export_leaves_nothing_and_exits_130(self, big, tmp_path, option, name, label):
         out = tmp_path / name
         proc, written = interrupt_mid_write(
-            ["export", str(big), option, str(out), "--progress"], tmp_path)
+            ["export", str(big), option, str(out), "--progress"], tmp_path, label)
         assert proc.returncode == ExitCode.INTERRUPTED == 130, proc.stderr
         assert not out.exists() and parts(tmp_path) == []
         assert proc.stderr.rstrip().endswith("tankside: interrupted (Ctrl-C)")
         assert "Traceback" not in proc.stderr
-        assert f"{label} [" in proc.stderr          # the progress bar was being drawn
-        assert written < 2_000_000                  # mid-write: the whole is 4 to 30 MB
+        assert f"\r{label} [" in proc.stderr         # the progress bar was being drawn
+        assert 0 < written < 2_000_000              # mid-write: the whole is 4 to 15 MB
 
     def test_replay_leaves_nothing_and_keeps_the_old_output(self, big, tmp_path):
         out = tmp_path / "new.db"
         write_converted_session(out, 2, n=512)        # an earlier replay, to be replaced
         before = hashlib.sha256(out.read_bytes()).hexdigest()
         proc, _ = interrupt_mid_write(
-            ["replay", str(big), "--out", str(out), "--force", "--progress"], tmp_path)
+            ["replay", str(big), "--out", str(out), "--force", "--progress"], tmp_path,
+            "replay")
         assert proc.returncode == ExitCode.INTERRUPTED, proc.stderr
-        assert "Traceback" not in proc.stderr and "replay [" in proc.stderr
+        assert "Traceback" not in proc.stderr and "\rreplay [" in proc.stderr
         assert hashlib.sha256(out.read_bytes()).hexdigest() == before
         assert sorted(p.name for p in tmp_path.iterdir()) == ["new.db"]
 
@@ -315,3 +331,40 @@ def test_hdf5_writes_through_failures_at_every_point(tmp_path):
     assert proc.returncode == 0 and proc.stderr == "", proc.stderr[-2000:]
     failed = int(proc.stdout)
     assert 20 < failed < 20 + 16          # the small rooms fail; the largest ones fit
+
+
+class TestCtrlCBetweenSteps:
+    """SIGINT during a job only sets a flag, taken at the next step: a KeyboardInterrupt
+    raised inside a callback run as an object is freed would be printed and dropped."""
+
+    def test_taken_at_the_next_step_and_the_handler_restored(self):
+        from tankside.monitor.progress import CtrlC, bar_factory
+
+        before = signal.getsignal(signal.SIGINT)
+        steps_done = 0
+        with pytest.raises(KeyboardInterrupt), CtrlC() as ctrl_c:
+            with bar_factory(False, check=ctrl_c.check)(5, "job") as bar:
+                for step in range(5):
+                    if step == 2:
+                        os.kill(os.getpid(), signal.SIGINT)
+                        time.sleep(0.01)          # delivered here, and only noted
+                        steps_done = step
+                    bar.update()
+        assert steps_done == 2 and ctrl_c.asked
+        assert signal.getsignal(signal.SIGINT) is before
+
+    def test_a_job_that_ended_first_still_reports_it_and_a_second_press_is_at_once(self):
+        from tankside.monitor.progress import CtrlC
+
+        with pytest.raises(KeyboardInterrupt), CtrlC():
+            os.kill(os.getpid(), signal.SIGINT)
+            time.sleep(0.01)
+        reached = []
+        with pytest.raises(KeyboardInterrupt), CtrlC():
+            os.kill(os.getpid(), signal.SIGINT)
+            time.sleep(0.01)
+            reached.append("after the first")
+            os.kill(os.getpid(), signal.SIGINT)
+            time.sleep(0.05)
+            reached.append("after the second")
+        assert reached == ["after the first"]
