@@ -61,7 +61,7 @@ def main(argv: list[str] | None = None) -> int:
         return ExitCode.USAGE
     except KeyboardInterrupt:
         # A running session handles Ctrl-C itself and ends as asked; reaching here means
-        # a command did not finish (its outputs are written whole or not at all).
+        # a command did not finish (export and replay write outputs whole or not at all).
         print("tankside: interrupted (Ctrl-C)", file=sys.stderr)
         return ExitCode.INTERRUPTED
     except BrokenPipeError:

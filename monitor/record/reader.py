@@ -33,10 +33,13 @@ from .schema import (
     META_CALIBRATION_TEXT,
     METADATA_KINDS,
     REAL_RESULTS,
+    RESULT_COLUMNS,
     RESULT_NAMES,
     TRACE_COLUMNS,
 )
 
+# (derived from the result columns as schema.py derives BOOL_RESULTS and REAL_RESULTS)
+_TEXT_RESULTS = frozenset(name for name, kind in RESULT_COLUMNS if kind == "TEXT")
 _SQLITE_INT_MIN, _SQLITE_INT_MAX = -(2 ** 63), 2 ** 63 - 1
 
 __all__ = ["SessionReader", "StoredTrace"]
@@ -344,8 +347,10 @@ class SessionReader:
                 result[name] = r.optional_flag(name)
             elif name in REAL_RESULTS:
                 result[name] = r.real_or_nan(name)
-            else:
+            elif name in _TEXT_RESULTS:
                 result[name] = r.optional_text(name)
+            else:                         # a kind of column this reader has no check for
+                result[name] = r.values[name]
         for key, value in r.json("extra_json", dict).items():
             if key in RESULT_NAMES and not _fits(key, value):
                 r.fail("extra_json", f"{key!r} is {value!r}, not a value of that result field")
@@ -466,4 +471,6 @@ def _fits(name: str, value: Any) -> bool:
         return isinstance(value, bool)
     if name in REAL_RESULTS:
         return isinstance(value, int | float) and not isinstance(value, bool)
-    return isinstance(value, str)
+    if name in _TEXT_RESULTS:
+        return isinstance(value, str)
+    return True
