@@ -9,6 +9,7 @@ Exit codes (:class:`tankside.monitor.outcome.ExitCode`, also in the README):
 4  the session store could not be written (disk full, permissions); committed data intact
 5  a session that ended on an internal error (a bug); committed data intact
 6  the generator output could not be confirmed off: the drive may still be on
+130  interrupted by Ctrl-C before it finished; export and replay leave no partial output
 """
 
 from __future__ import annotations
@@ -59,8 +60,10 @@ def main(argv: list[str] | None = None) -> int:
         print(f"tankside: instrument error: {err}", file=sys.stderr)
         return ExitCode.USAGE
     except KeyboardInterrupt:
-        print("tankside: interrupted", file=sys.stderr)
-        return ExitCode.OK
+        # A running session handles Ctrl-C itself and ends as asked; reaching here means
+        # a command did not finish (export and replay write outputs whole or not at all).
+        print("tankside: interrupted (Ctrl-C)", file=sys.stderr)
+        return ExitCode.INTERRUPTED
     except BrokenPipeError:
         return ExitCode.OK
 

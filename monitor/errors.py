@@ -69,3 +69,42 @@ class SessionFileError(TanksideError):
 
 class InstrumentBusy(TanksideError):
     """Another tankside session holds the instrument; its holder is in the message."""
+class SessionValueError(SessionFileError):
+    """A value in a session file that is not what its column holds (bad JSON, text where a
+    number belongs, a sample count that does not match the codes, ...).
+
+    Parameters
+    ----------
+    path : str
+        The session file.
+    table : str
+        The table (``"traces"``, ``"metadata"``, ...).
+    row : str
+        Which row: ``"seq 12"``, ``"key 'settings'"``, ``"event_id 3"``, ``"the row"``.
+    column : str
+        The column (``"state_json"``, ``"n"``, ...).
+    problem : str
+        What is wrong, in words that say what was expected.
+    """
+
+    def __init__(self, path: str, table: str, row: str, column: str, problem: str):
+        self.path = path
+        self.table = table
+        self.row = row
+        self.column = column
+        self.problem = problem
+        super().__init__(f"{path}: table {table}, {row}, column {column}: {problem}")
+
+    def __reduce__(self):
+        return type(self), (self.path, self.table, self.row, self.column, self.problem), \
+            vars(self)
+
+
+class TraceChecksumError(SessionValueError):
+    """A stored trace whose codes do not match the checksum recorded with them: the file
+    was damaged after it was written (a flipped bit on the disk or in a copy)."""
+
+
+class OutputFileError(TanksideError):
+    """An output file (an export, replay's new session) that cannot be written: a missing
+    folder, no permission, a full disk. Nothing is left under the file's name."""

@@ -27,6 +27,11 @@ class ExitCode(enum.IntEnum):
     """A session ended by an internal error (a bug); committed data intact."""
     DRIVE_MAY_BE_ON = 6
     """The generator output could not be confirmed off: the drive may still be on."""
+    INTERRUPTED = 130
+    """A command interrupted by Ctrl-C (SIGINT) before it finished; ``export`` and
+    ``replay`` leave no partial output under the output's name. (A running session
+    stopped by Ctrl-C ends as asked, with 0.) 130 is 128 + SIGINT, as shells report a
+    command ended by that signal (common practice)."""
 
 
 class ExitStatus(enum.StrEnum):

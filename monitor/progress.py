@@ -6,6 +6,7 @@ a second, and erased at the end, so logs and pipes stay clean.
 
 from __future__ import annotations
 
+import signal
 import sys
 import time
 
@@ -80,11 +81,65 @@ class Progress:
         self.close()
 
 
-def bar_factory(enabled: bool | None):
+class _CheckedProgress(Progress):
+    def __init__(self, *args, check, **kwargs):
+        super().__init__(*args, **kwargs)
+        self._check = check
+
+    def update(self, steps: int = 1) -> None:
+        self._check()
+        super().update(steps)
+
+
+def bar_factory(enabled: bool | None, check=None):
     """A steps factory for the record layer: ``(total, label) -> Progress`` on stderr.
 
-    ``enabled`` as for :class:`Progress` (None: only on a terminal).
+    ``enabled`` as for :class:`Progress` (None: only on a terminal); ``check``, when
+    given, is called before each step (:meth:`CtrlC.check`).
     """
     def make(total: int, label: str) -> Progress:
-        return Progress(total, label, enabled=enabled)
+        if check is None:
+            return Progress(total, label, enabled=enabled)
+        return _CheckedProgress(total, label, enabled=enabled, check=check)
     return make
+
+
+class CtrlC:
+    """Ctrl-C taken between the steps of a job, not wherever the interpreter happens to be.
+
+    Python raises KeyboardInterrupt at whatever bytecode runs when SIGINT arrives, also
+    inside a callback run as an object is freed, where it is printed and dropped: an
+    HDF5 export interrupted there went on to the end and exited 0. While a CtrlC is
+    entered, SIGINT only sets a flag; :meth:`check` (called at each progress step)
+    raises KeyboardInterrupt where the job stops cleanly, and leaving the block raises it
+    if the job ended first. A second Ctrl-C raises at once. Outside the main thread, where
+    no handler can be installed, Ctrl-C behaves as usual.
+    """
+
+    def __init__(self):
+        self.asked = False
+        self._previous = None
+        self._installed = False
+
+    def _on_sigint(self, signum, frame) -> None:
+        if self.asked:
+            raise KeyboardInterrupt
+        self.asked = True
+
+    def check(self) -> None:
+        if self.asked:
+            raise KeyboardInterrupt
+
+    def __enter__(self) -> CtrlC:
+        try:
+            self._previous = signal.signal(signal.SIGINT, self._on_sigint)
+            self._installed = True
+        except ValueError:      # not the main thread
+            pass
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if self._installed:
+            signal.signal(signal.SIGINT, self._previous)
+        if exc_type is None:
+            self.check()

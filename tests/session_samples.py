@@ -97,3 +97,41 @@ def zero_trace(seq: int, n: int = 2000) -> RawTrace:
                     offset_v=0.0, dt_s=raw.dt_s, t0_s=raw.t0_s, seq=seq, time_s=raw.time_s,
                     range_v=raw.range_v, code_min=raw.code_min, code_max=raw.code_max,
                     clipped_low=0, clipped_high=0, data_format="int16", state=raw.state)
+
+
+def write_converted_session(path, n_traces: int = 4, *, n: int = 2000) -> list[RawTrace]:
+    """A small session converted as the live pipeline does (a real Converter on the
+    invented calibration), with a method change, an alert, a mark and a stop record:
+    everything ``export`` and ``replay`` read."""
+    from tankside.monitor.acoustics.calibration import parse_calibration
+    from tankside.monitor.acoustics.converter import Converter
+    from tankside.monitor.acoustics.loading import Loading
+    from tankside.monitor.acoustics.settings import ConversionSettings
+    from tankside.monitor.errors import TanksideError
+    from tankside.monitor.record.schema import EventKind
+
+    cal = parse_calibration(calibration_text(), source="cal.csv")
+    loading, settings = Loading(), ConversionSettings(method="deconvolve")
+    conv = Converter(cal, loading=loading, settings=settings, temperature_c=21.5)
+    meta = session_metadata(configuration={"digitiser": {"range_v": 0.5}},
+                            instruments={"digitiser": {"resource": "TCPIP0::127.0.0.1::1::SOCKET",
+                                                       "identity": "INVENTED,DIG,0,1"}},
+                            calibration=cal, loading=loading, settings=settings,
+                            temperature_c=21.5)
+    raws = [make_raw(i, n=n, dtype=">i2" if i % 2 else "<i2") for i in range(n_traces)]
+    store = SessionStore.create(path, meta)
+    for raw in raws:
+        if raw.seq == n_traces // 2:
+            conv = conv.with_method("narrowband")
+            store.add_event(raw.time_s, EventKind.METHOD_CHANGE,
+                            {"from": "deconvolve", "to": "narrowband"}, seq=raw.seq)
+        try:
+            flat, error = conv.process(raw.volts(), raw.dt_s).flat(), None
+        except TanksideError as err:
+            flat, error = None, f"{type(err).__name__}: {err}"
+        store.add_trace(raw, flat, {"clipped": raw.clipped > 0, "range_changed": False}, error)
+    store.add_alert(raws[0].time_s, "clipping", "warning", "samples at the rails", ["record"],
+                    seq=0)
+    store.add_event(raws[-1].time_s, EventKind.MARK, {"note": "end"}, seq=None)
+    store.close("completed", "trace count reached", {"traces": n_traces})
+    return raws

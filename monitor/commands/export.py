@@ -6,7 +6,7 @@ import argparse
 import sys
 
 from ..errors import ConfigError
-from ..progress import bar_factory
+from ..progress import CtrlC, bar_factory
 from .options import add_progress_options, number
 
 
@@ -44,15 +44,17 @@ def run(args) -> int:
     if not any((args.results, args.out, args.calibration_out, args.hdf5)):
         raise ConfigError("nothing to export: give --results, --trace/--out, "
                           "--calibration-out or --hdf5")
-    with SessionReader(args.session) as reader:
+    with CtrlC() as ctrl_c, SessionReader(args.session) as reader:
+        steps = bar_factory(args.progress, check=ctrl_c.check)
+        if reader.note:
+            print(f"note: {reader.note}", file=sys.stderr)
         if not reader.stopped_cleanly:
             print(f"note: {args.session} has no stop record: the session was not stopped "
                   "cleanly (or is still being recorded)", file=sys.stderr)
         if args.trace is not None:
             reader.trace(args.trace)  # an unknown seq fails before any file is written
         if args.results:
-            rows = export.export_results_csv(reader, args.results,
-                                             progress=bar_factory(args.progress))
+            rows = export.export_results_csv(reader, args.results, progress=steps)
             print(f"wrote {rows} result rows to {args.results}")
         if args.trace is not None:
             n = export.export_trace_csv(reader, args.trace, args.out)
@@ -61,6 +63,6 @@ def run(args) -> int:
             sha = export.export_calibration(reader, args.calibration_out)
             print(f"wrote the calibration file to {args.calibration_out} (sha256 {sha})")
         if args.hdf5:
-            n = export.export_hdf5(reader, args.hdf5, progress=bar_factory(args.progress))
+            n = export.export_hdf5(reader, args.hdf5, progress=steps)
             print(f"wrote {n} traces with results, alerts and events to {args.hdf5}")
     return 0

@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import sys
 
 from ..acoustics.settings import Method
-from ..progress import bar_factory
+from ..progress import CtrlC, bar_factory
 from .options import add_calibration_check_options, add_progress_options, calibration_checks
 
 
@@ -38,10 +39,13 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 def run(args) -> int:
     from ..record.replay import replay_session
 
-    summary = replay_session(args.session, args.out, calibration_path=args.calibration,
-                             calibration_checks=calibration_checks(args),
-                             method=args.method, force=args.force, check=args.check,
-                             progress=bar_factory(args.progress))
+    with CtrlC() as ctrl_c:
+        summary = replay_session(args.session, args.out, calibration_path=args.calibration,
+                                 calibration_checks=calibration_checks(args),
+                                 method=args.method, force=args.force, check=args.check,
+                                 progress=bar_factory(args.progress, check=ctrl_c.check))
+    if summary.note:
+        print(f"note: {summary.note}", file=sys.stderr)
     line = (f"replayed {summary.traces} traces into {summary.out_path}: "
             f"{summary.converted} converted, {summary.failed} failed, "
             f"{summary.seconds:.1f} s")

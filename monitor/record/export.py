@@ -30,7 +30,9 @@ HDF5 layout (``format`` attribute ``"tankside-session-export"``, ``layout_versio
     ``/traces/<column>``     one 1-D dataset per trace column, length N: seq, time_s,
                              volts_per_code, offset_v, dt_s, t0_s, range_v, code_min,
                              code_max, clipped_low, clipped_high, dtype, data_format,
-                             state_json
+                             state_json, and codes_crc32 (the CRC-32 of each trace's codes
+                             as the session recorded and the export checked it; -1 for
+                             a session of layout 1, which records none)
     ``/results/<field>``     one 1-D dataset per result field plus converted, clipped,
                              range_changed and error; ``narrowband_ok`` is int8
                              (1 true, 0 false, -1 no result); NaN for a missing number
@@ -48,12 +50,16 @@ from __future__ import annotations
 import csv
 import hashlib
 import math
-from pathlib import Path
+import os
+import re
+from collections.abc import Iterator
+from contextlib import contextmanager
 from typing import Any
 
 import numpy as np
 
-from ..errors import ConfigError
+from ..errors import ConfigError, OutputFileError, SessionValueError
+from .outputs import GuardedFile, describe_os_error, output_file
 from .schema import (
     META_CALIBRATION_SHA256,
     RESULT_COLUMNS,
@@ -83,9 +89,11 @@ def _cell(value) -> str:
 
 
 def export_results_csv(reader: SessionReader, out, *, progress: StepsFactory = silent) -> int:
-    """Write the results CSV; returns the number of rows."""
+    """Write the results CSV; returns the number of rows. Like every export, the file is
+    written under a temporary name and appears under ``out`` only when complete
+    (:func:`~tankside.monitor.record.outputs.output_file`)."""
     rows = 0
-    with open(out, "w", newline="", encoding="utf-8") as fh, \
+    with output_file(out) as tmp, open(tmp, "w", newline="", encoding="utf-8") as fh, \
             progress(reader.trace_count(), "results") as bar:
         writer = csv.writer(fh, lineterminator="\n")
         writer.writerow(RESULTS_CSV_COLUMNS)
@@ -100,14 +108,23 @@ def export_results_csv(reader: SessionReader, out, *, progress: StepsFactory = s
 
 def export_trace_csv(reader: SessionReader, seq: int, out) -> int:
     """Write trace ``seq`` in volts as ``time_s,voltage_v``; returns the sample count."""
-    from .tracefile import write_trace
+    from .tracefile import trace_text
 
     raw = reader.trace(seq).raw
-    write_trace(out, raw.volts(), raw.dt_s, t0_s=raw.t0_s, comments=[
+    for column, value in (("dt_s", raw.dt_s), ("t0_s", raw.t0_s),
+                          ("volts_per_code", raw.volts_per_code), ("offset_v", raw.offset_v)):
+        if not math.isfinite(value) or (column == "dt_s" and not value > 0):
+            # a trace file needs real times and volts; the session keeps the value as sent
+            raise SessionValueError(str(reader.path), "traces", f"seq {raw.seq}", column,
+                                    f"{value!r} cannot be written as a trace file (expected "
+                                    f"a finite number{' > 0' if column == 'dt_s' else ''})")
+    text = trace_text("time_s,voltage_v", raw.volts(), raw.dt_s, raw.t0_s, comments=[
         f"trace {raw.seq} of session {reader.path.name} ({reader.start['session_uid']})",
         f"acquired at {raw.time_s!r} s since the Unix epoch; dt_s = {raw.dt_s!r}",
         f"range {raw.range_v!r} V, {raw.clipped} samples at the rails; codes as sent are "
         "in the session file"])
+    with output_file(out) as tmp:
+        tmp.write_text(text, encoding="utf-8")
     return raw.n
 
 
@@ -120,14 +137,15 @@ def export_calibration(reader: SessionReader, out) -> str:
         with_bom = (_BOM + text).encode("utf-8")
         if hashlib.sha256(with_bom).hexdigest() == recorded:
             data = with_bom
-    Path(out).write_bytes(data)
+    with output_file(out) as tmp:
+        tmp.write_bytes(data)
     return hashlib.sha256(data).hexdigest()
 
 
 # -- HDF5 --------------------------------------------------------------------------------
 _TRACE_FLOATS = ("time_s", "volts_per_code", "offset_v", "dt_s", "t0_s", "range_v",
                  "code_min", "code_max")
-_TRACE_INTS = ("seq", "clipped_low", "clipped_high")
+_TRACE_INTS = ("seq", "clipped_low", "clipped_high", "codes_crc32")
 _TRACE_STRS = ("dtype", "data_format", "state_json")
 
 
@@ -137,6 +155,85 @@ def _h5():
     except ImportError as err:  # pragma: no cover - h5py is a dependency
         raise ConfigError("HDF5 export needs h5py (pip install h5py)") from err
     return h5py
+
+
+def _hdf5_reason(err: BaseException) -> str:
+    # HDF5 reports a failed write as an OSError with its errno or, from the library, a
+    # RuntimeError whose text holds "errno = N"; both name the temporary file at length.
+    code = getattr(err, "errno", None)
+    if code is None:
+        found = re.search(r"errno = (\d+)", str(err))
+        code = int(found.group(1)) if found else None
+    if code is not None:
+        return describe_os_error(OSError(code, os.strerror(code)))
+    return str(err).splitlines()[0][:120] if str(err) else type(err).__name__
+
+
+@contextmanager
+def _hdf5_file(out, tmp) -> Iterator[tuple[Any, GuardedFile]]:
+    """``(h5py.File, its GuardedFile)`` writing ``tmp``; a failed write is an
+    OutputFileError naming ``out``.
+
+    HDF5 (h5py 3.16.0 with HDF5 2.0.0, measured here) crashes the process at exit, or
+    prints errors as objects are freed, when a write to its file failed. So it writes
+    through a :class:`~tankside.monitor.record.outputs.GuardedFile`, which never tells it:
+    the first failure is kept, the export asks for it between traces, and
+    the file is closed with later writes discarded.
+    """
+    h5py = _h5()
+    try:
+        raw = open(tmp, "w+b", buffering=0)  # closed below, after h5py has let go
+    except OSError as err:
+        raise OutputFileError(f"{out}: cannot create the HDF5 file "
+                              f"({describe_os_error(err)})") from err
+    guarded = GuardedFile(raw)
+    try:
+        try:
+            f = h5py.File(guarded, "w")
+        except (OSError, RuntimeError) as err:
+            raise OutputFileError(f"{out}: cannot create the HDF5 file "
+                                  f"({_hdf5_reason(guarded.failed or err)})") from err
+        try:
+            yield f, guarded
+            guarded.check()
+        except BaseException:
+            guarded.abandon()      # the file is removed: closing it need write nothing
+            _close_quietly(f)
+            raise
+        try:
+            f.close()
+        except (OSError, RuntimeError) as err:
+            raise OutputFileError(_hdf5_failure(out, guarded.failed or err)) from err
+        if guarded.failed is not None:
+            raise OutputFileError(_hdf5_failure(out, guarded.failed)) from guarded.failed
+    except (OSError, RuntimeError) as err:  # from the block: a write failed
+        raise OutputFileError(_hdf5_failure(out, guarded.failed or err)) from err
+    finally:
+        raw.close()
+
+
+class _Checked:
+    """A progress bar that first checks that the output is still being written."""
+
+    def __init__(self, bar, check):
+        self._bar = bar
+        self._check = check
+
+    def update(self, steps: int = 1) -> None:
+        self._check()
+        self._bar.update(steps)
+
+
+def _hdf5_failure(out, err: BaseException) -> str:
+    return (f"{out}: writing the HDF5 file failed ({_hdf5_reason(err)}); nothing written "
+            "under that name")
+
+
+def _close_quietly(f) -> None:
+    try:
+        f.close()
+    except (OSError, RuntimeError):
+        pass  # the file is removed; the error that got us here is the one reported
 
 
 def _strings(group, name: str, values):
@@ -153,12 +250,17 @@ def _numbers(group, name: str, values, dtype, units: str | None = None):
 def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) -> int:
     """Write the whole session to HDF5 (layout in the module docstring); returns N traces."""
     h5py = _h5()
-    n_traces = reader.trace_count()
-    layouts = reader.trace_layouts()
+    # Traces committed while the export runs (a session still being recorded) are left
+    # out, so that every dataset holds the same traces.
+    last = reader.last_seq()
+    stop_seq = None if last is None else last + 1
+    n_traces = len(reader.seqs(stop_seq))
+    layouts = reader.trace_layouts(stop_seq)
     uniform = len(layouts) == 1
     meta = reader.metadata
     stop = reader.stop
-    with h5py.File(out, "w") as f, progress(n_traces, "hdf5") as bar:
+    with output_file(out) as tmp, _hdf5_file(out, tmp) as (f, guard), \
+            progress(n_traces, "hdf5") as bar:
         f.attrs.update({"format": "tankside-session-export", "layout_version": 1,
                         "source_file": str(reader.path), **{k: reader.start[k] for k in
                         ("session_uid", "tool_version", "start_time_s")},
@@ -170,8 +272,9 @@ def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) 
             ds = g.create_dataset("calibration_text", data=meta["calibration_text"],
                                   dtype=h5py.string_dtype())
             ds.attrs["sha256"] = meta.get(META_CALIBRATION_SHA256) or ""
-        _write_traces(f.create_group("traces"), reader, n_traces, layouts, uniform, bar)
-        _write_results(f.create_group("results"), reader)
+        _write_traces(f.create_group("traces"), reader, n_traces, layouts, uniform,
+                      _Checked(bar, guard.check), stop_seq)
+        _write_results(f.create_group("results"), reader, stop_seq)
         _write_alerts(f.create_group("alerts"), reader.alerts())
         _write_events(f.create_group("events"), reader.events())
         if stop is not None:
@@ -181,7 +284,7 @@ def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) 
     return n_traces
 
 
-def _write_traces(g, reader, n_traces, layouts, uniform, bar):
+def _write_traces(g, reader, n_traces, layouts, uniform, bar, stop_seq):
     starts: list[int] = []      # where each trace's codes begin, when not uniform
     counts: list[int] = []
     if uniform and n_traces:
@@ -190,11 +293,12 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar):
                                  chunks=(1, n))
     else:
         common = np.result_type(*[np.dtype(d) for d, _ in layouts]) if layouts else np.int16
-        codes = g.create_dataset("codes", shape=(reader.total_samples(),), dtype=common)
+        codes = g.create_dataset("codes", shape=(reader.total_samples(stop_seq),),
+                                 dtype=common)
     codes.attrs["units"] = "code"
     cols: dict[str, list[Any]] = {c: [] for c in (*_TRACE_FLOATS, *_TRACE_INTS, *_TRACE_STRS)}
     pos = 0
-    for i, stored in enumerate(reader.iter_traces()):
+    for i, stored in enumerate(reader.iter_traces(stop_seq=stop_seq)):
         raw = stored.raw
         if uniform:
             codes[i] = raw.codes
@@ -208,6 +312,7 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar):
         cols["seq"].append(raw.seq)
         cols["clipped_low"].append(raw.clipped_low)
         cols["clipped_high"].append(raw.clipped_high)
+        cols["codes_crc32"].append(-1 if stored.codes_crc32 is None else stored.codes_crc32)
         cols["dtype"].append(raw.codes.dtype.str)
         cols["data_format"].append(raw.data_format)
         cols["state_json"].append(strict_json(raw.state))
@@ -223,11 +328,11 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar):
         _strings(g, c, cols[c])
 
 
-def _write_results(g, reader):
+def _write_results(g, reader, stop_seq):
     cols: dict[str, list[Any]] = {c: [] for c in ("seq", *RESULT_NAMES, "converted", "clipped",
                                                   "range_changed", "error")}
     kinds = dict(RESULT_COLUMNS)
-    for r in reader.iter_results():
+    for r in reader.iter_results(stop_seq):
         for c in cols:
             v = r.get(c)
             if c in kinds and kinds[c] == "BOOL":

@@ -2,32 +2,45 @@
 :mod:`tankside.monitor.record.store`).
 
 The file is opened read-only (``mode=ro``), so a session can be read while another
-process is still writing it; traces are read lazily in small chunks.
+process is still writing it; traces are read lazily in small chunks. Every cell is
+checked as it is read (:mod:`tankside.monitor.record.cells`): a malformed value is a
+:class:`~tankside.monitor.errors.SessionValueError` naming the file, table, row and
+column, and any other failure to read is a :class:`~tankside.monitor.errors.SessionFileError`.
 """
 
 from __future__ import annotations
 
-import json
 import math
 import os
 import sqlite3
+import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
 from ...drivers.trace import RawTrace
-from ..errors import SessionFileError, StoreError
+from ..errors import SessionFileError, TraceChecksumError
+from .cells import Row, codes_dtype, kind_of
+from .opening import OpenedSession, open_read_only, wal_mode
 from .schema import (
     BOOL_RESULTS,
+    CHECKSUM_LAYOUT,
     FORMAT_TAG,
     LAYOUT_VERSION,
     META_CALIBRATION_TEXT,
+    METADATA_KINDS,
     REAL_RESULTS,
+    RESULT_COLUMNS,
     RESULT_NAMES,
     TRACE_COLUMNS,
 )
+
+# (derived from the result columns as schema.py derives BOOL_RESULTS and REAL_RESULTS)
+_TEXT_RESULTS = frozenset(name for name, kind in RESULT_COLUMNS if kind == "TEXT")
+_SQLITE_INT_MIN, _SQLITE_INT_MAX = -(2 ** 63), 2 ** 63 - 1
 
 __all__ = ["SessionReader", "StoredTrace"]
 
@@ -35,12 +48,14 @@ __all__ = ["SessionReader", "StoredTrace"]
 @dataclass
 class StoredTrace:
     """One trace read back: the raw trace as sent, its result (None if conversion
-    failed), its flags and the conversion error text."""
+    failed), its flags, the conversion error text, and the CRC-32 of its codes as
+    recorded and checked (None in a layout 1 file, which has none)."""
 
     raw: RawTrace
     result: dict | None
     flags: dict = field(default_factory=dict)
     error: str | None = None
+    codes_crc32: int | None = None
 
 
 def session_size_bytes(path) -> int:
@@ -54,8 +69,8 @@ def session_size_bytes(path) -> int:
     return total
 
 
-def _nan_if_none(v):
-    return math.nan if v is None else v
+def _meta_row(key: str) -> str:
+    return f"key {key!r}"
 
 
 class SessionReader:
@@ -69,45 +84,106 @@ class SessionReader:
     Raises
     ------
     SessionFileError
-        Missing file, not an SQLite file, or not a tankside session (and, from
-        :meth:`trace`, an unknown seq). Other read failures are StoreError.
+        Missing file, not an SQLite file, not a tankside session, a layout newer than
+        this tankside, or a failure to read; from :meth:`trace`, an unknown seq.
+    SessionValueError
+        (a SessionFileError) A cell that is not what its column holds, named by table,
+        row and column; raised where the cell is read.
     """
 
     _CHUNK = 64
 
     def __init__(self, path):
         self.path = Path(path)
+        self._conn: sqlite3.Connection | None = None
+        self._opened: OpenedSession | None = None
         if not self.path.is_file():
             raise SessionFileError(f"{self.path}: no such session file")
-        uri = f"{self.path.resolve().as_uri()}?mode=ro"
+        self._opened = open_read_only(self.path)
+        self._conn = self._opened.conn
         try:
-            self._conn = sqlite3.connect(uri, uri=True, check_same_thread=False)
-            row = self._conn.execute(
+            rows = self._conn.execute(
                 "SELECT format, layout_version, session_uid, start_time_s, tool_version "
-                "FROM session_start").fetchone()
-        except sqlite3.Error as err:
-            if hasattr(self, "_conn"):
-                self._conn.close()
-            raise SessionFileError(f"{self.path}: not a tankside session file ({err})") from err
-        if row is None or row[0] != FORMAT_TAG:
-            self._conn.close()
+                "FROM session_start").fetchall()
+        except (sqlite3.Error, UnicodeError) as err:
+            message = self._why_not_a_session(err)
+            self.close()
+            raise SessionFileError(message) from err
+        if len(rows) != 1 or rows[0][0] != FORMAT_TAG:
+            self.close()
             raise SessionFileError(f"{self.path}: not a tankside session file")
-        if row[1] > LAYOUT_VERSION:
-            self._conn.close()
-            raise SessionFileError(f"{self.path}: session layout {row[1]} is newer than this "
-                             f"tankside reads ({LAYOUT_VERSION})")
-        self.start = {"format": row[0], "layout_version": row[1], "session_uid": row[2],
-                      "start_time_s": row[3], "tool_version": row[4]}
-        self._result_cols = [r[1] for r in self._query("PRAGMA table_info(results)")]
+        try:
+            row = Row(str(self.path), "session_start", "the row", dict(zip(
+                ("format", "layout_version", "session_uid", "start_time_s", "tool_version"),
+                rows[0], strict=True)))
+            layout = row.integer("layout_version", minimum=1)
+            if layout > LAYOUT_VERSION:
+                raise SessionFileError(f"{self.path}: session layout {layout} is newer than "
+                                       f"this tankside reads ({LAYOUT_VERSION})")
+            self.start = {"format": FORMAT_TAG, "layout_version": layout,
+                          "session_uid": row.text("session_uid"),
+                          "start_time_s": row.real("start_time_s"),
+                          "tool_version": row.text("tool_version")}
+            self._result_cols = self._columns("results")
+            # Layout 1 files have no checksum; they are read as they are.
+            self._checksums = layout >= CHECKSUM_LAYOUT
+            self._trace_cols = tuple(c for c in TRACE_COLUMNS
+                                     if self._checksums or c != "codes_crc32")
+            present = set(self._columns("traces"))
+            missing = [c for c in self._trace_cols if c not in present]
+            if missing:
+                raise SessionFileError(f"{self.path}: table traces of a layout {layout} "
+                                       f"session lacks the column(s) {', '.join(missing)}")
+        except SessionFileError:
+            self.close()
+            raise
 
-    def _query(self, sql: str, params=()):
+    def _why_not_a_session(self, err: Exception) -> str:
+        try:
+            tables = self._query("SELECT COUNT(*) FROM sqlite_master")[0][0]
+        except SessionFileError:
+            tables = None
+        wal = Path(f"{self.path}-wal")
+        # (opening a WAL-mode file creates an empty -wal beside it where it can)
+        if tables == 0 and wal_mode(self.path) and (not wal.exists() or
+                                                    wal.stat().st_size == 0):
+            return (f"{self.path}: holds no tables yet; a session's first data are in "
+                    f"{wal.name} until its first checkpoint, and no {wal.name} is beside it "
+                    "(copy the two files together)")
+        return f"{self.path}: not a tankside session file ({err})"
+
+    def _columns(self, table: str) -> list[str]:
+        """The column names of ``table``, which the reader puts into its queries."""
+        names = [r[1] for r in self._query(f"PRAGMA table_info({table})")]
+        for name in names:
+            if not (isinstance(name, str) and name.isidentifier() and name.isascii()):
+                raise SessionFileError(f"{self.path}: table {table} has a column named "
+                                       f"{name!r}, which no session file has (damaged)")
+        return names
+
+    @property
+    def note(self) -> str | None:
+        """A line for the user when the file is not read in place (a working copy of a
+        session on a read-only medium), else None."""
+        return None if self._opened is None else self._opened.note
+
+    def _query(self, sql: str, params=()) -> list[tuple[Any, ...]]:
+        if self._conn is None:
+            raise SessionFileError(f"{self.path}: the session reader is closed")
         try:
             return self._conn.execute(sql, params).fetchall()
-        except sqlite3.Error as err:
-            raise StoreError(f"{self.path}: reading the session failed ({err})") from err
+        except (sqlite3.Error, UnicodeError) as err:
+            # (a damaged page can hold text that is not UTF-8 where SQLite keeps names)
+            raise SessionFileError(f"{self.path}: reading the session failed ({err})") from err
+
+    def _row(self, table: str, row: str, columns, values) -> Row:
+        return Row(str(self.path), table, row, dict(zip(columns, values, strict=True)))
 
     def close(self) -> None:
-        self._conn.close()
+        if self._opened is not None:
+            self._opened.close()
+            self._opened = None
+        self._conn = None
 
     def __enter__(self):
         return self
@@ -118,25 +194,47 @@ class SessionReader:
     # -- run record ---------------------------------------------------------------------
     @property
     def metadata(self) -> dict:
-        """The metadata dict as recorded (``META_*`` keys)."""
-        return {k: json.loads(v) for k, v in self._query("SELECT key, value_json FROM metadata")}
+        """The metadata dict as recorded (``META_*`` keys); the values of the standard
+        keys are checked to be of their kind (:data:`~.schema.METADATA_KINDS`)."""
+        out = {}
+        for key, value_json in self._query("SELECT key, value_json FROM metadata"):
+            key_row = self._row("metadata", "a row", ("key",), (key,))
+            key = key_row.text("key")
+            if not key:
+                key_row.fail("key", "an empty key")
+            row = self._row("metadata", _meta_row(key), ("value_json",), (value_json,))
+            value = row.json("value_json")
+            kinds = METADATA_KINDS.get(key)
+            if kinds is not None and value is not None and not (
+                    isinstance(value, kinds) and not isinstance(value, bool)):
+                names = " or ".join(_KIND_NAMES[k] for k in kinds)
+                row.fail("value_json", f"expected {names} or null, found "
+                                       f"{type(value).__name__}")
+            out[key] = value
+        return out
 
     @property
     def descriptors(self) -> dict:
-        rows = self._query("SELECT name, tbl, units, dtype, shape_json, source FROM descriptors")
-        return {r[0]: {"table": r[1], "units": r[2], "dtype": r[3],
-                       "shape": json.loads(r[4]), "source": r[5]} for r in rows}
+        cols = ("name", "tbl", "units", "dtype", "shape_json", "source")
+        out = {}
+        for values in self._query(f"SELECT {', '.join(cols)} FROM descriptors"):
+            r = self._row("descriptors", f"name {values[0]!r}", cols, values)
+            out[r.text("name")] = {"table": r.text("tbl"), "units": r.text("units"),
+                                   "dtype": r.text("dtype"),
+                                   "shape": r.json("shape_json", list),
+                                   "source": r.text("source")}
+        return out
 
     @property
     def stop(self) -> dict | None:
         """The stop record, or None when the session was not stopped cleanly."""
-        rows = self._query("SELECT stop_time_s, exit_status, reason, counts_json "
-                           "FROM session_stop")
+        cols = ("stop_time_s", "exit_status", "reason", "counts_json")
+        rows = self._query(f"SELECT {', '.join(cols)} FROM session_stop")
         if not rows:
             return None
-        t, status, reason, counts = rows[0]
-        return {"stop_time_s": t, "exit_status": status, "reason": reason,
-                "counts": json.loads(counts)}
+        r = self._row("session_stop", "the row", cols, rows[0])
+        return {"stop_time_s": r.real("stop_time_s"), "exit_status": r.text("exit_status"),
+                "reason": r.text("reason"), "counts": r.json("counts_json", dict)}
 
     @property
     def stopped_cleanly(self) -> bool:
@@ -156,59 +254,125 @@ class SessionReader:
     def __len__(self) -> int:
         return self.trace_count()
 
-    def trace_layouts(self) -> set[tuple[str, int]]:
-        """The distinct (numpy dtype string, sample count) of the stored traces."""
-        return {(d, n) for d, n in self._query("SELECT DISTINCT dtype, n FROM traces")}
+    def last_seq(self) -> int | None:
+        """The highest seq stored so far, or None when there is no trace."""
+        value = self._query("SELECT MAX(seq) FROM traces")[0][0]
+        return None if value is None else int(value)
 
-    def total_samples(self) -> int:
-        return int(self._query("SELECT COALESCE(SUM(n), 0) FROM traces")[0][0])
+    def trace_layouts(self, stop_seq: int | None = None) -> set[tuple[str, int]]:
+        """The distinct (numpy dtype string, sample count) of the stored traces (those
+        before ``stop_seq`` when given); each is checked as :meth:`trace` checks it."""
+        return {(dtype, n) for _, dtype, n in self._layouts(stop_seq)}
 
-    def seqs(self) -> list[int]:
-        return [r[0] for r in self._query("SELECT seq FROM traces ORDER BY seq")]
+    def total_samples(self, stop_seq: int | None = None) -> int:
+        """Samples in all stored traces (those before ``stop_seq`` when given)."""
+        return sum(n for _, _, n in self._layouts(stop_seq))
+
+    def _layouts(self, stop_seq: int | None) -> Iterator[tuple[int, str, int]]:
+        """(seq, dtype string, n) of each trace, checked against its codes' length
+        (which SQLite knows without reading the codes)."""
+        where, params = ("", ()) if stop_seq is None else ("WHERE seq < ?", (int(stop_seq),))
+        cols = ("seq", "dtype", "n", "codes")
+        for seq, dtype, n, size in self._query(
+                "SELECT seq, dtype, n, CASE WHEN typeof(codes) = 'blob' THEN length(codes) "
+                f"ELSE codes END FROM traces {where} ORDER BY seq", params):
+            r = self._row("traces", f"seq {seq}", cols, (seq, dtype, n, size))
+            dt, n = self._layout(r, size)
+            yield seq, dt.str, n
+
+    def _layout(self, r: Row, size: Any) -> tuple[np.dtype, int]:
+        dt = self._codes_dtype(r)
+        n = r.integer("n", minimum=0)
+        if not isinstance(size, int):
+            r.fail("codes", f"expected a BLOB, found {kind_of(size)}")
+        if n * dt.itemsize != size:
+            r.fail("n", f"{n} samples of {dt.str} are {n * dt.itemsize} bytes, but the codes "
+                        f"hold {size}")
+        return dt, n
+
+    def seqs(self, stop_seq: int | None = None) -> list[int]:
+        """The stored seqs in order (those before ``stop_seq`` when given)."""
+        where, params = ("", ()) if stop_seq is None else ("WHERE seq < ?", (int(stop_seq),))
+        return [r[0] for r in self._query(f"SELECT seq FROM traces {where} ORDER BY seq",
+                                          params)]
+
+    @staticmethod
+    def _codes_dtype(r: Row) -> np.dtype:
+        dt = codes_dtype(r.text("dtype"))
+        if dt is None:
+            r.fail("dtype", f"expected a numpy integer or float dtype such as '<i2', found "
+                            f"{r.values['dtype']!r}")
+        return dt
 
     def _stored(self, trow, rrow) -> StoredTrace:
-        t = dict(zip(TRACE_COLUMNS, trow, strict=True))
-        codes = np.frombuffer(t["codes"], dtype=np.dtype(t["dtype"]), count=t["n"])
-        raw = RawTrace(codes=codes, volts_per_code=t["volts_per_code"], offset_v=t["offset_v"],
-                       dt_s=t["dt_s"], t0_s=t["t0_s"], seq=t["seq"], time_s=t["time_s"],
-                       range_v=t["range_v"], code_min=t["code_min"], code_max=t["code_max"],
-                       clipped_low=t["clipped_low"], clipped_high=t["clipped_high"],
-                       data_format=t["data_format"], state=json.loads(t["state_json"]))
+        t = self._row("traces", f"seq {trow[0]}", self._trace_cols, trow)
+        data = t.blob("codes")
+        dt, n = self._layout(t, len(data))
+        recorded = None
+        if self._checksums:
+            recorded = t.integer("codes_crc32", minimum=0)
+            computed = zlib.crc32(data)
+            if computed != recorded:
+                raise TraceChecksumError(
+                    str(self.path), "traces", f"seq {trow[0]}", "codes",
+                    f"the codes do not match their checksum (CRC-32 recorded {recorded:#010x}, "
+                    f"computed {computed:#010x}): the file was damaged after it was written")
+        codes = np.frombuffer(data, dtype=dt, count=n)
+        raw = RawTrace(codes=codes, volts_per_code=t.real("volts_per_code"),
+                       offset_v=t.real("offset_v"), dt_s=t.real("dt_s"), t0_s=t.real("t0_s"),
+                       seq=t.integer("seq"), time_s=t.real("time_s"),
+                       range_v=t.real("range_v"), code_min=t.real("code_min"),
+                       code_max=t.real("code_max"),
+                       clipped_low=t.integer("clipped_low", minimum=0),
+                       clipped_high=t.integer("clipped_high", minimum=0),
+                       data_format=t.text("data_format"), state=t.json("state_json", dict))
         if rrow is None:  # trace written without a results row (older layouts)
-            return StoredTrace(raw, None, {}, None)
-        result, flags, error = self._result_from_row(dict(zip(self._result_cols, rrow,
-                                                              strict=True)))
-        return StoredTrace(raw, result, flags, error)
+            return StoredTrace(raw, None, {}, None, recorded)
+        result, flags, error = self._result_from_row(
+            self._row("results", f"seq {trow[0]}", self._result_cols, rrow))
+        return StoredTrace(raw, result, flags, error, recorded)
 
-    def _result_from_row(self, r: dict):
-        flags = {"clipped": bool(r["clipped"]), "range_changed": bool(r["range_changed"])}
-        flags.update(json.loads(r["flags_json"]))
-        if not r["converted"]:
-            return None, flags, r["error"]
-        result = {}
+    def _result_from_row(self, r: Row):
+        flags: dict[str, Any] = {"clipped": r.flag("clipped"),
+                                 "range_changed": r.flag("range_changed")}
+        flags.update(r.json("flags_json", dict))
+        error = r.optional_text("error")
+        if not r.flag("converted"):
+            return None, flags, error
+        result: dict[str, Any] = {}
         for name in RESULT_NAMES:
-            v = r.get(name)
-            if name in BOOL_RESULTS:
-                v = None if v is None else bool(v)
+            if name not in r.values:      # a field this file's layout does not have
+                result[name] = math.nan if name in REAL_RESULTS else None
+            elif name in BOOL_RESULTS:
+                result[name] = r.optional_flag(name)
             elif name in REAL_RESULTS:
-                v = float(_nan_if_none(v))
-            result[name] = v
-        result.update(json.loads(r["extra_json"]))
-        return result, flags, r["error"]
+                result[name] = r.real_or_nan(name)
+            elif name in _TEXT_RESULTS:
+                result[name] = r.optional_text(name)
+            else:                         # a kind of column this reader has no check for
+                result[name] = r.values[name]
+        for key, value in r.json("extra_json", dict).items():
+            if key in RESULT_NAMES and not _fits(key, value):
+                r.fail("extra_json", f"{key!r} is {value!r}, not a value of that result field")
+            if key in REAL_RESULTS:
+                value = math.nan if value is None else float(value)
+            result[key] = value
+        return result, flags, error
 
     def _trace_rows(self, where: str, params):
-        cols = ", ".join(f"t.{c}" for c in TRACE_COLUMNS)
+        cols = ", ".join(f"t.{c}" for c in self._trace_cols)
         rcols = ", ".join(f"r.{c}" for c in self._result_cols)
-        return self._query(f"SELECT {cols}, {rcols} FROM traces t LEFT JOIN results r "
-                           f"ON r.seq = t.seq {where}", params)
+        return self._query(f"SELECT {cols}, {rcols}, r.seq IS NULL FROM traces t "
+                           f"LEFT JOIN results r ON r.seq = t.seq {where}", params)
 
     def _split(self, row) -> StoredTrace:
-        nt = len(TRACE_COLUMNS)
-        rrow = row[nt:]
-        return self._stored(row[:nt], None if rrow[0] is None else rrow)
+        nt = len(self._trace_cols)
+        return self._stored(row[:nt], None if row[-1] else row[nt:-1])
 
     def trace(self, seq: int) -> StoredTrace:
-        """The trace with sequence number ``seq``; StoreError if there is none."""
+        """The trace with sequence number ``seq``; SessionFileError if there is none."""
+        if not _SQLITE_INT_MIN <= seq <= _SQLITE_INT_MAX:
+            raise SessionFileError(f"{self.path}: no trace with seq {seq}")
         rows = self._trace_rows("WHERE t.seq = ?", (int(seq),))
         if not rows:
             raise SessionFileError(f"{self.path}: no trace with seq {seq}")
@@ -234,9 +398,10 @@ class SessionReader:
         return self.iter_traces()
 
     # -- results, alerts, events --------------------------------------------------------
-    def iter_results(self) -> Iterator[dict]:
-        """One dict per trace: seq, time_s, converted, error, the RESULT_FIELDS (NaN /
-        None when conversion failed) and the flags."""
+    def iter_results(self, stop_seq: int | None = None) -> Iterator[dict]:
+        """One dict per trace (those before ``stop_seq`` when given): seq, time_s,
+        converted, error, the RESULT_FIELDS (NaN / None when conversion failed) and the
+        flags."""
         last = -1
         cols = ", ".join(f"r.{c}" for c in self._result_cols)
         while True:
@@ -244,9 +409,13 @@ class SessionReader:
                                "ON r.seq = t.seq WHERE t.seq > ? ORDER BY t.seq LIMIT 1000",
                                (last,))
             for row in rows:
-                r = dict(zip(self._result_cols, row[2:], strict=True))
-                result, flags, error = self._result_from_row(r)
-                out = {"seq": row[0], "time_s": row[1], "converted": result is not None,
+                if stop_seq is not None and row[0] >= stop_seq:
+                    return
+                time_s = self._row("traces", f"seq {row[0]}", ("time_s",), row[1:2]).real(
+                    "time_s")
+                result, flags, error = self._result_from_row(
+                    self._row("results", f"seq {row[0]}", self._result_cols, row[2:]))
+                out = {"seq": row[0], "time_s": time_s, "converted": result is not None,
                        "error": error}
                 for name in RESULT_NAMES:
                     out[name] = (result or {}).get(
@@ -258,17 +427,28 @@ class SessionReader:
             last = rows[-1][0]
 
     def alerts(self) -> list[dict]:
-        rows = self._query("SELECT alert_id, time_s, rule, severity, message, actions_json, "
-                           "seq, acknowledged_time_s FROM alerts ORDER BY alert_id")
-        return [{"alert_id": a, "time_s": t, "rule": rule, "severity": sev, "message": msg,
-                 "actions": tuple(json.loads(act)), "seq": seq, "acknowledged_time_s": ack}
-                for a, t, rule, sev, msg, act, seq, ack in rows]
+        cols = ("alert_id", "time_s", "rule", "severity", "message", "actions_json", "seq",
+                "acknowledged_time_s")
+        out = []
+        for values in self._query(f"SELECT {', '.join(cols)} FROM alerts ORDER BY alert_id"):
+            r = self._row("alerts", f"alert_id {values[0]}", cols, values)
+            out.append({"alert_id": r.integer("alert_id"), "time_s": r.real("time_s"),
+                        "rule": r.text("rule"), "severity": r.text("severity"),
+                        "message": r.text("message"),
+                        "actions": tuple(r.json("actions_json", list)),
+                        "seq": r.optional_integer("seq"),
+                        "acknowledged_time_s": r.optional_real("acknowledged_time_s")})
+        return out
 
     def events(self) -> list[dict]:
-        rows = self._query("SELECT event_id, time_s, kind, seq, detail_json FROM events "
-                           "ORDER BY event_id")
-        return [{"event_id": e, "time_s": t, "kind": k, "seq": s, "detail": json.loads(d)}
-                for e, t, k, s, d in rows]
+        cols = ("event_id", "time_s", "kind", "seq", "detail_json")
+        out = []
+        for values in self._query(f"SELECT {', '.join(cols)} FROM events ORDER BY event_id"):
+            r = self._row("events", f"event_id {values[0]}", cols, values)
+            out.append({"event_id": r.integer("event_id"), "time_s": r.real("time_s"),
+                        "kind": r.text("kind"), "seq": r.optional_integer("seq"),
+                        "detail": r.json("detail_json", dict)})
+        return out
 
     def size_bytes(self) -> int:
         """Bytes on disk: the database file and its WAL."""
@@ -277,3 +457,20 @@ class SessionReader:
     def integrity_check(self) -> str:
         """SQLite's ``PRAGMA integrity_check`` verdict (``"ok"`` when sound)."""
         return "; ".join(r[0] for r in self._query("PRAGMA integrity_check"))
+
+
+_KIND_NAMES = {str: "text", dict: "a JSON object", list: "a JSON list", int: "a number",
+               float: "a number", bool: "true or false"}
+
+
+def _fits(name: str, value: Any) -> bool:
+    """Whether ``value`` (from extra_json) can stand for the result field ``name``."""
+    if value is None:
+        return True
+    if name in BOOL_RESULTS:
+        return isinstance(value, bool)
+    if name in REAL_RESULTS:
+        return isinstance(value, int | float) and not isinstance(value, bool)
+    if name in _TEXT_RESULTS:
+        return isinstance(value, str)
+    return True

@@ -30,8 +30,10 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .. import __version__
-from ..errors import ConfigError, SessionFileError, TanksideError
+from ..acoustics.settings import Method
+from ..errors import ConfigError, SessionFileError, SessionValueError, TanksideError
 from ..outcome import ExitStatus
+from .outputs import output_file
 from .schema import (
     META_CALIBRATION_SHA256,
     META_CALIBRATION_SOURCE,
@@ -63,30 +65,44 @@ class ReplaySummary:
     failed: int
     seconds: float
     differences: int | None = None   # results differing from the source (when checked)
+    note: str | None = None          # how the source was read, when not in place
 
 
-def _rebuild(cls, data: dict | None, what: str):
-    """An instance of a frozen settings dataclass from its recorded ``as_dict()``."""
+def _metadata_error(source: str, key: str, problem: str) -> SessionValueError:
+    return SessionValueError(source, "metadata", f"key {key!r}", "value_json", problem)
+
+
+def _rebuild(cls, data: dict | None, key: str, source: str):
+    """An instance of a frozen settings dataclass from its recorded ``as_dict()``; a
+    recorded value it refuses is a SessionValueError naming the metadata key."""
     if data is None:
         return cls()
-    for name in ("from_table", "from_dict"):
-        if hasattr(cls, name):
-            return getattr(cls, name)(data)
-    fields = {f.name: f for f in dataclasses.fields(cls)}
-    unknown = sorted(set(data) - set(fields))
-    if unknown:
-        raise SessionFileError(f"recorded {what} has settings this tankside does not know: "
-                         f"{', '.join(unknown)}")
-    kwargs = {}
-    for name, value in data.items():
-        default = fields[name].default
-        if isinstance(value, list) and isinstance(default, tuple):
-            value = tuple(value)  # JSON has no tuples
-        kwargs[name] = value
-    return cls(**kwargs)
+    if not isinstance(data, dict):
+        raise _metadata_error(source, key, f"expected a JSON object, found "
+                                           f"{type(data).__name__}")
+    try:
+        for name in ("from_table", "from_dict"):
+            if hasattr(cls, name):
+                return getattr(cls, name)(data)
+        fields = {f.name: f for f in dataclasses.fields(cls)}
+        unknown = sorted(set(data) - set(fields))
+        if unknown:
+            raise ConfigError(f"settings this tankside does not know: {', '.join(unknown)}")
+        kwargs = {}
+        for name, value in data.items():
+            default = fields[name].default
+            if isinstance(value, list) and isinstance(default, tuple):
+                value = tuple(value)  # JSON has no tuples
+            kwargs[name] = value
+        return cls(**kwargs)
+    except (TanksideError, TypeError, ValueError, ArithmeticError) as err:
+        # a recorded value of the wrong kind (text for a capacitance, say) can fail in
+        # the class's own checks with any of these
+        raise _metadata_error(source, key, f"not usable ({err})") from err
 
 
-def conversion_inputs(metadata: dict, *, calibration=None, method: str | None = None):
+def conversion_inputs(metadata: dict, *, calibration=None, method: str | None = None,
+                      source: str = "the session"):
     """(calibration, loading, settings, temperature_c) that a session's metadata records.
 
     Parameters
@@ -97,6 +113,14 @@ def conversion_inputs(metadata: dict, *, calibration=None, method: str | None = 
         Use this instead of the recorded calibration text.
     method : str, optional
         Override the recorded conversion method.
+    source : str
+        The session file, for messages.
+
+    Raises
+    ------
+    SessionFileError
+        Something replay needs is not recorded; a SessionValueError when a recorded
+        value cannot be used (it names the metadata key).
     """
     from ..acoustics.calibration import parse_calibration
     from ..acoustics.loading import Loading
@@ -105,19 +129,32 @@ def conversion_inputs(metadata: dict, *, calibration=None, method: str | None = 
     missing = [key for key in REQUIRED_FOR_REPLAY if metadata.get(key) is None
                and not (key == META_CALIBRATION_TEXT and calibration is not None)]
     if missing:
-        raise SessionFileError(f"the session lacks what replay needs: {', '.join(missing)}")
+        raise SessionFileError(f"{source}: the session lacks what replay needs: "
+                               f"{', '.join(missing)}")
     if calibration is None:
         # The recorded calibration is the one the session used, checks relaxed or not:
         # replay takes it as it was accepted, so its results stay reproducible.
-        calibration = parse_calibration(metadata[META_CALIBRATION_TEXT],
-                                        source=metadata.get(META_CALIBRATION_SOURCE)
-                                        or "<stored calibration>",
-                                        max_step_db=math.inf, check_phase_steps=False)
-    loading = _rebuild(Loading, metadata[META_LOADING], "loading")
-    settings = _rebuild(ConversionSettings, metadata[META_SETTINGS], "conversion settings")
+        text = metadata[META_CALIBRATION_TEXT]
+        if not isinstance(text, str):
+            raise _metadata_error(source, META_CALIBRATION_TEXT, "expected text")
+        label = metadata.get(META_CALIBRATION_SOURCE)
+        try:
+            calibration = parse_calibration(text, source=label if isinstance(label, str)
+                                            and label else "<stored calibration>",
+                                            max_step_db=math.inf, check_phase_steps=False)
+        except TanksideError as err:
+            raise _metadata_error(source, META_CALIBRATION_TEXT,
+                                  f"the recorded calibration does not parse: {err}") from err
+    loading = _rebuild(Loading, metadata[META_LOADING], META_LOADING, source)
+    settings = _rebuild(ConversionSettings, metadata[META_SETTINGS], META_SETTINGS, source)
     if method is not None:
         settings = settings.replace(method=method)
-    return calibration, loading, settings, float(metadata[META_TEMPERATURE_C])
+    temperature_c = metadata[META_TEMPERATURE_C]
+    if isinstance(temperature_c, bool) or not isinstance(temperature_c, int | float) \
+            or not math.isfinite(temperature_c):
+        raise _metadata_error(source, META_TEMPERATURE_C,
+                              f"expected a water temperature in degC, found {temperature_c!r}")
+    return calibration, loading, settings, float(temperature_c)
 
 
 def build_converter(metadata: dict, *, calibration=None, method: str | None = None,
@@ -132,15 +169,21 @@ def build_converter(metadata: dict, *, calibration=None, method: str | None = No
                      temperature_c=temp if temperature_c is None else float(temperature_c))
 
 
-def _method_schedule(events: list[dict]):
-    """(seq or None, time_s, method) of each recorded method change, in order."""
+def _method_schedule(events: list[dict], source: str = "the session"):
+    """(seq or None, time_s, method) of each recorded method change, in order; a method
+    that is not a :class:`Method` is a SessionValueError naming the event."""
     out = []
     for ev in events:
         if ev["kind"] != EventKind.METHOD_CHANGE:
             continue
         m = ev["detail"].get("method", ev["detail"].get("to"))
-        if m is not None:
-            out.append((ev["seq"], ev["time_s"], str(m)))
+        if m is None:
+            continue
+        if not isinstance(m, str) or m not in tuple(Method):
+            raise SessionValueError(source, "events", f"event_id {ev.get('event_id')}",
+                                    "detail_json", f"method-change to {m!r}: expected one of "
+                                                   f"{', '.join(Method)}")
+        out.append((ev["seq"], ev["time_s"], m))
     return out
 
 
@@ -190,13 +233,14 @@ def replay_session(src, out, *, calibration_path=None, calibration_checks: dict 
     _check_paths(src, out, force)
     t_start = time.perf_counter()
     with SessionReader(src) as reader:
+        note = reader.note
         meta = reader.metadata
         calibration = (load_calibration(calibration_path, **(calibration_checks or {}))
                        if calibration_path else None)
         from ..acoustics.converter import Converter
 
         cal, loading, settings, temp0 = conversion_inputs(meta, calibration=calibration,
-                                                          method=method)
+                                                          method=method, source=str(src))
         new_meta = dict(meta)
         if calibration is not None:
             new_meta[META_CALIBRATION_TEXT] = calibration.text
@@ -214,57 +258,78 @@ def replay_session(src, out, *, calibration_path=None, calibration_checks: dict 
             "method": method,
         }
         events = reader.events()
-        schedule = [] if method is not None else _method_schedule(events)
+        schedule = [] if method is not None else _method_schedule(events, str(src))
         initial_method = settings.method
         converters = {}
 
-        def converter_for(requested: str, temperature_c: float):
-            # one Converter (and its cached plans) per method and temperature in use
+        def converter_for(requested: str, temperature_c: float, seq: int):
+            # one Converter (and its cached plans) per method and temperature in use; one
+            # that cannot be built is the record's fault, not one trace's
             key = (requested, temperature_c)
             if key not in converters:
                 s = settings if requested == initial_method else settings.replace(
                     method=requested)
-                converters[key] = Converter(cal, loading=loading, settings=s,
-                                            temperature_c=temperature_c)
+                try:
+                    converters[key] = Converter(cal, loading=loading, settings=s,
+                                                temperature_c=temperature_c)
+                except TanksideError as err:
+                    table, row, column = (("metadata", f"key {META_TEMPERATURE_C!r}",
+                                           "value_json") if temperature_c == temp0 else
+                                          ("results", f"seq {seq}", "water_temperature_c"))
+                    raise SessionValueError(str(src), table, row, column,
+                                            f"no conversion with it: {err}") from err
             return converters[key]
 
-        if force:
-            for suffix in ("", "-wal", "-shm"):
-                Path(f"{out}{suffix}").unlink(missing_ok=True)
-        total = reader.trace_count()
+        # Traces committed while the replay runs (a session still being recorded) wait
+        # for the next replay, so that the counts describe one set of traces.
+        last = reader.last_seq()
+        stop_seq = None if last is None else last + 1
+        total = len(reader.seqs(stop_seq))
         converted = failed = differences = 0
-        store = SessionStore.create(out, new_meta)
-        try:
-            with progress(total, "replay") as bar:
-                for stored in reader.iter_traces():
-                    raw = stored.raw
-                    temp = temp0
-                    if stored.result is not None and not math.isnan(
-                            stored.result.get("water_temperature_c", math.nan)):
-                        temp = stored.result["water_temperature_c"]
-                    requested = _requested_method(schedule, raw.seq, raw.time_s, initial_method)
-                    try:
-                        result = converter_for(requested, temp).process(raw.volts(), raw.dt_s)
-                        flat, error = result.flat(), None
-                        converted += 1
-                    except TanksideError as err:  # recorded as the live pipeline does
-                        flat, error = None, f"{type(err).__name__}: {err}"
-                        failed += 1
-                    store.add_trace(raw, flat, stored.flags, error)
-                    store.maybe_commit()
-                    if check and _differs(stored.result, flat):
-                        differences += 1
-                    bar.update()
-            for ev in events:
-                store.add_event(ev["time_s"], ev["kind"], ev["detail"], seq=ev["seq"])
-            counts = {"traces": total, "converted": converted, "failed": failed}
-            store.commit()
-        except BaseException:
-            store.close(ExitStatus.ERROR, "replay did not finish", {"traces": store.traces_written})
-            raise
-        store.close(ExitStatus.OK, "replay", counts)
+        # The new session is written under a temporary name beside --out and renamed
+        # when it is complete; with force, an existing --out is replaced only then.
+        with output_file(out, session=True) as tmp:
+            store = SessionStore.create(tmp, new_meta, label=out)
+            try:
+                with progress(total, "replay") as bar:
+                    for stored in reader.iter_traces(stop_seq=stop_seq):
+                        raw = stored.raw
+                        temp = temp0
+                        if stored.result is not None and not math.isnan(
+                                stored.result.get("water_temperature_c", math.nan)):
+                            temp = stored.result["water_temperature_c"]
+                        requested = _requested_method(schedule, raw.seq, raw.time_s,
+                                                      initial_method)
+                        converter = converter_for(requested, temp, raw.seq)
+                        try:
+                            result = converter.process(raw.volts(), raw.dt_s)
+                            flat, error = result.flat(), None
+                            converted += 1
+                        except (TanksideError, ArithmeticError, ValueError) as err:
+                            # Recorded with the trace, as the live pipeline does: one trace
+                            # whose numbers the chain cannot take (a time step of 1e305 s
+                            # read from a damaged file, say) fails alone and is counted.
+                            flat, error = None, f"{type(err).__name__}: {err}"
+                            failed += 1
+                        store.add_trace(raw, flat, stored.flags, error)
+                        store.maybe_commit()
+                        if check and _differs(stored.result, flat):
+                            differences += 1
+                        bar.update()
+                for ev in events:
+                    store.add_event(ev["time_s"], ev["kind"], ev["detail"], seq=ev["seq"])
+                counts = {"traces": total, "converted": converted, "failed": failed}
+                store.commit()
+            except BaseException:
+                try:
+                    store.close(ExitStatus.ERROR, "replay did not finish",
+                                {"traces": store.traces_written})
+                except TanksideError:
+                    pass  # the file is removed; the first error is the one to report
+                raise
+            store.close(ExitStatus.OK, "replay", counts)
     return ReplaySummary(out, total, converted, failed, time.perf_counter() - t_start,
-                         differences if check else None)
+                         differences if check else None, note)
 
 
 def _same(a, b) -> bool:

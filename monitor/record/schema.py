@@ -15,13 +15,20 @@ A session file is a run record in five parts:
     units, dtype, shape and source of each column of ``traces`` and ``results``.
 ``traces``, ``results``, ``alerts``, ``events``
     one row per trace as sent (codes as a BLOB with their numpy dtype string, so the
-    bytes and their byte order come back exactly), one row of parameters per trace,
-    alerts with their acknowledge time, and events (:class:`EventKind`: range changes,
-    reconnects, operator marks, method changes, faults, ...).
+    bytes and their byte order come back exactly, and their CRC-32), one row of
+    parameters per trace, alerts with their acknowledge time, and events
+    (:class:`EventKind`: range changes, reconnects, operator marks, method changes,
+    faults, ...).
 ``session_stop`` (one row, written last)
     stop time, exit status (:class:`tankside.monitor.outcome.ExitStatus`), reason and
     counts. A file without it was not stopped cleanly (killed, crashed, power lost, or
     still being written).
+
+SQLite keeps any value in any column, so the reader checks each cell it reads
+(:mod:`tankside.monitor.record.cells`): numbers where numbers belong, codes as a BLOB
+whose length is ``n`` samples of their dtype, text as UTF-8 without NUL, and every
+``*_json`` column strict JSON of its kind (an object, or a list for ``actions_json`` and
+``shape_json``).
 
 Float columns are SQLite REAL (IEEE 754 binary64), so every finite float64 and the
 infinities round-trip bit for bit. SQLite stores NaN as NULL; a NULL in a result
@@ -36,7 +43,18 @@ import enum
 from ..acoustics.converter import RESULT_FIELDS
 
 FORMAT_TAG = "tankside-session"
-LAYOUT_VERSION = 1
+LAYOUT_VERSION = 2
+"""Layout of the files this tankside writes (``session_start.layout_version``); the
+reader reads every layout up to it:
+
+1. The first layout.
+2. ``traces.codes_crc32``: the CRC-32 (:func:`zlib.crc32`, as an unsigned 32-bit
+   integer) of the codes' bytes, checked whenever a trace is read, so that a bit flipped
+   on a disk or in a copy is reported instead of exported or replayed.
+"""
+
+#: The first layout whose traces carry ``codes_crc32``.
+CHECKSUM_LAYOUT = 2
 
 # -- metadata keys (values are JSON) ----------------------------------------------------
 META_TOOL_VERSION = "tool_version"            # str, tankside version that wrote the file
@@ -54,6 +72,23 @@ META_PROTECTION_WARNINGS = "protection_warnings"  # list of str, the protection 
                                                   # settings switch off (empty: none)
 
 REQUIRED_FOR_REPLAY = (META_CALIBRATION_TEXT, META_LOADING, META_SETTINGS, META_TEMPERATURE_C)
+
+#: The JSON kinds (Python types) the value of each standard key must be when it is not
+#: null; the reader refuses any other (other keys may hold any JSON).
+METADATA_KINDS: dict[str, tuple[type, ...]] = {
+    META_TOOL_VERSION: (str,),
+    META_CONFIGURATION: (dict,),
+    META_INSTRUMENTS: (dict,),
+    META_CALIBRATION_TEXT: (str,),
+    META_CALIBRATION_SHA256: (str,),
+    META_CALIBRATION_SOURCE: (str,),
+    META_LOADING: (dict,),
+    META_SETTINGS: (dict,),
+    META_TEMPERATURE_C: (int, float),
+    META_START_TIME_S: (int, float),
+    META_REPLAY_OF: (dict,),
+    META_PROTECTION_WARNINGS: (list,),
+}
 
 # -- event kinds ---------------------------------------------------------------------
 
@@ -136,9 +171,9 @@ RESULT_UNITS = {f.name: f.unit for f in RESULT_FIELDS}
 FLAG_COLUMNS = ("clipped", "range_changed")
 
 # Column order of the traces and results tables.
-TRACE_COLUMNS = ("seq", "time_s", "data_format", "dtype", "n", "codes", "volts_per_code",
-                 "offset_v", "dt_s", "t0_s", "range_v", "code_min", "code_max",
-                 "clipped_low", "clipped_high", "state_json")
+TRACE_COLUMNS = ("seq", "time_s", "data_format", "dtype", "n", "codes", "codes_crc32",
+                 "volts_per_code", "offset_v", "dt_s", "t0_s", "range_v", "code_min",
+                 "code_max", "clipped_low", "clipped_high", "state_json")
 RESULT_ROW_COLUMNS = ("seq", "converted", "error", *RESULT_NAMES, *FLAG_COLUMNS,
                       "flags_json", "extra_json")
 BOOL_RESULTS = frozenset(name for name, kind in RESULT_COLUMNS if kind == "BOOL")
@@ -208,6 +243,7 @@ DDL = [
         dtype TEXT NOT NULL,
         n INTEGER NOT NULL,
         codes BLOB NOT NULL,
+        codes_crc32 INTEGER NOT NULL,
         volts_per_code REAL NOT NULL,
         offset_v REAL NOT NULL,
         dt_s REAL NOT NULL,
@@ -254,7 +290,7 @@ STATIC_DESCRIPTORS = (
         ("time_s", "float64"), ("volts_per_code", "float64"), ("offset_v", "float64"),
         ("dt_s", "float64"), ("t0_s", "float64"), ("range_v", "float64"),
         ("code_min", "float64"), ("code_max", "float64"), ("clipped_low", "int64"),
-        ("clipped_high", "int64"))]
+        ("clipped_high", "int64"), ("codes_crc32", "uint32"))]
     + [(f.name, "results", f.unit, f.dtype) for f in RESULT_FIELDS]
     + [(name, "results", units_of(name), "bool") for name in FLAG_COLUMNS]
 )

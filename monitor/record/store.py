@@ -13,6 +13,16 @@ most about that much data is at risk. ``synchronous=NORMAL`` would be as safe ag
 a crash, but in WAL mode it fsyncs only at checkpoints, so a power loss could roll
 back every batch since the last checkpoint (several seconds at 50 traces/s of 10,000
 samples); one fsync per second is cheap, so FULL it is.
+
+Checkpoints
+-----------
+Committed rows live in ``FILE.db-wal`` until a checkpoint copies them into ``FILE.db``.
+SQLite's own checkpoint comes only every 1000 pages (about 200 traces of 10,000
+samples), so a copy of ``FILE.db`` alone, taken after a crash, used to hold not even
+the tables. The store checkpoints right after the start record, and then after a
+commit once ``checkpoint_interval_s`` has passed (a passive checkpoint: it never waits
+for a reader), so ``FILE.db`` alone is a readable session, at most that much older than
+the session with its ``-wal``.
 """
 
 from __future__ import annotations
@@ -23,6 +33,7 @@ import math
 import sqlite3
 import time
 import uuid
+import zlib
 from collections.abc import Callable
 from pathlib import Path
 from typing import NoReturn
@@ -191,13 +202,20 @@ class SessionStore:
 
     def __init__(self, conn: sqlite3.Connection, path: Path, commit_interval_s: float,
                  clock: Callable[[], float], wall_clock: Callable[[], float],
-                 source: str = "digitiser"):
+                 source: str = "digitiser", checkpoint_interval_s: float = 10.0,
+                 label: Path | None = None):
         self._conn = conn
         self.path = path
+        # the file named in messages (replay writes under a temporary name for it)
+        self.label = path if label is None else label
         self.commit_interval_s = float(commit_interval_s)
+        self.checkpoint_interval_s = float(checkpoint_interval_s)
         self._clock = clock
         self._wall_clock = wall_clock
         self._last_commit = clock()
+        self._last_checkpoint = self._last_commit
+        self._committed_since_checkpoint = False
+        self.checkpoints = 0
         self._pending = 0
         self._failed: str | None = None
         self._closed = False
@@ -208,8 +226,10 @@ class SessionStore:
     # -- creation -----------------------------------------------------------------------
     @classmethod
     def create(cls, path, metadata: dict, *, commit_interval_s: float = 1.0,
+               checkpoint_interval_s: float = 10.0,
                clock: Callable[[], float] = time.monotonic,
-               wall_clock: Callable[[], float] = time.time) -> SessionStore:
+               wall_clock: Callable[[], float] = time.time,
+               label=None) -> SessionStore:
         """Create a new session file and write its start record.
 
         Parameters
@@ -220,25 +240,32 @@ class SessionStore:
             From :func:`session_metadata` (any JSON-able dict is accepted).
         commit_interval_s : float
             Longest time between commits in :meth:`maybe_commit`, s.
+        checkpoint_interval_s : float
+            Shortest time between two checkpoints after commits, s (see the module
+            docstring); the first is right after the start record.
         clock : callable
             Monotonic seconds, for the commit interval (tests inject their own).
         wall_clock : callable
             Seconds since the Unix epoch, for the start and stop records.
+        label : str or Path, optional
+            The file to name in messages, when ``path`` is a temporary name for it.
         """
         path = Path(path)
+        label = None if label is None else Path(label)
         if path.exists():
-            raise SessionFileError(f"{path}: session file already exists")
+            raise SessionFileError(f"{label or path}: session file already exists")
         try:
             meta_rows = [(key, strict_json(value)) for key, value in metadata.items()]
         except (TypeError, ValueError) as err:
-            raise StoreError(f"{path}: session metadata is not recordable: {err}") from err
+            raise StoreError(f"{label or path}: session metadata is not recordable: "
+                             f"{err}") from err
         start_time_s = float(metadata.get(META_START_TIME_S, wall_clock()))
         tool_version = str(metadata.get(META_TOOL_VERSION, __version__))
         source = _digitiser_source(metadata)
         try:
             conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
         except sqlite3.Error as err:
-            raise _map_error(err, "creating the session file", path) from err
+            raise _map_error(err, "creating the session file", label or path) from err
         try:
             conn.execute("PRAGMA journal_mode=WAL")
             conn.execute("PRAGMA synchronous=FULL")  # why: see the module docstring
@@ -254,17 +281,22 @@ class SessionStore:
                 [(name, tbl, units, dtype, source if tbl == "traces"
                   else "conversion") for name, tbl, units, dtype in STATIC_DESCRIPTORS])
             conn.execute("COMMIT")
+            # FILE.db alone now holds the tables and the start record (the WAL is empty).
+            conn.execute("PRAGMA wal_checkpoint(TRUNCATE)").fetchall()
         except sqlite3.Error as err:
             conn.close()
-            raise _map_error(err, "writing the start record", path) from err
-        return cls(conn, path, commit_interval_s, clock, wall_clock, source)
+            raise _map_error(err, "writing the start record", label or path) from err
+        store = cls(conn, path, commit_interval_s, clock, wall_clock, source,
+                    checkpoint_interval_s, label)
+        store.checkpoints = 1
+        return store
 
     # -- writing ------------------------------------------------------------------------
     def _write(self, doing: str, fn):
         if self._closed:
-            raise StoreError(f"{self.path}: session store is closed")
+            raise StoreError(f"{self.label}: session store is closed")
         if self._failed is not None:
-            raise StoreError(f"{self.path}: session store no longer accepts data after an "
+            raise StoreError(f"{self.label}: session store no longer accepts data after an "
                              f"earlier error ({self._failed}); committed data is intact")
         try:
             if not self._conn.in_transaction:
@@ -277,7 +309,7 @@ class SessionStore:
             except sqlite3.IntegrityError as err:
                 self._conn.execute("ROLLBACK TO row")
                 self._conn.execute("RELEASE row")
-                raise StoreError(f"{self.path}: {doing} was refused ({err}); the session "
+                raise StoreError(f"{self.label}: {doing} was refused ({err}); the session "
                                  "goes on without it") from err
             self._conn.execute("RELEASE row")
         except sqlite3.Error as err:
@@ -286,7 +318,7 @@ class SessionStore:
         return out
 
     def _fail(self, err: sqlite3.Error, doing: str) -> NoReturn:
-        mapped = _map_error(err, doing, self.path)
+        mapped = _map_error(err, doing, self.label)
         self._failed = str(mapped)
         try:
             if self._conn.in_transaction:
@@ -304,12 +336,13 @@ class SessionStore:
         ``range_changed`` (default False) and any other JSON-able flags.
         """
         codes = np.ascontiguousarray(raw.codes)
+        data = codes.tobytes()
         flags = dict(flags or {})
         clipped = bool(flags.pop("clipped", raw.clipped > 0))
         range_changed = bool(flags.pop("range_changed", False))
         try:
             trace_row = (int(raw.seq), float(raw.time_s), str(raw.data_format),
-                         codes.dtype.str, int(codes.shape[0]), codes.tobytes(),
+                         codes.dtype.str, int(codes.shape[0]), data, zlib.crc32(data),
                          float(raw.volts_per_code), float(raw.offset_v), float(raw.dt_s),
                          float(raw.t0_s), float(raw.range_v), float(raw.code_min),
                          float(raw.code_max), int(raw.clipped_low), int(raw.clipped_high),
@@ -318,11 +351,12 @@ class SessionStore:
             result_row = (int(raw.seq), result is not None, error, *values, clipped,
                           range_changed, strict_json(flags), strict_json(extra))
         except (TypeError, ValueError) as err:
-            raise StoreError(f"{self.path}: trace {raw.seq} is not recordable: {err}") from err
+            raise StoreError(f"{self.label}: trace {raw.seq} is not recordable: {err}") from err
 
         def insert():
             self._conn.execute(
-                f"INSERT INTO traces VALUES ({','.join('?' * len(TRACE_COLUMNS))})", trace_row)
+                f"INSERT INTO traces ({', '.join(TRACE_COLUMNS)}) "
+                f"VALUES ({','.join('?' * len(TRACE_COLUMNS))})", trace_row)
             self._conn.execute(
                 f"INSERT INTO results VALUES ({','.join('?' * len(RESULT_ROW_COLUMNS))})",
                 result_row)
@@ -368,7 +402,7 @@ class SessionStore:
             "UPDATE alerts SET acknowledged_time_s = ? WHERE alert_id = ?",
             (float(time_s), int(alert_id))))
         if cur.rowcount != 1:
-            raise StoreError(f"{self.path}: no alert {alert_id} to acknowledge")
+            raise StoreError(f"{self.label}: no alert {alert_id} to acknowledge")
 
     def add_event(self, time_s: float, kind: EventKind | str, detail: dict,
                   seq: int | None = None) -> None:
@@ -377,7 +411,7 @@ class SessionStore:
         try:
             detail_json = strict_json(detail)
         except (TypeError, ValueError) as err:
-            raise StoreError(f"{self.path}: event {kind!r} is not recordable: {err}") from err
+            raise StoreError(f"{self.label}: event {kind!r} is not recordable: {err}") from err
         self._write(f"recording event {kind!r}", lambda: self._conn.execute(
             "INSERT INTO events (time_s, kind, seq, detail_json) VALUES (?, ?, ?, ?)",
             (float(time_s), str(kind), None if seq is None else int(seq), detail_json)))
@@ -399,8 +433,25 @@ class SessionStore:
                 self._conn.execute("COMMIT")
             except sqlite3.Error as err:
                 self._fail(err, "committing")
+            self._committed_since_checkpoint = True
         self._pending = 0
         self._last_commit = self._clock()
+        if (self._committed_since_checkpoint
+                and self._last_commit - self._last_checkpoint >= self.checkpoint_interval_s):
+            self.checkpoint()
+
+    def checkpoint(self) -> None:
+        """Copy what is committed into ``FILE.db`` (a passive checkpoint: pages a reader
+        still needs stay in the WAL until the next one)."""
+        if self._failed is not None or self._closed:
+            self._write("checkpointing", lambda: None)  # raises the refusal
+        try:
+            self._conn.execute("PRAGMA wal_checkpoint(PASSIVE)").fetchall()
+        except sqlite3.Error as err:
+            self._fail(err, "checkpointing")
+        self._committed_since_checkpoint = False
+        self._last_checkpoint = self._clock()
+        self.checkpoints += 1
 
     @property
     def pending(self) -> int:
@@ -432,7 +483,7 @@ class SessionStore:
                 self._conn.execute("COMMIT")
             self._conn.execute("INSERT INTO session_stop VALUES (1, ?, ?, ?, ?)", row)
         except sqlite3.Error as err:
-            mapped = _map_error(err, "writing the stop record", self.path)
+            mapped = _map_error(err, "writing the stop record", self.label)
             self._closed = True
             self._conn.close()
             raise mapped from err

@@ -92,14 +92,21 @@ def read_trace(path: str | Path) -> tuple[np.ndarray, float, float]:
     return parse_trace(text, str(path))
 
 
-def _write(path: str | Path, header: str, values: np.ndarray, dt_s: float, t0_s: float,
-           comments: list[str] | None) -> None:
-    path = Path(path)
+def trace_text(header: str, values: np.ndarray, dt_s: float, t0_s: float = 0.0,
+               comments: list[str] | None = None) -> str:
+    """The text of a trace file: ``#`` comment lines, the header, then one
+    ``time,value`` line per sample (times to 12 and values to 9 significant digits)."""
     t = t0_s + dt_s * np.arange(len(values))
     body = "\n".join(f"{a:.12g},{b:.9g}" for a, b in zip(t, values, strict=True))
     head = "".join(f"# {c}\n" for c in (comments or []))
+    return f"{head}{header}\n{body}\n"
+
+
+def _write(path: str | Path, header: str, values: np.ndarray, dt_s: float, t0_s: float,
+           comments: list[str] | None) -> None:
+    path = Path(path)
     try:
-        path.write_text(f"{head}{header}\n{body}\n", encoding="utf-8")
+        path.write_text(trace_text(header, values, dt_s, t0_s, comments), encoding="utf-8")
     except OSError as err:
         raise TraceFileError(f"{path}: cannot write ({err.strerror})") from err
 
