@@ -132,5 +132,6 @@ def end_summary(session) -> str:
     else:
         where = f"{snap.stored} traces in {snap.session_path}"
     status = session.exit_status or ExitStatus.COMPLETED
-    return (f"{iso_time(time.time())} session stopped: {status}: "
-            f"{session.stop_reason or '-'}; {where}")
+    reason = session.stop_reason if session.stop_reason not in ("", status) else ""
+    return (f"{iso_time(time.time())} session stopped: {status}"
+            f"{': ' + reason if reason else ''}; {where}")
