@@ -57,7 +57,7 @@ class FakeSession:
         if not self.resync_ok:
             raise InstrumentTimeout("no marker reply")
 
-    def close(self):
+    def close(self, *, quiet=False):
         self.closed = True
 
 

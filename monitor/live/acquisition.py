@@ -39,6 +39,10 @@ class OpenInstrument:
     link: Any
     identity: str = ""
 
+    def close(self) -> None:
+        """Close the link; a link already gone has nothing left to release."""
+        self.link.close(quiet=True)
+
 
 @dataclass
 class Acquired:
@@ -319,9 +323,5 @@ class AcquisitionLoop:
 
 
 def _close(inst: OpenInstrument | None) -> None:
-    if inst is None:
-        return
-    try:
-        inst.link.close()
-    except InstrumentError:
-        pass  # closing a transport that is already gone: nothing left to release
+    if inst is not None:
+        inst.close()

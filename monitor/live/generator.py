@@ -154,12 +154,8 @@ class GeneratorWorker:
         self.close()
 
     def close(self) -> None:
-        if self.inst is None:
-            return
-        try:
-            self.inst.link.close()
-        except InstrumentError:
-            pass  # closing a link that is already gone: nothing left to release
+        if self.inst is not None:
+            self.inst.close()
 
     # -- the thread --------------------------------------------------------------------
     def _main(self) -> None:

@@ -42,7 +42,7 @@ def digitiser_opener(config, settings):
             identity = device.identity
             device.configure(settings)
         except InstrumentError:
-            _close_quietly(link)
+            link.close(quiet=True)   # the error that made us give up is raised
             raise
         return OpenInstrument(device=device, link=link, identity=identity)
 
@@ -63,7 +63,7 @@ def generator_opener(config):
             device = Generator(link, profile)
             identity = device.identity
         except InstrumentError:
-            _close_quietly(link)
+            link.close(quiet=True)   # the error that made us give up is raised
             raise
         return OpenInstrument(device=device, link=link, identity=identity)
 
@@ -89,9 +89,3 @@ def apply_generator_settings(device, config) -> None:
     if config.burst_cycles is not None or config.burst_period_s is not None:
         device.set_burst(config.burst_cycles, config.burst_period_s)
 
-
-def _close_quietly(link: ScpiLink) -> None:
-    try:
-        link.close()
-    except InstrumentError:
-        pass  # the error that made us give up is the one raised
