@@ -22,30 +22,32 @@ from tankside.simulators.bench import SimulatedBench
 
 
 def _warned(*codes):
-    return result(warnings=json.dumps([{"code": c, "message": f"{c} (test)"} for c in codes]))
+    """A trace whose result carries warnings with these codes (as the processing stage
+    hands them to the rules)."""
+    return {"result": result(), "warning_codes": codes}
 
 
 class TestRule:
     def test_fires_once_when_warnings_persist(self):
         e = engine()
-        fired = [f.rule for i in range(12) for f in e.on_trace(obs(i, result=_warned("low_snr")))]
+        fired = [f.rule for i in range(12) for f in e.on_trace(obs(i, **_warned("low_snr")))]
         assert fired == ["doubtful_result"]
         # the default needs 5 in a row
         e = engine()
-        firings = [e.on_trace(obs(i, result=_warned("low_snr"))) for i in range(5)]
+        firings = [e.on_trace(obs(i, **_warned("low_snr"))) for i in range(5)]
         assert [bool(f) for f in firings] == [False, False, False, False, True]
         assert "low_snr" in firings[-1][0].message
 
     def test_mi_not_derated_alone_does_not_count_by_default(self):
         e = engine()
-        assert not any(e.on_trace(obs(i, result=_warned("mi_not_derated"))) for i in range(20))
+        assert not any(e.on_trace(obs(i, **_warned("mi_not_derated"))) for i in range(20))
         e = engine(doubtful_result={"ignore": []})
-        assert any(e.on_trace(obs(i, result=_warned("mi_not_derated"))) for i in range(20))
+        assert any(e.on_trace(obs(i, **_warned("mi_not_derated"))) for i in range(20))
 
     def test_a_clean_trace_breaks_the_run(self):
         e = engine(doubtful_result={"consecutive_traces": 3})
-        seq = [_warned("gated_out_arrivals"), _warned("gated_out_arrivals"), result()] * 4
-        assert not any(e.on_trace(obs(i, result=r)) for i, r in enumerate(seq))
+        seq = [_warned("gated_out_arrivals"), _warned("gated_out_arrivals"), _warned()] * 4
+        assert not any(e.on_trace(obs(i, **r)) for i, r in enumerate(seq))
 
     def test_ignore_must_be_a_list_of_words(self):
         from tankside.monitor.errors import ConfigError

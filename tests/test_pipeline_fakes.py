@@ -119,6 +119,7 @@ class FakeResult:
         self.freqs_hz = np.fft.rfftfreq(len(volts), dt_s)
         self.spectrum_pa = np.abs(np.fft.rfft(self.pressure_pa))
         self.sensitivity_v_per_pa = np.full(self.freqs_hz.shape, SENSITIVITY_V_PER_PA)
+        self.warnings = ()                 # a clean result (TraceResult.warnings)
         self._flat = {name: float("nan") for name in RESULT_NAMES}
         self._flat.update(method=method, phase_source="measured", narrowband_ok=True,
                           peak_compressional_pa=float(self.pressure_pa.max()),

@@ -155,14 +155,6 @@ RESULT_FIELDS: tuple[ResultField, ...] = (
 )
 
 
-def warning_codes(flat: dict) -> tuple[str, ...]:
-    """The warning codes of a flat result (its ``warnings`` JSON), () when none or unreadable."""
-    try:
-        items = json.loads(flat.get("warnings") or "[]")
-        return tuple(str(w["code"]) for w in items)
-    except (TypeError, ValueError, KeyError):
-        return ()
-
 # the pulse parameters among them, straight from the result as in its JSON form
 _PARAMETER_KEYS = tuple(f.name for f in RESULT_FIELDS
                         if f.name in {p.name for p in fields(PulseParameters)})

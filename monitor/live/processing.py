@@ -28,7 +28,6 @@ from typing import Any
 
 import numpy as np
 
-from ..acoustics.converter import warning_codes
 from ..errors import TanksideError
 from ..record.schema import EventKind, FaultKind
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop
@@ -162,8 +161,8 @@ class TraceProcessor:
         result = None
         flat = None
         error = None
-        with np.errstate(all="ignore"):
-            volts = np.asarray(raw.volts(), dtype=float)
+        with np.errstate(all="ignore"):     # codes x scale may overflow: judged below
+            volts = raw.volts()
         try:
             # one code's worth of volts: the noise floor of a quantised quiet record
             result = self._converter.process(volts, raw.dt_s,
@@ -181,9 +180,10 @@ class TraceProcessor:
             if not self._numeric_error_shown:
                 self._numeric_error_shown = True
                 traceback.print_exc(file=sys.stderr)
+        codes = () if result is None else tuple(str(w.code) for w in result.warnings)
         obs = observation_from_trace(raw, flat, error, method_in_use=self.method,
                                      volts_v=volts, drive_on=self._drive_on,
-                                     **self._rules.presence_options())
+                                     warning_codes=codes, **self._rules.presence_options())
         self._range_v = raw.range_v
         self._fraction = obs.fraction_of_full_scale
         self._pulse_present = obs.pulse_present
@@ -200,27 +200,15 @@ class TraceProcessor:
             flags["drive_off"] = True
         if raw.clipped:
             self.clipped += 1
-        counted = self._counted_warnings(flat)
-        if flat is not None:
-            self._last_warnings = counted
-            if counted:
+        if result is not None:
+            self._last_warnings = self._rules.doubtful_codes(codes)
+            if self._last_warnings:
                 self.doubtful += 1
         if flat is not None and not obs.quiet:
             # noise converted to "pressure" is no figure of the field
             self._figures.add(flat)
         self._record(TraceItem(raw, flat, flags, error))
         self._publish_trace(raw, volts, result, flat)
-
-    def _counted_warnings(self, flat: dict | None) -> tuple[str, ...]:
-        """The warning codes of a result that make it doubtful (the doubtful_result rule's
-        ``ignore`` codes, by default mi_not_derated, do not count)."""
-        if flat is None:
-            return ()
-        config = getattr(self._rules, "config", None)
-        ignore: tuple[str, ...] = ()
-        if config is not None and "doubtful_result" in config.rules:
-            ignore = tuple(config.rules["doubtful_result"].params["ignore"])
-        return tuple(c for c in warning_codes(flat) if c not in ignore)
 
     def _switch_method(self, method: str, seq: int) -> None:
         self.pending_method = None

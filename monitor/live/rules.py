@@ -48,7 +48,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..acoustics.converter import warning_codes
 from ..acoustics.presence import (
     DEFAULT_EDGE_FRACTION,
     DEFAULT_FACTOR,
@@ -112,6 +111,8 @@ class TraceObservation:
     peak_to_noise : float
         Peak of the trace from its median over the robust noise sigma (NaN if not
         computed).
+    warning_codes : tuple of str
+        The codes of the result's warnings (``()`` when none or no result).
     """
 
     seq: int
@@ -127,6 +128,7 @@ class TraceObservation:
     pulse_present: bool = True
     drive_on: bool | None = None
     peak_to_noise: float = float("nan")
+    warning_codes: tuple[str, ...] = ()
 
     @property
     def quiet(self) -> bool:
@@ -195,6 +197,7 @@ class Firing:
 def observation_from_trace(raw, result: dict | None = None, error: str | None = None, *,
                            method_in_use: str = Method.AUTO, position: tuple | None = None,
                            volts_v=None, drive_on: bool | None = None,
+                           warning_codes: tuple[str, ...] = (),
                            noise_factor: float = DEFAULT_FACTOR,
                            edge_fraction: float = DEFAULT_EDGE_FRACTION) -> TraceObservation:
     """Build a :class:`TraceObservation` from a ``RawTrace`` and its conversion outcome.
@@ -219,7 +222,8 @@ def observation_from_trace(raw, result: dict | None = None, error: str | None = 
                             clipped_high=raw.clipped_high, range_v=raw.range_v,
                             fraction_of_full_scale=fraction, result=result, error=error,
                             method_in_use=method_in_use, position=position,
-                            pulse_present=present, drive_on=drive_on, peak_to_noise=ratio)
+                            pulse_present=present, drive_on=drive_on, peak_to_noise=ratio,
+                            warning_codes=tuple(warning_codes))
 
 
 def _fmt_pa(value_pa: float) -> str:
@@ -316,6 +320,12 @@ class RuleEngine:
     def active(self) -> frozenset[str]:
         """Names of the latched rules: condition standing, or not yet clear for the hold."""
         return frozenset(name for name, latch in self._latches.items() if latch.active)
+
+    def doubtful_codes(self, codes: tuple[str, ...]) -> tuple[str, ...]:
+        """The warning codes that make a result doubtful: all but the doubtful_result
+        rule's ``ignore`` codes (by default mi_not_derated)."""
+        ignored = self.config.rules["doubtful_result"].params["ignore"]
+        return tuple(c for c in codes if c not in ignored)
 
     def presence_options(self) -> dict:
         """The no_pulse thresholds as keywords of :func:`observation_from_trace`."""
@@ -509,8 +519,7 @@ class RuleEngine:
     def _doubtful_result(self, obs: TraceObservation) -> _Verdict:
         if obs.result is None:
             return None
-        ignored = set(self._p("doubtful_result", "ignore"))
-        codes = [c for c in warning_codes(obs.result) if c not in ignored]
+        codes = self.doubtful_codes(obs.warning_codes)
         self._doubtful_run = self._doubtful_run + 1 if codes else 0
         needed = self._p("doubtful_result", "consecutive_traces")
         message = (f"Doubtful results: {self._doubtful_run} traces in a row carry warnings "
