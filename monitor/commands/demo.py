@@ -68,8 +68,6 @@ def run(args) -> int:
     from ..live.benchfile import load_bench
     from ..live.child import session_for_display
 
-    if args.duration is not None and args.duration <= 0:
-        raise ConfigError("--duration must be above 0 s")
     folder = Path(args.sessions).expanduser().resolve()
     try:
         folder.mkdir(parents=True, exist_ok=True)

@@ -199,10 +199,6 @@ def run(args) -> int:
     from ..live.benchfile import load_bench
     from ..live.child import session_for_display
 
-    if args.duration is not None and args.duration <= 0:
-        raise ConfigError("--duration must be above 0 s")
-    if args.traces is not None and args.traces < 1:
-        raise ConfigError("--traces must be at least 1")
     bench = load_bench(args.bench, overrides_from_args(args))
     for warning in bench.protection_warnings():
         print(f"tankside: WARNING: protection off: {warning}", file=sys.stderr, flush=True)
