@@ -90,12 +90,17 @@ class AcquisitionLoop:
         How long to keep trying to reconnect a lost digitiser.
     max_traces : int or None
     first_seq : int
+    gate : bool
+        Wait until the rules have seen the previous trace before acquiring the next.
+    hold : callable () -> None, optional
+        Called before each acquisition; waits (bounded) for a pending generator switch.
     """
 
     def __init__(self, *, open_digitiser: Callable[[], OpenInstrument], out: queue.Queue,
                  stop: threading.Event, trigger_timeout_s: float, give_up_s: float = 60.0,
                  max_traces: int | None = None, first_seq: int = 0, gate: bool = True,
-                 clock: Callable[[], float] = time.time):
+                 clock: Callable[[], float] = time.time,
+                 hold: Callable[[], None] | None = None):
         self.open_digitiser = open_digitiser
         self.out = out
         self.stop = stop
@@ -107,8 +112,9 @@ class AcquisitionLoop:
         self.clock = clock
         self.digitiser: OpenInstrument | None = None
         self.commands: queue.Queue[SetRange] = queue.Queue()
-        # Waits (bounded) for a pending safe-off's first attempt before each acquisition.
-        self.hold: Callable[[], None] | None = None
+        # Waits (bounded) for a pending generator switch's first attempt before each
+        # acquisition (GeneratorWorker.hold).
+        self.hold = hold
         # Set only when nothing downstream reads the queue any more (a fatal error there).
         self.abandon = threading.Event()
         self.connected = False

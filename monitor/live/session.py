@@ -118,18 +118,19 @@ class LiveSession:
         self._stop = threading.Event()
         self._raw_q: queue.Queue = queue.Queue(maxsize=queue_capacity)
         self._items_q: queue.Queue = queue.Queue(maxsize=queue_capacity)
-        self._acq = AcquisitionLoop(open_digitiser=open_digitiser, out=self._raw_q,
-                                    stop=self._stop, trigger_timeout_s=trigger_timeout_s,
-                                    give_up_s=give_up_s, max_traces=max_traces, gate=gate)
         self._gen: GeneratorWorker | None = None
         if open_generator is not None:
+            # its events go into the acquisition's queue, in order with the traces
             self._gen = GeneratorWorker(
                 open_generator=open_generator,
                 apply_settings=apply_generator_settings or (lambda device: None),
                 emit=lambda kind, detail, alert: self._acq.event(kind, detail, alert),
                 current_seq=lambda: self._acq.seq, on_unsafe=self._drive_unsafe,
                 safe_off_give_up_s=safe_off_give_up_s)
-            self._acq.hold = self._gen.hold
+        self._acq = AcquisitionLoop(open_digitiser=open_digitiser, out=self._raw_q,
+                                    stop=self._stop, trigger_timeout_s=trigger_timeout_s,
+                                    give_up_s=give_up_s, max_traces=max_traces, gate=gate,
+                                    hold=None if self._gen is None else self._gen.hold)
         self._drive_on_at_start = drive_on_at_start
         self._locks: list[InstrumentLock] = []
         self._leave_drive_on = bool(leave_drive_on_at_end)
@@ -357,12 +358,11 @@ class LiveSession:
         self._request_stop(ExitStatus.DRIVE_MAY_BE_ON, "output not confirmed off", message)
 
     def _lock_instruments(self) -> None:
-        for name in ("digitiser", "generator"):
-            resource = self._resources.get(name, "")
-            if resource and (name == "digitiser" or self._gen is not None):
-                lock = InstrumentLock(resource, session_path=str(self.session_path))
-                lock.acquire()
-                self._locks.append(lock)
+        # every instrument this session opens (the resources are only those it opens)
+        for resource in filter(None, self._resources.values()):
+            lock = InstrumentLock(resource, session_path=str(self.session_path))
+            lock.acquire()
+            self._locks.append(lock)
 
     def _close_instruments(self) -> None:
         self._acq.close_links()
