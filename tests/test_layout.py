@@ -31,7 +31,7 @@ FOLDERS = {"monitor": "tankside.monitor", "drivers": "tankside.drivers",
 SIMULATOR_WIRING = {"tankside.monitor.commands.simulate", "tankside.monitor.commands.demo"}
 USER_FACING = ("tankside.monitor.cli", "tankside.monitor.commands",
                "tankside.monitor.dashboard", "tankside.monitor.headless",
-               "tankside.monitor.progress")
+               "tankside.monitor.progress", "tankside.monitor.caution")
 SHARED = ("tankside.monitor.errors", "tankside.monitor.outcome", "tankside.monitor")
 THIRD_PARTY_NUMERICS = {"numpy", "scipy"}
 

@@ -13,17 +13,14 @@ import sys
 from collections.abc import Callable
 from pathlib import Path
 
+from ..caution import caution_text
 from ..errors import ConfigError
 from .options import SECONDS, SEED
 from .running import run_to_end
 
-CAUTION = """\
-CAUTION: this demo drives a simulated bench with invented data. On a real bench,
-high-power ultrasound, high drive voltages and cavitation can hurt people and destroy
-hydrophones: start at low drive, keep hands out of the tank while it is driven, and
-respect the hydrophone's rated maximum pressure. Safe-off is a convenience, never the
-only interlock. tankside does not replace calibrated compliance measurements, local
-rules or licensed practice."""
+CAUTION = caution_text(
+    "this demo switches its simulated generator on once you have read this",
+    heading="CAUTION: this demo drives a simulated bench with invented data. On a real bench:")
 
 BENCH_FILE_NAME = "demo-bench.toml"
 # The demo alone switches a drive on by itself: its simulated one, after the caution.

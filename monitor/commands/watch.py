@@ -9,6 +9,7 @@ from collections.abc import Callable
 from pathlib import Path
 
 from ..acoustics.settings import Method
+from ..caution import caution_text
 from ..errors import ConfigError
 from .options import (
     COUNT,
@@ -164,10 +165,7 @@ def _first_run(folder: Path, current: Path) -> bool:
         return True
 
 
-CAUTION = ("CAUTION: high-power ultrasound, high drive voltages and cavitation can hurt "
-           "people and destroy hydrophones; safe-off is a convenience, never the only "
-           "interlock. tankside does not replace calibrated compliance measurements, local "
-           "rules or licensed practice.")
+CAUTION = caution_text("use --drive-on, or the dashboard's d key")
 
 
 def acknowledge_caution_headless(*, accepted: bool) -> None:

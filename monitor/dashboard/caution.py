@@ -2,29 +2,19 @@
 
 from __future__ import annotations
 
+import textwrap
+
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Static
 
-CAUTION_TEXT = """\
-[b]Before you watch the tank[/b]
+from ..caution import caution_points
 
-• High-power ultrasound can heat and damage tissue. Keep hands out of the
-  tank while the source is driven.
-• Drive voltages from the power amplifier can be lethal. Switch the drive
-  off before touching the transducer, cables or connectors.
-• Cavitation and high peak pressures destroy hydrophones. Start at low
-  drive, watch p_r and the clipping count, and respect the hydrophone's
-  rated maximum.
-• tankside never switches the generator output on by itself: press d
-  (and confirm with y) when you are ready; it is switched off when the
-  session ends. Alert actions such as safe-off are a convenience, never
-  the only interlock.
-• tankside does not replace calibrated compliance measurements, your local
-  rules or licensed practice; follow them first.
-"""
+CAUTION_TEXT = "[b]Before you watch the tank[/b]\n\n" + "\n".join(
+    textwrap.fill(point, 72, initial_indent="• ", subsequent_indent="  ")
+    for point in caution_points("press d and confirm with y when you are ready"))
 
 
 class CautionScreen(ModalScreen[None]):
