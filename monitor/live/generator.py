@@ -105,7 +105,7 @@ class GeneratorWorker:
         # Output state as last read back: True/False, None while unknown.
         self.drive_on: bool | None = None
         self.drive_cause = ""
-        self.unsafe = False
+        self._unsafe_reported = False   # on_unsafe is called once
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._query_fault: str | None = None
@@ -175,7 +175,7 @@ class GeneratorWorker:
                 traceback.print_exc(file=sys.stderr)
                 self._emit(EventKind.FAULT, {"kind": FaultKind.GENERATOR_THREAD,
                                              "message": repr(err),
-                                     "at_seq": self._current_seq()},
+                                             "at_seq": self._current_seq()},
                            RaisedAlert("instrument-fault", "critical",
                                        f"generator handling failed: {err!r}"))
         # a safe-off asked for at the very end still happens
@@ -221,7 +221,7 @@ class GeneratorWorker:
                 self.drive_on = None
                 self._emit(EventKind.FAULT, {"kind": FaultKind.GENERATOR_QUERY,
                                              "message": str(err),
-                                     "at_seq": self._current_seq()},
+                                             "at_seq": self._current_seq()},
                            RaisedAlert("instrument-fault", "warning",
                                        f"generator output state unknown: {err}"))
             return
@@ -272,7 +272,7 @@ class GeneratorWorker:
             return f"{first}; reopening: {again}"
 
     def _switch_off(self, cause: str, *, give_up_s: float, as_safe_off: bool,
-                    detail: dict | None = None) -> bool:
+                    detail: dict | None = None) -> None:
         """Switch the output off and confirm it, retrying until ``give_up_s``."""
         detail = dict(detail or {})
         started = time.monotonic()
@@ -285,9 +285,10 @@ class GeneratorWorker:
             if why is None:
                 if as_safe_off:
                     self._emit(EventKind.SAFE_OFF, {"done": True, "attempts": attempt,
-                                            "before_seq": self._current_seq(), **detail}, None)
+                                                    "before_seq": self._current_seq(),
+                                                    **detail}, None)
                 self._set_state(False, cause)
-                return True
+                return
             elapsed = time.monotonic() - started
             self._emit(kind, {"done": False, "attempt": attempt, "error": why, "cause": cause,
                               "after_s": round(elapsed, 3), **detail},
@@ -298,11 +299,11 @@ class GeneratorWorker:
             pause = SAFE_OFF_PAUSES_S[min(attempt - 1, len(SAFE_OFF_PAUSES_S) - 1)]
             if elapsed + pause > give_up_s:
                 self.drive_on = None
-                if not self.unsafe:
-                    self.unsafe = True
+                if not self._unsafe_reported:
+                    self._unsafe_reported = True
                     self._on_unsafe(
                         f"THE DRIVE MAY STILL BE ON: the generator output could not be "
                         f"confirmed off within {give_up_s:g} s ({attempt} attempts; last: "
                         f"{why}). Switch it off at the instrument or the amplifier now.")
-                return False
+                return
             time.sleep(pause)
