@@ -9,7 +9,7 @@ Exit codes (:class:`tankside.monitor.outcome.ExitCode`, also in the README):
 4  the session store could not be written (disk full, permissions); committed data intact
 5  a session that ended on an internal error (a bug); committed data intact
 6  the generator output could not be confirmed off: the drive may still be on
-130  interrupted by Ctrl-C before it finished; export and replay leave no partial output
+130  interrupted by Ctrl-C or SIGTERM before it finished; no partial output is left
 """
 
 from __future__ import annotations
@@ -59,10 +59,12 @@ def main(argv: list[str] | None = None) -> int:
     except InstrumentError as err:
         print(f"tankside: instrument error: {err}", file=sys.stderr)
         return ExitCode.USAGE
-    except KeyboardInterrupt:
-        # A running session handles Ctrl-C itself and ends as asked; reaching here means
-        # a command did not finish (export and replay write outputs whole or not at all).
-        print("tankside: interrupted (Ctrl-C)", file=sys.stderr)
+    except KeyboardInterrupt as err:
+        # A running session handles Ctrl-C and SIGTERM itself and ends as asked; reaching
+        # here means a command did not finish (export, replay and convert write their
+        # outputs whole or not at all).
+        print(f"tankside: interrupted ({getattr(err, 'signal_name', 'Ctrl-C')})",
+              file=sys.stderr)
         return ExitCode.INTERRUPTED
     except BrokenPipeError:
         return ExitCode.OK

@@ -28,10 +28,11 @@ class ExitCode(enum.IntEnum):
     DRIVE_MAY_BE_ON = 6
     """The generator output could not be confirmed off: the drive may still be on."""
     INTERRUPTED = 130
-    """A command interrupted by Ctrl-C (SIGINT) before it finished; ``export`` and
-    ``replay`` leave no partial output under the output's name. (A running session
-    stopped by Ctrl-C ends as asked, with 0.) 130 is 128 + SIGINT, as shells report a
-    command ended by that signal (common practice)."""
+    """A command interrupted by Ctrl-C (SIGINT) or SIGTERM before it finished;
+    ``export``, ``replay`` and ``convert`` leave no partial output under the output's
+    name. (A running session stopped by either signal ends as asked, with 0.) 130 is
+    128 + SIGINT, as shells report a command ended by that signal (common practice);
+    SIGTERM shares it, so that the status means one thing: not finished."""
 
 
 class ExitStatus(enum.StrEnum):

@@ -9,6 +9,7 @@ from __future__ import annotations
 import signal
 import sys
 import time
+from typing import Any
 
 
 class Progress:
@@ -95,7 +96,7 @@ def bar_factory(enabled: bool | None, check=None):
     """A steps factory for the record layer: ``(total, label) -> Progress`` on stderr.
 
     ``enabled`` as for :class:`Progress` (None: only on a terminal); ``check``, when
-    given, is called before each step (:meth:`CtrlC.check`).
+    given, is called before each step (:meth:`StopSignals.check`).
     """
     def make(total: int, label: str) -> Progress:
         if check is None:
@@ -104,42 +105,55 @@ def bar_factory(enabled: bool | None, check=None):
     return make
 
 
-class CtrlC:
-    """Ctrl-C taken between the steps of a job, not wherever the interpreter happens to be.
+class Interrupted(KeyboardInterrupt):
+    """A job stopped by Ctrl-C or SIGTERM; ``signal_name`` says which."""
+
+    def __init__(self, signal_name: str = "Ctrl-C"):
+        super().__init__(signal_name)
+        self.signal_name = signal_name
+
+
+class StopSignals:
+    """Ctrl-C and SIGTERM taken between the steps of a job, not wherever the interpreter
+    happens to be.
 
     Python raises KeyboardInterrupt at whatever bytecode runs when SIGINT arrives, also
     inside a callback run as an object is freed, where it is printed and dropped: an
-    HDF5 export interrupted there went on to the end and exited 0. While a CtrlC is
-    entered, SIGINT only sets a flag; :meth:`check` (called at each progress step)
-    raises KeyboardInterrupt where the job stops cleanly, and leaving the block raises it
-    if the job ended first. A second Ctrl-C raises at once. Outside the main thread, where
-    no handler can be installed, Ctrl-C behaves as usual.
+    HDF5 export interrupted there went on to the end and exited 0. SIGTERM, by default,
+    ends the process at once and leaves the job's hidden temporary file behind. While a
+    StopSignals is entered, either signal only notes itself; :meth:`check` (called at each
+    progress step) raises :class:`Interrupted` where the job stops cleanly, and leaving
+    the block raises it if the job ended first. A second signal raises at once. Outside
+    the main thread, where no handler can be installed, the signals behave as usual.
     """
 
-    def __init__(self):
-        self.asked = False
-        self._previous = None
-        self._installed = False
+    _SIGNALS = {signal.SIGINT: "Ctrl-C", signal.SIGTERM: "SIGTERM"}
 
-    def _on_sigint(self, signum, frame) -> None:
-        if self.asked:
-            raise KeyboardInterrupt
-        self.asked = True
+    def __init__(self):
+        self.asked: str | None = None           # the first signal's name, once one came
+        self._previous: dict[int, Any] = {}   # what signal.signal returned
+
+    def _on_signal(self, signum, frame) -> None:
+        name = self._SIGNALS[signum]
+        if self.asked is not None:
+            raise Interrupted(name)
+        self.asked = name
 
     def check(self) -> None:
-        if self.asked:
-            raise KeyboardInterrupt
+        if self.asked is not None:
+            raise Interrupted(self.asked)
 
-    def __enter__(self) -> CtrlC:
-        try:
-            self._previous = signal.signal(signal.SIGINT, self._on_sigint)
-            self._installed = True
-        except ValueError:      # not the main thread
-            pass
+    def __enter__(self) -> StopSignals:
+        for signum in self._SIGNALS:
+            try:
+                self._previous[signum] = signal.signal(signum, self._on_signal)
+            except ValueError:      # not the main thread
+                break
         return self
 
     def __exit__(self, exc_type, exc, tb) -> None:
-        if self._installed:
-            signal.signal(signal.SIGINT, self._previous)
+        for signum, previous in self._previous.items():
+            signal.signal(signum, previous)
+        self._previous.clear()
         if exc_type is None:
             self.check()

@@ -58,6 +58,21 @@ def test_table_output_and_pressure_file(files, capsys, tmp_path):
     assert pressure.max() == pytest.approx(1.5 * p.max(), rel=0.01)
 
 
+def test_pressure_file_is_written_whole_or_not_at_all(files, capsys, tmp_path):
+    trace, cal, _ = files
+    missing = tmp_path / "no" / "such" / "pressure.csv"
+    assert main(["convert", str(trace), "-c", str(cal), "--out", str(missing)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "does not exist" in err and "Traceback" not in err
+    # an earlier output is replaced only once the new one is complete: no partial name
+    out_csv = tmp_path / "pressure.csv"
+    out_csv.write_text("earlier\n")
+    assert main(["convert", str(trace), "-c", str(cal), "--out", str(out_csv)]) == 0
+    assert out_csv.read_text().startswith("# pressure from")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cal.csv", "pressure.csv",
+                                                          "trace.csv"]
+
+
 @pytest.mark.parametrize("bad", ["time,volts\n0,1\n1,2\n", "time_s,voltage_v\n0,1\n1e-9,x\n",
                                  "time_s,voltage_v\n0,1\n1e-9,1\n3e-9,1\n4e-9,1\n", ""])
 def test_bad_trace_is_one_line_and_exit_2(files, tmp_path, capsys, bad):

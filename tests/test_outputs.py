@@ -85,10 +85,10 @@ def _written(folder: Path) -> int:
 
 
 def interrupt_mid_write(argv: list[str], folder: Path, label: str,
-                        timeout_s: float = 60.0):
+                        timeout_s: float = 60.0, signum: int = signal.SIGINT):
     """Run ``tankside argv``; once its progress bar (``label``) is drawn and its temporary
-    output exists, pause it, queue a SIGINT and resume it. Returns (process result with
-    stderr as text, bytes of temporary output when paused)."""
+    output exists, pause it, queue ``signum`` (SIGINT: Ctrl-C) and resume it. Returns
+    (process result with stderr as text, bytes of temporary output when paused)."""
     proc = subprocess.Popen([*tankside_command(), *argv], stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE)
     err = bytearray()
@@ -107,7 +107,7 @@ def interrupt_mid_write(argv: list[str], folder: Path, label: str,
             time.sleep(0.002)
         os.kill(proc.pid, signal.SIGSTOP)
         written = _written(folder)
-        os.kill(proc.pid, signal.SIGINT)
+        os.kill(proc.pid, signum)
         os.kill(proc.pid, signal.SIGCONT)
         out = proc.stdout.read()
         proc.wait(timeout=timeout_s)
@@ -122,7 +122,7 @@ def interrupt_mid_write(argv: list[str], folder: Path, label: str,
                                        err.decode()), written
 
 
-class TestCtrlC:
+class TestInterrupted:
     @pytest.mark.parametrize("option, name, label", [("--results", "r.csv", "results"),
                                                      ("--hdf5", "s.h5", "hdf5")])
     def test_export_leaves_nothing_and_exits_130(self, big, tmp_path, option, name, label):
@@ -135,6 +135,17 @@ class TestCtrlC:
         assert "Traceback" not in proc.stderr
         assert f"\r{label} [" in proc.stderr         # the progress bar was being drawn
         assert 0 < written < 2_000_000              # mid-write: the whole is 4 to 15 MB
+
+    def test_sigterm_is_taken_the_same_way(self, big, tmp_path):
+        # SIGTERM's default ends the process at once and left the hidden temporary file
+        out = tmp_path / "s.h5"
+        proc, written = interrupt_mid_write(
+            ["export", str(big), "--hdf5", str(out), "--progress"], tmp_path, "hdf5",
+            signum=signal.SIGTERM)
+        assert proc.returncode == ExitCode.INTERRUPTED, proc.stderr
+        assert not out.exists() and parts(tmp_path) == []
+        assert proc.stderr.rstrip().endswith("tankside: interrupted (SIGTERM)")
+        assert "Traceback" not in proc.stderr and 0 < written
 
     def test_replay_leaves_nothing_and_keeps_the_old_output(self, big, tmp_path):
         out = tmp_path / "new.db"
@@ -338,29 +349,40 @@ class TestCtrlCBetweenSteps:
     raised inside a callback run as an object is freed would be printed and dropped."""
 
     def test_taken_at_the_next_step_and_the_handler_restored(self):
-        from tankside.monitor.progress import CtrlC, bar_factory
+        from tankside.monitor.progress import StopSignals, bar_factory
 
         before = signal.getsignal(signal.SIGINT)
         steps_done = 0
-        with pytest.raises(KeyboardInterrupt), CtrlC() as ctrl_c:
-            with bar_factory(False, check=ctrl_c.check)(5, "job") as bar:
+        with pytest.raises(KeyboardInterrupt), StopSignals() as stops:
+            with bar_factory(False, check=stops.check)(5, "job") as bar:
                 for step in range(5):
                     if step == 2:
                         os.kill(os.getpid(), signal.SIGINT)
                         time.sleep(0.01)          # delivered here, and only noted
                         steps_done = step
                     bar.update()
-        assert steps_done == 2 and ctrl_c.asked
+        assert steps_done == 2 and stops.asked == "Ctrl-C"
         assert signal.getsignal(signal.SIGINT) is before
 
-    def test_a_job_that_ended_first_still_reports_it_and_a_second_press_is_at_once(self):
-        from tankside.monitor.progress import CtrlC
+    def test_sigterm_is_noted_like_ctrl_c_and_both_handlers_restored(self):
+        from tankside.monitor.progress import Interrupted, StopSignals
 
-        with pytest.raises(KeyboardInterrupt), CtrlC():
+        before = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM)}
+        with pytest.raises(Interrupted) as caught, StopSignals() as stops:
+            os.kill(os.getpid(), signal.SIGTERM)
+            time.sleep(0.01)                      # delivered here, and only noted
+            assert stops.asked == "SIGTERM"
+        assert caught.value.signal_name == "SIGTERM"
+        assert {s: signal.getsignal(s) for s in before} == before
+
+    def test_a_job_that_ended_first_still_reports_it_and_a_second_press_is_at_once(self):
+        from tankside.monitor.progress import StopSignals
+
+        with pytest.raises(KeyboardInterrupt), StopSignals():
             os.kill(os.getpid(), signal.SIGINT)
             time.sleep(0.01)
         reached = []
-        with pytest.raises(KeyboardInterrupt), CtrlC():
+        with pytest.raises(KeyboardInterrupt), StopSignals():
             os.kill(os.getpid(), signal.SIGINT)
             time.sleep(0.01)
             reached.append("after the first")

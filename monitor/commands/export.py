@@ -6,7 +6,7 @@ import argparse
 import sys
 
 from ..errors import ConfigError
-from ..progress import CtrlC, bar_factory
+from ..progress import StopSignals, bar_factory
 from .options import add_progress_options, number
 
 
@@ -44,8 +44,8 @@ def run(args) -> int:
     if not any((args.results, args.out, args.calibration_out, args.hdf5)):
         raise ConfigError("nothing to export: give --results, --trace/--out, "
                           "--calibration-out or --hdf5")
-    with CtrlC() as ctrl_c, SessionReader(args.session) as reader:
-        steps = bar_factory(args.progress, check=ctrl_c.check)
+    with StopSignals() as stops, SessionReader(args.session) as reader:
+        steps = bar_factory(args.progress, check=stops.check)
         if reader.note:
             print(f"note: {reader.note}", file=sys.stderr)
         if not reader.stopped_cleanly:

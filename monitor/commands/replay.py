@@ -6,7 +6,7 @@ import argparse
 import sys
 
 from ..acoustics.settings import Method
-from ..progress import CtrlC, bar_factory
+from ..progress import StopSignals, bar_factory
 from .options import add_calibration_check_options, add_progress_options, calibration_checks
 
 
@@ -39,11 +39,11 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 def run(args) -> int:
     from ..record.replay import replay_session
 
-    with CtrlC() as ctrl_c:
+    with StopSignals() as stops:
         summary = replay_session(args.session, args.out, calibration_path=args.calibration,
                                  calibration_checks=calibration_checks(args),
                                  method=args.method, force=args.force, check=args.check,
-                                 progress=bar_factory(args.progress, check=ctrl_c.check))
+                                 progress=bar_factory(args.progress, check=stops.check))
     if summary.note:
         print(f"note: {summary.note}", file=sys.stderr)
     line = (f"replayed {summary.traces} traces into {summary.out_path}: "

@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import TraceFileError
+from .outputs import output_file
 
 #: Allowed departure of each time from the uniform grid, as a fraction of the step.
 STEP_TOLERANCE = 0.01
@@ -104,11 +105,9 @@ def trace_text(header: str, values: np.ndarray, dt_s: float, t0_s: float = 0.0,
 
 def _write(path: str | Path, header: str, values: np.ndarray, dt_s: float, t0_s: float,
            comments: list[str] | None) -> None:
-    path = Path(path)
-    try:
-        path.write_text(trace_text(header, values, dt_s, t0_s, comments), encoding="utf-8")
-    except OSError as err:
-        raise TraceFileError(f"{path}: cannot write ({err.strerror})") from err
+    text = trace_text(header, values, dt_s, t0_s, comments)
+    with output_file(path) as partial:      # whole or not at all (OutputFileError)
+        partial.write_text(text, encoding="utf-8")
 
 
 def write_trace(path: str | Path, voltage_v: np.ndarray, dt_s: float, *, t0_s: float = 0.0,
