@@ -76,8 +76,12 @@ async def _window(sleep) -> tuple[float, float]:
 def run_phase(phase: str, bench_path: str, db: Path) -> float:
     bench = load_bench(bench_path, {})
     in_child = phase in ("dashboard", "child, no display")
-    session = (SessionProcess(SessionSpec(bench, db), report=io.StringIO()) if in_child
-               else LiveSession.from_bench(bench, session_path=db))
+    # the simulated drive switched on as `watch --drive-on` does: with the output off
+    # every trace is noise and none would be converted (nor counted)
+    session = (SessionProcess(SessionSpec(bench, db, drive_on_at_start="benchmark"),
+                              report=io.StringIO()) if in_child
+               else LiveSession.from_bench(bench, session_path=db,
+                                           drive_on_at_start="benchmark"))
     session.start()
 
     async def reading(seconds: float) -> None:   # a display's reads, without drawing

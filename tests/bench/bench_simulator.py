@@ -61,9 +61,12 @@ def main() -> None:
     print("simulated digitiser, int16 blocks on 127.0.0.1, plain-socket client")
     print(f"{'samples':>8} {'model ms/trace':>15} {'live blocks/s':>14} "
           f"{'precomputed blocks/s':>21} {'ratio':>6}")
-    # Bursts every 0.1 ms, so the trigger wait hardly counts in the live figures.
-    with SimulatedBench(seed=0, trigger_period_s=1e-4) as live, \
-            SimulatedBench(seed=0, precomputed=8) as pre:
+    # Bursts every 0.1 ms, so the trigger wait hardly counts in the live figures; the
+    # simulated output on from power-on, so that the live traces carry the modelled pulse
+    # (with it off the model only makes noise).
+    on = Drive(output_on=True)
+    with SimulatedBench(seed=0, trigger_period_s=1e-4, drive=on) as live, \
+            SimulatedBench(seed=0, precomputed=8, drive=on) as pre:
         for points in (10_000, 100_000):
             ms = model_trace_ms(points)
             r_live = socket_rate(live.digitiser_port, points)
