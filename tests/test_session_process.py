@@ -16,6 +16,7 @@ import socket
 import subprocess
 import sys
 import textwrap
+import time
 
 import pytest
 from polling import committed_traces, wait_for
@@ -85,7 +86,13 @@ class TestCommandsAndSnapshots:
         assert later.converted >= later.seq and later.session_path == str(child.session_path)
         child.mark("probe at focus")
         child.set_method("deconvolve")
-        wait_for(lambda: child.snapshot().method == "deconvolve", what="method switched")
+        # the switch takes effect at the next trace processed. The snapshot's method is
+        # the last result's, which "auto" already resolves to "deconvolve", so waiting
+        # for that name let the stop come before any trace had used the switch: wait for
+        # a trace acquired after the request was taken (set_method returns then)
+        asked_s = time.time()
+        wait_for(lambda: child.snapshot().time_s > asked_s + 0.02, what="a later trace")
+        assert child.snapshot().method == "deconvolve"
         child.stop("operator done")
         assert child.wait(30)
         assert not child.running
