@@ -113,16 +113,26 @@ class SimulatedStage(PtyLineDevice):
         Moved with the stage.
     focus_mm : tuple
         Stage coordinates (mm) of the scene's focus.
+    start_mm : tuple
+        Where the axes are at power-on (mm).
     clock : callable
         Seconds, monotonic (tests may pass a fake).
     """
 
     def __init__(self, scene: Scene | None = None, *,
-                 focus_mm: tuple[float, float, float] = (0.0, 0.0, 0.0), clock=time.monotonic):
+                 focus_mm: tuple[float, float, float] = (0.0, 0.0, 0.0),
+                 start_mm: tuple[float, float, float] = (0.0, 0.0, 0.0), clock=time.monotonic):
         self.scene = scene
         self.focus_mm = focus_mm
         self.clock = clock
-        self.axes = {name: _Axis() for name in AXES}
+        self.axes = {}
+        for name, mm in zip(AXES, start_mm, strict=True):
+            counts = float(round(mm * COUNTS_PER_MM))
+            low, high = TRAVEL[name]
+            if not low <= counts <= high:
+                raise ValueError(f"start position {mm:g} mm of axis {name} is beyond its "
+                                 "travel")
+            self.axes[name] = _Axis(position=counts, target=counts)
         self._stall: tuple[str, float] | None = None
         self._last_scene: tuple[float, ...] | None = None
         super().__init__(terminator="\r", name="stage")
