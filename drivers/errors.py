@@ -82,3 +82,8 @@ class ProfileError(InstrumentError):
 class SettingError(InstrumentError, ValueError):
     """A requested setting the instrument's profile does not allow (e.g. a range not
     in ``[ranges] values_v``), or an operation its profile does not define."""
+
+
+class LimitError(SettingError):
+    """A stage move that would leave the soft limits (the travel in which the hydrophone
+    cannot hit the transducer or the tank wall); refused before anything is sent."""

@@ -22,6 +22,8 @@ from .generator import SimulatedGenerator
 from .hydrophone import DEMO_CALIBRATION_PATH
 from .scene import Drive, Scene, SceneParameters
 from .server import LOOPBACK, InstrumentServer
+from .stage import SimulatedStage
+from .thermometer import SimulatedThermometer
 
 PROFILE_DIR = Path(__file__).resolve().parent / "profiles"
 DIGITISER_PROFILE_PATH = PROFILE_DIR / "sim-digitiser.toml"
@@ -62,12 +64,17 @@ class SimulatedBench:
         Digitiser front-end noise (V rms) and trigger jitter (s rms).
     start : bool
         Start the servers at once (default); otherwise call :meth:`start`.
+    stage, thermometer : bool
+        Also start a simulated stage (moving the scene's hydrophone) and a simulated
+        thermometer, each on a pty: :attr:`stage`, :attr:`thermometer` and their
+        ``device_path``.
     """
 
     def __init__(self, seed: int = 0, faults: FaultPlan | None = None, *, port: int = 0,
                  trigger_period_s: float | None = None, precomputed: int | bool = 0,
                  scene_parameters: SceneParameters | None = None, drive: Drive | None = None,
-                 noise_v_rms: float = 0.3e-3, jitter_s: float = 0.5e-9, start: bool = True):
+                 noise_v_rms: float = 0.3e-3, jitter_s: float = 0.5e-9, start: bool = True,
+                 stage: bool = False, thermometer: bool = False):
         if not (port == 0 or 1 <= port <= 65534):
             raise ValueError(f"port must be 0 or 1..65534 (the generator takes port + 1), "
                              f"got {port}")
@@ -94,6 +101,9 @@ class SimulatedBench:
         self.digitiser_profile_path = DIGITISER_PROFILE_PATH
         self.generator_profile_path = GENERATOR_PROFILE_PATH
         self.calibration_path = DEMO_CALIBRATION_PATH
+        self._serial = (stage, thermometer)
+        self.stage: SimulatedStage | None = None
+        self.thermometer: SimulatedThermometer | None = None
         self._started = False
         if start:
             self.start()
@@ -108,6 +118,13 @@ class SimulatedBench:
         except OSError:
             self.digitiser_server.close()
             raise
+        stage, thermometer = self._serial
+        if stage and self.stage is None:
+            # the stage starts where the scene's hydrophone is (stage origin at the focus)
+            x, y, z = self.scene.position_m
+            self.stage = SimulatedStage(self.scene, start_mm=(1e3 * x, 1e3 * y, 1e3 * z))
+        if thermometer and self.thermometer is None:
+            self.thermometer = SimulatedThermometer(seed=self.seed)
         self._started = True
         return self
 
@@ -118,6 +135,9 @@ class SimulatedBench:
             self.digitiser_server.close()
             self.generator_server.close()
             self._started = False
+        for device in (self.stage, self.thermometer):
+            if device is not None:
+                device.close()
 
     def __enter__(self) -> SimulatedBench:
         return self.start()

@@ -9,9 +9,13 @@ from __future__ import annotations
 import argparse
 
 from ...drivers.errors import ConnectionLost
+from ...drivers.line_probe import LARGEST_PROBE_MOVE_MM, probe_stage, probe_thermometer
 from ...drivers.probe import Outcome, Prober, Row
 from ...drivers.profile import load_profile
 from ...drivers.scpi import ScpiLink
+from ...drivers.stage import load_stage_profile, open_stage
+from ...drivers.thermometer import load_thermometer_profile, open_thermometer
+from ..errors import ConfigError
 from ..outcome import ExitCode
 from .options import number
 
@@ -37,8 +41,9 @@ def add_parser(subparsers) -> None:
                      "read first and written back unchanged; a setting the profile cannot "
                      "read back is not touched."),
         epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("resource", metavar="RESOURCE",
-                   help='VISA resource string, e.g. "TCPIP0::192.168.1.20::5025::SOCKET"')
+    p.add_argument("resource", metavar="RESOURCE", nargs="?",
+                   help='VISA resource string, e.g. "TCPIP0::192.168.1.20::5025::SOCKET" '
+                        "(not with --stage or --thermometer)")
     p.add_argument("--profile", metavar="P",
                    help="instrument profile: a built-in name or a path to a TOML file; "
                         "without it only *IDN?, *OPC? and the error queue are tried")
@@ -53,7 +58,70 @@ def add_parser(subparsers) -> None:
     p.add_argument("--trigger-timeout", type=number(low=0.001, high=3600.0), default=5.0,
                    metavar="S",
                    help="with --acquire: how long to wait for the trigger, s (default 5)")
+    add_line_arguments(p)
     p.set_defaults(func=run)
+
+
+def add_line_arguments(p) -> None:
+    """Options for the serial (line-protocol) instruments: a stage or a thermometer."""
+    line = p.add_argument_group("serial instruments (stage, thermometer)")
+    which = line.add_mutually_exclusive_group()
+    which.add_argument("--stage", metavar="P",
+                       help="probe a stage described by stage profile P (TOML)")
+    which.add_argument("--thermometer", metavar="P",
+                       help="probe a thermometer described by thermometer profile P (TOML)")
+    where = line.add_mutually_exclusive_group()
+    where.add_argument("--port", metavar="DEV",
+                       help="serial device path, e.g. /dev/ttyUSB0")
+    where.add_argument("--address", metavar="HOST:PORT",
+                       help="raw TCP address of the controller instead of a serial port")
+    line.add_argument("--baud-rate", type=number(low=50, high=10_000_000, whole=True),
+                      default=None, metavar="N", help="override the profile's baud rate")
+    line.add_argument("--move", type=number(low=-LARGEST_PROBE_MOVE_MM,
+                                            high=LARGEST_PROBE_MOVE_MM), default=None,
+                      metavar="MM",
+                      help=f"with --stage: move the first axis by MM (at most "
+                           f"{LARGEST_PROBE_MOVE_MM:g} mm either way) and back, then stop; "
+                           "without it the stage is never moved. Make sure the hydrophone "
+                           "has that much free travel")
+
+
+def run_line(args) -> int:
+    """``probe --stage`` / ``--thermometer``."""
+    if args.resource:
+        raise ConfigError("probe: give a RESOURCE (SCPI instrument) or --stage / "
+                          "--thermometer with --port or --address, not both")
+    if args.port is None and args.address is None:
+        raise ConfigError("probe: --stage and --thermometer need --port DEV or "
+                          "--address HOST:PORT")
+    where = {"port": args.port, "address": args.address, "baud_rate": args.baud_rate,
+             "timeout_s": args.timeout}
+    try:
+        if args.stage:
+            stage = open_stage(load_stage_profile(args.stage), **where)
+            source, close = stage.profile.source, stage.close
+            try:
+                rows = probe_stage(stage, move_mm=args.move)
+            finally:
+                close()
+        else:
+            if args.move is not None:
+                raise ConfigError("probe: --move is for --stage")
+            thermometer = open_thermometer(load_thermometer_profile(args.thermometer),
+                                           **where)
+            source, close = thermometer.profile.source, thermometer.close
+            try:
+                rows = probe_thermometer(thermometer)
+            finally:
+                close()
+    except ValueError as err:          # a malformed --address
+        raise ConfigError(f"probe: {err}") from err
+    print(f"{args.port or args.address}: profile {source}")
+    print(format_table(rows))
+    failed = sum(r.result == Outcome.FAILED for r in rows)
+    skipped = sum(r.result == Outcome.NOT_TRIED for r in rows)
+    print(f"{len(rows) - failed - skipped} ok, {failed} failed, {skipped} not tried")
+    return ExitCode.INSTRUMENT if failed else ExitCode.OK
 
 
 def format_table(rows: list[Row]) -> str:
@@ -70,6 +138,11 @@ def format_table(rows: list[Row]) -> str:
 
 
 def run(args) -> int:
+    if args.stage or args.thermometer:
+        return run_line(args)
+    if args.resource is None:
+        raise ConfigError("probe: give a RESOURCE, or --stage / --thermometer P with "
+                          "--port or --address")
     profile = load_profile(args.profile) if args.profile else None
     timeout_s = args.timeout or (profile.timeout_s if profile else 5.0)
     terms = ({"read_termination": profile.read_termination,

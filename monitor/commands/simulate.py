@@ -48,6 +48,11 @@ def add_parser(subparsers) -> None:
     p.add_argument("--force", action="store_true",
                    help="with --bench-file: overwrite an existing file (it may be a "
                         "hand-edited bench, or one another simulate is serving)")
+    p.add_argument("--serial", action="store_true",
+                   help="also start a simulated stage (it moves the hydrophone in the "
+                        "invented scene) and a simulated thermometer, each on a "
+                        "pseudo-terminal, and print their serial device paths; try them "
+                        "with `tankside probe --stage` / `--thermometer`")
     p.add_argument("--seed", type=SEED, default=0, metavar="N",
                    help="seed of the simulated noise and trigger jitter (default 0)")
     p.add_argument("--trigger-period", type=number(low=1e-4, high=100.0), default=None,
@@ -126,6 +131,7 @@ def arm(faults, parsed: list[tuple[str, str]], device: str) -> None:
 
 
 def run(args) -> int:
+    from ...simulators.bench import PROFILE_DIR as SERIAL_PROFILES
     from ...simulators.bench import SimulatedBench
 
     parsed = [parse_fault(text) for text in args.inject]
@@ -135,11 +141,13 @@ def run(args) -> int:
                           "bench, or another simulate's); choose a new name or add --force")
     try:
         bench = SimulatedBench(seed=args.seed, port=args.port,
-                               trigger_period_s=args.trigger_period)
+                               trigger_period_s=args.trigger_period, start=False,
+                               stage=args.serial, thermometer=args.serial)
+        if position is not None:       # before the start: the stage starts there
+            bench.scene.set_position_m(*position)
+        bench.start()
     except OSError as err:
         raise ConfigError(f"cannot listen on 127.0.0.1 port {args.port}: {err.strerror}") from err
-    if position is not None:
-        bench.scene.set_position_m(*position)
     stop = threading.Event()
 
     def on_signal(signum, frame):
@@ -159,6 +167,11 @@ def run(args) -> int:
         print(f"profiles   {bench.digitiser_profile_path}", flush=True)
         print(f"           {bench.generator_profile_path}", flush=True)
         print(f"calibration {bench.calibration_path} (invented demo hydrophone)", flush=True)
+        if bench.stage is not None and bench.thermometer is not None:
+            print(f"stage      {bench.stage.device_path} (serial; profile "
+                  f"{SERIAL_PROFILES / 'sim-stage.toml'})", flush=True)
+            print(f"thermometer {bench.thermometer.device_path} (serial; profile "
+                  f"{SERIAL_PROFILES / 'sim-thermometer.toml'})", flush=True)
         d = bench.scene.drive
         x, y, z = (1e3 * v for v in bench.scene.position_m)
         print(f"scene      {d.burst_cycles} cycles at {d.frequency_hz / 1e6:g} MHz, "
