@@ -212,6 +212,12 @@ class Digitiser:
         self._settings = None
         self._scaling = None
 
+    def send_setup(self) -> None:
+        """Send the profile's ``[commands] setup`` lines in order, checking errors after
+        each (the opener calls this once after connecting; a reopen sends them again)."""
+        for line in self.profile.setup:
+            self.link.write_step(line)
+
     def configure(self, settings: DigitiserSettings) -> None:
         """Apply every setting the profile has a command for, checking errors after each.
 
@@ -246,6 +252,7 @@ class Digitiser:
         return self._settings
 
     def _reapply(self) -> None:
+        self.send_setup()
         if self._settings is not None:
             self.configure(self._settings)
 

@@ -113,6 +113,15 @@ class Prober:
                   lambda: f"{len(self.link.drain_errors())} queued error(s) read")
         self._try("wait complete", "*OPC?", self.link.opc)
 
+    def setup_lines(self) -> None:
+        """Send each ``[commands] setup`` line as a session would, checking the error
+        queue after it (the lines are the profile's own settings, so nothing is restored)."""
+        for n, line in enumerate(self._profile.setup, start=1):
+            def action(line=line):
+                self.link.write_step(line)
+                return "sent, no error queued"
+            self._try(f"setup line {n}", line, action)
+
     def queries(self, keys, parse=None) -> None:
         for key in keys:
             if not self._profile.has(key):
@@ -218,6 +227,7 @@ class Prober:
         self.common()
         if self.profile is None:
             return
+        self.setup_lines()
         if self._profile.kind == "digitiser":
             self.queries(("get_time_step", "get_time_origin", "get_volts_per_code", "get_offset"))
             self.settings(_DIGITISER_SETTINGS)

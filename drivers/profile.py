@@ -11,8 +11,8 @@ printable ASCII, without ``;`` (the IEEE 488.2 separator that would chain a seco
 command the session knows nothing about) or a line break (which would end the command
 early and send the rest as another). :func:`command_text_problem` is that check;
 :meth:`Profile.command` applies it to the values it fills in, so a setting that got past
-the bench file still never reaches the instrument. No profile key holds a list of
-commands, so the rule has no exception.
+the bench file still never reaches the instrument. The one key that holds a list,
+``[commands] setup``, is checked line by line: each line is one command, sent as written.
 """
 
 from __future__ import annotations
@@ -85,6 +85,10 @@ class Profile:
     kind : {"digitiser", "generator"}
     commands : dict[str, str]
         Command templates by key, with ``{placeholder}`` fields.
+    setup : tuple of str
+        ``[commands] setup``: command lines sent as written, in order, once after
+        connecting and again after every reconnect, each followed by the error-queue
+        check.
     data_format, byte_order : str
         Waveform sample format and byte order (digitisers).
     code_min, code_max : float
@@ -100,6 +104,7 @@ class Profile:
     kind: str
     description: str = ""
     commands: dict = field(default_factory=dict)
+    setup: tuple = ()
     read_termination: str = "\n"
     write_termination: str = "\n"
     timeout_s: float = 5.0
@@ -246,13 +251,15 @@ def parse_profile(text: str, source: str = "<text>") -> Profile:
     commands = doc.get("commands")
     if not isinstance(commands, dict):
         raise _fail(source, "[commands]", "missing table")
-    _check_keys(source, "commands", commands, allowed)
+    commands = dict(commands)
+    out["setup"] = _parse_setup(source, commands.pop("setup", []))
+    _check_keys(source, "commands", commands, (*allowed, "setup"))
     for key in required:
         if key not in commands:
             raise _fail(source, f"[commands] {key}", "missing (required)")
     for key, template in commands.items():
         _check_template(source, key, template, allowed[key])
-    out["commands"] = dict(commands)
+    out["commands"] = commands
 
     if kind == "digitiser":
         if "acquisition_done" not in commands and "wait_complete" not in commands:
@@ -263,6 +270,20 @@ def parse_profile(text: str, source: str = "<text>") -> Profile:
     else:
         out["values"] = _parse_values(source, doc)
     return Profile(**out)
+
+
+def _parse_setup(source: str, lines) -> tuple:
+    """``[commands] setup``: a list of whole command lines, each checked as command text."""
+    where = "[commands] setup"
+    if not isinstance(lines, list):
+        raise _fail(source, where, f"expected a list of command lines, got {lines!r}")
+    for n, line in enumerate(lines, start=1):
+        if not isinstance(line, str) or not line.strip():
+            raise _fail(source, f"{where} line {n}", f"expected a non-empty string, got {line!r}")
+        problem = command_text_problem(line)
+        if problem is not None:
+            raise _fail(source, f"{where} line {n}", f"{line!r} {problem}")
+    return tuple(lines)
 
 
 def _parse_data(source: str, doc: dict) -> dict:

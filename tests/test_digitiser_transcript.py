@@ -187,3 +187,38 @@ def test_scaling_replies_no_instrument_could_give_are_protocol_errors(query, rep
         dig.configure(SETTINGS)
         with pytest.raises(ProtocolError, match=field):
             dig.acquire(0, trigger_timeout_s=1.0)
+
+
+def _setup_profile(tmp_path):
+    text = open(PROFILE.source).read().replace(
+        "[commands]\n", '[commands]\nsetup = ["WAV:FORM INT16", "WAV:BORD LSBF"]\n', 1)
+    path = tmp_path / "setup.toml"
+    path.write_text(text)
+    return load_profile(path)
+
+
+SETUP_STEPS = [(b"WAV:FORM INT16\n", None), OK, (b"WAV:BORD LSBF\n", None), OK]
+
+
+def test_setup_lines_sent_in_order_each_checked_and_again_after_reopen(tmp_path):
+    profile = _setup_profile(tmp_path)
+    first = FakeResource(SETUP_STEPS + configure_steps(SETTINGS))
+    second = FakeResource(SETUP_STEPS + configure_steps(SETTINGS))
+    link = ScpiLink(first, reopen=lambda: second)
+    dig = Digitiser(link, profile)
+    dig.send_setup()
+    dig.configure(SETTINGS)
+    link.reopen()
+    first.verify()
+    second.verify()
+
+
+def test_setup_line_refused_by_the_instrument_is_an_error(tmp_path):
+    from tankside.drivers.errors import InstrumentReportedError
+
+    steps = [(b"WAV:FORM INT16\n", None), (b"SYST:ERR?\n", b'-113,"Undefined header"\n'),
+             OK]
+    with FakeResource(steps) as fake:
+        dig = Digitiser(ScpiLink(fake), _setup_profile(tmp_path))
+        with pytest.raises(InstrumentReportedError, match="-113"):
+            dig.send_setup()

@@ -151,6 +151,31 @@ class TestDigitiser:
         session.close()
 
 
+    def test_setup_lines_after_connecting_and_after_reopen(self, bench, tmp_path):
+        # Setup asks the simulated digitiser for MSB-first blocks and the profile reads
+        # them as big-endian: codes come out as served only when the line was sent.
+        text = bench.digitiser_profile_path.read_text().replace(
+            "[commands]\n", '[commands]\nsetup = ["WAV:BORD MSBF"]\n', 1).replace(
+            'byte_order = "little"', 'byte_order = "big"')
+        path = tmp_path / "sim-setup.toml"
+        path.write_text(text)
+        config = InstrumentConfig(resource=bench.digitiser_resource, profile=str(path),
+                                  timeout_s=2.0)
+        opened = digitiser_opener(config, SETTINGS)()
+        try:
+            assert bench.digitiser.state.byte_order == "big"
+            raw = opened.device.acquire(0, trigger_timeout_s=1.0)
+            assert np.array_equal(raw.codes, bench.digitiser._trace[0])
+            bench.digitiser.reset()                 # as a power cycle would
+            bench.digitiser.state.byte_order = "little"
+            opened.link.reopen()
+            assert bench.digitiser.state.byte_order == "big"
+            raw = opened.device.acquire(1, trigger_timeout_s=1.0)
+            assert np.array_equal(raw.codes, bench.digitiser._trace[0])
+        finally:
+            opened.link.close()
+
+
 class TestGenerator:
     def test_every_operation(self, bench):
         gen = _generator(bench)

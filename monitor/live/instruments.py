@@ -26,7 +26,8 @@ def _open_link(config, profile, name: str) -> ScpiLink:
 
 
 def digitiser_opener(config, settings):
-    """Returns ``open() -> OpenInstrument``: connect, identify and configure the digitiser.
+    """Returns ``open() -> OpenInstrument``: connect, identify, send the profile's setup
+    lines and configure the digitiser.
 
     Parameters
     ----------
@@ -40,6 +41,7 @@ def digitiser_opener(config, settings):
         try:
             device = Digitiser(link, profile)
             identity = device.identity
+            device.send_setup()
             device.configure(settings)
         except InstrumentError:
             link.close(quiet=True)   # the error that made us give up is raised
@@ -50,7 +52,8 @@ def digitiser_opener(config, settings):
 
 
 def generator_opener(config):
-    """Returns ``open() -> OpenInstrument``: connect and identify the generator.
+    """Returns ``open() -> OpenInstrument``: connect, identify the generator and send its
+    profile's setup lines.
 
     Nothing is set and the output is not touched: settings are applied once, by
     :func:`apply_generator_settings`, after the session file exists.
@@ -62,6 +65,7 @@ def generator_opener(config):
         try:
             device = Generator(link, profile)
             identity = device.identity
+            device.send_setup()
         except InstrumentError:
             link.close(quiet=True)   # the error that made us give up is raised
             raise
