@@ -29,8 +29,10 @@ class DigitiserSettings:
     ----------
     record_length : int
         Samples per trace.
-    sample_rate_hz : float
-        Samples per second, Hz.
+    sample_rate_hz : float or None
+        Samples per second, Hz, asked of the instrument; None leaves the rate to the
+        instrument (its own time step is the rate used and recorded). Either way the
+        time step it reports must agree within :data:`RATE_TOLERANCE`.
     range_v : float
         Full-scale span, peak to peak, V; one of the profile's ``ranges_v``.
     offset_v : float
@@ -50,7 +52,7 @@ class DigitiserSettings:
     """
 
     record_length: int = 10000
-    sample_rate_hz: float = 250e6
+    sample_rate_hz: float | None = None
     range_v: float = 1.0
     offset_v: float = 0.0
     coupling: str = "DC"
@@ -67,6 +69,8 @@ class DigitiserSettings:
                                f"got {self.record_length!r}")
         for name in ("sample_rate_hz", "range_v", "impedance_ohm"):
             value = getattr(self, name)
+            if name == "sample_rate_hz" and value is None:
+                continue
             if not (isinstance(value, int | float) and math.isfinite(value) and value > 0):
                 raise SettingError(f"{name} must be a positive number, got {value!r}")
         for name in ("offset_v", "trigger_level_v"):
@@ -113,6 +117,22 @@ def _match_range(ranges_v, range_v: float) -> float:
             return allowed
     raise SettingError(f"range {range_v:g} V is not one of the profile's ranges "
                        f"{', '.join(f'{r:g}' for r in ranges_v)} V")
+
+
+# How far the rate implied by the instrument's time step may be from the rate asked,
+# relative: more is a configuration error (the trace would be recorded at a wrong rate).
+RATE_TOLERANCE = 1e-3
+
+
+def rate_problem(asked_hz: float, dt_s: float) -> str | None:
+    """Why a bench rate of ``asked_hz`` disagrees with a reported time step, or None."""
+    actual_hz = 1.0 / dt_s
+    if abs(actual_hz - asked_hz) <= RATE_TOLERANCE * asked_hz:
+        return None
+    return (f"bench sample_rate_hz = {asked_hz:g} Hz, but the digitiser's time step is "
+            f"{dt_s:g} s ({actual_hz:g} Hz), {abs(actual_hz / asked_hz - 1):.1%} apart "
+            f"(tolerance {RATE_TOLERANCE:.1%}); set the bench rate to {actual_hz:g} or "
+            "leave it out to use the instrument's own")
 
 
 # (settings field, command key, placeholder) in the order they are sent.
@@ -221,20 +241,29 @@ class Digitiser:
     def configure(self, settings: DigitiserSettings) -> None:
         """Apply every setting the profile has a command for, checking errors after each.
 
-        Settings whose command the profile lacks are listed in :attr:`skipped`.
+        Settings whose command the profile lacks are listed in :attr:`skipped`. The
+        scaling is then read; a time step that disagrees with the asked sample rate by
+        more than :data:`RATE_TOLERANCE` is a :class:`SettingError`.
         """
         settings = settings.replace(range_v=_match_range(self.ranges_v, settings.range_v))
         self._scaling = None
         skipped = []
         for name, key, placeholder in _STEPS:
+            value = getattr(settings, name)
+            if value is None:
+                continue                    # left to the instrument (sample_rate_hz)
             if not self.profile.has(key):
                 skipped.append(name)
                 continue
-            value = getattr(settings, name)
             self.link.write_step(self.profile.command(key, channel=settings.channel,
                                                          **{placeholder: value}))
         self.skipped = tuple(skipped)
         self._settings = settings
+        dt_s = self.fetch_scaling()["dt_s"]
+        if settings.sample_rate_hz is not None:
+            problem = rate_problem(settings.sample_rate_hz, dt_s)
+            if problem is not None:
+                raise SettingError(f"configuration: {problem}", resource=self.link.name)
 
     def set_range(self, range_v: float) -> None:
         """Change the vertical range to one of :attr:`ranges_v`."""
@@ -336,6 +365,7 @@ class Digitiser:
             self.link.check_errors("acquire")
         low, high = count_at_rails(codes, self.profile.code_min, self.profile.code_max)
         state = settings.as_dict()
+        state["sample_rate_hz"] = 1.0 / scaling["dt_s"]     # as the instrument reports it
         state["identity"] = self.link.identity
         return RawTrace(codes=codes, volts_per_code=scaling["volts_per_code"],
                         offset_v=scaling["offset_v"], dt_s=scaling["dt_s"],

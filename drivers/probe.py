@@ -15,7 +15,7 @@ from enum import StrEnum
 
 from . import ieee488
 from .digitiser import decode_codes
-from .errors import ConnectionLost, InstrumentError, NoTrigger
+from .errors import ConnectionLost, InstrumentError, NoTrigger, ProtocolError
 from .profile import Profile
 from .scpi import ScpiLink
 
@@ -121,6 +121,20 @@ class Prober:
                 self.link.write_step(line)
                 return "sent, no error queued"
             self._try(f"setup line {n}", line, action)
+
+    def fixed_rate(self) -> None:
+        """Without ``set_sample_rate`` the rate is the instrument's own: report the one
+        its time step implies (the rate a session will use and record)."""
+        if self._profile.has("set_sample_rate"):
+            return
+        command = self._profile.command("get_time_step", channel=1)
+
+        def action():
+            dt_s = ieee488.parse_number(self._query(command))
+            if not dt_s > 0:
+                raise ProtocolError(f"time step {dt_s!r} s is not positive")
+            return f"fixed by the instrument: {1.0 / dt_s:g} Hz (time step {dt_s:g} s)"
+        self._try("sample rate", command, action)
 
     def queries(self, keys, parse=None) -> None:
         for key in keys:
@@ -230,6 +244,7 @@ class Prober:
         self.setup_lines()
         if self._profile.kind == "digitiser":
             self.queries(("get_time_step", "get_time_origin", "get_volts_per_code", "get_offset"))
+            self.fixed_rate()
             self.settings(_DIGITISER_SETTINGS)
             self.acquisition(acquire)
         else:

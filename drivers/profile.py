@@ -50,7 +50,7 @@ _DIGITISER_COMMANDS = {
     "query_impedance": ("channel",), "query_trigger_source": (),
     "query_trigger_level": ("channel",), "query_trigger_slope": (), "query_averages": (),
 }
-_DIGITISER_REQUIRED = ("identify", "set_record_length", "set_sample_rate", "set_range",
+_DIGITISER_REQUIRED = ("identify", "set_record_length", "set_range",
                        "arm_single", "fetch_waveform", "get_time_step", "get_volts_per_code")
 
 _GENERATOR_COMMANDS = {

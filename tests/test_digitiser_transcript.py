@@ -19,7 +19,7 @@ OK = (b"SYST:ERR?\n", b'0,"No error"\n')
 IDN = b"Tankside Labs,Bench Digitiser,0001,1.0\n"
 
 
-def configure_steps(s: DigitiserSettings):
+def configure_steps(s: DigitiserSettings, scaling=None):
     steps = []
     for cmd in (f"ACQ:POIN {s.record_length}", f"ACQ:SRAT {s.sample_rate_hz}",
                 f"CHAN1:RANG {s.range_v}", f"CHAN1:OFFS {s.offset_v}",
@@ -27,7 +27,7 @@ def configure_steps(s: DigitiserSettings):
                 f"TRIG:SOUR {s.trigger_source}", f"TRIG:LEV {s.trigger_level_v}",
                 f"TRIG:SLOP {s.trigger_slope}", f"ACQ:AVER {s.averages}"):
         steps += [(cmd.encode() + b"\n", None), OK]
-    return steps
+    return steps + (SCALING if scaling is None else scaling)
 
 
 SETTINGS = DigitiserSettings(record_length=4, sample_rate_hz=1e8, range_v=0.5)
@@ -36,7 +36,7 @@ SCALING = [(b"WAV:XINC?\n", b"1E-08\n"), (b"WAV:XOR?\n", b"-2.0E-06\n"),
            (b"WAV:YINC?\n", b"1.52587890625E-05\n"), (b"WAV:YOFF?\n", b"0.001\n")]
 
 
-def acquire_steps(payload=None, polls=(b"0\n", b"1\n"), scaling=True):
+def acquire_steps(payload=None, polls=(b"0\n", b"1\n"), scaling=False):
     payload = CODES.tobytes() if payload is None else payload
     steps = [(b"INIT\n", None)] + [(b"ACQ:DONE?\n", p) for p in polls]
     steps.append((b"WAV:DATA? CHAN1\n", ieee488.encode_block(payload) + b"\n"))
@@ -66,8 +66,8 @@ def test_acquire_record():
 
 def test_scaling_reused_until_range_changes():
     steps = (configure_steps(SETTINGS) + acquire_steps(polls=(b"1\n",))
-             + acquire_steps(polls=(b"1\n",), scaling=False)
-             + [(b"CHAN1:RANG 1.0\n", None), OK] + acquire_steps(polls=(b"1\n",)))
+             + acquire_steps(polls=(b"1\n",))
+             + [(b"CHAN1:RANG 1.0\n", None), OK] + acquire_steps(polls=(b"1\n",), scaling=True))
     with FakeResource(steps) as fake:
         dig = Digitiser(ScpiLink(fake), PROFILE)
         dig.configure(SETTINGS)
@@ -181,12 +181,10 @@ def test_a_chained_command_never_reaches_the_wire():
 ])
 def test_scaling_replies_no_instrument_could_give_are_protocol_errors(query, reply, field):
     scaling = [(q, reply if q == query else r) for q, r in SCALING]
-    steps = configure_steps(SETTINGS) + acquire_steps(scaling=False)[:-1] + scaling
-    with FakeResource(steps) as fake:
+    with FakeResource(configure_steps(SETTINGS, scaling=scaling)) as fake:
         dig = Digitiser(ScpiLink(fake), PROFILE, poll_interval_s=0)
-        dig.configure(SETTINGS)
         with pytest.raises(ProtocolError, match=field):
-            dig.acquire(0, trigger_timeout_s=1.0)
+            dig.configure(SETTINGS)
 
 
 def _setup_profile(tmp_path):
@@ -222,3 +220,59 @@ def test_setup_line_refused_by_the_instrument_is_an_error(tmp_path):
         dig = Digitiser(ScpiLink(fake), _setup_profile(tmp_path))
         with pytest.raises(InstrumentReportedError, match="-113"):
             dig.send_setup()
+
+
+def _without(lines: tuple[str, ...], tmp_path, name="edited.toml"):
+    text = "\n".join(ln for ln in open(PROFILE.source).read().splitlines()
+                     if not ln.startswith(lines))
+    path = tmp_path / name
+    path.write_text(text + "\n")
+    return load_profile(path)
+
+
+def test_without_set_sample_rate_the_instruments_step_is_used_and_recorded(tmp_path):
+    profile = _without(("set_sample_rate", "query_sample_rate"), tmp_path)
+    settings = SETTINGS.replace(sample_rate_hz=None)
+    steps = configure_steps(settings)     # each write is followed by its error check
+    at = steps.index((b"ACQ:SRAT None\n", None))
+    del steps[at:at + 2]
+    with FakeResource(steps + acquire_steps()) as fake:
+        dig = Digitiser(ScpiLink(fake), profile, poll_interval_s=0)
+        dig.configure(settings)
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+    # XINC 1E-08 s is 100 MHz (1 / 1e-8)
+    assert raw.state["sample_rate_hz"] == pytest.approx(1e8, rel=1e-12)
+    assert dig.skipped == ()
+
+
+@pytest.mark.parametrize("asked_hz, xinc, fails", [
+    (1e8, b"4E-09\n", True),          # the 100 MS/s bench rate against a 4 ns step
+    (1e8, b"1.0009E-08\n", False),    # 0.09 % apart: inside the 0.1 % tolerance
+    (1e8, b"1.0011E-08\n", True),     # 0.11 % apart
+])
+def test_bench_rate_against_the_step_the_instrument_reports(asked_hz, xinc, fails):
+    scaling = [(q, xinc if q == b"WAV:XINC?\n" else r) for q, r in SCALING]
+    settings = SETTINGS.replace(sample_rate_hz=asked_hz)
+    with FakeResource(configure_steps(settings, scaling=scaling)) as fake:
+        dig = Digitiser(ScpiLink(fake), PROFILE)
+        if fails:
+            with pytest.raises(SettingError) as info:
+                dig.configure(settings)
+            step = float(xinc)
+            assert f"{asked_hz:g} Hz" in str(info.value)
+            assert f"{step:g} s ({1 / step:g} Hz)" in str(info.value)
+        else:
+            dig.configure(settings)
+
+
+def test_bench_rate_checked_also_without_set_sample_rate(tmp_path):
+    profile = _without(("set_sample_rate",), tmp_path)
+    settings = SETTINGS.replace(sample_rate_hz=2.5e8)
+    steps = configure_steps(settings)
+    at = steps.index((b"ACQ:SRAT 250000000.0\n", None))
+    del steps[at:at + 2]
+    with FakeResource(steps) as fake:
+        dig = Digitiser(ScpiLink(fake), profile)
+        with pytest.raises(SettingError, match=r"2\.5e\+08 Hz.*1e-08 s \(1e\+08 Hz\)"):
+            dig.configure(settings)
+    assert dig.skipped == ("sample_rate_hz",)

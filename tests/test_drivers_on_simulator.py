@@ -176,6 +176,39 @@ class TestDigitiser:
             opened.link.close()
 
 
+    def _fixed_rate_profile(self, bench, tmp_path):
+        text = "\n".join(ln for ln in bench.digitiser_profile_path.read_text().splitlines()
+                         if not ln.startswith(("set_sample_rate", "query_sample_rate")))
+        path = tmp_path / "sim-fixed-rate.toml"
+        path.write_text(text + "\n")
+        return str(path)
+
+    def test_rate_left_to_the_instrument_is_its_own(self, bench, tmp_path):
+        config = InstrumentConfig(resource=bench.digitiser_resource,
+                                  profile=self._fixed_rate_profile(bench, tmp_path),
+                                  timeout_s=2.0)
+        bench.digitiser.state.divider = 8          # the model's clock: 1 GS/s / 8
+        opened = digitiser_opener(config, SETTINGS.replace(sample_rate_hz=None))()
+        try:
+            raw = opened.device.acquire(0, trigger_timeout_s=1.0)
+            assert raw.dt_s == pytest.approx(bench.digitiser.time_step_s, rel=1e-12)
+            assert raw.state["sample_rate_hz"] == pytest.approx(
+                bench.digitiser.sample_rate_hz, rel=1e-12)
+        finally:
+            opened.link.close()
+        with pytest.raises(SettingError, match=r"1e\+08 Hz.*8e-09 s \(1\.25e\+08 Hz\)"):
+            digitiser_opener(config, SETTINGS.replace(sample_rate_hz=100e6))()
+
+    def test_rate_the_instrument_rounds_is_refused(self, bench):
+        # 123 MS/s asked: the model takes the nearest divider of its 1 GS/s clock (8),
+        # so its time step says 125 MS/s, 1.6 % away.
+        config = InstrumentConfig(resource=bench.digitiser_resource,
+                                  profile=str(bench.digitiser_profile_path), timeout_s=2.0)
+        with pytest.raises(SettingError, match=r"1\.23e\+08 Hz.*8e-09 s"):
+            digitiser_opener(config, SETTINGS.replace(sample_rate_hz=123e6))()
+        assert bench.digitiser.sample_rate_hz == 125e6
+
+
 class TestGenerator:
     def test_every_operation(self, bench):
         gen = _generator(bench)
