@@ -135,6 +135,23 @@ def rate_problem(asked_hz: float, dt_s: float) -> str | None:
             "leave it out to use the instrument's own")
 
 
+# How far the full scale implied by the volts per code and the rails may be from the
+# range in use, relative, before the driver warns that the profile's [ranges] kind (or
+# its rails) does not describe the instrument.
+SCALE_TOLERANCE = 0.05
+
+
+def scale_problem(range_v: float, full_scale_v: float) -> str | None:
+    """Why the range and the full scale from the scaling disagree, or None."""
+    if abs(full_scale_v - range_v) <= SCALE_TOLERANCE * range_v:
+        return None
+    return (f"the range in use is {range_v:g} V peak to peak, but the digitiser's volts per "
+            f"code and the profile's rails make a full scale of {full_scale_v:g} V "
+            f"({full_scale_v / range_v:.3g} times); check [ranges] kind and [data] "
+            "code_min / code_max against the instrument's manual (the share of full scale "
+            "is taken from the volts per code and the rails)")
+
+
 # (settings field, command key, placeholder) in the order they are sent.
 _STEPS = (
     ("record_length", "set_record_length", "points"),
@@ -172,6 +189,15 @@ def scaling_problems(scaling: dict) -> list[tuple[str, str]]:
     return problems
 
 
+def full_scale_v(profile: Profile, volts_per_code: float) -> float | None:
+    """Full-scale span (p-p, V) from the volts per code and the profile's rails: one code
+    more than the rails' distance, as an ADC of 2**n codes spans its range; None for
+    float32 samples (they are volts, with no codes to count)."""
+    if profile.data_format == "float32":
+        return None
+    return (profile.code_max - profile.code_min + 1) * abs(volts_per_code)
+
+
 class Digitiser:
     """A digitiser driven by its profile.
 
@@ -203,6 +229,9 @@ class Digitiser:
         self.poll_interval_s = poll_interval_s
         self.check_errors_each_trace = check_errors_each_trace
         self.skipped: tuple[str, ...] = ()
+        #: Configuration warnings (each given once), taken by :meth:`take_warnings`.
+        self.warnings: list[str] = []
+        self._warned: set[str] = set()
         self._settings: DigitiserSettings | None = None
         self._scaling: dict | None = None
         if profile.has("get_error"):
@@ -248,6 +277,7 @@ class Digitiser:
         settings = settings.replace(range_v=_match_range(self.ranges_v, settings.range_v))
         self._scaling = None
         skipped = []
+        span_v = settings.range_v
         for name, key, placeholder in _STEPS:
             value = getattr(settings, name)
             if value is None:
@@ -255,10 +285,13 @@ class Digitiser:
             if not self.profile.has(key):
                 skipped.append(name)
                 continue
+            if name == "range_v":
+                span_v = self._write_range(settings.channel, value)
+                continue
             self.link.write_step(self.profile.command(key, channel=settings.channel,
                                                          **{placeholder: value}))
         self.skipped = tuple(skipped)
-        self._settings = settings
+        self._settings = settings.replace(range_v=span_v)
         dt_s = self.fetch_scaling()["dt_s"]
         if settings.sample_rate_hz is not None:
             problem = rate_problem(settings.sample_rate_hz, dt_s)
@@ -270,9 +303,36 @@ class Digitiser:
         current = self._require_settings()
         range_v = _match_range(self.ranges_v, range_v)
         self._scaling = None
-        self.link.write_step(self.profile.command("set_range", channel=current.channel,
-                                                     range_v=range_v))
-        self._settings = current.replace(range_v=range_v)
+        self._settings = current.replace(range_v=self._write_range(current.channel, range_v))
+
+    def _write_range(self, channel: int, span_v: float) -> float:
+        """Set the range for a span of ``span_v`` (p-p, V) in the instrument's own kind
+        (``[ranges] kind``); return the span read back, or ``span_v`` without
+        ``query_range``."""
+        self.link.write_step(self.profile.command(
+            "set_range", channel=channel, range_v=self.profile.instrument_range(span_v)))
+        if not self.profile.has("query_range"):
+            return span_v
+        reply = self.link.query(self.profile.command("query_range", channel=channel))
+        try:
+            value = ieee488.parse_number(reply)
+        except ProtocolError as err:
+            raise ProtocolError(f"query_range: {err.message}", resource=self.link.name) from err
+        span = self.profile.span_of(value)
+        if not (math.isfinite(span) and span > 0):
+            raise ProtocolError(f"query_range: {reply.strip()!r} is not a range",
+                                resource=self.link.name)
+        return span
+
+    def take_warnings(self) -> list[str]:
+        """The configuration warnings not yet taken (each is given once per driver)."""
+        out, self.warnings = self.warnings, []
+        return out
+
+    def _warn(self, message: str) -> None:
+        if message not in self._warned:
+            self._warned.add(message)
+            self.warnings.append(message)
 
     def _require_settings(self) -> DigitiserSettings:
         if self._settings is None:
@@ -306,6 +366,11 @@ class Digitiser:
             for key, problem in scaling_problems(scaling):
                 raise ProtocolError(f"{key}: {problem}", resource=self.link.name)
             self._scaling = scaling
+            full_scale = full_scale_v(self.profile, scaling["volts_per_code"])
+            if full_scale is not None:
+                mismatch = scale_problem(self._require_settings().range_v, full_scale)
+                if mismatch is not None:
+                    self._warn(mismatch)
         return self._scaling
 
     def _wait_for_trigger(self, channel: int, trigger_timeout_s: float) -> None:

@@ -31,6 +31,10 @@ PROFILE_DIR = Path(__file__).with_name("profiles")
 KINDS = ("digitiser", "generator")
 DATA_FORMATS = ("int8", "int16", "float32")
 BYTE_ORDERS = ("little", "big")
+# What an instrument's range setting means: the full-scale span (peak to peak), the peak
+# (half the span, the "+/- V" of many front ends), or the volts of one of ``divisions``
+# screen divisions that together make the span.
+RANGE_KINDS = ("span", "peak", "per_division")
 
 # Command key -> placeholders it may use. Keys named query_* read a setting back; they
 # are optional and let `probe` restore what it changes.
@@ -95,6 +99,11 @@ class Profile:
         The ADC rails (digitisers).
     ranges_v : tuple of float
         Allowed full-scale spans, peak to peak, V, ascending (digitisers).
+    range_kind : {"span", "peak", "per_division"}
+        What the instrument's range value is (:data:`RANGE_KINDS`); the driver converts
+        with :meth:`instrument_range` and :meth:`span_of`.
+    range_divisions : int
+        Divisions across the span (``per_division`` only).
     values : dict
         Generator reply words: ``output_on``, ``output_off``, ``output_on_replies``,
         ``output_off_replies``.
@@ -113,6 +122,8 @@ class Profile:
     code_min: float = -32768
     code_max: float = 32767
     ranges_v: tuple = ()
+    range_kind: str = "span"
+    range_divisions: int = 1
     values: dict = field(default_factory=dict)
 
     def has(self, key: str) -> bool:
@@ -137,6 +148,22 @@ class Profile:
                 raise SettingError(f"{self.source}: [commands] {key}: {{{name}}} = {value!r} "
                                    f"{problem}; nothing was sent")
         return self.commands[key].format(**fields)
+
+    def instrument_range(self, span_v: float) -> float:
+        """The value ``set_range`` takes for a full-scale span of ``span_v`` (p-p, V)."""
+        if self.range_kind == "peak":
+            return span_v / 2.0
+        if self.range_kind == "per_division":
+            return span_v / self.range_divisions
+        return span_v
+
+    def span_of(self, instrument_value: float) -> float:
+        """The full-scale span (p-p, V) of a range value as the instrument states it."""
+        if self.range_kind == "peak":
+            return instrument_value * 2.0
+        if self.range_kind == "per_division":
+            return instrument_value * self.range_divisions
+        return instrument_value
 
     @property
     def dtype(self) -> np.dtype:
@@ -266,7 +293,7 @@ def parse_profile(text: str, source: str = "<text>") -> Profile:
             raise _fail(source, "[commands] acquisition_done",
                         "missing: define acquisition_done or wait_complete")
         out.update(_parse_data(source, doc))
-        out["ranges_v"] = _parse_ranges(source, doc)
+        out.update(_parse_ranges(source, doc))
     else:
         out["values"] = _parse_values(source, doc)
     return Profile(**out)
@@ -309,18 +336,30 @@ def _parse_data(source: str, doc: dict) -> dict:
     return {"data_format": fmt, "byte_order": order, "code_min": lo, "code_max": hi}
 
 
-def _parse_ranges(source: str, doc: dict) -> tuple:
+def _parse_ranges(source: str, doc: dict) -> dict:
     ranges = doc.get("ranges")
     if not isinstance(ranges, dict):
         raise _fail(source, "[ranges]", "missing table")
-    _check_keys(source, "ranges", ranges, ("values_v",))
+    _check_keys(source, "ranges", ranges, ("values_v", "kind", "divisions"))
+    kind = _choice(source, "[ranges] kind", ranges.get("kind", "span"), RANGE_KINDS)
+    divisions = 1
+    if kind == "per_division":
+        given = ranges.get("divisions")
+        if isinstance(given, bool) or not isinstance(given, int) or given < 1:
+            raise _fail(source, "[ranges] divisions",
+                        f"kind = \"per_division\" needs a whole number of divisions >= 1 "
+                        f"across the span, got {given!r}")
+        divisions = given
+    elif "divisions" in ranges:
+        raise _fail(source, "[ranges] divisions",
+                    f"only used with kind = \"per_division\" (kind is {kind!r})")
     values = ranges.get("values_v")
     if not isinstance(values, list) or not values:
         raise _fail(source, "[ranges] values_v", "expected a non-empty list of spans in V")
     spans = tuple(_number(source, "[ranges] values_v", v, positive=True) for v in values)
     if any(b <= a for a, b in zip(spans, spans[1:], strict=False)):
         raise _fail(source, "[ranges] values_v", f"must be strictly ascending, got {list(spans)}")
-    return spans
+    return {"ranges_v": spans, "range_kind": kind, "range_divisions": divisions}
 
 
 def _parse_values(source: str, doc: dict) -> dict:

@@ -15,7 +15,10 @@ Commands (short forms in capitals, ``#`` = optional channel suffix):
 ``ACQuire:DONE?``                       1 when the armed acquisition is complete, else 0
 ``INITiate[:IMMediate]`` / ``ABORt``    arm one acquisition / disarm
 ``CHANnel#:RANGe <v>`` / ``?``          full-scale span, V peak to peak, from RANGES_V
-                                        (a value between two is rounded up)
+                                        (a value between two is rounded up); with
+                                        ``range_kind`` "peak" the value is half the
+                                        span, with "per_division" the span over
+                                        ``range_divisions``
 ``CHANnel#:OFFSet <v>`` / ``?``         voltage at mid-scale, |offset| <= 2.5 V
 ``CHANnel#:COUPling AC|DC`` / ``?``
 ``CHANnel#:IMPedance 50|1e6`` / ``?``   input impedance, ohm (50 ohm halves the
@@ -142,8 +145,12 @@ class SimulatedDigitiser(ScpiDevice):
     def __init__(self, scene: Scene, *, seed: int = 0, clock: Callable[[], float] = time.monotonic,
                  sleep: Callable[[float], object] = time.sleep, noise_v_rms: float = 0.3e-3,
                  jitter_s: float = 0.5e-9, missed_triggers: Callable[[], int] | None = None,
-                 precomputed: int = 0):
+                 precomputed: int = 0, range_kind: str = "span", range_divisions: int = 10):
         super().__init__()
+        if range_kind not in ("span", "peak", "per_division"):
+            raise ValueError(f"range_kind must be span, peak or per_division, got {range_kind!r}")
+        self.range_kind = range_kind
+        self.range_divisions = range_divisions
         self.scene = scene
         self.rng = np.random.default_rng(seed)
         self.clock = clock
@@ -213,7 +220,7 @@ class SimulatedDigitiser(ScpiDevice):
         self.add("INITiate[:IMMediate]", write=self._arm)
         self.add("ABORt", write=self._abort)
         self.add("CHANnel#:RANGe", write=self._set_range,
-                 query=self.number_reply(lambda s: self._ch(s).range_v))
+                 query=self.number_reply(lambda s: self._range_word(self._ch(s).range_v)))
         self.add("CHANnel#:OFFSet", write=self._set_offset,
                  query=self.number_reply(lambda s: self._ch(s).offset_v))
         self.add("CHANnel#:COUPling", write=self._set_coupling,
@@ -283,10 +290,20 @@ class SimulatedDigitiser(ScpiDevice):
         expect_args(args, 1)
         self.state.averages = parse_integer(args[0], 1, 1024, what="averages")
 
+    def _range_word(self, span_v: float) -> float:
+        """A span as this dialect states a range."""
+        return span_v / self._range_factor()
+
+    def _range_factor(self) -> float:
+        return {"span": 1.0, "peak": 2.0,
+                "per_division": float(self.range_divisions)}[self.range_kind]
+
     def _set_range(self, args, s):
         expect_args(args, 1)
         ch = self._ch(s)
-        value = parse_number(args[0], minimum=RANGES_V[0], maximum=RANGES_V[-1])
+        factor = self._range_factor()
+        value = factor * parse_number(args[0], minimum=RANGES_V[0] / factor,
+                                      maximum=RANGES_V[-1] / factor)
         if not 0 < value <= RANGES_V[-1] * (1 + 1e-9):
             raise ScpiError(-222, f"range {value:g} V outside {RANGES_V[0]:g}..{RANGES_V[-1]:g}")
         ch.range_v = next(r for r in RANGES_V if r >= value * (1 - 1e-9))

@@ -27,6 +27,8 @@ def configure_steps(s: DigitiserSettings, scaling=None):
                 f"TRIG:SOUR {s.trigger_source}", f"TRIG:LEV {s.trigger_level_v}",
                 f"TRIG:SLOP {s.trigger_slope}", f"ACQ:AVER {s.averages}"):
         steps += [(cmd.encode() + b"\n", None), OK]
+        if cmd.startswith("CHAN1:RANG"):       # read back (query_range)
+            steps.append((b"CHAN1:RANG?\n", f"{s.range_v}\n".encode()))
     return steps + (SCALING if scaling is None else scaling)
 
 
@@ -67,7 +69,8 @@ def test_acquire_record():
 def test_scaling_reused_until_range_changes():
     steps = (configure_steps(SETTINGS) + acquire_steps(polls=(b"1\n",))
              + acquire_steps(polls=(b"1\n",))
-             + [(b"CHAN1:RANG 1.0\n", None), OK] + acquire_steps(polls=(b"1\n",), scaling=True))
+             + [(b"CHAN1:RANG 1.0\n", None), OK, (b"CHAN1:RANG?\n", b"1.0\n")]
+             + acquire_steps(polls=(b"1\n",), scaling=True))
     with FakeResource(steps) as fake:
         dig = Digitiser(ScpiLink(fake), PROFILE)
         dig.configure(SETTINGS)
@@ -276,3 +279,47 @@ def test_bench_rate_checked_also_without_set_sample_rate(tmp_path):
         with pytest.raises(SettingError, match=r"2\.5e\+08 Hz.*1e-08 s \(1e\+08 Hz\)"):
             dig.configure(settings)
     assert dig.skipped == ("sample_rate_hz",)
+
+
+def _range_kind_profile(tmp_path, kind_lines: str):
+    text = open(PROFILE.source).read().replace('kind = "span"\n', kind_lines, 1)
+    path = tmp_path / "kind.toml"
+    path.write_text(text)
+    return load_profile(path)
+
+
+@pytest.mark.parametrize("kind_lines, sent, read_back, recorded", [
+    ('kind = "span"\n', b"0.5", b"0.5", 0.5),
+    ('kind = "peak"\n', b"0.25", b"0.25", 0.5),                     # +/- 0.25 V is 0.5 V p-p
+    ('kind = "per_division"\ndivisions = 10\n', b"0.05", b"0.05", 0.5),  # 10 x 50 mV
+    ('kind = "peak"\n', b"0.25", b"0.5", 1.0),     # the instrument rounded up: its span is kept
+])
+def test_range_kinds_converted_both_ways(tmp_path, kind_lines, sent, read_back, recorded):
+    profile = _range_kind_profile(tmp_path, kind_lines)
+    steps = configure_steps(SETTINGS)
+    at = steps.index((b"CHAN1:RANG 0.5\n", None))
+    steps[at] = (b"CHAN1:RANG " + sent + b"\n", None)
+    steps[at + 2] = (b"CHAN1:RANG?\n", read_back + b"\n")
+    with FakeResource(steps + acquire_steps()) as fake:
+        dig = Digitiser(ScpiLink(fake), profile, poll_interval_s=0)
+        dig.configure(SETTINGS)
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+    assert raw.range_v == recorded and raw.state["range_v"] == recorded
+
+
+def test_share_of_full_scale_from_volts_per_code_and_rails():
+    # YINC = 2**-16 V per code over the 65536 int16 codes is a 1 V full scale; the
+    # profile's range says 0.5 V: the share follows the codes and a warning says why.
+    with FakeResource(configure_steps(SETTINGS) + acquire_steps()) as fake:
+        dig = Digitiser(ScpiLink(fake), PROFILE, poll_interval_s=0)
+        dig.configure(SETTINGS)
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+    assert raw.full_scale_v == 1.0
+    # The top rail code 32767 sits half a code below full scale above mid-scale -0.5:
+    # (32767 + 0.5) / 32768 of half the full scale.
+    assert raw.fraction_of_full_scale() == pytest.approx(32767.5 / 32768, rel=1e-12)
+    half = raw.volts()[2:3]                      # code 10 alone: (10 + 0.5) / 32768
+    assert raw.fraction_of_full_scale(half) == pytest.approx(10.5 / 32768, rel=1e-9)
+    (warning,) = dig.take_warnings()
+    assert "0.5 V" in warning and "full scale of 1 V" in warning
+    assert dig.take_warnings() == []

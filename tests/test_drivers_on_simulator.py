@@ -209,6 +209,49 @@ class TestDigitiser:
         assert bench.digitiser.sample_rate_hz == 125e6
 
 
+    @pytest.mark.parametrize("kind, extra", [("span", ""), ("peak", ""),
+                                             ("per_division", "divisions = 8\n")])
+    def test_range_kinds_record_the_true_span(self, bench, tmp_path, kind, extra):
+        bench.digitiser.range_kind = kind
+        bench.digitiser.range_divisions = 8
+        text = bench.digitiser_profile_path.read_text().replace(
+            "[ranges]\n", f'[ranges]\nkind = "{kind}"\n{extra}', 1)
+        path = tmp_path / f"sim-{kind}.toml"
+        path.write_text(text)
+        session = ScpiLink.open(bench.digitiser_resource, timeout_s=2.0)
+        dig = Digitiser(session, load_profile(path))
+        dig.configure(SETTINGS)                      # asks for a 0.1 V span
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+        # The model's own full scale, span p-p; the share of it in use computed here
+        # from the volts the model quantised (its last_codes and state), not the driver's.
+        real_span = bench.digitiser.state.channels[1].range_v
+        assert real_span == pytest.approx(0.1)
+        assert raw.range_v == pytest.approx(real_span, rel=0.01)
+        assert raw.full_scale_v == pytest.approx(real_span, rel=0.01)
+        served = bench.digitiser.last_codes.astype(float) * real_span / 65536
+        share = np.abs(served).max() / (real_span / 2)
+        assert 0.2 < share < 1.0                   # the scene's ~37 mV pulse on 0.1 V
+        assert raw.fraction_of_full_scale() == pytest.approx(share, rel=0.01)
+        assert dig.take_warnings() == []
+        session.close()
+
+    def test_range_kind_not_the_instruments_is_warned_once(self, bench):
+        # The instrument takes peak volts; the profile says span: 0.1 sent sets a 0.2 V
+        # span. The read-back says 0.1 again, so only the scaling can tell.
+        bench.digitiser.range_kind = "peak"
+        dig = _digitiser(bench)
+        assert bench.digitiser.state.channels[1].range_v == pytest.approx(0.2)
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+        assert raw.full_scale_v == pytest.approx(0.2, rel=0.01)   # the true one
+        warnings = dig.take_warnings()
+        assert len(warnings) == 1 and "0.1 V" in warnings[0] and "0.2 V" in warnings[0]
+        dig.acquire(1, trigger_timeout_s=1.0)
+        dig.set_range(0.1)
+        dig.acquire(2, trigger_timeout_s=1.0)
+        assert dig.take_warnings() == []
+        dig.link.close()
+
+
 class TestGenerator:
     def test_every_operation(self, bench):
         gen = _generator(bench)

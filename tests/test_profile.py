@@ -167,3 +167,25 @@ def test_setup_lines_are_each_one_command_of_printable_ascii(lines, where, words
                       source="my-scope.toml")
     assert str(info.value).startswith(f"my-scope.toml: {where}:"), str(info.value)
     assert words in str(info.value)
+
+
+def test_range_kinds():
+    assert load_profile("generic-scpi-digitiser").range_kind == "span"
+    peak = parse_profile(edited('kind = "span"\n', 'kind = "peak"\n'))
+    assert (peak.instrument_range(0.5), peak.span_of(0.25)) == (0.25, 0.5)
+    div = parse_profile(edited('kind = "span"\n', 'kind = "per_division"\ndivisions = 8\n'))
+    assert (div.instrument_range(0.8), div.span_of(0.1)) == (0.1, 0.8)
+
+
+@pytest.mark.parametrize("lines, where, words", [
+    ('kind = "volts"\n', "[ranges] kind", "expected one of span, peak, per_division"),
+    ('kind = "per_division"\n', "[ranges] divisions", "whole number of divisions"),
+    ('kind = "per_division"\ndivisions = 0\n', "[ranges] divisions", "whole number"),
+    ('kind = "per_division"\ndivisions = 8.5\n', "[ranges] divisions", "whole number"),
+    ('kind = "peak"\ndivisions = 8\n', "[ranges] divisions", "only used with"),
+])
+def test_range_kind_errors(lines, where, words):
+    with pytest.raises(ProfileError) as info:
+        parse_profile(edited('kind = "span"\n', lines), source="my-scope.toml")
+    assert str(info.value).startswith(f"my-scope.toml: {where}:"), str(info.value)
+    assert words in str(info.value)
