@@ -189,6 +189,14 @@ def scaling_problems(scaling: dict) -> list[tuple[str, str]]:
     return problems
 
 
+def unapplied_settings(profile: Profile, names) -> list[str]:
+    """Those of the settings ``names`` (DigitiserSettings fields) that ``profile`` has no
+    command to send, in the order they would be sent. ``sample_rate_hz`` without
+    ``set_sample_rate`` is among them: it is checked against the time step, not set."""
+    given = set(names)
+    return [name for name, key, _ in _STEPS if name in given and not profile.has(key)]
+
+
 def full_scale_v(profile: Profile, volts_per_code: float) -> float | None:
     """Full-scale span (p-p, V) from the volts per code and the profile's rails: one code
     more than the rails' distance, as an ADC of 2**n codes spans its range; None for
@@ -270,7 +278,8 @@ class Digitiser:
     def configure(self, settings: DigitiserSettings) -> None:
         """Apply every setting the profile has a command for, checking errors after each.
 
-        Settings whose command the profile lacks are listed in :attr:`skipped`. The
+        Settings whose command the profile lacks are listed in :attr:`skipped` (and
+        recorded as not set, :meth:`recorded_state`). The
         scaling is then read; a time step that disagrees with the asked sample rate by
         more than :data:`RATE_TOLERANCE` is a :class:`SettingError`.
         """
@@ -429,15 +438,27 @@ class Digitiser:
         if self.check_errors_each_trace:
             self.link.check_errors("acquire")
         low, high = count_at_rails(codes, self.profile.code_min, self.profile.code_max)
-        state = settings.as_dict()
-        state["sample_rate_hz"] = 1.0 / scaling["dt_s"]     # as the instrument reports it
-        state["identity"] = self.link.identity
+        state = self.recorded_state(scaling)
         return RawTrace(codes=codes, volts_per_code=scaling["volts_per_code"],
                         offset_v=scaling["offset_v"], dt_s=scaling["dt_s"],
                         t0_s=scaling["t0_s"], seq=int(seq), time_s=time_s,
                         range_v=settings.range_v, code_min=self.profile.code_min,
                         code_max=self.profile.code_max, clipped_low=low, clipped_high=high,
                         data_format=self.profile.data_format, state=state)
+
+    def recorded_state(self, scaling: dict) -> dict:
+        """The instrument state of a trace: only what was sent or read back.
+
+        A setting the profile has no command for was never sent, so it is None (not
+        set) rather than the value asked for; the sample rate is the one the reported
+        time step implies, the range the span read back (:meth:`configure`).
+        """
+        state = self._require_settings().as_dict()
+        for name in self.skipped:
+            state[name] = None
+        state["sample_rate_hz"] = 1.0 / scaling["dt_s"]     # as the instrument reports it
+        state["identity"] = self.link.identity
+        return state
 
     def read_settings(self) -> dict:
         """Replies to the profile's ``query_*`` commands, by settings field (raw text)."""

@@ -323,3 +323,26 @@ def test_share_of_full_scale_from_volts_per_code_and_rails():
     (warning,) = dig.take_warnings()
     assert "0.5 V" in warning and "full scale of 1 V" in warning
     assert dig.take_warnings() == []
+
+
+def test_recorded_state_holds_only_what_was_sent_or_read_back(tmp_path):
+    unset = ("set_offset", "set_coupling", "set_impedance", "set_trigger_level",
+             "set_trigger_slope", "set_averages")
+    profile = _without(unset, tmp_path)
+    steps = [st for st in configure_steps(SETTINGS)]
+    for word in (b"CHAN1:OFFS ", b"CHAN1:COUP ", b"CHAN1:IMP ", b"TRIG:LEV ", b"TRIG:SLOP ",
+                 b"ACQ:AVER "):
+        at = next(i for i, st in enumerate(steps) if st is not CLEAR and st[0].startswith(word))
+        del steps[at:at + 2]                       # the write and its error check
+    with FakeResource(steps + acquire_steps()) as fake:
+        dig = Digitiser(ScpiLink(fake), profile, poll_interval_s=0)
+        dig.configure(SETTINGS)
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+    for name in ("offset_v", "coupling", "impedance_ohm", "trigger_level_v", "trigger_slope",
+                 "averages"):
+        assert raw.state[name] is None, name
+    assert raw.state["trigger_source"] == "EXT" and raw.state["record_length"] == 4
+    assert raw.state["range_v"] == 0.5 and raw.state["sample_rate_hz"] == pytest.approx(1e8)
+    from tankside.drivers.digitiser import unapplied_settings
+    assert unapplied_settings(profile, ["coupling", "range_v", "averages"]) == [
+        "coupling", "averages"]

@@ -7,7 +7,7 @@ so that a bad profile is reported before anything is opened.
 
 from __future__ import annotations
 
-from ...drivers.digitiser import Digitiser
+from ...drivers.digitiser import Digitiser, unapplied_settings
 from ...drivers.errors import InstrumentError
 from ...drivers.generator import Generator
 from ...drivers.profile import load_profile
@@ -49,6 +49,27 @@ def digitiser_opener(config, settings):
         return OpenInstrument(device=device, link=link, identity=identity)
 
     return open_digitiser
+
+
+def unapplied_note(bench) -> str | None:
+    """What to tell the operator once at start about the bench's ``[digitiser]``
+    settings its profile has no command for, or None when every one is applied.
+
+    Such a setting is never sent and each trace records it as not set (null).
+    """
+    profile = load_profile(bench.digitiser.profile)
+    names = unapplied_settings(profile, bench.digitiser_table)
+    if not names:
+        return None
+    parts = []
+    plain = [n for n in names if n != "sample_rate_hz"]
+    if plain:
+        parts.append(f"{', '.join(plain)}: the profile has no command to set "
+                     f"{'it' if len(plain) == 1 else 'them'}; not applied, recorded as not set")
+    if "sample_rate_hz" in names:
+        parts.append("sample_rate_hz: the profile cannot set the rate; it is checked against "
+                     "the digitiser's own time step at start")
+    return f"digitiser {profile.source}: " + "; ".join(parts)
 
 
 def generator_opener(config):
