@@ -136,6 +136,23 @@ class Prober:
             return f"fixed by the instrument: {1.0 / dt_s:g} Hz (time step {dt_s:g} s)"
         self._try("sample rate", command, action)
 
+    def _try_wait_complete(self) -> str | None:
+        """Without ``acquisition_done``: wait for the armed acquisition on
+        ``wait_complete`` (the session does the same), up to the trigger timeout."""
+        command = self._profile.command("wait_complete")
+
+        def wait():
+            saved = self.link.timeout_s
+            self.link.timeout_s = self.trigger_timeout_s
+            try:
+                reply = self._query(command)
+            finally:
+                self.link.timeout_s = saved
+            if reply != "1":
+                raise ProtocolError(f"expected '1', got {reply!r}")
+            return reply
+        return self._try("wait_complete", command, wait)
+
     def queries(self, keys, parse=None) -> None:
         for key in keys:
             if not self._profile.has(key):
@@ -230,6 +247,8 @@ class Prober:
                 return "1"
             if self._try("acquisition_done", done, wait_done) is None:
                 return
+        elif self._try_wait_complete() is None:
+            return
         fetch = self._profile.command("fetch_waveform", channel=1)
 
         def fetch_action():

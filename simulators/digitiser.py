@@ -36,6 +36,22 @@ Commands (short forms in capitals, ``#`` = optional channel suffix):
 ``WAVeform:CMIN?`` ``CMAX?``            the rails (lowest and highest code)
 =====================================  ==================================================
 
+The model also speaks a second dialect, in the SCPI-1999 ``SENSe:``/``FETCh:`` style (an
+invented one, described by ``drivers/profiles/example-sense-fetch-digitiser.toml``):
+
+=====================================  ==================================================
+``SENSe:SWEep:POINts <n>`` / ``?``      record length (as ``ACQuire:POINts``)
+``SENSe:SWEep:TINTerval?``              time step, s; read only (the rate is set by the
+                                        other dialect or left as it is)
+``SENSe:SWEep:OFFSet:TIME?``            time of the first sample after the trigger
+``SENSe#:VOLTage:RANGe <v>`` / ``?``    as ``CHANnel#:RANGe`` (``range_kind`` applies)
+``SENSe#:VOLTage:OFFSet <v>`` / ``?``   as ``CHANnel#:OFFSet``
+``SENSe#:VOLTage:RESolution?``          volts per code of that channel
+``FORMat[:DATA] INT,16|INT,8|REAL,32``  data format of the block
+``FORMat:BORDer NORMal|SWAPped``        byte order: NORMal MSB first, SWAPped LSB first
+``FETCh#:WAVeform?``                    the trace of channel #, a definite-length block
+=====================================  ==================================================
+
 volts = code * YINC + YOFF; int16 codes span the range in 65536 steps and clip at
 -32768 / 32767 (int8: 256 steps, -128 / 127; float32: volts, clipped at the range edges).
 Time is read from an injected ``clock`` and waits use an injected ``sleep``, so the
@@ -252,6 +268,44 @@ class SimulatedDigitiser(ScpiDevice):
         self.add("WAVeform:CMAX",
                  query=self.text_reply(lambda s: FORMATS[self.state.data_format][2]))
 
+        self._register_sense()
+
+    def _register_sense(self) -> None:
+        """The ``SENSe:``/``FETCh:`` dialect (module docstring, second table)."""
+        self.add("SENSe:SWEep:POINts", write=self._set_points,
+                 query=self.text_reply(lambda s: self.state.points))
+        self.add("SENSe:SWEep:TINTerval", query=self.number_reply(lambda s: self.time_step_s))
+        self.add("SENSe:SWEep:OFFSet:TIME",
+                 query=self.number_reply(lambda s: self.state.trigger_delay_s))
+        self.add("SENSe#:VOLTage:RANGe", write=self._set_range,
+                 query=self.number_reply(lambda s: self._range_word(self._ch(s).range_v)))
+        self.add("SENSe#:VOLTage:OFFSet", write=self._set_offset,
+                 query=self.number_reply(lambda s: self._ch(s).offset_v))
+        self.add("SENSe#:VOLTage:RESolution",
+                 query=self.number_reply(lambda s: self._channel_scaling(self._ch(s))[0]))
+        self.add("FORMat:BORDer", write=self._set_sense_border,
+                 query=self.text_reply(lambda s: "SWAP"
+                                              if self.state.byte_order == "little" else "NORM"))
+        self.add("FORMat[:DATA]", write=self._set_sense_format)
+        self.add("FETCh#:WAVeform", query=self._fetch_sense)
+
+    def _set_sense_format(self, args, s):
+        expect_args(args, 2)
+        words = {("INT", "16"): "int16", ("INTEGER", "16"): "int16", ("INT", "8"): "int8",
+                 ("INTEGER", "8"): "int8", ("REAL", "32"): "float32"}
+        key = (args[0].strip().upper(), args[1].strip())
+        if key not in words:
+            raise ScpiError(-224, f"format {','.join(args)!r} (INT,16, INT,8 or REAL,32)")
+        self.state.data_format = words[key]
+
+    def _set_sense_border(self, args, s):
+        expect_args(args, 1)
+        self.state.byte_order = parse_choice(args[0], {"NORMal": "big", "SWAPped": "little"})
+
+    def _fetch_sense(self, args, s):
+        expect_args(args, 0)
+        return self._fetch((f"CHAN{s[0]}",), s)
+
     def _ch(self, suffixes) -> ChannelState:
         number = suffixes[0]
         if number not in self.state.channels:
@@ -268,7 +322,9 @@ class SimulatedDigitiser(ScpiDevice):
         return self.state.divider / BASE_CLOCK_HZ
 
     def _scaling(self) -> tuple[float, float]:
-        ch = self.state.channels[self.state.wave_source]
+        return self._channel_scaling(self.state.channels[self.state.wave_source])
+
+    def _channel_scaling(self, ch: ChannelState) -> tuple[float, float]:
         _, lo, hi = FORMATS[self.state.data_format]
         if lo is None or hi is None:
             return 1.0, 0.0

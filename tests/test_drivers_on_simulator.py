@@ -252,6 +252,46 @@ class TestDigitiser:
         dig.link.close()
 
 
+class TestSenseFetchDialect:
+    """The example profile for the invented SENSe:/FETCh: dialect, against the model
+    speaking it: setup lines, +/- peak ranges, a read-only time step, swapped blocks."""
+
+    def test_example_profile_drives_the_model(self, bench):
+        bench.digitiser.range_kind = "peak"
+        bench.digitiser.state.byte_order = "big"         # until the setup line swaps it
+        bench.digitiser.state.divider = 2               # 500 MS/s, the model's own
+        config = InstrumentConfig(resource=bench.digitiser_resource,
+                                  profile="example-sense-fetch-digitiser", timeout_s=2.0)
+        settings = DigitiserSettings(record_length=2000, range_v=0.1, trigger_source="EXT")
+        opened = digitiser_opener(config, settings)()
+        try:
+            model = bench.digitiser.state
+            assert model.byte_order == "little" and model.points == 2000
+            assert model.channels[1].range_v == pytest.approx(0.1)   # 0.05 V peak sent
+            raw = opened.device.acquire(0, trigger_timeout_s=1.0)
+            assert np.array_equal(raw.codes, bench.digitiser.last_codes)
+            assert raw.dt_s == pytest.approx(2e-9) and raw.state["sample_rate_hz"] == \
+                pytest.approx(5e8)
+            assert raw.range_v == pytest.approx(0.1) and raw.full_scale_v == pytest.approx(0.1)
+            assert raw.t0_s == pytest.approx(model.trigger_delay_s)
+            assert raw.state["coupling"] is None and raw.state["averages"] is None
+            assert opened.device.take_warnings() == []
+        finally:
+            opened.link.close()
+
+    def test_probe_reads_the_example_profile(self, bench, capsys):
+        from tankside.monitor.cli import main
+
+        bench.digitiser.range_kind = "peak"
+        code = main(["probe", bench.digitiser_resource, "--profile",
+                     "example-sense-fetch-digitiser", "--acquire", "--timeout", "1"])
+        out = capsys.readouterr().out
+        assert code == 0, out
+        assert "fixed by the instrument: 2.5e+08 Hz (time step 4e-09 s)" in out
+        assert "setup line 2" in out and "FORM:BORD SWAP" in out
+        assert bench.digitiser.state.byte_order == "little"
+
+
 class TestGenerator:
     def test_every_operation(self, bench):
         gen = _generator(bench)
