@@ -29,8 +29,10 @@ class DigitiserSettings:
     ----------
     record_length : int
         Samples per trace.
-    sample_rate_hz : float
-        Samples per second, Hz.
+    sample_rate_hz : float or None
+        Samples per second, Hz, asked of the instrument; None leaves the rate to the
+        instrument (its own time step is the rate used and recorded). Either way the
+        time step it reports must agree within :data:`RATE_TOLERANCE`.
     range_v : float
         Full-scale span, peak to peak, V; one of the profile's ``ranges_v``.
     offset_v : float
@@ -50,7 +52,7 @@ class DigitiserSettings:
     """
 
     record_length: int = 10000
-    sample_rate_hz: float = 250e6
+    sample_rate_hz: float | None = None
     range_v: float = 1.0
     offset_v: float = 0.0
     coupling: str = "DC"
@@ -67,6 +69,8 @@ class DigitiserSettings:
                                f"got {self.record_length!r}")
         for name in ("sample_rate_hz", "range_v", "impedance_ohm"):
             value = getattr(self, name)
+            if name == "sample_rate_hz" and value is None:
+                continue
             if not (isinstance(value, int | float) and math.isfinite(value) and value > 0):
                 raise SettingError(f"{name} must be a positive number, got {value!r}")
         for name in ("offset_v", "trigger_level_v"):
@@ -115,6 +119,39 @@ def _match_range(ranges_v, range_v: float) -> float:
                        f"{', '.join(f'{r:g}' for r in ranges_v)} V")
 
 
+# How far the rate implied by the instrument's time step may be from the rate asked,
+# relative: more is a configuration error (the trace would be recorded at a wrong rate).
+RATE_TOLERANCE = 1e-3
+
+
+def rate_problem(asked_hz: float, dt_s: float) -> str | None:
+    """Why a bench rate of ``asked_hz`` disagrees with a reported time step, or None."""
+    actual_hz = 1.0 / dt_s
+    if abs(actual_hz - asked_hz) <= RATE_TOLERANCE * asked_hz:
+        return None
+    return (f"bench sample_rate_hz = {asked_hz:g} Hz, but the digitiser's time step is "
+            f"{dt_s:g} s ({actual_hz:g} Hz), {abs(actual_hz / asked_hz - 1):.1%} apart "
+            f"(tolerance {RATE_TOLERANCE:.1%}); set the bench rate to {actual_hz:g} or "
+            "leave it out to use the instrument's own")
+
+
+# How far the full scale implied by the volts per code and the rails may be from the
+# range in use, relative, before the driver warns that the profile's [ranges] kind (or
+# its rails) does not describe the instrument.
+SCALE_TOLERANCE = 0.05
+
+
+def scale_problem(range_v: float, full_scale_v: float) -> str | None:
+    """Why the range and the full scale from the scaling disagree, or None."""
+    if abs(full_scale_v - range_v) <= SCALE_TOLERANCE * range_v:
+        return None
+    return (f"the range in use is {range_v:g} V peak to peak, but the digitiser's volts per "
+            f"code and the profile's rails make a full scale of {full_scale_v:g} V "
+            f"({full_scale_v / range_v:.3g} times); check [ranges] kind and [data] "
+            "code_min / code_max against the instrument's manual (the share of full scale "
+            "is taken from the volts per code and the rails)")
+
+
 # (settings field, command key, placeholder) in the order they are sent.
 _STEPS = (
     ("record_length", "set_record_length", "points"),
@@ -152,6 +189,23 @@ def scaling_problems(scaling: dict) -> list[tuple[str, str]]:
     return problems
 
 
+def unapplied_settings(profile: Profile, names) -> list[str]:
+    """Those of the settings ``names`` (DigitiserSettings fields) that ``profile`` has no
+    command to send, in the order they would be sent. ``sample_rate_hz`` without
+    ``set_sample_rate`` is among them: it is checked against the time step, not set."""
+    given = set(names)
+    return [name for name, key, _ in _STEPS if name in given and not profile.has(key)]
+
+
+def full_scale_v(profile: Profile, volts_per_code: float) -> float | None:
+    """Full-scale span (p-p, V) from the volts per code and the profile's rails: one code
+    more than the rails' distance, as an ADC of 2**n codes spans its range; None for
+    float32 samples (they are volts, with no codes to count)."""
+    if profile.data_format == "float32":
+        return None
+    return (profile.code_max - profile.code_min + 1) * abs(volts_per_code)
+
+
 class Digitiser:
     """A digitiser driven by its profile.
 
@@ -183,6 +237,9 @@ class Digitiser:
         self.poll_interval_s = poll_interval_s
         self.check_errors_each_trace = check_errors_each_trace
         self.skipped: tuple[str, ...] = ()
+        #: Configuration warnings (each given once), taken by :meth:`take_warnings`.
+        self.warnings: list[str] = []
+        self._warned: set[str] = set()
         self._settings: DigitiserSettings | None = None
         self._scaling: dict | None = None
         if profile.has("get_error"):
@@ -212,32 +269,79 @@ class Digitiser:
         self._settings = None
         self._scaling = None
 
+    def send_setup(self) -> None:
+        """Send the profile's ``[commands] setup`` lines in order, checking errors after
+        each (the opener calls this once after connecting; a reopen sends them again)."""
+        for line in self.profile.setup:
+            self.link.write_step(line)
+
     def configure(self, settings: DigitiserSettings) -> None:
         """Apply every setting the profile has a command for, checking errors after each.
 
-        Settings whose command the profile lacks are listed in :attr:`skipped`.
+        Settings whose command the profile lacks are listed in :attr:`skipped` (and
+        recorded as not set, :meth:`recorded_state`). The
+        scaling is then read; a time step that disagrees with the asked sample rate by
+        more than :data:`RATE_TOLERANCE` is a :class:`SettingError`.
         """
         settings = settings.replace(range_v=_match_range(self.ranges_v, settings.range_v))
         self._scaling = None
         skipped = []
+        span_v = settings.range_v
         for name, key, placeholder in _STEPS:
+            value = getattr(settings, name)
+            if value is None:
+                continue                    # left to the instrument (sample_rate_hz)
             if not self.profile.has(key):
                 skipped.append(name)
                 continue
-            value = getattr(settings, name)
+            if name == "range_v":
+                span_v = self._write_range(settings.channel, value)
+                continue
             self.link.write_step(self.profile.command(key, channel=settings.channel,
                                                          **{placeholder: value}))
         self.skipped = tuple(skipped)
-        self._settings = settings
+        self._settings = settings.replace(range_v=span_v)
+        dt_s = self.fetch_scaling()["dt_s"]
+        if settings.sample_rate_hz is not None:
+            problem = rate_problem(settings.sample_rate_hz, dt_s)
+            if problem is not None:
+                raise SettingError(f"configuration: {problem}", resource=self.link.name)
 
     def set_range(self, range_v: float) -> None:
         """Change the vertical range to one of :attr:`ranges_v`."""
         current = self._require_settings()
         range_v = _match_range(self.ranges_v, range_v)
         self._scaling = None
-        self.link.write_step(self.profile.command("set_range", channel=current.channel,
-                                                     range_v=range_v))
-        self._settings = current.replace(range_v=range_v)
+        self._settings = current.replace(range_v=self._write_range(current.channel, range_v))
+
+    def _write_range(self, channel: int, span_v: float) -> float:
+        """Set the range for a span of ``span_v`` (p-p, V) in the instrument's own kind
+        (``[ranges] kind``); return the span read back, or ``span_v`` without
+        ``query_range``."""
+        self.link.write_step(self.profile.command(
+            "set_range", channel=channel, range_v=self.profile.instrument_range(span_v)))
+        if not self.profile.has("query_range"):
+            return span_v
+        reply = self.link.query(self.profile.command("query_range", channel=channel))
+        try:
+            value = ieee488.parse_number(reply)
+        except ProtocolError as err:
+            raise ProtocolError(f"query_range: {err.message}", resource=self.link.name) from err
+        span = self.profile.span_of(value)
+        if not (math.isfinite(span) and span > 0):
+            raise ProtocolError(f"query_range: {reply.strip()!r} is not a range",
+                                resource=self.link.name)
+        return span
+
+    def take_warnings(self) -> list[str]:
+        """The configuration warnings not yet taken (each is given once per driver)."""
+        out, self.warnings = self.warnings, []
+        return out
+
+    def _warn(self, message: str) -> None:
+        if message not in self._warned:
+            self._warned.add(message)
+            self.warnings.append(message)
 
     def _require_settings(self) -> DigitiserSettings:
         if self._settings is None:
@@ -246,6 +350,7 @@ class Digitiser:
         return self._settings
 
     def _reapply(self) -> None:
+        self.send_setup()
         if self._settings is not None:
             self.configure(self._settings)
 
@@ -270,6 +375,11 @@ class Digitiser:
             for key, problem in scaling_problems(scaling):
                 raise ProtocolError(f"{key}: {problem}", resource=self.link.name)
             self._scaling = scaling
+            full_scale = full_scale_v(self.profile, scaling["volts_per_code"])
+            if full_scale is not None:
+                mismatch = scale_problem(self._require_settings().range_v, full_scale)
+                if mismatch is not None:
+                    self._warn(mismatch)
         return self._scaling
 
     def _wait_for_trigger(self, channel: int, trigger_timeout_s: float) -> None:
@@ -328,14 +438,27 @@ class Digitiser:
         if self.check_errors_each_trace:
             self.link.check_errors("acquire")
         low, high = count_at_rails(codes, self.profile.code_min, self.profile.code_max)
-        state = settings.as_dict()
-        state["identity"] = self.link.identity
+        state = self.recorded_state(scaling)
         return RawTrace(codes=codes, volts_per_code=scaling["volts_per_code"],
                         offset_v=scaling["offset_v"], dt_s=scaling["dt_s"],
                         t0_s=scaling["t0_s"], seq=int(seq), time_s=time_s,
                         range_v=settings.range_v, code_min=self.profile.code_min,
                         code_max=self.profile.code_max, clipped_low=low, clipped_high=high,
                         data_format=self.profile.data_format, state=state)
+
+    def recorded_state(self, scaling: dict) -> dict:
+        """The instrument state of a trace: only what was sent or read back.
+
+        A setting the profile has no command for was never sent, so it is None (not
+        set) rather than the value asked for; the sample rate is the one the reported
+        time step implies, the range the span read back (:meth:`configure`).
+        """
+        state = self._require_settings().as_dict()
+        for name in self.skipped:
+            state[name] = None
+        state["sample_rate_hz"] = 1.0 / scaling["dt_s"]     # as the instrument reports it
+        state["identity"] = self.link.identity
+        return state
 
     def read_settings(self) -> dict:
         """Replies to the profile's ``query_*`` commands, by settings field (raw text)."""

@@ -53,6 +53,12 @@ class Generator:
         except ProtocolError as err:
             raise ProtocolError(f"{key}: {err.message}", resource=self.link.name) from err
 
+    def send_setup(self) -> None:
+        """Send the profile's ``[commands] setup`` lines in order, checking errors after
+        each (the opener calls this after every connection)."""
+        for line in self.profile.setup:
+            self.link.write_step(line)
+
     def reset(self) -> None:
         """Send the profile's ``reset`` command."""
         self.link.write_step(self.profile.command("reset"))

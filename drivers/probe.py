@@ -15,7 +15,7 @@ from enum import StrEnum
 
 from . import ieee488
 from .digitiser import decode_codes
-from .errors import ConnectionLost, InstrumentError, NoTrigger
+from .errors import ConnectionLost, InstrumentError, NoTrigger, ProtocolError
 from .profile import Profile
 from .scpi import ScpiLink
 
@@ -113,6 +113,46 @@ class Prober:
                   lambda: f"{len(self.link.drain_errors())} queued error(s) read")
         self._try("wait complete", "*OPC?", self.link.opc)
 
+    def setup_lines(self) -> None:
+        """Send each ``[commands] setup`` line as a session would, checking the error
+        queue after it (the lines are the profile's own settings, so nothing is restored)."""
+        for n, line in enumerate(self._profile.setup, start=1):
+            def action(line=line):
+                self.link.write_step(line)
+                return "sent, no error queued"
+            self._try(f"setup line {n}", line, action)
+
+    def fixed_rate(self) -> None:
+        """Without ``set_sample_rate`` the rate is the instrument's own: report the one
+        its time step implies (the rate a session will use and record)."""
+        if self._profile.has("set_sample_rate"):
+            return
+        command = self._profile.command("get_time_step", channel=1)
+
+        def action():
+            dt_s = ieee488.parse_number(self._query(command))
+            if not dt_s > 0:
+                raise ProtocolError(f"time step {dt_s!r} s is not positive")
+            return f"fixed by the instrument: {1.0 / dt_s:g} Hz (time step {dt_s:g} s)"
+        self._try("sample rate", command, action)
+
+    def _try_wait_complete(self) -> str | None:
+        """Without ``acquisition_done``: wait for the armed acquisition on
+        ``wait_complete`` (the session does the same), up to the trigger timeout."""
+        command = self._profile.command("wait_complete")
+
+        def wait():
+            saved = self.link.timeout_s
+            self.link.timeout_s = self.trigger_timeout_s
+            try:
+                reply = self._query(command)
+            finally:
+                self.link.timeout_s = saved
+            if reply != "1":
+                raise ProtocolError(f"expected '1', got {reply!r}")
+            return reply
+        return self._try("wait_complete", command, wait)
+
     def queries(self, keys, parse=None) -> None:
         for key in keys:
             if not self._profile.has(key):
@@ -207,6 +247,8 @@ class Prober:
                 return "1"
             if self._try("acquisition_done", done, wait_done) is None:
                 return
+        elif self._try_wait_complete() is None:
+            return
         fetch = self._profile.command("fetch_waveform", channel=1)
 
         def fetch_action():
@@ -218,8 +260,10 @@ class Prober:
         self.common()
         if self.profile is None:
             return
+        self.setup_lines()
         if self._profile.kind == "digitiser":
             self.queries(("get_time_step", "get_time_origin", "get_volts_per_code", "get_offset"))
+            self.fixed_rate()
             self.settings(_DIGITISER_SETTINGS)
             self.acquisition(acquire)
         else:

@@ -11,8 +11,8 @@ printable ASCII, without ``;`` (the IEEE 488.2 separator that would chain a seco
 command the session knows nothing about) or a line break (which would end the command
 early and send the rest as another). :func:`command_text_problem` is that check;
 :meth:`Profile.command` applies it to the values it fills in, so a setting that got past
-the bench file still never reaches the instrument. No profile key holds a list of
-commands, so the rule has no exception.
+the bench file still never reaches the instrument. The one key that holds a list,
+``[commands] setup``, is checked line by line: each line is one command, sent as written.
 """
 
 from __future__ import annotations
@@ -31,6 +31,10 @@ PROFILE_DIR = Path(__file__).with_name("profiles")
 KINDS = ("digitiser", "generator")
 DATA_FORMATS = ("int8", "int16", "float32")
 BYTE_ORDERS = ("little", "big")
+# What an instrument's range setting means: the full-scale span (peak to peak), the peak
+# (half the span, the "+/- V" of many front ends), or the volts of one of ``divisions``
+# screen divisions that together make the span.
+RANGE_KINDS = ("span", "peak", "per_division")
 
 # Command key -> placeholders it may use. Keys named query_* read a setting back; they
 # are optional and let `probe` restore what it changes.
@@ -50,7 +54,7 @@ _DIGITISER_COMMANDS = {
     "query_impedance": ("channel",), "query_trigger_source": (),
     "query_trigger_level": ("channel",), "query_trigger_slope": (), "query_averages": (),
 }
-_DIGITISER_REQUIRED = ("identify", "set_record_length", "set_sample_rate", "set_range",
+_DIGITISER_REQUIRED = ("identify", "set_record_length", "set_range",
                        "arm_single", "fetch_waveform", "get_time_step", "get_volts_per_code")
 
 _GENERATOR_COMMANDS = {
@@ -85,12 +89,21 @@ class Profile:
     kind : {"digitiser", "generator"}
     commands : dict[str, str]
         Command templates by key, with ``{placeholder}`` fields.
+    setup : tuple of str
+        ``[commands] setup``: command lines sent as written, in order, once after
+        connecting and again after every reconnect, each followed by the error-queue
+        check.
     data_format, byte_order : str
         Waveform sample format and byte order (digitisers).
     code_min, code_max : float
         The ADC rails (digitisers).
     ranges_v : tuple of float
         Allowed full-scale spans, peak to peak, V, ascending (digitisers).
+    range_kind : {"span", "peak", "per_division"}
+        What the instrument's range value is (:data:`RANGE_KINDS`); the driver converts
+        with :meth:`instrument_range` and :meth:`span_of`.
+    range_divisions : int
+        Divisions across the span (``per_division`` only).
     values : dict
         Generator reply words: ``output_on``, ``output_off``, ``output_on_replies``,
         ``output_off_replies``.
@@ -100,6 +113,7 @@ class Profile:
     kind: str
     description: str = ""
     commands: dict = field(default_factory=dict)
+    setup: tuple = ()
     read_termination: str = "\n"
     write_termination: str = "\n"
     timeout_s: float = 5.0
@@ -108,6 +122,8 @@ class Profile:
     code_min: float = -32768
     code_max: float = 32767
     ranges_v: tuple = ()
+    range_kind: str = "span"
+    range_divisions: int = 1
     values: dict = field(default_factory=dict)
 
     def has(self, key: str) -> bool:
@@ -132,6 +148,22 @@ class Profile:
                 raise SettingError(f"{self.source}: [commands] {key}: {{{name}}} = {value!r} "
                                    f"{problem}; nothing was sent")
         return self.commands[key].format(**fields)
+
+    def instrument_range(self, span_v: float) -> float:
+        """The value ``set_range`` takes for a full-scale span of ``span_v`` (p-p, V)."""
+        if self.range_kind == "peak":
+            return span_v / 2.0
+        if self.range_kind == "per_division":
+            return span_v / self.range_divisions
+        return span_v
+
+    def span_of(self, instrument_value: float) -> float:
+        """The full-scale span (p-p, V) of a range value as the instrument states it."""
+        if self.range_kind == "peak":
+            return instrument_value * 2.0
+        if self.range_kind == "per_division":
+            return instrument_value * self.range_divisions
+        return instrument_value
 
     @property
     def dtype(self) -> np.dtype:
@@ -246,23 +278,39 @@ def parse_profile(text: str, source: str = "<text>") -> Profile:
     commands = doc.get("commands")
     if not isinstance(commands, dict):
         raise _fail(source, "[commands]", "missing table")
-    _check_keys(source, "commands", commands, allowed)
+    commands = dict(commands)
+    out["setup"] = _parse_setup(source, commands.pop("setup", []))
+    _check_keys(source, "commands", commands, (*allowed, "setup"))
     for key in required:
         if key not in commands:
             raise _fail(source, f"[commands] {key}", "missing (required)")
     for key, template in commands.items():
         _check_template(source, key, template, allowed[key])
-    out["commands"] = dict(commands)
+    out["commands"] = commands
 
     if kind == "digitiser":
         if "acquisition_done" not in commands and "wait_complete" not in commands:
             raise _fail(source, "[commands] acquisition_done",
                         "missing: define acquisition_done or wait_complete")
         out.update(_parse_data(source, doc))
-        out["ranges_v"] = _parse_ranges(source, doc)
+        out.update(_parse_ranges(source, doc))
     else:
         out["values"] = _parse_values(source, doc)
     return Profile(**out)
+
+
+def _parse_setup(source: str, lines) -> tuple:
+    """``[commands] setup``: a list of whole command lines, each checked as command text."""
+    where = "[commands] setup"
+    if not isinstance(lines, list):
+        raise _fail(source, where, f"expected a list of command lines, got {lines!r}")
+    for n, line in enumerate(lines, start=1):
+        if not isinstance(line, str) or not line.strip():
+            raise _fail(source, f"{where} line {n}", f"expected a non-empty string, got {line!r}")
+        problem = command_text_problem(line)
+        if problem is not None:
+            raise _fail(source, f"{where} line {n}", f"{line!r} {problem}")
+    return tuple(lines)
 
 
 def _parse_data(source: str, doc: dict) -> dict:
@@ -288,18 +336,30 @@ def _parse_data(source: str, doc: dict) -> dict:
     return {"data_format": fmt, "byte_order": order, "code_min": lo, "code_max": hi}
 
 
-def _parse_ranges(source: str, doc: dict) -> tuple:
+def _parse_ranges(source: str, doc: dict) -> dict:
     ranges = doc.get("ranges")
     if not isinstance(ranges, dict):
         raise _fail(source, "[ranges]", "missing table")
-    _check_keys(source, "ranges", ranges, ("values_v",))
+    _check_keys(source, "ranges", ranges, ("values_v", "kind", "divisions"))
+    kind = _choice(source, "[ranges] kind", ranges.get("kind", "span"), RANGE_KINDS)
+    divisions = 1
+    if kind == "per_division":
+        given = ranges.get("divisions")
+        if isinstance(given, bool) or not isinstance(given, int) or given < 1:
+            raise _fail(source, "[ranges] divisions",
+                        f"kind = \"per_division\" needs a whole number of divisions >= 1 "
+                        f"across the span, got {given!r}")
+        divisions = given
+    elif "divisions" in ranges:
+        raise _fail(source, "[ranges] divisions",
+                    f"only used with kind = \"per_division\" (kind is {kind!r})")
     values = ranges.get("values_v")
     if not isinstance(values, list) or not values:
         raise _fail(source, "[ranges] values_v", "expected a non-empty list of spans in V")
     spans = tuple(_number(source, "[ranges] values_v", v, positive=True) for v in values)
     if any(b <= a for a, b in zip(spans, spans[1:], strict=False)):
         raise _fail(source, "[ranges] values_v", f"must be strictly ascending, got {list(spans)}")
-    return spans
+    return {"ranges_v": spans, "range_kind": kind, "range_divisions": divisions}
 
 
 def _parse_values(source: str, doc: dict) -> dict:

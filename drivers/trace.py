@@ -31,7 +31,8 @@ class RawTrace:
     time_s : float
         Acquisition time, seconds since the Unix epoch (wall clock at fetch).
     range_v : float
-        Vertical range in use: full-scale span, peak to peak, V.
+        Vertical range in use: full-scale span, peak to peak, V (as read back when the
+        profile can, converted from the instrument's own kind of range).
     code_min, code_max : int or float
         The ADC rails: the lowest and highest code the digitiser can send.
     clipped_low, clipped_high : int
@@ -69,6 +70,34 @@ class RawTrace:
     def volts(self) -> np.ndarray:
         """The trace in volts (float64)."""
         return self.codes.astype(np.float64) * self.volts_per_code + self.offset_v
+
+    @property
+    def full_scale_v(self) -> float:
+        """Full-scale span, p-p, V: from the volts per code and the rails (one code more
+        than their distance) for integer samples, else :attr:`range_v`."""
+        if self.data_format == "float32":
+            return float(self.range_v)
+        return float((self.code_max - self.code_min + 1) * abs(self.volts_per_code))
+
+    def fraction_of_full_scale(self, volts: np.ndarray | None = None) -> float:
+        """Share of full scale in use: the largest distance of a sample from mid-scale
+        over half the full scale (1 means the signal reaches a rail).
+
+        For integer samples mid-scale and full scale come from the codes' rails and the
+        volts per code, so the share is that of the converter whatever the profile says
+        the range is; for float32 samples (volts) from :attr:`range_v` around the offset.
+        """
+        v = self.volts() if volts is None else volts
+        if not len(v):
+            return 0.0
+        if self.data_format == "float32":
+            mid_v = float(self.offset_v)
+        else:
+            mid_v = float(self.offset_v + (self.code_min + self.code_max) / 2 * self.volts_per_code)
+        half_v = self.full_scale_v / 2.0
+        if not half_v > 0:
+            return float("nan")
+        return float(np.max(np.abs(v - mid_v)) / half_v)
 
     def times(self) -> np.ndarray:
         """Sample times relative to the trigger, s."""

@@ -15,7 +15,10 @@ Commands (short forms in capitals, ``#`` = optional channel suffix):
 ``ACQuire:DONE?``                       1 when the armed acquisition is complete, else 0
 ``INITiate[:IMMediate]`` / ``ABORt``    arm one acquisition / disarm
 ``CHANnel#:RANGe <v>`` / ``?``          full-scale span, V peak to peak, from RANGES_V
-                                        (a value between two is rounded up)
+                                        (a value between two is rounded up); with
+                                        ``range_kind`` "peak" the value is half the
+                                        span, with "per_division" the span over
+                                        ``range_divisions``
 ``CHANnel#:OFFSet <v>`` / ``?``         voltage at mid-scale, |offset| <= 2.5 V
 ``CHANnel#:COUPling AC|DC`` / ``?``
 ``CHANnel#:IMPedance 50|1e6`` / ``?``   input impedance, ohm (50 ohm halves the
@@ -31,6 +34,22 @@ Commands (short forms in capitals, ``#`` = optional channel suffix):
 ``WAVeform:XINCrement?`` ``XORigin?``   time step, time of first sample (s)
 ``WAVeform:YINCrement?`` ``YOFFset?``   volts per code, volts at code 0
 ``WAVeform:CMIN?`` ``CMAX?``            the rails (lowest and highest code)
+=====================================  ==================================================
+
+The model also speaks a second dialect, in the SCPI-1999 ``SENSe:``/``FETCh:`` style (an
+invented one, described by ``drivers/profiles/example-sense-fetch-digitiser.toml``):
+
+=====================================  ==================================================
+``SENSe:SWEep:POINts <n>`` / ``?``      record length (as ``ACQuire:POINts``)
+``SENSe:SWEep:TINTerval?``              time step, s; read only (the rate is set by the
+                                        other dialect or left as it is)
+``SENSe:SWEep:OFFSet:TIME?``            time of the first sample after the trigger
+``SENSe#:VOLTage:RANGe <v>`` / ``?``    as ``CHANnel#:RANGe`` (``range_kind`` applies)
+``SENSe#:VOLTage:OFFSet <v>`` / ``?``   as ``CHANnel#:OFFSet``
+``SENSe#:VOLTage:RESolution?``          volts per code of that channel
+``FORMat[:DATA] INT,16|INT,8|REAL,32``  data format of the block
+``FORMat:BORDer NORMal|SWAPped``        byte order: NORMal MSB first, SWAPped LSB first
+``FETCh#:WAVeform?``                    the trace of channel #, a definite-length block
 =====================================  ==================================================
 
 volts = code * YINC + YOFF; int16 codes span the range in 65536 steps and clip at
@@ -142,8 +161,12 @@ class SimulatedDigitiser(ScpiDevice):
     def __init__(self, scene: Scene, *, seed: int = 0, clock: Callable[[], float] = time.monotonic,
                  sleep: Callable[[float], object] = time.sleep, noise_v_rms: float = 0.3e-3,
                  jitter_s: float = 0.5e-9, missed_triggers: Callable[[], int] | None = None,
-                 precomputed: int = 0):
+                 precomputed: int = 0, range_kind: str = "span", range_divisions: int = 10):
         super().__init__()
+        if range_kind not in ("span", "peak", "per_division"):
+            raise ValueError(f"range_kind must be span, peak or per_division, got {range_kind!r}")
+        self.range_kind = range_kind
+        self.range_divisions = range_divisions
         self.scene = scene
         self.rng = np.random.default_rng(seed)
         self.clock = clock
@@ -213,7 +236,7 @@ class SimulatedDigitiser(ScpiDevice):
         self.add("INITiate[:IMMediate]", write=self._arm)
         self.add("ABORt", write=self._abort)
         self.add("CHANnel#:RANGe", write=self._set_range,
-                 query=self.number_reply(lambda s: self._ch(s).range_v))
+                 query=self.number_reply(lambda s: self._range_word(self._ch(s).range_v)))
         self.add("CHANnel#:OFFSet", write=self._set_offset,
                  query=self.number_reply(lambda s: self._ch(s).offset_v))
         self.add("CHANnel#:COUPling", write=self._set_coupling,
@@ -245,6 +268,44 @@ class SimulatedDigitiser(ScpiDevice):
         self.add("WAVeform:CMAX",
                  query=self.text_reply(lambda s: FORMATS[self.state.data_format][2]))
 
+        self._register_sense()
+
+    def _register_sense(self) -> None:
+        """The ``SENSe:``/``FETCh:`` dialect (module docstring, second table)."""
+        self.add("SENSe:SWEep:POINts", write=self._set_points,
+                 query=self.text_reply(lambda s: self.state.points))
+        self.add("SENSe:SWEep:TINTerval", query=self.number_reply(lambda s: self.time_step_s))
+        self.add("SENSe:SWEep:OFFSet:TIME",
+                 query=self.number_reply(lambda s: self.state.trigger_delay_s))
+        self.add("SENSe#:VOLTage:RANGe", write=self._set_range,
+                 query=self.number_reply(lambda s: self._range_word(self._ch(s).range_v)))
+        self.add("SENSe#:VOLTage:OFFSet", write=self._set_offset,
+                 query=self.number_reply(lambda s: self._ch(s).offset_v))
+        self.add("SENSe#:VOLTage:RESolution",
+                 query=self.number_reply(lambda s: self._channel_scaling(self._ch(s))[0]))
+        self.add("FORMat:BORDer", write=self._set_sense_border,
+                 query=self.text_reply(lambda s: "SWAP"
+                                              if self.state.byte_order == "little" else "NORM"))
+        self.add("FORMat[:DATA]", write=self._set_sense_format)
+        self.add("FETCh#:WAVeform", query=self._fetch_sense)
+
+    def _set_sense_format(self, args, s):
+        expect_args(args, 2)
+        words = {("INT", "16"): "int16", ("INTEGER", "16"): "int16", ("INT", "8"): "int8",
+                 ("INTEGER", "8"): "int8", ("REAL", "32"): "float32"}
+        key = (args[0].strip().upper(), args[1].strip())
+        if key not in words:
+            raise ScpiError(-224, f"format {','.join(args)!r} (INT,16, INT,8 or REAL,32)")
+        self.state.data_format = words[key]
+
+    def _set_sense_border(self, args, s):
+        expect_args(args, 1)
+        self.state.byte_order = parse_choice(args[0], {"NORMal": "big", "SWAPped": "little"})
+
+    def _fetch_sense(self, args, s):
+        expect_args(args, 0)
+        return self._fetch((f"CHAN{s[0]}",), s)
+
     def _ch(self, suffixes) -> ChannelState:
         number = suffixes[0]
         if number not in self.state.channels:
@@ -261,7 +322,9 @@ class SimulatedDigitiser(ScpiDevice):
         return self.state.divider / BASE_CLOCK_HZ
 
     def _scaling(self) -> tuple[float, float]:
-        ch = self.state.channels[self.state.wave_source]
+        return self._channel_scaling(self.state.channels[self.state.wave_source])
+
+    def _channel_scaling(self, ch: ChannelState) -> tuple[float, float]:
         _, lo, hi = FORMATS[self.state.data_format]
         if lo is None or hi is None:
             return 1.0, 0.0
@@ -283,10 +346,20 @@ class SimulatedDigitiser(ScpiDevice):
         expect_args(args, 1)
         self.state.averages = parse_integer(args[0], 1, 1024, what="averages")
 
+    def _range_word(self, span_v: float) -> float:
+        """A span as this dialect states a range."""
+        return span_v / self._range_factor()
+
+    def _range_factor(self) -> float:
+        return {"span": 1.0, "peak": 2.0,
+                "per_division": float(self.range_divisions)}[self.range_kind]
+
     def _set_range(self, args, s):
         expect_args(args, 1)
         ch = self._ch(s)
-        value = parse_number(args[0], minimum=RANGES_V[0], maximum=RANGES_V[-1])
+        factor = self._range_factor()
+        value = factor * parse_number(args[0], minimum=RANGES_V[0] / factor,
+                                      maximum=RANGES_V[-1] / factor)
         if not 0 < value <= RANGES_V[-1] * (1 + 1e-9):
             raise ScpiError(-222, f"range {value:g} V outside {RANGES_V[0]:g}..{RANGES_V[-1]:g}")
         ch.range_v = next(r for r in RANGES_V if r >= value * (1 - 1e-9))

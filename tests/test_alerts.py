@@ -471,7 +471,10 @@ def test_observation_from_trace_fraction_matches_numpy():
                    seq=3, time_s=12.5, range_v=1.0, code_min=-32768, code_max=32767,
                    clipped_low=low, clipped_high=high, data_format="int16")
     o = observation_from_trace(raw, None, "bad", method_in_use="narrowband", position=(1.0,))
-    expected = np.max(np.abs(codes.astype(float) * scale + offset)) / 0.5
+    # The share is the distance from mid-scale (halfway between the rails, code -0.5,
+    # at offset - 0.5 * scale volts) over half the full scale (65536 codes of `scale`).
+    volts = codes.astype(float) * scale + offset
+    expected = np.max(np.abs(volts - (offset - 0.5 * scale))) / (65536 * scale / 2)
     assert o.fraction_of_full_scale == pytest.approx(expected, rel=1e-12)
     assert (o.clipped_low, o.clipped_high, o.seq, o.time_s) == (0, 1, 3, 12.5)
     assert o.error == "bad" and o.position == (1.0,)

@@ -151,6 +151,147 @@ class TestDigitiser:
         session.close()
 
 
+    def test_setup_lines_after_connecting_and_after_reopen(self, bench, tmp_path):
+        # Setup asks the simulated digitiser for MSB-first blocks and the profile reads
+        # them as big-endian: codes come out as served only when the line was sent.
+        text = bench.digitiser_profile_path.read_text().replace(
+            "[commands]\n", '[commands]\nsetup = ["WAV:BORD MSBF"]\n', 1).replace(
+            'byte_order = "little"', 'byte_order = "big"')
+        path = tmp_path / "sim-setup.toml"
+        path.write_text(text)
+        config = InstrumentConfig(resource=bench.digitiser_resource, profile=str(path),
+                                  timeout_s=2.0)
+        opened = digitiser_opener(config, SETTINGS)()
+        try:
+            assert bench.digitiser.state.byte_order == "big"
+            raw = opened.device.acquire(0, trigger_timeout_s=1.0)
+            assert np.array_equal(raw.codes, bench.digitiser._trace[0])
+            bench.digitiser.reset()                 # as a power cycle would
+            bench.digitiser.state.byte_order = "little"
+            opened.link.reopen()
+            assert bench.digitiser.state.byte_order == "big"
+            raw = opened.device.acquire(1, trigger_timeout_s=1.0)
+            assert np.array_equal(raw.codes, bench.digitiser._trace[0])
+        finally:
+            opened.link.close()
+
+
+    def _fixed_rate_profile(self, bench, tmp_path):
+        text = "\n".join(ln for ln in bench.digitiser_profile_path.read_text().splitlines()
+                         if not ln.startswith(("set_sample_rate", "query_sample_rate")))
+        path = tmp_path / "sim-fixed-rate.toml"
+        path.write_text(text + "\n")
+        return str(path)
+
+    def test_rate_left_to_the_instrument_is_its_own(self, bench, tmp_path):
+        config = InstrumentConfig(resource=bench.digitiser_resource,
+                                  profile=self._fixed_rate_profile(bench, tmp_path),
+                                  timeout_s=2.0)
+        bench.digitiser.state.divider = 8          # the model's clock: 1 GS/s / 8
+        opened = digitiser_opener(config, SETTINGS.replace(sample_rate_hz=None))()
+        try:
+            raw = opened.device.acquire(0, trigger_timeout_s=1.0)
+            assert raw.dt_s == pytest.approx(bench.digitiser.time_step_s, rel=1e-12)
+            assert raw.state["sample_rate_hz"] == pytest.approx(
+                bench.digitiser.sample_rate_hz, rel=1e-12)
+        finally:
+            opened.link.close()
+        with pytest.raises(SettingError, match=r"1e\+08 Hz.*8e-09 s \(1\.25e\+08 Hz\)"):
+            digitiser_opener(config, SETTINGS.replace(sample_rate_hz=100e6))()
+
+    def test_rate_the_instrument_rounds_is_refused(self, bench):
+        # 123 MS/s asked: the model takes the nearest divider of its 1 GS/s clock (8),
+        # so its time step says 125 MS/s, 1.6 % away.
+        config = InstrumentConfig(resource=bench.digitiser_resource,
+                                  profile=str(bench.digitiser_profile_path), timeout_s=2.0)
+        with pytest.raises(SettingError, match=r"1\.23e\+08 Hz.*8e-09 s"):
+            digitiser_opener(config, SETTINGS.replace(sample_rate_hz=123e6))()
+        assert bench.digitiser.sample_rate_hz == 125e6
+
+
+    @pytest.mark.parametrize("kind, extra", [("span", ""), ("peak", ""),
+                                             ("per_division", "divisions = 8\n")])
+    def test_range_kinds_record_the_true_span(self, bench, tmp_path, kind, extra):
+        bench.digitiser.range_kind = kind
+        bench.digitiser.range_divisions = 8
+        text = bench.digitiser_profile_path.read_text().replace(
+            "[ranges]\n", f'[ranges]\nkind = "{kind}"\n{extra}', 1)
+        path = tmp_path / f"sim-{kind}.toml"
+        path.write_text(text)
+        session = ScpiLink.open(bench.digitiser_resource, timeout_s=2.0)
+        dig = Digitiser(session, load_profile(path))
+        dig.configure(SETTINGS)                      # asks for a 0.1 V span
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+        # The model's own full scale, span p-p; the share of it in use computed here
+        # from the volts the model quantised (its last_codes and state), not the driver's.
+        real_span = bench.digitiser.state.channels[1].range_v
+        assert real_span == pytest.approx(0.1)
+        assert raw.range_v == pytest.approx(real_span, rel=0.01)
+        assert raw.full_scale_v == pytest.approx(real_span, rel=0.01)
+        served = bench.digitiser.last_codes.astype(float) * real_span / 65536
+        share = np.abs(served).max() / (real_span / 2)
+        assert 0.2 < share < 1.0                   # the scene's ~37 mV pulse on 0.1 V
+        assert raw.fraction_of_full_scale() == pytest.approx(share, rel=0.01)
+        assert dig.take_warnings() == []
+        session.close()
+
+    def test_range_kind_not_the_instruments_is_warned_once(self, bench):
+        # The instrument takes peak volts; the profile says span: 0.1 sent sets a 0.2 V
+        # span. The read-back says 0.1 again, so only the scaling can tell.
+        bench.digitiser.range_kind = "peak"
+        dig = _digitiser(bench)
+        assert bench.digitiser.state.channels[1].range_v == pytest.approx(0.2)
+        raw = dig.acquire(0, trigger_timeout_s=1.0)
+        assert raw.full_scale_v == pytest.approx(0.2, rel=0.01)   # the true one
+        warnings = dig.take_warnings()
+        assert len(warnings) == 1 and "0.1 V" in warnings[0] and "0.2 V" in warnings[0]
+        dig.acquire(1, trigger_timeout_s=1.0)
+        dig.set_range(0.1)
+        dig.acquire(2, trigger_timeout_s=1.0)
+        assert dig.take_warnings() == []
+        dig.link.close()
+
+
+class TestSenseFetchDialect:
+    """The example profile for the invented SENSe:/FETCh: dialect, against the model
+    speaking it: setup lines, +/- peak ranges, a read-only time step, swapped blocks."""
+
+    def test_example_profile_drives_the_model(self, bench):
+        bench.digitiser.range_kind = "peak"
+        bench.digitiser.state.byte_order = "big"         # until the setup line swaps it
+        bench.digitiser.state.divider = 2               # 500 MS/s, the model's own
+        config = InstrumentConfig(resource=bench.digitiser_resource,
+                                  profile="example-sense-fetch-digitiser", timeout_s=2.0)
+        settings = DigitiserSettings(record_length=2000, range_v=0.1, trigger_source="EXT")
+        opened = digitiser_opener(config, settings)()
+        try:
+            model = bench.digitiser.state
+            assert model.byte_order == "little" and model.points == 2000
+            assert model.channels[1].range_v == pytest.approx(0.1)   # 0.05 V peak sent
+            raw = opened.device.acquire(0, trigger_timeout_s=1.0)
+            assert np.array_equal(raw.codes, bench.digitiser.last_codes)
+            assert raw.dt_s == pytest.approx(2e-9) and raw.state["sample_rate_hz"] == \
+                pytest.approx(5e8)
+            assert raw.range_v == pytest.approx(0.1) and raw.full_scale_v == pytest.approx(0.1)
+            assert raw.t0_s == pytest.approx(model.trigger_delay_s)
+            assert raw.state["coupling"] is None and raw.state["averages"] is None
+            assert opened.device.take_warnings() == []
+        finally:
+            opened.link.close()
+
+    def test_probe_reads_the_example_profile(self, bench, capsys):
+        from tankside.monitor.cli import main
+
+        bench.digitiser.range_kind = "peak"
+        code = main(["probe", bench.digitiser_resource, "--profile",
+                     "example-sense-fetch-digitiser", "--acquire", "--timeout", "1"])
+        out = capsys.readouterr().out
+        assert code == 0, out
+        assert "fixed by the instrument: 2.5e+08 Hz (time step 4e-09 s)" in out
+        assert "setup line 2" in out and "FORM:BORD SWAP" in out
+        assert bench.digitiser.state.byte_order == "little"
+
+
 class TestGenerator:
     def test_every_operation(self, bench):
         gen = _generator(bench)

@@ -77,3 +77,14 @@ def test_bad_values_sent_nowhere(call):
     with FakeResource([]) as fake:
         with pytest.raises(SettingError):
             call(Generator(ScpiLink(fake), PROFILE))
+
+
+def test_setup_lines_sent_in_order_each_checked():
+    import dataclasses
+
+    profile = dataclasses.replace(PROFILE, setup=("SOUR1:FUNC SIN", "OUTP1:LOAD INF"))
+    steps = [(b"SOUR1:FUNC SIN\n", None), OK, (b"OUTP1:LOAD INF\n", None),
+             (b"SYST:ERR?\n", b'-224,"Illegal parameter value"\n'), OK]
+    with FakeResource(steps) as fake:
+        with pytest.raises(InstrumentReportedError, match="-224"):
+            Generator(ScpiLink(fake), profile).send_setup()

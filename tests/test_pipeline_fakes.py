@@ -67,6 +67,11 @@ class FakeDigitiser:
     def __init__(self, scene, settings):
         self.scene = scene
         self.settings = settings
+        self.warnings = list(getattr(scene, "configuration_warnings", ()))
+
+    def take_warnings(self):
+        out, self.warnings = self.warnings, []
+        return out
 
     def configure(self, settings):
         self.settings = settings
@@ -228,6 +233,18 @@ def acquires(scene):
 
 
 class TestLiveSessionBasics:
+    def test_configuration_warning_recorded_once_across_reconnects(self, tmp_path):
+        # Every new driver (each reconnect opens one) has the warning again: the
+        # session records it once, as a configuration fault with a warning alert.
+        scene = Scene()
+        scene.configuration_warnings = ["the range in use is 0.5 V peak to peak, but ..."]
+        scene.faults = {5: [ConnectionLost("gone")], 12: [ConnectionLost("gone")]}
+        s = run(make_session(tmp_path, scene, max_traces=20))
+        assert s.opens["digitiser"] == 3
+        events = [d for k, d in s.stores[0].events
+                  if k is EventKind.FAULT and d["kind"] is FaultKind.CONFIGURATION]
+        assert len(events) == 1 and events[0]["message"].startswith("the range in use")
+
     def test_every_trace_converted_and_stored(self, tmp_path):
         scene = Scene()
         s = run(make_session(tmp_path, scene, max_traces=40))

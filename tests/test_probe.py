@@ -78,3 +78,35 @@ def test_unreachable_exit_2(capsys):
         resource = b.digitiser_resource
     assert main(["probe", resource, "--timeout", "0.5"]) == 2
     assert "instrument error" in capsys.readouterr().err
+
+
+def test_setup_lines_sent_and_checked(bench, tmp_path, capsys):
+    # The simulated digitiser powers on sending int16 LSB first; the setup line asks
+    # for MSB first and the profile says so, so an acquisition decodes only if it was sent.
+    text = bench.digitiser_profile_path.read_text().replace(
+        "[commands]\n", '[commands]\nsetup = ["WAV:BORD MSBF"]\n', 1).replace(
+        'byte_order = "little"', 'byte_order = "big"')
+    path = tmp_path / "setup.toml"
+    path.write_text(text)
+    code = main(["probe", bench.digitiser_resource, "--profile", str(path), "--timeout", "1"])
+    out = capsys.readouterr().out
+    assert code == 0 and _rows(out)["setup line 1"] == "ok"
+    assert bench.digitiser.state.byte_order == "big"
+    bad = path.read_text().replace('"WAV:BORD MSBF"', '"WAV:NOSUCH 1"')
+    path.write_text(bad)
+    code = main(["probe", bench.digitiser_resource, "--profile", str(path), "--timeout", "1"])
+    out = capsys.readouterr().out
+    assert code == 3 and _rows(out)["setup line 1"] == "failed" and "-113" in out
+
+
+def test_fixed_rate_reported(bench, tmp_path, capsys):
+    text = "\n".join(ln for ln in bench.digitiser_profile_path.read_text().splitlines()
+                     if not ln.startswith(("set_sample_rate", "query_sample_rate")))
+    path = tmp_path / "fixed.toml"
+    path.write_text(text + "\n")
+    bench.digitiser.state.divider = 5        # the model's 1 GS/s clock / 5
+    code = main(["probe", bench.digitiser_resource, "--profile", str(path), "--timeout", "1"])
+    out = capsys.readouterr().out
+    assert code == 0 and _rows(out)["sample rate"] == "ok"
+    assert "fixed by the instrument: 2e+08 Hz (time step 5e-09 s)" in out
+    assert "set_sample_rate" not in _rows(out)

@@ -142,3 +142,50 @@ def test_values_filled_at_run_time_are_checked(value, words):
     assert "generic-scpi-digitiser.toml: [commands] set_coupling: {coupling}" in message
     assert words in message and "nothing was sent" in message
     assert profile.command("set_coupling", channel=1, coupling="DC") == "CHAN1:COUP DC"
+
+
+def test_setup_lines_are_kept_in_order():
+    profile = parse_profile(edited('[commands]\n', '[commands]\nsetup = ["WAV:FORM INT16", '
+                                   '"WAV:BORD LSBF"]\n'), source="my-scope.toml")
+    assert profile.setup == ("WAV:FORM INT16", "WAV:BORD LSBF")
+    assert "setup" not in profile.commands
+    assert load_profile("generic-scpi-digitiser").setup == ()
+
+
+@pytest.mark.parametrize("lines, where, words", [
+    ('["WAV:FORM INT16", "WAV:BORD LSBF;*RST"]', "[commands] setup line 2", "contains ';'"),
+    ('["WAV:FORM INT16\\n*RST"]', "[commands] setup line 1", "line break"),
+    ('["WAV:FORM INT16\\r"]', "[commands] setup line 1", "line break"),
+    ('["WAV:FORM \u00b5"]', "[commands] setup line 1", "only printable ASCII"),
+    ('["  "]', "[commands] setup line 1", "non-empty string"),
+    ('[1]', "[commands] setup line 1", "non-empty string"),
+    ('"WAV:FORM INT16"', "[commands] setup", "expected a list"),
+])
+def test_setup_lines_are_each_one_command_of_printable_ascii(lines, where, words):
+    with pytest.raises(ProfileError) as info:
+        parse_profile(edited('[commands]\n', f'[commands]\nsetup = {lines}\n'),
+                      source="my-scope.toml")
+    assert str(info.value).startswith(f"my-scope.toml: {where}:"), str(info.value)
+    assert words in str(info.value)
+
+
+def test_range_kinds():
+    assert load_profile("generic-scpi-digitiser").range_kind == "span"
+    peak = parse_profile(edited('kind = "span"\n', 'kind = "peak"\n'))
+    assert (peak.instrument_range(0.5), peak.span_of(0.25)) == (0.25, 0.5)
+    div = parse_profile(edited('kind = "span"\n', 'kind = "per_division"\ndivisions = 8\n'))
+    assert (div.instrument_range(0.8), div.span_of(0.1)) == (0.1, 0.8)
+
+
+@pytest.mark.parametrize("lines, where, words", [
+    ('kind = "volts"\n', "[ranges] kind", "expected one of span, peak, per_division"),
+    ('kind = "per_division"\n', "[ranges] divisions", "whole number of divisions"),
+    ('kind = "per_division"\ndivisions = 0\n', "[ranges] divisions", "whole number"),
+    ('kind = "per_division"\ndivisions = 8.5\n', "[ranges] divisions", "whole number"),
+    ('kind = "peak"\ndivisions = 8\n', "[ranges] divisions", "only used with"),
+])
+def test_range_kind_errors(lines, where, words):
+    with pytest.raises(ProfileError) as info:
+        parse_profile(edited('kind = "span"\n', lines), source="my-scope.toml")
+    assert str(info.value).startswith(f"my-scope.toml: {where}:"), str(info.value)
+    assert words in str(info.value)

@@ -206,6 +206,43 @@ class TestCommand:
         with SessionReader(tmp_path / "w.db") as r:
             assert len(r.seqs()) == 40
 
+    def test_settings_the_profile_cannot_apply_are_named_once_and_recorded_as_not_set(
+            self, sim, tmp_path, capsys):
+        text = "\n".join(ln for ln in sim.digitiser_profile_path.read_text().splitlines()
+                         if not ln.startswith(("set_coupling", "set_averages")))
+        profile = tmp_path / "no-coupling.toml"
+        profile.write_text(text + "\n")
+        path = bench_file(sim, tmp_path)
+        path.write_text(path.read_text().replace(
+            "[digitiser]\n", '[digitiser]\ncoupling = "AC"\naverages = 4\n', 1))
+        code = main(["watch", *OPERATOR, "--bench", str(path), "--headless", "--traces", "3",
+                     "--digitiser-profile", str(profile), "--session", str(tmp_path / "n.db")])
+        err = capsys.readouterr().err
+        assert code == ExitCode.OK
+        assert err.count("coupling, averages: the profile has no command") == 1, err
+        assert sim.digitiser.state.channels[1].coupling == "DC"     # never sent
+        assert sim.digitiser.state.averages == 1
+        with SessionReader(tmp_path / "n.db") as r:
+            state = r.trace(0).raw.state
+        assert state["coupling"] is None and state["averages"] is None
+        assert state["trigger_source"] == sim.digitiser.state.trigger_source   # sent
+        assert state["sample_rate_hz"] == pytest.approx(sim.digitiser.sample_rate_hz)
+        assert state["range_v"] == pytest.approx(sim.digitiser.state.channels[1].range_v)
+
+    def test_bench_rate_the_digitiser_does_not_run_at_stops_the_start(self, sim, tmp_path,
+                                                                     capsys):
+        path = bench_file(sim, tmp_path)
+        text = path.read_text()
+        assert "sample_rate_hz = 250000000.0" in text
+        path.write_text(text.replace("sample_rate_hz = 250000000.0",
+                                     "sample_rate_hz = 123000000.0"))
+        code = main(["watch", *OPERATOR, "--bench", str(path), "--headless", "--traces", "3",
+                     "--session", str(tmp_path / "r.db")])
+        err = capsys.readouterr().err
+        assert code == ExitCode.USAGE and "Traceback" not in err
+        # the model's 1 GS/s clock divided by 8, the nearest to 123 MS/s
+        assert "1.23e+08 Hz" in err and "8e-09 s (1.25e+08 Hz)" in err
+
     def test_kill_9_leaves_committed_traces_readable(self, sim, tmp_path):
         path = bench_file(sim, tmp_path)
         db = tmp_path / "k.db"

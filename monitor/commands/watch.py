@@ -196,10 +196,14 @@ def run(args) -> int:
     from ..headless import end_summary, run_headless
     from ..live.benchfile import load_bench
     from ..live.child import session_for_display
+    from ..live.instruments import unapplied_note
 
     bench = load_bench(args.bench, overrides_from_args(args))
     for warning in bench.protection_warnings():
         print(f"tankside: WARNING: protection off: {warning}", file=sys.stderr, flush=True)
+    note = unapplied_note(bench)
+    if note is not None:
+        print(f"tankside: note: {note}", file=sys.stderr, flush=True)
 
     dashboard: Callable[..., int] | None = None
     if not args.headless:

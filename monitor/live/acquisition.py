@@ -127,6 +127,7 @@ class AcquisitionLoop:
         self._verdict = threading.Condition()
         self._verdict_seq = first_seq - 1
         self._next_flags: dict = {}
+        self._configuration_warned: set[str] = set()
 
     # -- connection, called from the starting thread before run() --------------
     def connect(self) -> None:
@@ -244,6 +245,14 @@ class AcquisitionLoop:
                         alert=RaisedAlert("instrument-fault", "warning", f"digitiser: {err}"))
             return
         self.last_trigger_mono = time.monotonic()
+        for message in dev.take_warnings():
+            if message in self._configuration_warned:
+                continue                    # once a session, across reconnects too
+            self._configuration_warned.add(message)
+            self.event(EventKind.FAULT, {"kind": FaultKind.CONFIGURATION, "message": message,
+                                          "at_seq": self.seq},
+                        alert=RaisedAlert("instrument-fault", "warning",
+                                          f"digitiser configuration: {message}"))
         flags, self._next_flags = self._next_flags, {}
         self.seq += 1
         self._emit(Acquired(raw, flags))
@@ -324,6 +333,7 @@ class AcquisitionLoop:
                                           f"range change failed: {err}"))
             return
         self._next_flags = {"range_changed": True, "previous_range_v": old_v}
+        new_v = self.current_range_v()      # the span read back, when the profile can
         self.event(EventKind.RANGE_CHANGE, {"done": True, "from_v": old_v, "to_v": new_v,
                                              "before_seq": self.seq, **cause})
 

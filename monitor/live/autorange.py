@@ -2,7 +2,8 @@
 
 Pure functions; the pipeline applies the answer to the digitiser. Ranges are
 full-scale spans, peak to peak, in V, and ``fraction_used`` is
-``max |volts| / (range_v / 2)`` of the last trace (1 means the signal reaches a rail).
+the largest distance from mid-scale over half the full scale of the last trace
+(``RawTrace.fraction_of_full_scale``; 1 means the signal reaches a rail).
 
 Why it cannot oscillate on a steady signal: a step down is only taken when the
 peak would use less than ``fit_below`` (< 1) of the lower range, so the lower range

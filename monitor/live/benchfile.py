@@ -9,7 +9,8 @@ Layout (every section except ``[digitiser]`` and ``[calibration]`` is optional):
     timeout_s = 5.0                                 # I/O timeout
     trigger_timeout_s = 2.0                         # wait for one trigger
     record_length = 10000                           # any DigitiserSettings field
-    sample_rate_hz = 250e6
+    sample_rate_hz = 250e6                          # optional: without it the digitiser's
+                                                    # own time step is used and recorded
     range_v = 0.5
     trigger_source = "EXT"
     trigger_level_v = 0.5
@@ -230,7 +231,8 @@ def _check_digitiser_values(table: dict, source: str) -> None:
 
     kinds = {f.name: f.type for f in dataclasses.fields(DigitiserSettings)}
     for key, value in table.items():
-        kind = {"str": str, "float": float, "int": int}.get(str(kinds.get(key)))
+        kind = {"str": str, "float": float, "int": int,
+                "float | None": float}.get(str(kinds.get(key)))
         if kind is None:
             continue
         where = f"[digitiser] {key}"

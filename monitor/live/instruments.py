@@ -7,7 +7,7 @@ so that a bad profile is reported before anything is opened.
 
 from __future__ import annotations
 
-from ...drivers.digitiser import Digitiser
+from ...drivers.digitiser import Digitiser, unapplied_settings
 from ...drivers.errors import InstrumentError
 from ...drivers.generator import Generator
 from ...drivers.profile import load_profile
@@ -26,7 +26,8 @@ def _open_link(config, profile, name: str) -> ScpiLink:
 
 
 def digitiser_opener(config, settings):
-    """Returns ``open() -> OpenInstrument``: connect, identify and configure the digitiser.
+    """Returns ``open() -> OpenInstrument``: connect, identify, send the profile's setup
+    lines and configure the digitiser.
 
     Parameters
     ----------
@@ -40,6 +41,7 @@ def digitiser_opener(config, settings):
         try:
             device = Digitiser(link, profile)
             identity = device.identity
+            device.send_setup()
             device.configure(settings)
         except InstrumentError:
             link.close(quiet=True)   # the error that made us give up is raised
@@ -49,8 +51,30 @@ def digitiser_opener(config, settings):
     return open_digitiser
 
 
+def unapplied_note(bench) -> str | None:
+    """What to tell the operator once at start about the bench's ``[digitiser]``
+    settings its profile has no command for, or None when every one is applied.
+
+    Such a setting is never sent and each trace records it as not set (null).
+    """
+    profile = load_profile(bench.digitiser.profile)
+    names = unapplied_settings(profile, bench.digitiser_table)
+    if not names:
+        return None
+    parts = []
+    plain = [n for n in names if n != "sample_rate_hz"]
+    if plain:
+        parts.append(f"{', '.join(plain)}: the profile has no command to set "
+                     f"{'it' if len(plain) == 1 else 'them'}; not applied, recorded as not set")
+    if "sample_rate_hz" in names:
+        parts.append("sample_rate_hz: the profile cannot set the rate; it is checked against "
+                     "the digitiser's own time step at start")
+    return f"digitiser {profile.source}: " + "; ".join(parts)
+
+
 def generator_opener(config):
-    """Returns ``open() -> OpenInstrument``: connect and identify the generator.
+    """Returns ``open() -> OpenInstrument``: connect, identify the generator and send its
+    profile's setup lines.
 
     Nothing is set and the output is not touched: settings are applied once, by
     :func:`apply_generator_settings`, after the session file exists.
@@ -62,6 +86,7 @@ def generator_opener(config):
         try:
             device = Generator(link, profile)
             identity = device.identity
+            device.send_setup()
         except InstrumentError:
             link.close(quiet=True)   # the error that made us give up is raised
             raise

@@ -93,7 +93,9 @@ class TraceObservation:
     range_v : float
         Vertical range in use (full-scale span, peak to peak), V.
     fraction_of_full_scale : float
-        ``max |volts| / (range_v / 2)``: 1 means the signal reaches a rail.
+        Largest distance from mid-scale over half the full scale, both from the volts
+        per code and the rails (:meth:`RawTrace.fraction_of_full_scale`): 1 means the
+        signal reaches a rail.
     result : dict or None
         ``TraceResult.flat()``, or None when the conversion failed.
     error : str or None
@@ -208,9 +210,8 @@ def observation_from_trace(raw, result: dict | None = None, error: str | None = 
     ``drive_on`` is the generator output state, None when unknown.
     """
     volts = raw.volts() if volts_v is None else volts_v
-    peak_v = float(abs(volts).max()) if len(volts) else 0.0
-    half_span_v = raw.range_v / 2.0
-    fraction = peak_v / half_span_v if half_span_v > 0 else float("nan")
+    with np.errstate(all="ignore"):     # an overflowing trace gives inf or nan: kept
+        fraction = raw.fraction_of_full_scale(volts)
     if len(volts) and np.all(np.isfinite(volts)):
         presence = pulse_presence(volts, factor=noise_factor, edge_fraction=edge_fraction,
                                   resolution_v=abs(float(raw.volts_per_code))

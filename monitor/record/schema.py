@@ -153,6 +153,9 @@ class FaultKind(enum.StrEnum):
     """The digitiser's transport closed (recorded as :attr:`EventKind.CONNECTION_LOST`)."""
     INSTRUMENT_ERROR = "instrument-error"
     """Any other digitiser error (one in its error queue, a refused setting)."""
+    CONFIGURATION = "configuration"
+    """The digitiser's profile does not describe it (the full scale its volts per code and
+    rails make disagrees with the range by more than 5 %); given once a session."""
     GENERATOR_QUERY = "generator-query"
     """The generator did not say whether its output is on (state now unknown)."""
     GENERATOR_THREAD = "generator-thread"
