@@ -71,7 +71,9 @@ _GENERATOR_REQUIRED = ("identify", "set_output", "get_output", "set_amplitude",
 _SAMPLE_VALUES = {"points": 1000, "rate_hz": 1e8, "channel": 1, "range_v": 1.0,
                   "offset_v": 0.0, "coupling": "DC", "impedance_ohm": 50.0, "source": "EXT",
                   "level_v": 0.5, "slope": "POS", "count": 1, "state": "ON",
-                  "amplitude_vpp": 1.0, "frequency_hz": 1e6, "cycles": 10, "period_s": 0.05}
+                  "amplitude_vpp": 1.0, "frequency_hz": 1e6, "cycles": 10, "period_s": 0.05,
+                  # stage profiles (drivers/stage.py)
+                  "axis": "1", "counts": 1000, "counts_per_s": 1000}
 
 _TABLES = {"digitiser": ("instrument", "transport", "commands", "data", "ranges"),
            "generator": ("instrument", "transport", "commands", "values")}
@@ -199,7 +201,9 @@ def _check_keys(source: str, table: str, got: dict, allowed) -> None:
                         f"unknown key; expected one of {', '.join(sorted(allowed))}")
 
 
-def _check_template(source: str, key: str, template, allowed: tuple) -> None:
+def check_template(source: str, key: str, template, allowed: tuple) -> None:
+    """Refuse a ``[commands]`` template that is not one command of plain text, names a
+    placeholder outside ``allowed``, or cannot be filled (ProfileError naming ``key``)."""
     where = f"[commands] {key}"
     if not isinstance(template, str) or not template.strip():
         raise _fail(source, where, "expected a non-empty string")
@@ -285,7 +289,7 @@ def parse_profile(text: str, source: str = "<text>") -> Profile:
         if key not in commands:
             raise _fail(source, f"[commands] {key}", "missing (required)")
     for key, template in commands.items():
-        _check_template(source, key, template, allowed[key])
+        check_template(source, key, template, allowed[key])
     out["commands"] = commands
 
     if kind == "digitiser":

@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import math
 import re
-import string
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -44,7 +43,7 @@ from .line_profile import (
     read_profile_toml,
     table,
 )
-from .profile import command_text_problem
+from .profile import check_template, command_text_problem
 
 __all__ = ["StageProfile", "StageAxis", "Stage", "load_stage_profile", "parse_stage_profile",
            "open_stage"]
@@ -93,20 +92,7 @@ class StageProfile:
 
 
 def _template(source: str, key: str, value, allowed: tuple) -> str:
-    where = f"[commands] {key}"
-    if not isinstance(value, str) or not value.strip():
-        raise fail(source, where, "expected a non-empty string")
-    problem = command_text_problem(value)
-    if problem is not None:
-        raise fail(source, where, f"template {value!r} {problem}")
-    try:
-        names = [n for _, n, _, _ in string.Formatter().parse(value) if n is not None]
-    except ValueError as err:
-        raise fail(source, where, f"bad template {value!r}: {err}") from err
-    for name in names:
-        if name not in allowed:
-            allowed_text = ", ".join("{" + a + "}" for a in allowed) or "none"
-            raise fail(source, where, f"unknown placeholder {{{name}}}; allowed: {allowed_text}")
+    check_template(source, key, value, allowed)
     return value
 
 
