@@ -457,7 +457,7 @@ class Converter:
             self._in_band(f_awf, "pressure spectrum", snr_db)
             nb = narrowband_check(f_awf, self.profile, s)
             noise_power = _noise_power(noise_gate, h_gate, gspec)
-            nz = np.flatnonzero(h_abs)     # weights times the band window
+            nz = h_abs.nonzero()[0]     # weights times the band window (1-D: np.flatnonzero)
             passband = ((float(freqs[k0 + nz[0]]), float(freqs[k0 + nz[-1]])) if nz.size
                         else None)
         assert nb is not None
@@ -658,11 +658,13 @@ def _p_r_spread(pressure_spectrum: np.ndarray, alternatives: tuple[np.ndarray, .
     i0 = max(0, int(gate.start / step) - 1)
     i1 = min(m, int(math.ceil(gate.stop / step)) + 2)
     head = pressure_spectrum[:k]
-    rows = np.empty((1 + len(alternatives), k), dtype=complex)
-    rows[0] = head
+    # the rows at the full width of an m-point irfft, zero above k (what irfft would pad
+    # them to, in a copy of its own); the transform may then work in them
+    rows = np.zeros((1 + len(alternatives), m // 2 + 1), dtype=complex)
+    rows[0, :k] = head
     for i, factor in enumerate(alternatives, start=1):
-        np.multiply(head, factor[:k], out=rows[i])
-    segs = scipy.fft.irfft(rows, m, axis=1, workers=1)[:, i0:i1]
+        np.multiply(head, factor[:k], out=rows[i, :k])
+    segs = scipy.fft.irfft(rows, m, axis=1, workers=1, overwrite_x=True)[:, i0:i1]
     js = segs.argmin(axis=1).tolist()
     values = []
     for seg, j in zip(segs, js, strict=True):

@@ -323,7 +323,8 @@ def noise_weights(gated: GatedSpectrum, noise_v2: np.ndarray | float, freqs_hz: 
     signal = smooth - expected                               # the pulse's power, estimated
     np.maximum(signal, 0.0, out=signal)
     wg = signal / (smooth + _TINY)                           # SNR / (1 + SNR)
-    above = np.flatnonzero(smooth >= (1.0 + 10.0 ** (band_snr_db / 10.0)) * expected)
+    # .nonzero()[0] of a 1-D array is np.flatnonzero without its ravel and wrapper
+    above = (smooth >= (1.0 + 10.0 ** (band_snr_db / 10.0)) * expected).nonzero()[0]
     if above.size == 0:
         return None
     dg = float(fg[1])

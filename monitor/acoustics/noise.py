@@ -271,10 +271,11 @@ def _arrivals(energy: np.ndarray, threshold: float, gap_blocks: int):
     """Groups of hot blocks ``[(first, last), ...]`` and the quiet runs of blocks
     ``[(start, stop), ...]``: farther than ``gap_blocks`` from every hot block."""
     nb = energy.shape[0]
-    idx = np.flatnonzero(energy > threshold)
+    # .nonzero()[0] of a 1-D array is np.flatnonzero without its ravel and wrapper
+    idx = (energy > threshold).nonzero()[0]
     if idx.size == 0:
         return [], [(0, nb)]
-    breaks = np.flatnonzero(idx[1:] - idx[:-1] > gap_blocks).tolist()
+    breaks = (idx[1:] - idx[:-1] > gap_blocks).nonzero()[0].tolist()
     ends = idx.tolist()
     groups = [(ends[a + 1 if a >= 0 else 0], ends[b])
               for a, b in zip([-1, *breaks], [*breaks, len(ends) - 1], strict=True)]

@@ -106,21 +106,36 @@ def edge_noise(v: np.ndarray, edge_fraction: float = DEFAULT_EDGE_FRACTION,
         edge = min(edge, max(MIN_EDGE_SAMPLES, max_samples))
     if 2 * edge > v.size:
         return float(np.median(v)), robust_sigma(v)
-    # both edges as the rows of one array: per row the median and 1.4826 * MAD by two
-    # sorts (as numpy.median: the mean of the two middle values for an even count; the
-    # short edges sort faster than numpy.median dispatches)
+    # both edges as the rows of one array: per row the median and 1.4826 * MAD from the
+    # middle order statistics (as numpy.median: the mean of the two middle values for an
+    # even count). np.partition places exactly those values, as a full sort would, at a
+    # fraction of its cost; the short edges partition faster than numpy.median dispatches.
     both = np.empty((2, edge))
     both[0] = v[:edge]
     both[1] = v[-edge:]
-    k = edge // 2
-    srt = np.sort(both, axis=1)
-    med = srt[:, k] if edge % 2 else 0.5 * (srt[:, k - 1] + srt[:, k])
+    med = _middle(np.partition(both, _middle_ranks(edge), axis=1), edge)
     both -= med[:, None]
     np.abs(both, out=both)
-    both.sort(axis=1)
-    mad = both[:, k] if edge % 2 else 0.5 * (both[:, k - 1] + both[:, k])
+    both.partition(_middle_ranks(edge), axis=1)
+    mad = _middle(both, edge)
     (m_head, m_tail), (s_head, s_tail) = med.tolist(), (MAD_TO_SIGMA * mad).tolist()
     return (m_head, s_head) if s_head <= s_tail else (m_tail, s_tail)
+
+
+def _middle_ranks(count: int) -> tuple[int, ...]:
+    """The ranks (0-based) a median of ``count`` values is taken from."""
+    k = count // 2
+    return (k,) if count % 2 else (k - 1, k)
+
+
+def _middle(part: np.ndarray, count: int):
+    """Median along the last axis of ``part``, partitioned at :func:`_middle_ranks`
+    (``count`` values along it): the middle value, or the mean of the two middle ones
+    computed as numpy.median does (their sum halved)."""
+    k = count // 2
+    if count % 2:
+        return part[..., k]
+    return (part[..., k - 1] + part[..., k]) * 0.5
 
 
 def pulse_presence(voltage_v, *, factor: float = DEFAULT_FACTOR,
@@ -169,7 +184,10 @@ def pulse_presence(voltage_v, *, factor: float = DEFAULT_FACTOR,
         raise ValueError(f"edge_fraction must be in (0, 0.5], got {edge_fraction!r}")
     if not (np.isfinite(resolution_v) and resolution_v >= 0):
         raise ValueError(f"resolution_v must be a finite number >= 0 V, got {resolution_v!r}")
-    peak_v = float(np.max(np.abs(v - np.median(v))))
+    # max |v - m| is the larger of max(v) - m and m - min(v), rounding included (rounding
+    # is monotonic), without a trace-sized temporary
+    med = float(_middle(np.partition(v, _middle_ranks(v.size)), v.size))
+    peak_v = max(float(v.max()) - med, med - float(v.min()))
     sigma_v = max(edge_noise(v, edge_fraction)[1], resolution_v / np.sqrt(12.0))
     threshold_v = factor * sigma_v
     if sigma_v > 0:

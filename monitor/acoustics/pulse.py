@@ -95,13 +95,14 @@ def awf_spectrum_hz(freqs_hz: np.ndarray, magnitude: np.ndarray, *,
         raise UnusableTraceError("the spectrum is zero or not finite")
     thr = peak * _SQRT_HALF
     df = float(freqs_hz[1] - freqs_hz[0])
-    idx = np.flatnonzero(mag >= thr)
+    # .nonzero()[0] of a 1-D array is np.flatnonzero without its ravel and wrapper
+    idx = (mag >= thr).nonzero()[0]
     if int(idx[-1]) - int(idx[0]) + 1 == idx.shape[0]:      # one hump (the usual case)
         starts, stops = idx[:1], idx[-1:] + 1                # humps: bins [start, stop)
         tops = mag[k:k + 1]
         main = 0
     else:
-        breaks = np.flatnonzero(idx[1:] - idx[:-1] > 1)
+        breaks = (idx[1:] - idx[:-1] > 1).nonzero()[0]
         starts = idx[np.concatenate(([0], breaks + 1))]
         stops = idx[np.concatenate((breaks, [idx.shape[0] - 1]))] + 1
         tops = np.maximum.reduceat(mag, starts)
