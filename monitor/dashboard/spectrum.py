@@ -36,6 +36,16 @@ def narrowband_window_hz(f_awf_hz: float) -> tuple[float, float]:
     return 0.5 * f_awf_hz, min(40e6, 8.0 * f_awf_hz)
 
 
+def no_pulse_text(snap: Snapshot) -> str:
+    """"drive off", "no pulse" or "drive off, no pulse" for a trace with nothing to judge.
+
+    "" when the latest trace holds a pulse (or before the first trace).
+    """
+    words = [w for w, on in (("drive off", snap.drive_on is False),
+                             ("no pulse", snap.pulse_present is False)) if on]
+    return ", ".join(words)
+
+
 class SpectrumView(LinePanel):
     """Spectrum in dB (or linear amplitude) with |M_L| overlaid and the ±3 dB limits."""
 
@@ -51,6 +61,7 @@ class SpectrumView(LinePanel):
         self._band_hz = (math.nan, math.nan)
         self._ok: bool | None = None
         self._worst_db = math.nan
+        self._no_pulse = ""        # why the trace holds no pulse to judge ("" when it does)
         self._set_titles()
 
     def set_linear(self, linear: bool) -> None:
@@ -70,19 +81,23 @@ class SpectrumView(LinePanel):
         self._band_hz = band
         self._ok = snap.narrowband_ok
         self._worst_db = snap.narrowband_max_deviation_db
+        self._no_pulse = no_pulse_text(snap)
         self._set_titles()
         self.invalidate()
 
     def verdict(self) -> str:
         """The narrowband verdict as shown, e.g. "narrowband PASS, worst 1.2 dB"."""
         worst = f"{self._worst_db:.1f} dB" if math.isfinite(self._worst_db) else "-"
+        if self._no_pulse:
+            # noise has no working frequency: a verdict on it would be a verdict on nothing
+            return f"{self._no_pulse}: narrowband not judged"
         if self._ok is None:
             return "narrowband not checked"
         return f"narrowband {'PASS' if self._ok else 'FAIL'}, worst {worst}"
 
     def _set_titles(self) -> None:
         scale = "linear" if self.linear else "dB"
-        colour = AXIS if self._ok is None else (PASS if self._ok else FAIL)
+        colour = AXIS if self._ok is None or self._no_pulse else (PASS if self._ok else FAIL)
         self.set_titles(title=f"spectrum · {scale}",
                         subtitle=f"[{colour}]{self.verdict()}[/]")
 
