@@ -14,6 +14,7 @@ from fake_session import FakeLiveSession
 
 from tankside.monitor.dashboard.app import DashboardApp
 from tankside.monitor.dashboard.spectrum import SpectrumView
+from tankside.monitor.dashboard.waveform import PressureTrace
 
 
 def started_fake() -> FakeLiveSession:
@@ -44,7 +45,37 @@ async def test_spectrum_gives_no_narrowband_verdict_without_a_pulse():
         await pilot.pause(0.3)
         text = screen_text(app)
         assert "PASS" not in text and "FAIL" not in text
-        assert "no pulse: narrowband not judged" in text
+        assert "no narrowband verdict: no pulse" in text
         fake._snap = noise_snapshot(fake, narrowband_ok=False, drive_on=False)
         await pilot.pause(0.3)
-        assert spectrum.verdict() == "drive off, no pulse: narrowband not judged"
+        assert spectrum.verdict() == "no narrowband verdict: drive off"
+
+
+@sync
+async def test_trace_panel_shows_noise_traces_and_says_why():
+    fake = started_fake()
+    app = DashboardApp(fake, first_run_notice=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause(0.1)
+        trace = app.query_one(PressureTrace)
+        # drive off: the noise did not convert (no pressure), the volts still arrive
+        fake._snap = noise_snapshot(fake, drive_on=False, pressure_pa=np.zeros(0),
+                                    result={})
+        await pilot.pause(0.3)
+        text = screen_text(app)
+        assert "waiting for" not in text
+        assert "drive off: noise only" in text
+        assert " mV" in "\n".join(trace.text_lines())
+        assert "voltage trace" in text and f"drive off, noise only  #{fake._snap.seq}" in text
+        # drive on, no pulse; the noise converted: drawn in pressure, no p_c/p_r marked
+        fake._snap = noise_snapshot(fake, drive_on=True,
+                                    pressure_pa=fake._snap.voltage_v / 50e-9)
+        await pilot.pause(0.3)
+        lines = "\n".join(trace.text_lines())
+        assert "no pulse: noise only" in lines and "MPa" in lines
+        assert "p_c" not in lines and "p_r" not in lines
+        # the unconverted noise trace has no spectrum either, and the panel says why
+        fake._snap = noise_snapshot(fake, drive_on=False, pressure_pa=np.zeros(0), result={},
+                                    freqs_hz=np.zeros(0), spectrum_db=np.zeros(0))
+        await pilot.pause(0.3)
+        assert "drive off: no spectrum" in screen_text(app)

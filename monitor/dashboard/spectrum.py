@@ -37,13 +37,14 @@ def narrowband_window_hz(f_awf_hz: float) -> tuple[float, float]:
 
 
 def no_pulse_text(snap: Snapshot) -> str:
-    """"drive off", "no pulse" or "drive off, no pulse" for a trace with nothing to judge.
+    """Why the latest trace holds nothing to judge: "drive off", "no pulse", or "".
 
-    "" when the latest trace holds a pulse (or before the first trace).
+    "drive off" (the generator output is known to be off) wins over "no pulse", the
+    trace being noise either way; "" when the trace holds a pulse (or before the first).
     """
-    words = [w for w, on in (("drive off", snap.drive_on is False),
-                             ("no pulse", snap.pulse_present is False)) if on]
-    return ", ".join(words)
+    if snap.drive_on is False:
+        return "drive off"
+    return "no pulse" if snap.pulse_present is False else ""
 
 
 class SpectrumView(LinePanel):
@@ -90,7 +91,7 @@ class SpectrumView(LinePanel):
         worst = f"{self._worst_db:.1f} dB" if math.isfinite(self._worst_db) else "-"
         if self._no_pulse:
             # noise has no working frequency: a verdict on it would be a verdict on nothing
-            return f"{self._no_pulse}: narrowband not judged"
+            return f"no narrowband verdict: {self._no_pulse}"
         if self._ok is None:
             return "narrowband not checked"
         return f"narrowband {'PASS' if self._ok else 'FAIL'}, worst {worst}"
@@ -109,7 +110,9 @@ class SpectrumView(LinePanel):
             return message_strips("", rows, cols, AXIS)
         f = self._freqs_hz
         if f.size < 2 or self._spectrum_db.size != f.size:
-            return message_strips("waiting for the first spectrum", rows, cols, AXIS)
+            text = f"{self._no_pulse}: no spectrum" if self._no_pulse else \
+                "waiting for the first spectrum"
+            return message_strips(text, rows, cols, AXIS)
         lo_hz, hi_hz = self._band_hz
         f_top = f[-1]
         if math.isfinite(hi_hz):
