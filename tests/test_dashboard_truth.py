@@ -7,6 +7,8 @@ by hand to the state under test, as the live session would publish it.
 from __future__ import annotations
 
 import dataclasses
+import re
+import time
 
 import numpy as np
 from dashboard_pilot import screen_text, sync
@@ -15,6 +17,7 @@ from fake_session import FakeLiveSession
 from tankside.monitor.dashboard.app import DashboardApp
 from tankside.monitor.dashboard.spectrum import SpectrumView
 from tankside.monitor.dashboard.waveform import PressureTrace
+from tankside.monitor.live.processing import figures_left_out
 
 
 def started_fake() -> FakeLiveSession:
@@ -79,3 +82,45 @@ async def test_trace_panel_shows_noise_traces_and_says_why():
                                     freqs_hz=np.zeros(0), spectrum_db=np.zeros(0))
         await pilot.pause(0.3)
         assert "drive off: no spectrum" in screen_text(app)
+
+
+@sync
+async def test_banner_and_figures_do_not_read_as_running_well_on_noise():
+    fake = started_fake()
+    app = DashboardApp(fake, first_run_notice=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause(0.1)
+        text = screen_text(app)
+        assert "● running " in text and "STALE" not in text
+        good_time_s = time.time() - 75.0
+        cases = [
+            (dict(drive_on=False, drive_detail="output off (safe-off)",
+                  figures_left_out="drive off"), "running, safe-off"),
+            (dict(drive_on=False, drive_detail="output off", figures_left_out="drive off"),
+             "running, drive off"),
+            (dict(drive_on=True, drive_detail="output on", figures_left_out="no pulse"),
+             "running, no pulse"),
+        ]
+        for fields, banner in cases:
+            fake._snap = noise_snapshot(fake, figures_time_s=good_time_s, **fields)
+            await pilot.pause(0.3)
+            text = screen_text(app)
+            top = text.splitlines()[0]
+            assert banner in top, top
+            # the figures keep their last good values, marked stale with their age
+            assert re.search(r"STALE, 1 min 1[5-7] s old", text), text
+            assert f"latest {fields['figures_left_out']}" in text
+        # a good trace again: figures current, banner plain
+        fake.advance()
+        await pilot.pause(0.3)
+        text = screen_text(app)
+        assert "STALE" not in text and "● running " in text
+
+
+def test_processing_keeps_noise_out_of_the_figures_and_says_why():
+    # what processing reports for each kind of trace (the rule of its module docstring)
+    flat = {"peak_rarefactional_pa": 1e5}
+    assert figures_left_out(flat, no_pulse=False, drive_off=False) == ""
+    assert figures_left_out(flat, no_pulse=True, drive_off=False) == "no pulse"
+    assert figures_left_out(flat, no_pulse=True, drive_off=True) == "drive off"
+    assert figures_left_out(None, no_pulse=False, drive_off=False) == "not converted"

@@ -153,6 +153,8 @@ class DashboardApp(App[None]):
         """Read the latest snapshot (never blocks) and redraw what changed."""
         snap = self.session.snapshot()
         self._draw_banner(snap)
+        if self.figures.stale:
+            self.figures.tick()     # the age grows with no new snapshot
         if snap is self.latest:
             return
         self.latest = snap
@@ -185,6 +187,10 @@ class DashboardApp(App[None]):
         state = snap.state
         if snap.state == "stopped" and snap.stop_reason:
             state = f"stopped: {snap.stop_reason} (q to leave)"
+        source, source_colour = source_state(snap)
+        if source and snap.state != "stopped":
+            # running, but on noise: the banner must not read as all well
+            state, colour = f"{state}, {source}", source_colour
         used = f": {snap.method}" if snap.method and snap.method != self.method_requested else ""
         parts = [
             "[b]tankside[/b]",
@@ -328,6 +334,24 @@ class DashboardApp(App[None]):
             self.notify(str(err), severity="error", timeout=6)
             return False
         return True
+
+
+def source_state(snap: Snapshot) -> tuple[str, str]:
+    """What the banner says about the source when it is not driving a pulse, and its colour.
+
+    ("safe-off", red) after a safe-off, ("drive off", amber) with the output off,
+    ("drive state unknown", amber) while a switch-off is unconfirmed, ("no pulse",
+    amber) when the latest trace holds none; ("", "") when a pulse arrives.
+    """
+    if snap.drive_on is False:
+        if "safe-off" in snap.drive_detail:
+            return "safe-off", "#ff6b6b"
+        return "drive off", "#ffb35c"
+    if snap.drive_on is None and snap.drive_detail:
+        return "drive state unknown", "#ffb35c"
+    if snap.pulse_present is False:
+        return "no pulse", "#ffb35c"
+    return "", ""
 
 
 def _initial_method(session) -> Method:

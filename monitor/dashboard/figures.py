@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import math
+import time
+
 import numpy as np
 from textual.strip import Strip
 
@@ -14,7 +17,18 @@ _LEVELS = " ▁▂▃▄▅▆▇█"
 HEAD = "#8a9aa6"
 NAME = "#d7dde2"
 LAST = "#6fd3b8"
+STALE = "#ffb35c"
 TREND = "#b48ee0"
+
+
+def age_text(seconds: float) -> str:
+    """An age as "12 s", "4 min 05 s" or "2 h 03 min"."""
+    s = max(0, int(seconds))
+    if s < 60:
+        return f"{s} s"
+    if s < 3600:
+        return f"{s // 60} min {s % 60:02d} s"
+    return f"{s // 3600} h {s % 3600 // 60:02d} min"
 
 
 def sparkline(values: np.ndarray, width: int) -> str:
@@ -44,16 +58,37 @@ class RunningFigures(LinePanel):
         super().__init__(**kwargs)
         self.border_title = "running figures"
         self._figures: dict[str, RunningFigure] = {}
+        self.stale = False
+        self._left_out = ""
+        self._good_time_s = math.nan
 
     def show(self, snap: Snapshot) -> None:
         self._figures = snap.figures
         counts = [f.count for f in snap.figures.values()]
         codes = snap.last_warnings
         traces = f"{max(counts)} traces" if counts else ""
+        # the figures hold a last good value the latest trace did not renew
+        self.stale = bool(snap.figures_left_out) and any(counts)
+        self._left_out = snap.figures_left_out
+        self._good_time_s = snap.figures_time_s
+        self.tick()
         # a doubtful last trace is flagged where its numbers are read
-        self.set_titles(subtitle=(f"last doubtful: {', '.join(codes)} · {traces}" if codes
-                                  else traces))
+        pieces = [f"last doubtful: {', '.join(codes)}" if codes else "",
+                  f"latest {self._left_out}" if self.stale else "", traces]
+        self.set_titles(subtitle=" · ".join(p for p in pieces if p))
         self.invalidate()
+
+    def tick(self, now_s: float | None = None) -> None:
+        """Renew the title, whose stale age grows while no good trace arrives."""
+        self.set_titles(title=self.title_text(time.time() if now_s is None else now_s))
+
+    def title_text(self, now_s: float) -> str:
+        """"running figures", or with its age and why when the last good value is stale."""
+        if not self.stale:
+            return "running figures"
+        age = (f", {age_text(now_s - self._good_time_s)} old"
+               if math.isfinite(self._good_time_s) else "")
+        return f"running figures · [{STALE}]STALE{age}[/]"
 
     def build(self, rows: int, cols: int) -> list[Strip]:
         name_w, num_w = 12, 6
@@ -68,7 +103,8 @@ class RunningFigures(LinePanel):
             label, unit, _ = DISPLAY_UNITS[key]
             fig = self._figures.get(key, RunningFigure())
             line = [(f"{label:<6}", f"bold {NAME}"), (f"{unit:<{name_w - 6}}", HEAD),
-                    (" " + number(in_display_unit(key, fig.last), num_w), f"bold {LAST}")]
+                    (" " + number(in_display_unit(key, fig.last), num_w),
+                     STALE if self.stale else f"bold {LAST}")]
             for value in (fig.minimum, fig.maximum, fig.mean):
                 line.append((" " + number(in_display_unit(key, value), num_w), NAME))
             if trend_w:

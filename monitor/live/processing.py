@@ -44,6 +44,21 @@ MAX_ALERTS_SHOWN = 300
 SNAPSHOT_ARRAYS_EVERY_S = 0.04   # waveform/spectrum arrays at most 25 times a second
 
 
+def figures_left_out(flat: dict | None, *, no_pulse: bool, drive_off: bool) -> str:
+    """Why a trace is kept out of the running figures, or "" when it counts.
+
+    Noise converted to "pressure" is no figure of the field (drive off, no pulse), and a
+    trace that did not convert has no figures.
+    """
+    if drive_off:
+        return "drive off"
+    if no_pulse:
+        return "no pulse"
+    if flat is None:
+        return "not converted"
+    return ""
+
+
 class TraceProcessor:
     """Conversion, rules and actions for one session, trace by trace.
 
@@ -105,6 +120,8 @@ class TraceProcessor:
         self._drive_on: bool | None = None
         self._drive_cause = ""
         self._pulse_present: bool | None = None
+        self._figures_time_s = float("nan")   # the last trace the figures took
+        self._figures_left_out = ""            # why the latest trace was not taken
         self._numeric_error_shown = False   # the first one's traceback goes to stderr
         self.snap = Snapshot(session_path=str(session_path), state="starting")
 
@@ -204,9 +221,12 @@ class TraceProcessor:
             self._last_warnings = self._rules.doubtful_codes(codes)
             if self._last_warnings:
                 self.doubtful += 1
-        if flat is not None and not obs.quiet:
-            # noise converted to "pressure" is no figure of the field
+        left_out = figures_left_out(flat, no_pulse=not obs.pulse_present,
+                                    drive_off=self._drive_on is False)
+        self._figures_left_out = left_out
+        if not left_out:
             self._figures.add(flat)
+            self._figures_time_s = float(raw.time_s)
         self._record(TraceItem(raw, flat, flags, error))
         self._publish_trace(raw, volts, result, flat)
 
@@ -308,6 +328,7 @@ class TraceProcessor:
             drive_detail=drive_text(self._drive_on, self._drive_cause) if has_generator else "",
             pulse_present=self._pulse_present, no_pulse_traces=self._no_pulse,
             doubtful_traces=self.doubtful, last_warnings=self._last_warnings,
+            figures_time_s=self._figures_time_s, figures_left_out=self._figures_left_out,
             state=state or self.snap.state,
             stop_reason=self.snap.stop_reason if stop_reason is None else stop_reason)
 

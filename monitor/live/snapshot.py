@@ -118,3 +118,8 @@ class Snapshot:
     # codes of the latest converted trace's warnings that count (() when none)
     doubtful_traces: int = 0
     last_warnings: tuple[str, ...] = ()
+    # the running figures: time (s, Unix) of the last trace they took (NaN before one),
+    # and why the latest trace was left out of them ("" when it was taken): "no pulse",
+    # "drive off", "not converted", "clipped", "doubtful"
+    figures_time_s: float = float("nan")
+    figures_left_out: str = ""
