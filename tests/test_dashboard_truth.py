@@ -16,6 +16,7 @@ from fake_session import FakeLiveSession
 
 from tankside.monitor.dashboard.app import DashboardApp
 from tankside.monitor.dashboard.spectrum import SpectrumView
+from tankside.monitor.dashboard.units import wall_time
 from tankside.monitor.dashboard.waveform import PressureTrace
 from tankside.monitor.live.processing import figures_left_out
 
@@ -124,3 +125,31 @@ def test_processing_keeps_noise_out_of_the_figures_and_says_why():
     assert figures_left_out(flat, no_pulse=True, drive_off=False) == "no pulse"
     assert figures_left_out(flat, no_pulse=True, drive_off=True) == "drive off"
     assert figures_left_out(None, no_pulse=False, drive_off=False) == "not converted"
+
+
+@sync
+async def test_figures_show_what_they_left_out_and_since_when():
+    fake = started_fake()
+    app = DashboardApp(fake, first_run_notice=False)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await pilot.pause(0.1)
+        since_s = time.time() - 30.0
+        fake._snap = dataclasses.replace(
+            fake._snap, seq=fake._snap.seq + 1, figures_since_s=since_s,
+            figures_since_reason="method change",
+            figures_left_out_counts={"clipped": 3, "doubtful": 2})
+        await pilot.pause(0.3)
+        text = screen_text(app)
+        assert f"since {wall_time(since_s)}, method change" in text
+        assert "left out 3 clipped, 2 doubtful" in text
+        # the reset key asks first, then goes to the session
+        await pilot.press("r")
+        assert fake.resets == []
+        await pilot.press("r")
+        await pilot.pause(0.1)
+        assert fake.resets == ["operator (dashboard)"]
+    async with DashboardApp(fake, first_run_notice=False).run_test(size=(80, 24)) as pilot:
+        await pilot.pause(0.2)
+        # 80 columns: the reason gives way, the time stays; the border is not overrun
+        text = screen_text(pilot.app)
+        assert f"running figures · since {wall_time(since_s)} ─" in text

@@ -38,7 +38,7 @@ STATE_STYLE = {
 }
 STOP_WAIT_S = 30.0
 # q and c act on a second press within this time: one stray key never ends a long run
-CONFIRM_WITHIN_S = 3.0
+CONFIRM_WITHIN_S = 3.0  # (r too: a reset loses the figures since the start)
 # `watch` and `demo` run the session in a process of its own
 # (tankside.monitor.live.child). Where threads that answer instruments share
 # this process with the display (a LiveSession given directly, the demo's simulated
@@ -57,9 +57,11 @@ class DashboardApp(App[None]):
         Binding("space", "hold", "hold"),
         Binding("m", "mark", "mark"),
         Binding("a", "ack_one", "ack"),
-        Binding("A", "ack_all", "ack all"),
+        # shown in the README's key table: the 80-column footer has no room for it
+        Binding("A", "ack_all", "ack all", show=False),
         Binding("c", "cycle_method", "method"),
-        Binding("l", "toggle_scale", "dB/lin"),
+        Binding("r", "reset_figures", "reset"),
+        Binding("l", "toggle_scale", "dB"),
         Binding("z", "toggle_zoom", "zoom"),
         Binding("s", "save_capture", "save"),
         Binding("d", "drive", "drive"),
@@ -252,6 +254,13 @@ class DashboardApp(App[None]):
             self.notify(f"conversion method: {nxt}", timeout=2)
         if self.latest is not None:
             self._draw_banner(self.latest)
+
+    def action_reset_figures(self) -> None:
+        """Start the running figures afresh (a second press confirms; recorded as an event)."""
+        if not self._confirmed("r", "press r again to start the running figures afresh"):
+            return
+        if self._call_session(self.session.reset_figures, "operator (dashboard)"):
+            self.notify("running figures start afresh from the next trace", timeout=3)
 
     def action_toggle_scale(self) -> None:
         self.spectrum.set_linear(not self.spectrum.linear)

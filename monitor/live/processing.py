@@ -44,11 +44,13 @@ MAX_ALERTS_SHOWN = 300
 SNAPSHOT_ARRAYS_EVERY_S = 0.04   # waveform/spectrum arrays at most 25 times a second
 
 
-def figures_left_out(flat: dict | None, *, no_pulse: bool, drive_off: bool) -> str:
+def figures_left_out(flat: dict | None, *, no_pulse: bool, drive_off: bool,
+                     clipped: bool = False, doubtful: bool = False) -> str:
     """Why a trace is kept out of the running figures, or "" when it counts.
 
-    Noise converted to "pressure" is no figure of the field (drive off, no pulse), and a
-    trace that did not convert has no figures.
+    Noise converted to "pressure" is no figure of the field (drive off, no pulse), a
+    trace that did not convert has no figures, the peaks of a clipped trace are floors
+    hidden by the rails, and a doubtful result (a counted warning) may be off.
     """
     if drive_off:
         return "drive off"
@@ -56,7 +58,9 @@ def figures_left_out(flat: dict | None, *, no_pulse: bool, drive_off: bool) -> s
         return "no pulse"
     if flat is None:
         return "not converted"
-    return ""
+    if clipped:
+        return "clipped"
+    return "doubtful" if doubtful else ""
 
 
 class TraceProcessor:
@@ -101,6 +105,7 @@ class TraceProcessor:
         self._resources = dict(resources or {})
         self.method = method
         self.pending_method: str | None = None
+        self.pending_reset: str | None = None      # the cause of an asked-for reset
         self._lock = threading.Lock()       # guards the alert list
         self._alerts: list[AlertView] = []
         self._next_alert_id = 1
@@ -122,6 +127,8 @@ class TraceProcessor:
         self._pulse_present: bool | None = None
         self._figures_time_s = float("nan")   # the last trace the figures took
         self._figures_left_out = ""            # why the latest trace was not taken
+        self._left_out_counts: dict[str, int] = {}
+        self._figures_since = (float("nan"), "")
         self._numeric_error_shown = False   # the first one's traceback goes to stderr
         self.snap = Snapshot(session_path=str(session_path), state="starting")
 
@@ -158,6 +165,8 @@ class TraceProcessor:
                                 judged_trace=False)
         if kind == EventKind.RANGE_CHANGE and ev.detail.get("done"):
             self._range_v = float(ev.detail["to_v"])
+            # pressures on two ranges are not one series (quantisation, clipping differ)
+            self._restart_figures(ev.time_s, "range change")
         if kind in (EventKind.DRIVE_ON, EventKind.DRIVE_OFF):
             self._drive_on = kind == EventKind.DRIVE_ON
             self._drive_cause = str(ev.detail.get("cause", ""))
@@ -175,6 +184,7 @@ class TraceProcessor:
         self._rate.add(time.monotonic())
         if self.pending_method is not None:
             self._switch_method(self.pending_method, raw.seq)
+        self._reset_if_asked(raw.seq)
         result = None
         flat = None
         error = None
@@ -222,9 +232,13 @@ class TraceProcessor:
             if self._last_warnings:
                 self.doubtful += 1
         left_out = figures_left_out(flat, no_pulse=not obs.pulse_present,
-                                    drive_off=self._drive_on is False)
+                                    drive_off=self._drive_on is False,
+                                    clipped=raw.clipped > 0,
+                                    doubtful=result is not None and bool(self._last_warnings))
         self._figures_left_out = left_out
-        if not left_out:
+        if left_out:
+            self._left_out_counts[left_out] = self._left_out_counts.get(left_out, 0) + 1
+        else:
             self._figures.add(flat)
             self._figures_time_s = float(raw.time_s)
         self._record(TraceItem(raw, flat, flags, error))
@@ -237,8 +251,27 @@ class TraceProcessor:
         old = self.method
         self._converter = self._converter.with_method(method)
         self.method = method
-        self._record(EventItem(time.time(), EventKind.METHOD_CHANGE,
+        now = time.time()
+        self._record(EventItem(now, EventKind.METHOD_CHANGE,
                                {"from": old, "to": method}, seq=seq))
+        self._restart_figures(now, "method change")
+
+    def _reset_if_asked(self, seq: int | None) -> None:
+        cause = self.pending_reset
+        if cause is None:
+            return
+        self.pending_reset = None
+        now = time.time()
+        self._record(EventItem(now, EventKind.FIGURES_RESET, {"cause": cause}, seq=seq))
+        self._restart_figures(now, "reset")
+
+    def _restart_figures(self, time_s: float, reason: str) -> None:
+        """Start the running figures afresh: ``reason`` says why on the display."""
+        self._figures = FigureSet()
+        self._left_out_counts = {}
+        self._figures_time_s = float("nan")
+        self._figures_since = (float(time_s), reason)
+        self.publish(figures=self._figures.views())
 
     # -- firings and their actions ----------------------------------------------------
     def handle_firings(self, firings: list[Firing], *, judged_trace: bool) -> None:
@@ -329,6 +362,8 @@ class TraceProcessor:
             pulse_present=self._pulse_present, no_pulse_traces=self._no_pulse,
             doubtful_traces=self.doubtful, last_warnings=self._last_warnings,
             figures_time_s=self._figures_time_s, figures_left_out=self._figures_left_out,
+            figures_left_out_counts=dict(self._left_out_counts),
+            figures_since_s=self._figures_since[0], figures_since_reason=self._figures_since[1],
             state=state or self.snap.state,
             stop_reason=self.snap.stop_reason if stop_reason is None else stop_reason)
 
@@ -369,5 +404,6 @@ class TraceProcessor:
 
     def flush_due(self) -> None:
         """Publish the latest trace when the array interval has passed."""
+        self._reset_if_asked(self.last_seq())   # asked for while no trace arrives
         if time.monotonic() - self._last_arrays_mono >= SNAPSHOT_ARRAYS_EVERY_S:
             self.flush_latest()

@@ -287,6 +287,10 @@ class LiveSession:
             raise ValueError(f"method must be one of {', '.join(Method)}, not {method!r}")
         self._proc.pending_method = Method(method)
 
+    def reset_figures(self, cause: str = "operator") -> None:
+        """Start the running figures afresh from the next trace (recorded as an event)."""
+        self._proc.pending_reset = str(cause)
+
     def stop(self, reason: str = "operator") -> None:
         """Ask the session to stop cleanly; returns at once (see :meth:`wait`)."""
         self._request_stop(ExitStatus.OPERATOR, reason)

@@ -123,3 +123,9 @@ class Snapshot:
     # "drive off", "not converted", "clipped", "doubtful"
     figures_time_s: float = float("nan")
     figures_left_out: str = ""
+    # traces left out of the running figures since they started, by reason
+    figures_left_out_counts: dict[str, int] = field(default_factory=dict)
+    # when (s, Unix) and why ("method change", "range change", "reset") the running
+    # figures last started afresh; NaN and "" when they run from the session's start
+    figures_since_s: float = float("nan")
+    figures_since_reason: str = ""
