@@ -14,6 +14,7 @@ import numpy as np
 from dashboard_pilot import screen_text, sync
 from fake_session import FakeLiveSession
 
+from tankside.monitor.dashboard.alerts import AlertList, wrap_pieces
 from tankside.monitor.dashboard.app import DashboardApp
 from tankside.monitor.dashboard.spectrum import SpectrumView
 from tankside.monitor.dashboard.units import wall_time
@@ -153,3 +154,41 @@ async def test_figures_show_what_they_left_out_and_since_when():
         # 80 columns: the reason gives way, the time stays; the border is not overrun
         text = screen_text(pilot.app)
         assert f"running figures · since {wall_time(since_s)} ─" in text
+
+
+def test_wrap_pieces_keeps_every_word_within_the_width():
+    text = "Vertical range under-used: " + "the signal spans 12 % of the range " * 6 + "END"
+    pieces = [("#12 ", "red"), (text, "blue"), (" x" * 3 + " " + "y" * 100, "")]
+    for cols in (20, 37, 80):
+        lines = wrap_pieces(pieces, cols, indent=6)
+        assert all(sum(len(t) for t, _ in line) <= cols for line in lines)
+        joined = "".join(t for line in lines for t, _ in line)
+        # every character but the spaces broken at is kept, in order
+        assert "".join(joined.split()) == "".join("".join(t for t, _ in pieces).split())
+        assert all(line[0][0] == " " * 6 for line in lines[1:])
+
+
+@sync
+async def test_long_alert_text_is_wrapped_not_cut():
+    fake = started_fake()
+    message = ("digitiser: connection lost while reading the waveform block of trace 4711; "
+               "reconnecting every 2 s, traces before it are stored, the last word is "
+               "FINIS")
+    for size in ((80, 24), (120, 40)):
+        async with DashboardApp(fake, first_run_notice=False).run_test(size=size) as pilot:
+            fake.add_alert("instrument", "critical", message, ("record", "bell"))
+            await pilot.pause(0.3)
+            text = screen_text(pilot.app)
+            assert "FINIS" in text
+            assert all(len(line) <= size[0] for line in text.splitlines())
+            alerts = pilot.app.query_one(AlertList)
+            shown = " ".join(alerts.text_lines())
+            assert " ".join(message.split()) in " ".join(shown.split())
+    # more alerts than the rows can wrap: each keeps its row, the cut one ends with …
+    async with DashboardApp(fake, first_run_notice=False).run_test(size=(80, 24)) as pilot:
+        fake.add_alert("range", "info", "range under-used")
+        fake.add_alert("trigger", "warning", "no trigger for 5 s")
+        await pilot.pause(0.3)
+        lines = pilot.app.query_one(AlertList).text_lines()
+        assert "no trigger" in lines[0] and "under-used" in lines[1]
+        assert "connection lost" in lines[2] and lines[2].rstrip().endswith("…")
