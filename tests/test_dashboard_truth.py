@@ -16,10 +16,13 @@ from fake_session import FakeLiveSession
 
 from tankside.monitor.dashboard.alerts import AlertList, wrap_pieces
 from tankside.monitor.dashboard.app import DashboardApp
+from tankside.monitor.dashboard.eventlog import EventLogScreen
 from tankside.monitor.dashboard.spectrum import SpectrumView
 from tankside.monitor.dashboard.units import wall_time
 from tankside.monitor.dashboard.waveform import PressureTrace
 from tankside.monitor.live.processing import figures_left_out
+from tankside.monitor.live.snapshot import EventView
+from tankside.monitor.live.views import event_text
 
 
 def started_fake() -> FakeLiveSession:
@@ -192,3 +195,48 @@ async def test_long_alert_text_is_wrapped_not_cut():
         lines = pilot.app.query_one(AlertList).text_lines()
         assert "no trigger" in lines[0] and "under-used" in lines[1]
         assert "connection lost" in lines[2] and lines[2].rstrip().endswith("…")
+
+
+@sync
+async def test_event_log_lists_events_and_alerts_and_closes_with_escape():
+    fake = started_fake()
+    long_message = "pressure above the limit " * 8 + "THE END"
+    fake.add_alert("over_pressure", "critical", long_message, ("record", "safe-off"))
+    t0 = time.time() - 100.0
+    events = [EventView(t0 + i, kind, text, seq) for i, (kind, text, seq) in enumerate([
+        ("drive-on", "by test operator", None), ("mark", "moved to focus", 3),
+        ("method-change", "auto -> deconvolve", 5), ("range-change", "0.1 V -> 0.5 V", 9),
+        ("drive-off", "by safe-off", 12)] + [("mark", f"note {n}", 20 + n) for n in range(40)])]
+    fake._snap = dataclasses.replace(fake._snap, events=events)
+    app = DashboardApp(fake, first_run_notice=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause(0.1)
+        await pilot.press("e")
+        await pilot.pause(0.2)
+        assert isinstance(app.screen, EventLogScreen)
+        assert len(app.screen.lines) == 46
+        text = screen_text(app)
+        assert "note 39" in text          # opens at the newest
+        assert all(len(line) <= 80 for line in text.splitlines())
+        for _ in range(8):
+            await pilot.press("pageup")
+        await pilot.pause(0.2)
+        text = screen_text(app)
+        assert "moved to focus" in text and "auto -> deconvolve" in text
+        assert "note 39" not in text
+        # the alert is listed whole (wrapped), not cut at the box's edge
+        lines = [line for _, line in app.screen.lines]
+        assert any(long_message in line.plain for line in lines)
+        await pilot.press("escape")
+        await pilot.pause(0.1)
+        assert not isinstance(app.screen, EventLogScreen)
+
+
+def test_event_text_from_recorded_details():
+    # the detail keys documented in record/schema.py EventKind
+    assert event_text("method-change", {"from": "auto", "to": "narrowband"}) == \
+        "auto -> narrowband"
+    assert event_text("range-change", {"done": True, "from_v": 0.1, "to_v": 0.5}) == \
+        "0.1 V -> 0.5 V"
+    assert event_text("mark", {"note": ""}) == "(no note)"
+    assert event_text("drive-off", {"output_on": False, "cause": "safe-off"}) == "by safe-off"

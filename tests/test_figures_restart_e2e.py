@@ -65,6 +65,16 @@ def test_clipped_left_out_and_restarts_shown_and_recorded(sim, tmp_path):
         assert snap.figures_since_s >= reset_at
         assert "clipped" not in snap.figures_left_out_counts
         assert snap.figures["peak_rarefactional_pa"].minimum > 0
+        session.mark("after the range change")
+        wait_for(lambda: any(e.kind == "mark" for e in session.snapshot().events), 5,
+                 "the mark in the snapshot's events")
+        # the displays' event log holds what the file does
+        shown = [(e.kind, e.text) for e in session.snapshot().events]
+        assert ("drive-on", "by test operator") in shown
+        assert ("method-change", "auto -> deconvolve") in shown
+        assert ("figures-reset", "by test operator") in shown
+        assert ("mark", "after the range change") in shown
+        assert any(kind == "range-change" and text.endswith("-> 0.5 V") for kind, text in shown)
     finally:
         session.stop("test done")
         assert session.wait(20)

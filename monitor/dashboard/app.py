@@ -24,6 +24,7 @@ from .banner import Banner
 from .capture import write_columns_csv
 from .caution import CautionScreen
 from .driveconfirm import DriveConfirmScreen
+from .eventlog import EventLogScreen
 from .figures import RunningFigures
 from .marknote import MarkNoteScreen
 from .spectrum import SpectrumView
@@ -65,6 +66,7 @@ class DashboardApp(App[None]):
         Binding("z", "toggle_zoom", "zoom"),
         Binding("s", "save_capture", "save"),
         Binding("d", "drive", "drive"),
+        Binding("e", "event_log", "log"),
         Binding("q", "quit_session", "quit"),
     ]
 
@@ -261,6 +263,10 @@ class DashboardApp(App[None]):
             return
         if self._call_session(self.session.reset_figures, "operator (dashboard)"):
             self.notify("running figures start afresh from the next trace", timeout=3)
+
+    def action_event_log(self) -> None:
+        """The session's events and alerts in a scrollable list (Escape closes)."""
+        self.push_screen(EventLogScreen(self.latest))
 
     def action_toggle_scale(self) -> None:
         self.spectrum.set_linear(not self.spectrum.linear)

@@ -37,8 +37,8 @@ from .figures import FigureSet, RateMeter
 from .generator import GeneratorWorker
 from .recorder import AlertItem, EventItem, TraceItem
 from .rules import Firing, observation_from_trace
-from .snapshot import AlertView, InstrumentView, Snapshot
-from .views import drive_text, optional_bool, result_arrays
+from .snapshot import AlertView, EventView, InstrumentView, Snapshot
+from .views import drive_text, event_text, optional_bool, result_arrays
 
 MAX_ALERTS_SHOWN = 300
 SNAPSHOT_ARRAYS_EVERY_S = 0.04   # waveform/spectrum arrays at most 25 times a second
@@ -98,7 +98,7 @@ class TraceProcessor:
         self._rules = rules
         self._acq = acquisition
         self._generator = generator
-        self._record = record
+        self._record_item = record
         self._stop_by_rule = stop_by_rule
         self._bell = bell
         self._autorange_options = dict(autorange_options or {})
@@ -108,6 +108,7 @@ class TraceProcessor:
         self.pending_reset: str | None = None      # the cause of an asked-for reset
         self._lock = threading.Lock()       # guards the alert list
         self._alerts: list[AlertView] = []
+        self._events: list[EventView] = []       # guarded by the lock too
         self._next_alert_id = 1
         self._figures = FigureSet()
         self._rate = RateMeter()
@@ -148,6 +149,18 @@ class TraceProcessor:
             self._alerts = list(self._alerts)
         self.snap = dataclasses.replace(self.snap, alerts=self._alerts_copy())
         return True
+
+    def note_event(self, item: EventItem) -> None:
+        """Keep an event for the displays' log (any thread); the next snapshot has it."""
+        view = EventView(time_s=float(item.time_s), kind=str(item.kind),
+                         text=event_text(str(item.kind), dict(item.detail)), seq=item.seq)
+        with self._lock:
+            self._events = [*self._events[-(MAX_ALERTS_SHOWN - 1):], view]
+
+    def _record(self, item: Any) -> None:
+        if isinstance(item, EventItem):
+            self.note_event(item)
+        self._record_item(item)
 
     def last_seq(self) -> int | None:
         return self.snap.seq if self.snap.seq >= 0 else None
@@ -329,6 +342,10 @@ class TraceProcessor:
         if new_v is not None:
             self._acq.commands.put(SetRange(float(new_v), cause))
 
+    def _events_copy(self) -> list[EventView]:
+        with self._lock:
+            return list(self._events)       # the views are never changed once made
+
     def _alerts_copy(self) -> list[AlertView]:
         with self._lock:
             return [dataclasses.replace(a) for a in self._alerts]
@@ -364,6 +381,7 @@ class TraceProcessor:
             figures_time_s=self._figures_time_s, figures_left_out=self._figures_left_out,
             figures_left_out_counts=dict(self._left_out_counts),
             figures_since_s=self._figures_since[0], figures_since_reason=self._figures_since[1],
+            events=self._events_copy(),
             state=state or self.snap.state,
             stop_reason=self.snap.stop_reason if stop_reason is None else stop_reason)
 

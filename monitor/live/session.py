@@ -273,8 +273,10 @@ class LiveSession:
 
     def mark(self, note: str) -> None:
         """Record an operator mark (an event with the note)."""
-        self._put(EventItem(time.time(), EventKind.MARK, {"note": str(note)},
-                            seq=self._proc.last_seq()))
+        item = EventItem(time.time(), EventKind.MARK, {"note": str(note)},
+                         seq=self._proc.last_seq())
+        self._proc.note_event(item)
+        self._put(item)
 
     def acknowledge(self, alert_id: int) -> None:
         """Acknowledge an alert shown in the snapshot (recorded in the store)."""

@@ -53,6 +53,16 @@ class AlertView:
 
 
 @dataclass
+class EventView:
+    """One event of the session as a display lists it."""
+
+    time_s: float
+    kind: str              # an EventKind value
+    text: str              # one line, e.g. "auto -> deconvolve"
+    seq: int | None = None
+
+
+@dataclass
 class InstrumentView:
     name: str              # "digitiser" | "generator"
     resource: str
@@ -129,3 +139,6 @@ class Snapshot:
     # figures last started afresh; NaN and "" when they run from the session's start
     figures_since_s: float = float("nan")
     figures_since_reason: str = ""
+    # the session's events (marks, method and range changes, drive on/off, ...), newest
+    # last, at most a few hundred kept
+    events: list[EventView] = field(default_factory=list)
