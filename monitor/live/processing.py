@@ -251,7 +251,7 @@ class TraceProcessor:
         self._figures_left_out = left_out
         if left_out:
             self._left_out_counts[left_out] = self._left_out_counts.get(left_out, 0) + 1
-        else:
+        elif flat is not None:          # always so when nothing left it out
             self._figures.add(flat)
             self._figures_time_s = float(raw.time_s)
         self._record(TraceItem(raw, flat, flags, error))
