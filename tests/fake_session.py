@@ -44,6 +44,7 @@ class FakeLiveSession:
         self.acknowledged: list[int] = []
         self.methods: list[str] = []
         self.stops: list[str] = []
+        self.resets: list[str] = []
         self.snapshot_calls = 0
         self.running = False
         self.exit_code = 0
@@ -79,6 +80,9 @@ class FakeLiveSession:
             raise ValueError(f"unknown conversion method {method!r}")
         self.methods.append(method)
         self.method_requested = method
+
+    def reset_figures(self, cause: str = "operator") -> None:
+        self.resets.append(cause)
 
     def stop(self, reason: str = "operator") -> None:
         self.stops.append(reason)

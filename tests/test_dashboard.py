@@ -317,7 +317,7 @@ async def test_empty_snapshot_draws_without_data():
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause(0.1)
         text = screen_text(app)
-        assert "waiting for the first converted trace" in text
+        assert "waiting for the first trace" in text
         assert "no alerts" in text
 
 

@@ -16,6 +16,7 @@ import pytest
 from polling import wait_for
 from scpi_client import scpi
 
+from tankside.monitor.dashboard.app import source_state
 from tankside.monitor.headless import status_line
 from tankside.monitor.live.benchfile import load_bench
 from tankside.monitor.live.session import LiveSession
@@ -56,6 +57,9 @@ def test_noise_after_safe_off_then_drive_back_on(sim, tmp_path):
         assert "SOURCE OFF / NO PULSE: output off (safe-off)" in status_line(snap)
         assert [a.rule for a in snap.alerts] == ["over_pressure", "no_pulse"]
         assert snap.range_v == 0.1
+        # the dashboard's banner and figures panel say so, from the same snapshot
+        assert source_state(snap)[0] == "safe-off"
+        assert snap.figures_left_out == "drive off"
         quiet_until = snap.acquired
 
         # The operator lowers the drive and switches it on at the generator.
@@ -70,6 +74,8 @@ def test_noise_after_safe_off_then_drive_back_on(sim, tmp_path):
         snap = session.snapshot()
         assert snap.drive_detail == "output on"
         assert "NO PULSE" not in status_line(snap) and "drive on" in status_line(snap)
+        assert source_state(snap) == ("", "")
+        assert snap.figures_left_out == "" and snap.figures_time_s >= snap.time_s
     finally:
         session.stop("test done")
         assert session.wait(20)

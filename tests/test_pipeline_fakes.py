@@ -260,8 +260,13 @@ class TestLiveSessionBasics:
             st = r.trace(7)
             expected = FakeConverter().process(st.raw.volts(), st.raw.dt_s).flat()
             assert st.result["peak_compressional_pa"] == expected["peak_compressional_pa"]
+            ranged = [e["detail"] for e in r.events()
+                      if e["kind"] == "range-change" and e["detail"].get("done")]
+        # the figures start afresh at a range change (the fake scene's under-use steps down)
+        first = ranged[-1]["before_seq"] if ranged else 0
+        assert snap.figures_since_reason == ("range change" if ranged else "")
         fig = snap.figures["peak_compressional_pa"]
-        assert fig.count == 40 and fig.minimum <= fig.mean <= fig.maximum
+        assert fig.count == 40 - first and fig.minimum <= fig.mean <= fig.maximum
         assert snap.pressure_pa.shape == (N,) and snap.spectrum_db.shape == (N // 2 + 1,)
 
     def test_operator_stop_mark_method_and_acknowledge(self, tmp_path):

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import re
+
+from rich.cells import cell_len
 from textual.strip import Strip
 
 from ..live.snapshot import AlertView, Snapshot
@@ -30,6 +33,7 @@ class AlertList(LinePanel):
         super().__init__(**kwargs)
         self.border_title = "alerts"
         self.alerts: list[AlertView] = []
+        self.cut = False        # a message did not fit (the event log has it whole)
 
     def show(self, snap: Snapshot) -> None:
         self.alerts = list(snap.alerts)
@@ -43,7 +47,9 @@ class AlertList(LinePanel):
         lines: list[list[tuple[str, str]]] = []
         if not self.alerts:
             lines.append([("no alerts", ACKED)])
-        for alert in reversed(self.alerts[-rows:] if rows else []):
+        shown = list(reversed(self.alerts[-rows:] if rows else []))
+        self.cut = False
+        for i, alert in enumerate(shown):
             mark, style = SEVERITY_STYLE.get(alert.severity, ("?", "white"))
             if alert.acknowledged:
                 style = ACKED
@@ -56,5 +62,71 @@ class AlertList(LinePanel):
                 line.append((f" [{', '.join(alert.actions)}]",
                              ACKED if alert.acknowledged else "#c8ccd0"))
             line.append((f" {alert.message}", style))
-            lines.append(line)
+            # a long message goes on over the next rows, indented under the time, as far
+            # as the rows go with one kept for each older alert in view
+            wrapped = wrap_pieces(line, cols, indent=CONTINUATION_INDENT)
+            room = max(1, rows - len(lines) - (len(shown) - i - 1))
+            if len(wrapped) > room:
+                wrapped = wrapped[:room]
+                wrapped[-1] = ellipsised(wrapped[-1], cols)
+                self.cut = True
+            lines += wrapped
         return text_strips(lines, rows, cols, self.visual_style.rich_style)
+
+
+CONTINUATION_INDENT = 6      # the width of the id and the acknowledged mark
+
+
+def ellipsised(line: list[tuple[str, str]], cols: int) -> list[tuple[str, str]]:
+    """A line of pieces cut to ``cols - 1`` cells and ended with "…" (more follows)."""
+    out: list[tuple[str, str]] = []
+    used = 0
+    for text, style in line:
+        take = text[:max(0, cols - 1 - used)]
+        if take:
+            out.append((take, style))
+            used += cell_len(take)
+    style = line[-1][1] if line else ""
+    return out + [("…", style)]
+
+
+def wrap_pieces(pieces: list[tuple[str, str]], cols: int, *,
+                indent: int = 0) -> list[list[tuple[str, str]]]:
+    """(text, style) pieces broken into lines of at most ``cols`` cells, at spaces.
+
+    Lines after the first start with ``indent`` spaces; a word longer than a line is
+    broken where the line ends. Every character of the input is kept (but the spaces a
+    line breaks at).
+    """
+    if cols <= indent + 1:
+        return [list(pieces)]
+    words: list[tuple[str, str]] = []
+    for text, style in pieces:
+        for word in re.findall(r"\s+|\S+", text):
+            words.append((word, style))
+    lines: list[list[tuple[str, str]]] = [[]]
+    used = 0
+    for word, style in words:
+        room = cols - used
+        width = cell_len(word)
+        if word.isspace():
+            if width <= room:
+                lines[-1].append((word, style))
+                used += width
+            else:
+                lines.append([(" " * indent, "")])
+                used = indent
+            continue
+        if width > room and used > indent and width <= cols - indent:
+            lines.append([(" " * indent, "")])
+            used, room = indent, cols - indent
+        while width > room:         # a word longer than a whole line
+            lines[-1].append((word[:room], style))
+            word = word[room:]
+            width = cell_len(word)
+            lines.append([(" " * indent, "")])
+            used, room = indent, cols - indent
+        if word:
+            lines[-1].append((word, style))
+            used += width
+    return lines

@@ -24,6 +24,7 @@ from .banner import Banner
 from .capture import write_columns_csv
 from .caution import CautionScreen
 from .driveconfirm import DriveConfirmScreen
+from .eventlog import EventLogScreen
 from .figures import RunningFigures
 from .marknote import MarkNoteScreen
 from .spectrum import SpectrumView
@@ -38,7 +39,7 @@ STATE_STYLE = {
 }
 STOP_WAIT_S = 30.0
 # q and c act on a second press within this time: one stray key never ends a long run
-CONFIRM_WITHIN_S = 3.0
+CONFIRM_WITHIN_S = 3.0  # (r too: a reset loses the figures since the start)
 # `watch` and `demo` run the session in a process of its own
 # (tankside.monitor.live.child). Where threads that answer instruments share
 # this process with the display (a LiveSession given directly, the demo's simulated
@@ -57,12 +58,15 @@ class DashboardApp(App[None]):
         Binding("space", "hold", "hold"),
         Binding("m", "mark", "mark"),
         Binding("a", "ack_one", "ack"),
-        Binding("A", "ack_all", "ack all"),
+        # shown in the README's key table: the 80-column footer has no room for it
+        Binding("A", "ack_all", "ack all", show=False),
         Binding("c", "cycle_method", "method"),
-        Binding("l", "toggle_scale", "dB/lin"),
+        Binding("r", "reset_figures", "reset"),
+        Binding("l", "toggle_scale", "dB"),
         Binding("z", "toggle_zoom", "zoom"),
         Binding("s", "save_capture", "save"),
         Binding("d", "drive", "drive"),
+        Binding("e", "event_log", "log"),
         Binding("q", "quit_session", "quit"),
     ]
 
@@ -153,6 +157,8 @@ class DashboardApp(App[None]):
         """Read the latest snapshot (never blocks) and redraw what changed."""
         snap = self.session.snapshot()
         self._draw_banner(snap)
+        if self.figures.stale:
+            self.figures.tick()     # the age grows with no new snapshot
         if snap is self.latest:
             return
         self.latest = snap
@@ -185,6 +191,10 @@ class DashboardApp(App[None]):
         state = snap.state
         if snap.state == "stopped" and snap.stop_reason:
             state = f"stopped: {snap.stop_reason} (q to leave)"
+        source, source_colour = source_state(snap)
+        if source and snap.state != "stopped":
+            # running, but on noise: the banner must not read as all well
+            state, colour = f"{state}, {source}", source_colour
         used = f": {snap.method}" if snap.method and snap.method != self.method_requested else ""
         parts = [
             "[b]tankside[/b]",
@@ -246,6 +256,17 @@ class DashboardApp(App[None]):
             self.notify(f"conversion method: {nxt}", timeout=2)
         if self.latest is not None:
             self._draw_banner(self.latest)
+
+    def action_reset_figures(self) -> None:
+        """Start the running figures afresh (a second press confirms; recorded as an event)."""
+        if not self._confirmed("r", "press r again to start the running figures afresh"):
+            return
+        if self._call_session(self.session.reset_figures, "operator (dashboard)"):
+            self.notify("running figures start afresh from the next trace", timeout=3)
+
+    def action_event_log(self) -> None:
+        """The session's events and alerts in a scrollable list (Escape closes)."""
+        self.push_screen(EventLogScreen(self.latest))
 
     def action_toggle_scale(self) -> None:
         self.spectrum.set_linear(not self.spectrum.linear)
@@ -328,6 +349,24 @@ class DashboardApp(App[None]):
             self.notify(str(err), severity="error", timeout=6)
             return False
         return True
+
+
+def source_state(snap: Snapshot) -> tuple[str, str]:
+    """What the banner says about the source when it is not driving a pulse, and its colour.
+
+    ("safe-off", red) after a safe-off, ("drive off", amber) with the output off,
+    ("drive state unknown", amber) while a switch-off is unconfirmed, ("no pulse",
+    amber) when the latest trace holds none; ("", "") when a pulse arrives.
+    """
+    if snap.drive_on is False:
+        if "safe-off" in snap.drive_detail:
+            return "safe-off", "#ff6b6b"
+        return "drive off", "#ffb35c"
+    if snap.drive_on is None and snap.drive_detail:
+        return "drive state unknown", "#ffb35c"
+    if snap.pulse_present is False:
+        return "no pulse", "#ffb35c"
+    return "", ""
 
 
 def _initial_method(session) -> Method:

@@ -36,6 +36,17 @@ def narrowband_window_hz(f_awf_hz: float) -> tuple[float, float]:
     return 0.5 * f_awf_hz, min(40e6, 8.0 * f_awf_hz)
 
 
+def no_pulse_text(snap: Snapshot) -> str:
+    """Why the latest trace holds nothing to judge: "drive off", "no pulse", or "".
+
+    "drive off" (the generator output is known to be off) wins over "no pulse", the
+    trace being noise either way; "" when the trace holds a pulse (or before the first).
+    """
+    if snap.drive_on is False:
+        return "drive off"
+    return "no pulse" if snap.pulse_present is False else ""
+
+
 class SpectrumView(LinePanel):
     """Spectrum in dB (or linear amplitude) with |M_L| overlaid and the ±3 dB limits."""
 
@@ -51,6 +62,7 @@ class SpectrumView(LinePanel):
         self._band_hz = (math.nan, math.nan)
         self._ok: bool | None = None
         self._worst_db = math.nan
+        self._no_pulse = ""        # why the trace holds no pulse to judge ("" when it does)
         self._set_titles()
 
     def set_linear(self, linear: bool) -> None:
@@ -70,19 +82,23 @@ class SpectrumView(LinePanel):
         self._band_hz = band
         self._ok = snap.narrowband_ok
         self._worst_db = snap.narrowband_max_deviation_db
+        self._no_pulse = no_pulse_text(snap)
         self._set_titles()
         self.invalidate()
 
     def verdict(self) -> str:
         """The narrowband verdict as shown, e.g. "narrowband PASS, worst 1.2 dB"."""
         worst = f"{self._worst_db:.1f} dB" if math.isfinite(self._worst_db) else "-"
+        if self._no_pulse:
+            # noise has no working frequency: a verdict on it would be a verdict on nothing
+            return f"no narrowband verdict: {self._no_pulse}"
         if self._ok is None:
             return "narrowband not checked"
         return f"narrowband {'PASS' if self._ok else 'FAIL'}, worst {worst}"
 
     def _set_titles(self) -> None:
         scale = "linear" if self.linear else "dB"
-        colour = AXIS if self._ok is None else (PASS if self._ok else FAIL)
+        colour = AXIS if self._ok is None or self._no_pulse else (PASS if self._ok else FAIL)
         self.set_titles(title=f"spectrum · {scale}",
                         subtitle=f"[{colour}]{self.verdict()}[/]")
 
@@ -94,7 +110,9 @@ class SpectrumView(LinePanel):
             return message_strips("", rows, cols, AXIS)
         f = self._freqs_hz
         if f.size < 2 or self._spectrum_db.size != f.size:
-            return message_strips("waiting for the first spectrum", rows, cols, AXIS)
+            text = f"{self._no_pulse}: no spectrum" if self._no_pulse else \
+                "waiting for the first spectrum"
+            return message_strips(text, rows, cols, AXIS)
         lo_hz, hi_hz = self._band_hz
         f_top = f[-1]
         if math.isfinite(hi_hz):

@@ -14,6 +14,7 @@ from .plotgrid import (
     message_strips,
     to_steps,
 )
+from .spectrum import no_pulse_text
 from .units import number
 
 TRACE = "#6fd3b8"
@@ -21,6 +22,7 @@ COMPRESSION = "#ff9466"
 RAREFACTION = "#7cb6ff"
 ZERO = "#3a4a55"
 AXIS = "#8a9aa6"
+NO_PULSE = "#ffb35c"
 _AXIS_WIDTH = 6
 
 
@@ -63,6 +65,8 @@ class PressureTrace(LinePanel):
         self.seq = -1
         self._times_s = np.zeros(0)
         self._pressure_pa = np.zeros(0)
+        self._voltage_v = np.zeros(0)
+        self._no_pulse = ""          # "no pulse", "drive off", ... ("" when a pulse is there)
         self._pc_pa = math.nan
         self._pr_pa = math.nan
         self.zoomed = True
@@ -79,8 +83,22 @@ class PressureTrace(LinePanel):
     def on_resize(self) -> None:
         self._set_subtitle()
 
+    def _shown(self) -> tuple[np.ndarray, float, str]:
+        """The samples drawn, their scale to the axis unit, and the unit.
+
+        The pressure when the trace converted; else the voltage as acquired, so a trace
+        of noise (drive off, no pulse) is still seen arriving.
+        """
+        p = self._pressure_pa
+        if p.size and np.any(np.isfinite(p)):
+            return p, 1e-6, " MPa"
+        v = self._voltage_v
+        if v.size and np.any(np.isfinite(v)):
+            return v, 1e3, "  mV"
+        return p, 1e-6, " MPa"
+
     def _window(self, ncols: int) -> tuple[int, int]:
-        y = self._pressure_pa
+        y = self._shown()[0]
         if not self.zoomed:
             return 0, y.size
         # the subtitle and the plot both ask, once each per trace
@@ -90,10 +108,15 @@ class PressureTrace(LinePanel):
 
     def _set_subtitle(self) -> None:
         t = self._times_s
+        y, _, unit = self._shown()
         start, stop = self._window(max(1, self.content_size.width - _AXIS_WIDTH))
-        if t.size == self._pressure_pa.size and stop > start:
+        title = "voltage trace" if unit == "  mV" else "pressure trace"
+        if self._no_pulse:
+            self.set_titles(title=title, subtitle=f"{self._no_pulse}, noise only  #{self.seq}")
+        elif t.size == y.size and stop > start:
             view = "pulse" if self.zoomed else "record"
-            self.set_titles(subtitle=f"{view} {t[start] * 1e6:.2f}–{t[stop - 1] * 1e6:.2f} µs"
+            self.set_titles(title=title,
+                            subtitle=f"{view} {t[start] * 1e6:.2f}–{t[stop - 1] * 1e6:.2f} µs"
                                      f"  #{self.seq}")
 
     def show(self, snap: Snapshot) -> None:
@@ -101,6 +124,8 @@ class PressureTrace(LinePanel):
         self.seq = snap.seq
         self._times_s = snap.times_s
         self._pressure_pa = snap.pressure_pa
+        self._voltage_v = snap.voltage_v
+        self._no_pulse = no_pulse_text(snap)
         self._window_for = None
         self._pc_pa = float(snap.result.get("peak_compressional_pa", math.nan))
         self._pr_pa = float(snap.result.get("peak_rarefactional_pa", math.nan))
@@ -110,18 +135,21 @@ class PressureTrace(LinePanel):
     def build(self, rows: int, cols: int) -> list:
         if rows < 2 or cols < _AXIS_WIDTH + 4:
             return message_strips("", rows, cols, AXIS)
-        y = self._pressure_pa
+        y, scale, unit = self._shown()
         if y.size == 0 or not np.any(np.isfinite(y)):
-            return message_strips("waiting for the first converted trace", rows, cols, AXIS)
+            return message_strips("waiting for the first trace", rows, cols, AXIS)
         ncols = cols - _AXIS_WIDTH
         start, stop = self._window(ncols)
-        y = y[start:stop]
+        y = y[start:stop] * scale
+        # p_c and p_r of noise are no peaks of a field: not marked
+        pc = self._pc_pa * scale if unit == " MPa" and not self._no_pulse else math.nan
+        pr = self._pr_pa * scale if unit == " MPa" and not self._no_pulse else math.nan
         mins, maxs = column_extents(y, ncols)
         top = float(np.nanmax(maxs))
         bottom = float(np.nanmin(mins))
         # keep zero inside the plot and leave a little headroom for the markers
-        top = max(top, 0.0, abs(self._pc_pa) if math.isfinite(self._pc_pa) else 0.0)
-        bottom = min(bottom, 0.0, -abs(self._pr_pa) if math.isfinite(self._pr_pa) else 0.0)
+        top = max(top, 0.0, abs(pc) if math.isfinite(pc) else 0.0)
+        bottom = min(bottom, 0.0, -abs(pr) if math.isfinite(pr) else 0.0)
         pad = 0.05 * (top - bottom or 1.0)
         top, bottom = top + pad, bottom - pad
         grid = PlotGrid(rows, cols)
@@ -132,18 +160,21 @@ class PressureTrace(LinePanel):
         hi = to_steps(maxs, bottom, top, nsteps)
         grid.spans(_AXIS_WIDTH, lo, hi, TRACE)
         marks = []
-        if math.isfinite(self._pc_pa):
-            marks.append(("p_c", abs(self._pc_pa), COMPRESSION))
-        if math.isfinite(self._pr_pa):
+        if math.isfinite(pc):
+            marks.append(("p_c", abs(pc), COMPRESSION))
+        if math.isfinite(pr):
             # p_r is reported as a magnitude; it sits below zero on the trace
-            marks.append(("p_r", -abs(self._pr_pa), RAREFACTION))
+            marks.append(("p_r", -abs(pr), RAREFACTION))
         for name, level, colour in marks:
             step = int(to_steps(np.array([level]), bottom, top, nsteps)[0])
             grid.hline(step, colour, plot_cols)
             row = (nsteps - 1 - step) // 2
-            text = f" {name} {number(abs(level) * 1e-6, 0)} "
+            text = f" {name} {number(abs(level), 0)} "
             grid.label(row, cols - len(text), text, f"bold {colour}")
-        grid.label(0, 0, number(top * 1e-6, _AXIS_WIDTH - 1), AXIS)
-        grid.label(rows - 1, 0, number(bottom * 1e-6, _AXIS_WIDTH - 1), AXIS)
-        grid.label(rows // 2, 0, " MPa", AXIS)
+        if self._no_pulse:
+            note = f" {self._no_pulse}: noise only "[:cols - _AXIS_WIDTH - 1]
+            grid.label(0, cols - len(note), note, f"bold {NO_PULSE}")
+        grid.label(0, 0, number(top, _AXIS_WIDTH - 1), AXIS)
+        grid.label(rows - 1, 0, number(bottom, _AXIS_WIDTH - 1), AXIS)
+        grid.label(rows // 2, 0, unit, AXIS)
         return grid.to_strips()

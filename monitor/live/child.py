@@ -47,7 +47,7 @@ if TYPE_CHECKING:
     from .benchfile import BenchConfig
 
 #: The session methods the parent may call in the child (stop has no answer).
-COMMANDS = ("mark", "acknowledge", "set_method", "switch_drive")
+COMMANDS = ("mark", "acknowledge", "set_method", "switch_drive", "reset_figures")
 #: How long a command waits for the child's answer, s.
 ANSWER_WAIT_S = 10.0
 #: How long the child waits, after its session has ended, for the parent to ask for
@@ -186,6 +186,9 @@ class SessionProcess:
 
     def switch_drive(self, on: bool, cause: str = "operator") -> None:
         self._call("switch_drive", bool(on), str(cause))
+
+    def reset_figures(self, cause: str = "operator") -> None:
+        self._call("reset_figures", str(cause))
 
     def stop(self, reason: str = "operator") -> None:
         """Ask the child to stop its session cleanly; returns at once.

@@ -37,11 +37,30 @@ from .figures import FigureSet, RateMeter
 from .generator import GeneratorWorker
 from .recorder import AlertItem, EventItem, TraceItem
 from .rules import Firing, observation_from_trace
-from .snapshot import AlertView, InstrumentView, Snapshot
-from .views import drive_text, optional_bool, result_arrays
+from .snapshot import AlertView, EventView, InstrumentView, Snapshot
+from .views import drive_text, event_text, optional_bool, result_arrays
 
 MAX_ALERTS_SHOWN = 300
 SNAPSHOT_ARRAYS_EVERY_S = 0.04   # waveform/spectrum arrays at most 25 times a second
+
+
+def figures_left_out(flat: dict | None, *, no_pulse: bool, drive_off: bool,
+                     clipped: bool = False, doubtful: bool = False) -> str:
+    """Why a trace is kept out of the running figures, or "" when it counts.
+
+    Noise converted to "pressure" is no figure of the field (drive off, no pulse), a
+    trace that did not convert has no figures, the peaks of a clipped trace are floors
+    hidden by the rails, and a doubtful result (a counted warning) may be off.
+    """
+    if drive_off:
+        return "drive off"
+    if no_pulse:
+        return "no pulse"
+    if flat is None:
+        return "not converted"
+    if clipped:
+        return "clipped"
+    return "doubtful" if doubtful else ""
 
 
 class TraceProcessor:
@@ -79,15 +98,17 @@ class TraceProcessor:
         self._rules = rules
         self._acq = acquisition
         self._generator = generator
-        self._record = record
+        self._record_item = record
         self._stop_by_rule = stop_by_rule
         self._bell = bell
         self._autorange_options = dict(autorange_options or {})
         self._resources = dict(resources or {})
         self.method = method
         self.pending_method: str | None = None
+        self.pending_reset: str | None = None      # the cause of an asked-for reset
         self._lock = threading.Lock()       # guards the alert list
         self._alerts: list[AlertView] = []
+        self._events: list[EventView] = []       # guarded by the lock too
         self._next_alert_id = 1
         self._figures = FigureSet()
         self._rate = RateMeter()
@@ -105,6 +126,10 @@ class TraceProcessor:
         self._drive_on: bool | None = None
         self._drive_cause = ""
         self._pulse_present: bool | None = None
+        self._figures_time_s = float("nan")   # the last trace the figures took
+        self._figures_left_out = ""            # why the latest trace was not taken
+        self._left_out_counts: dict[str, int] = {}
+        self._figures_since = (float("nan"), "")
         self._numeric_error_shown = False   # the first one's traceback goes to stderr
         self.snap = Snapshot(session_path=str(session_path), state="starting")
 
@@ -125,6 +150,18 @@ class TraceProcessor:
         self.snap = dataclasses.replace(self.snap, alerts=self._alerts_copy())
         return True
 
+    def note_event(self, item: EventItem) -> None:
+        """Keep an event for the displays' log (any thread); the next snapshot has it."""
+        view = EventView(time_s=float(item.time_s), kind=str(item.kind),
+                         text=event_text(str(item.kind), dict(item.detail)), seq=item.seq)
+        with self._lock:
+            self._events = [*self._events[-(MAX_ALERTS_SHOWN - 1):], view]
+
+    def _record(self, item: Any) -> None:
+        if isinstance(item, EventItem):
+            self.note_event(item)
+        self._record_item(item)
+
     def last_seq(self) -> int | None:
         return self.snap.seq if self.snap.seq >= 0 else None
 
@@ -141,6 +178,8 @@ class TraceProcessor:
                                 judged_trace=False)
         if kind == EventKind.RANGE_CHANGE and ev.detail.get("done"):
             self._range_v = float(ev.detail["to_v"])
+            # pressures on two ranges are not one series (quantisation, clipping differ)
+            self._restart_figures(ev.time_s, "range change")
         if kind in (EventKind.DRIVE_ON, EventKind.DRIVE_OFF):
             self._drive_on = kind == EventKind.DRIVE_ON
             self._drive_cause = str(ev.detail.get("cause", ""))
@@ -158,6 +197,7 @@ class TraceProcessor:
         self._rate.add(time.monotonic())
         if self.pending_method is not None:
             self._switch_method(self.pending_method, raw.seq)
+        self._reset_if_asked(raw.seq)
         result = None
         flat = None
         error = None
@@ -204,9 +244,16 @@ class TraceProcessor:
             self._last_warnings = self._rules.doubtful_codes(codes)
             if self._last_warnings:
                 self.doubtful += 1
-        if flat is not None and not obs.quiet:
-            # noise converted to "pressure" is no figure of the field
+        left_out = figures_left_out(flat, no_pulse=not obs.pulse_present,
+                                    drive_off=self._drive_on is False,
+                                    clipped=raw.clipped > 0,
+                                    doubtful=result is not None and bool(self._last_warnings))
+        self._figures_left_out = left_out
+        if left_out:
+            self._left_out_counts[left_out] = self._left_out_counts.get(left_out, 0) + 1
+        elif flat is not None:          # always so when nothing left it out
             self._figures.add(flat)
+            self._figures_time_s = float(raw.time_s)
         self._record(TraceItem(raw, flat, flags, error))
         self._publish_trace(raw, volts, result, flat)
 
@@ -217,8 +264,27 @@ class TraceProcessor:
         old = self.method
         self._converter = self._converter.with_method(method)
         self.method = method
-        self._record(EventItem(time.time(), EventKind.METHOD_CHANGE,
+        now = time.time()
+        self._record(EventItem(now, EventKind.METHOD_CHANGE,
                                {"from": old, "to": method}, seq=seq))
+        self._restart_figures(now, "method change")
+
+    def _reset_if_asked(self, seq: int | None) -> None:
+        cause = self.pending_reset
+        if cause is None:
+            return
+        self.pending_reset = None
+        now = time.time()
+        self._record(EventItem(now, EventKind.FIGURES_RESET, {"cause": cause}, seq=seq))
+        self._restart_figures(now, "reset")
+
+    def _restart_figures(self, time_s: float, reason: str) -> None:
+        """Start the running figures afresh: ``reason`` says why on the display."""
+        self._figures = FigureSet()
+        self._left_out_counts = {}
+        self._figures_time_s = float("nan")
+        self._figures_since = (float(time_s), reason)
+        self.publish(figures=self._figures.views())
 
     # -- firings and their actions ----------------------------------------------------
     def handle_firings(self, firings: list[Firing], *, judged_trace: bool) -> None:
@@ -276,6 +342,10 @@ class TraceProcessor:
         if new_v is not None:
             self._acq.commands.put(SetRange(float(new_v), cause))
 
+    def _events_copy(self) -> list[EventView]:
+        with self._lock:
+            return list(self._events)       # the views are never changed once made
+
     def _alerts_copy(self) -> list[AlertView]:
         with self._lock:
             return [dataclasses.replace(a) for a in self._alerts]
@@ -308,6 +378,10 @@ class TraceProcessor:
             drive_detail=drive_text(self._drive_on, self._drive_cause) if has_generator else "",
             pulse_present=self._pulse_present, no_pulse_traces=self._no_pulse,
             doubtful_traces=self.doubtful, last_warnings=self._last_warnings,
+            figures_time_s=self._figures_time_s, figures_left_out=self._figures_left_out,
+            figures_left_out_counts=dict(self._left_out_counts),
+            figures_since_s=self._figures_since[0], figures_since_reason=self._figures_since[1],
+            events=self._events_copy(),
             state=state or self.snap.state,
             stop_reason=self.snap.stop_reason if stop_reason is None else stop_reason)
 
@@ -348,5 +422,6 @@ class TraceProcessor:
 
     def flush_due(self) -> None:
         """Publish the latest trace when the array interval has passed."""
+        self._reset_if_asked(self.last_seq())   # asked for while no trace arrives
         if time.monotonic() - self._last_arrays_mono >= SNAPSHOT_ARRAYS_EVERY_S:
             self.flush_latest()

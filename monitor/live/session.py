@@ -273,8 +273,10 @@ class LiveSession:
 
     def mark(self, note: str) -> None:
         """Record an operator mark (an event with the note)."""
-        self._put(EventItem(time.time(), EventKind.MARK, {"note": str(note)},
-                            seq=self._proc.last_seq()))
+        item = EventItem(time.time(), EventKind.MARK, {"note": str(note)},
+                         seq=self._proc.last_seq())
+        self._proc.note_event(item)
+        self._put(item)
 
     def acknowledge(self, alert_id: int) -> None:
         """Acknowledge an alert shown in the snapshot (recorded in the store)."""
@@ -286,6 +288,10 @@ class LiveSession:
         if method not in list(Method):
             raise ValueError(f"method must be one of {', '.join(Method)}, not {method!r}")
         self._proc.pending_method = Method(method)
+
+    def reset_figures(self, cause: str = "operator") -> None:
+        """Start the running figures afresh from the next trace (recorded as an event)."""
+        self._proc.pending_reset = str(cause)
 
     def stop(self, reason: str = "operator") -> None:
         """Ask the session to stop cleanly; returns at once (see :meth:`wait`)."""

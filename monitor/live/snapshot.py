@@ -53,6 +53,16 @@ class AlertView:
 
 
 @dataclass
+class EventView:
+    """One event of the session as a display lists it."""
+
+    time_s: float
+    kind: str              # an EventKind value
+    text: str              # one line, e.g. "auto -> deconvolve"
+    seq: int | None = None
+
+
+@dataclass
 class InstrumentView:
     name: str              # "digitiser" | "generator"
     resource: str
@@ -118,3 +128,17 @@ class Snapshot:
     # codes of the latest converted trace's warnings that count (() when none)
     doubtful_traces: int = 0
     last_warnings: tuple[str, ...] = ()
+    # the running figures: time (s, Unix) of the last trace they took (NaN before one),
+    # and why the latest trace was left out of them ("" when it was taken): "no pulse",
+    # "drive off", "not converted", "clipped", "doubtful"
+    figures_time_s: float = float("nan")
+    figures_left_out: str = ""
+    # traces left out of the running figures since they started, by reason
+    figures_left_out_counts: dict[str, int] = field(default_factory=dict)
+    # when (s, Unix) and why ("method change", "range change", "reset") the running
+    # figures last started afresh; NaN and "" when they run from the session's start
+    figures_since_s: float = float("nan")
+    figures_since_reason: str = ""
+    # the session's events (marks, method and range changes, drive on/off, ...), newest
+    # last, at most a few hundred kept
+    events: list[EventView] = field(default_factory=list)

@@ -50,6 +50,26 @@ def result_arrays(result: Any, flat: dict) -> dict[str, np.ndarray]:
             "spectrum_db": spectrum_db, "sensitivity_db": sensitivity_db}
 
 
+def event_text(kind: str, detail: dict) -> str:
+    """One line for an event in a display's log, from its kind and detail.
+
+    The detail keys are those listed for each kind in
+    :class:`tankside.monitor.record.schema.EventKind`.
+    """
+    if kind == "mark":
+        return str(detail.get("note", "")) or "(no note)"
+    if kind == "method-change":
+        return f"{detail.get('from', '?')} -> {detail.get('to', '?')}"
+    if kind == "range-change":
+        text = f"{detail.get('from_v', '?')} V -> {detail.get('to_v', '?')} V"
+        if detail.get("error"):
+            text += f" failed: {detail['error']}"
+        return text
+    if kind in ("drive-on", "drive-off", "figures-reset"):
+        return f"by {detail.get('cause', '?')}"
+    return ", ".join(f"{key} {value}" for key, value in detail.items())
+
+
 def optional_bool(value: object) -> bool | None:
     """``value`` as a bool, or None when it is None, NaN or not a truth value."""
     if value is None:

@@ -137,6 +137,9 @@ class EventKind(enum.StrEnum):
     ``generator``, ``end of session``, an operator's action), ``before_seq``."""
     NO_TRIGGER = "no-trigger"
     """The digitiser did not trigger within the trigger timeout: ``message``, ``timeout_s``."""
+    FIGURES_RESET = "figures-reset"
+    """The running figures were started afresh by the operator (the dashboard's key):
+    ``cause``. Method and range changes restart them too, recorded under their own kinds."""
     RESYNC = "resync"
     """The digitiser's link was brought back in step after a bad reply: ``after`` (the
     error's type name)."""
