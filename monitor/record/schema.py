@@ -143,6 +143,23 @@ class EventKind(enum.StrEnum):
     RESYNC = "resync"
     """The digitiser's link was brought back in step after a bad reply: ``after`` (the
     error's type name)."""
+    # -- the serial instruments (stage, thermometer; layout 3) ----------------------
+    INSTRUMENT_LOST = "instrument-lost"
+    """The stage or the thermometer stopped answering (acquisition goes on):
+    ``instrument`` (``stage`` or ``thermometer``), ``message``, ``at_seq``."""
+    INSTRUMENT_BACK = "instrument-back"
+    """The stage or the thermometer answers again: ``instrument``, ``attempts``,
+    ``after_s``, ``identity``."""
+    STAGE_MOVE = "stage-move"
+    """A move was sent to the stage: ``target_mm`` (axis -> mm), ``done`` (true when sent),
+    ``error`` when it could not be."""
+    STAGE_STOP = "stage-stop"
+    """The stage was told to stop: ``cause`` (``end of session``, ``safe-off``, ``stage
+    error``), ``done``, ``error`` when it could not be."""
+    WATER_SOURCE = "water-source"
+    """The conversion's water temperature changed source (a :class:`WaterSource`):
+    ``source``, ``reading_c`` and ``age_s`` (null when none), ``max_age_s``,
+    ``temperature_c`` (the one used), ``from_seq``."""
 
 
 class FaultKind(enum.StrEnum):
@@ -160,6 +177,14 @@ class FaultKind(enum.StrEnum):
     """The generator did not say whether its output is on (state now unknown)."""
     GENERATOR_THREAD = "generator-thread"
     """The generator's thread met an unexpected error (a bug); the session went on."""
+    STAGE_ERROR = "stage-error"
+    """The stage reported an error or sent a reply that does not parse; it was told to
+    stop and the session went on."""
+    THERMOMETER_REPLY = "thermometer-reply"
+    """A thermometer reply that does not parse (recorded once until a good one)."""
+    SERIAL_THREAD = "serial-thread"
+    """The stage's or thermometer's thread met an unexpected error (a bug); the session
+    went on."""
 
 
 # -- result columns: one per field of a trace's result, declared with its unit and dtype
