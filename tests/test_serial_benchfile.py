@@ -116,3 +116,12 @@ def test_bad_sections_name_file_and_key(tmp_path, text, names):
     message = str(info.value)
     assert message.startswith(f"{path}: "), message
     assert names in message, message
+
+
+def test_the_readme_example_parses(tmp_path):
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    block = readme.split("```toml\n[stage]", 1)[1].split("```", 1)[0]
+    config = load_bench(bench(tmp_path, "[stage]" + block))
+    assert config.stage is not None and config.stage.port == "/dev/ttyUSB0"
+    assert config.stage.limits["z"] == (0.0, 80.0)
+    assert config.thermometer is not None and config.thermometer.max_age_s == 30.0

@@ -107,6 +107,9 @@ class LiveSession:
     open_thermometer : callable () -> ThermometerPort, optional
         Opens the water thermometer (called again to reconnect); ``max_age_s`` is the
         oldest reading a conversion uses, and ``bench_temperature_c`` the fallback.
+    serial_poll_s : dict, optional
+        ``"stage"`` / ``"thermometer"`` -> reading interval, s (defaults
+        :data:`.stage.POLL_S`, :data:`.thermometer.POLL_S`).
     """
 
     def __init__(self, *, open_digitiser: Callable[[], OpenInstrument],
