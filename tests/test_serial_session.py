@@ -431,6 +431,8 @@ class TestStageTrouble:
         assert wait_for(lambda: s.snapshot().converted >= 3)
         bench.stage_mute = True
         assert wait_for(lambda: not s.snapshot().bench.stage_connected)
+        with pytest.raises(ConnectionLost, match="not sent"):
+            s.move_stage({"x": 0.0})
         lost_at = s.snapshot().acquired
         assert wait_for(lambda: s.snapshot().converted >= lost_at + 5)
         bench.stage_mute = False
@@ -463,8 +465,8 @@ class TestStageTrouble:
         s = make_serial_session(tmp_path, scene, bench, max_traces=None)
         s.start()
         assert wait_for(lambda: s.snapshot().converted >= 2)
-        bench.stage_errors = 1
-        assert wait_for(lambda: ("stop",) in bench.log)
+        bench.stage_errors = 3                   # three in a row: one episode
+        assert wait_for(lambda: ("stop",) in bench.log and bench.stage_errors == 0)
         s.stop("test")
         assert s.wait(10) and s.exit_code == ExitCode.OK
         path = tmp_path / "s.db"

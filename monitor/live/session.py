@@ -324,6 +324,8 @@ class LiveSession:
             The bench has no stage.
         OutsideLimitsError
             A target outside the bench file's soft limits; nothing is sent.
+        ConnectionLost
+            The stage is lost (being reconnected); nothing is sent.
         """
         if self._stage is None:
             raise ConfigError("the bench has no stage to move")

@@ -133,6 +133,7 @@ class StageWorker:
         self._wake = threading.Event()
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
+        self._in_error = False      # a stage error handled, no good reading since
 
     # -- from other threads ---------------------------------------------------------
     @property
@@ -145,8 +146,12 @@ class StageWorker:
 
     def request_move(self, target: dict[str, float]) -> dict[str, float]:
         """Queue an absolute move (axis -> mm) after checking the soft limits; returns the
-        checked target. Raises :class:`OutsideLimitsError` (nothing queued or sent)."""
+        checked target. Raises :class:`OutsideLimitsError` (nothing queued or sent), or
+        :class:`~tankside.drivers.errors.ConnectionLost` while the stage is lost."""
         checked = check_target(target, self.limits)
+        if self.port is None:
+            raise ConnectionLost(f"{INSTRUMENT}: not connected (reconnecting); the move to "
+                                 f"{checked} was not sent")
         self._moves.put(_Move(checked))
         self._wake.set()
         return checked
@@ -222,6 +227,7 @@ class StageWorker:
                 if time.monotonic() >= next_poll:
                     next_poll = time.monotonic() + self.poll_s
                     self._latest = self._read(port)
+                    self._in_error = False
             except InstrumentError as err:
                 lost_at = time.monotonic()
                 self._failed(port, err)
@@ -286,10 +292,17 @@ class StageWorker:
                                               "error": f"dropped: {why}"}, None)
 
     def _failed(self, port: StagePort, err: InstrumentError) -> None:
-        """A stage error: stop it; one that stopped answering is closed and reopened."""
+        """A stage error: stop it; one that stopped answering is closed and reopened.
+
+        An error the stage reports again before a good reading is not recorded again."""
+        lost = isinstance(err, InstrumentTimeout | ConnectionLost)
+        if self._in_error and not lost:
+            self._drop_moves(f"stage error: {err}")
+            return
+        self._in_error = not lost
         self._send_stop(port, "stage error")
         self._drop_moves(f"stage error: {err}")
-        if isinstance(err, InstrumentTimeout | ConnectionLost):
+        if lost:
             self.close()
             self._emit(EventKind.INSTRUMENT_LOST,
                        {"instrument": INSTRUMENT, "message": str(err),
