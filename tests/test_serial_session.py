@@ -490,3 +490,22 @@ class TestStageTrouble:
         assert causes == ["safe-off", "end of session"]
         assert bench.log.count(("stop",)) == 2
 
+
+
+def test_a_water_temperature_change_during_the_session_is_an_alert(tmp_path):
+    scene, bench = Scene(), SerialBench()
+    s = make_serial_session(tmp_path, scene, bench, max_traces=None,
+                            alerts={"water_temperature": {"band_c": 0.0}})
+    s.start()
+    assert wait_for(lambda: s.snapshot().converted >= 3)
+    time.sleep(1.2)                              # a tick judges the first reading
+    bench.temperature_c = 22.4                   # 1.1 degC above it: limit 1 degC
+    assert wait_for(lambda: any(a.rule == "water_temperature" for a in s.snapshot().alerts))
+    s.stop("test")
+    assert s.wait(10) and s.exit_code == ExitCode.OK
+    with SessionReader(tmp_path / "s.db") as r:
+        (alert,) = [a for a in r.alerts() if a["rule"] == "water_temperature"]
+        stored = list(r.iter_traces())
+    assert "changed by +1.1 degC" in alert["message"] and alert["actions"] == ("record", "bell")
+    # the conversion followed the water: both temperatures were used
+    assert {t.result["water_temperature_c"] for t in stored} == {21.3, 22.4}
