@@ -54,6 +54,7 @@ class SerialBench:
         self.log: list[tuple] = []
         self.stage_mute = False
         self.stage_errors = 0           # position() raises an error the stage reports
+        self.moving = False
         self.temperature_c = 21.3
         self.thermometer_mute = False
         self.thermometer_garbled = False
@@ -92,7 +93,7 @@ class FakeStage:
 
     def is_moving(self):
         self._answer()
-        return False
+        return self.bench.moving
 
     def stop(self):
         self.bench.note("stop")
@@ -509,3 +510,19 @@ def test_a_water_temperature_change_during_the_session_is_an_alert(tmp_path):
     assert "changed by +1.1 degC" in alert["message"] and alert["actions"] == ("record", "bell")
     # the conversion followed the water: both temperatures were used
     assert {t.result["water_temperature_c"] for t in stored} == {21.3, 22.4}
+
+
+def test_traces_acquired_while_the_stage_moves_are_flagged(tmp_path):
+    scene, bench = Scene(), SerialBench()
+    s = make_serial_session(tmp_path, scene, bench, max_traces=None)
+    s.start()
+    assert wait_for(lambda: s.snapshot().converted >= 3)
+    bench.moving = True
+    assert wait_for(lambda: s.snapshot().bench.stage_moving)
+    at = s.snapshot().acquired
+    assert wait_for(lambda: s.snapshot().converted >= at + 3)
+    s.stop("test")
+    assert s.wait(10)
+    with SessionReader(tmp_path / "s.db") as r:
+        flags = [t.flags.get("stage_moving", False) for t in r.iter_traces()]
+    assert flags[0] is False and flags[-1] is True

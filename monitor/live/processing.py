@@ -127,6 +127,7 @@ class TraceProcessor:
         self.bench_temperature_c = float(bench_temperature_c)
         self._water_source: WaterSource | None = None   # of the latest trace's conversion
         self._water_used_c = float("nan")
+        self._stage_moving = False      # the latest trace was acquired while it moved
         self.snap = Snapshot(session_path=str(session_path), state="starting")
 
     # -- what the session reads and asks --------------------------------------------
@@ -223,10 +224,8 @@ class TraceProcessor:
             self._no_pulse += 1
         if self._drive_on is False:
             flags["drive_off"] = True
-        if self._stage is not None:
-            reading = self._stage.latest()
-            if reading is not None and reading.moving:
-                flags["stage_moving"] = True
+        if self._stage_moving:
+            flags["stage_moving"] = True        # the position is only where it was read
         if raw.clipped:
             self.clipped += 1
         if result is not None:
@@ -247,10 +246,12 @@ class TraceProcessor:
             return None, None, None
         positions: dict[str, float] = {}
         position = None
+        self._stage_moving = False
         if self._stage is not None:
             reading = self._stage.latest()
             if reading is not None:
                 positions = dict(reading.positions_mm)
+                self._stage_moving = reading.moving
                 # to a micrometre, so that read-back jitter is not a new position for drift
                 position = tuple((axis, round(mm, 3)) for axis, mm in sorted(positions.items()))
         if self._thermometer is None:
