@@ -53,6 +53,11 @@ class ConfigError(TanksideError):
     """The setting at fault (``"clipping.min_samples"``), where the raiser names one."""
 
 
+class OutsideLimitsError(TanksideError):
+    """A stage move outside the bench file's soft limits (``[stage.limits]``), or to an
+    axis without limits; refused before anything is sent to the stage."""
+
+
 class StoreError(TanksideError):
     """The session store cannot be written or read."""
 

@@ -14,6 +14,7 @@ from datetime import datetime
 from typing import TextIO
 
 from .live.snapshot import AlertView, Snapshot
+from .live.views import stage_text, water_text
 from .outcome import ExitStatus
 
 
@@ -49,7 +50,17 @@ def status_line(snap: Snapshot, alert_count: int | None = None) -> str:
             f"{snap.method or '-'} | {nb} | acquired {snap.acquired} converted "
             f"{snap.converted} stored {snap.stored} | queue {snap.queue_depth}/"
             f"{snap.queue_capacity} | range {fmt_si(snap.range_v, 'V')} | alerts {alerts}"
-            f" | doubtful {snap.doubtful_traces}{_last_warnings(snap)}")
+            f" | doubtful {snap.doubtful_traces}{_last_warnings(snap)}{bench_status(snap)}")
+
+
+def bench_status(snap: Snapshot) -> str:
+    """`` | stage x 5.00 ... mm | water 21.30 C (2 s)`` for the serial instruments the
+    bench has ("" when it has neither)."""
+    view = snap.bench
+    if view is None:
+        return ""
+    parts = [stage_text(view), water_text(view, degree="C")]
+    return "".join(f" | {p}" for p in parts if p)
 
 
 def _last_warnings(snap: Snapshot) -> str:

@@ -213,7 +213,35 @@ class SimulatedBench:
             "[session]",
             f"folder = {_toml_str(session_folder)}",
             "",
+            *self._serial_sections(),
         ])
+
+    def _serial_sections(self) -> list[str]:
+        lines: list[str] = []
+        if self.stage is not None:
+            lines += [
+                "# The simulated stage (stage origin at the focus; invented soft limits that",
+                "# keep the hydrophone clear of the invented transducer and walls).",
+                "[stage]",
+                f"profile = {_toml_str(PROFILE_DIR / 'sim-stage.toml')}",
+                f"port = {_toml_str(self.stage.device_path)}",
+                "",
+                "[stage.limits]",
+                "x = [-20.0, 20.0]",
+                "y = [-20.0, 20.0]",
+                "z = [-30.0, 30.0]",
+                "",
+            ]
+        if self.thermometer is not None:
+            lines += [
+                "# The simulated water thermometer (invented slow drift).",
+                "[thermometer]",
+                f"profile = {_toml_str(PROFILE_DIR / 'sim-thermometer.toml')}",
+                f"port = {_toml_str(self.thermometer.device_path)}",
+                "max_age_s = 30.0",
+                "",
+            ]
+        return lines
 
     def write_bench_file(self, path: str | Path, *, session_folder: str = "sessions") -> Path:
         """Write the bench TOML to ``path``; return the path."""

@@ -322,7 +322,6 @@ class Converter:
         # the same regularisation reference for every grid: median |M_L| over the band
         self._reference = regularisation_reference_v_per_pa(
             10.0 ** (self.profile.level_db[inside] / 20.0))
-        self._impedance = self.water.impedance_rayl
         self._settings_dict = self.settings.as_dict()
         self._plans: dict[tuple[int, float], _GridEntry] = {}
         self._alternatives = _phase_alternatives(calibration)
@@ -366,11 +365,14 @@ class Converter:
         return entry
 
     def process(self, voltage_v: np.ndarray, dt_s: float, *,
-                resolution_v: float = 0.0) -> TraceResult:
+                resolution_v: float = 0.0, water: Water | None = None) -> TraceResult:
         """Convert one voltage trace (V, uniform step ``dt_s`` s) to a :class:`TraceResult`.
 
         ``resolution_v`` (volts per digitiser code) keeps the noise estimate from going
-        below the quantisation noise ``resolution_v / sqrt(12)``.
+        below the quantisation noise ``resolution_v / sqrt(12)``. ``water`` (a live
+        thermometer's reading, :meth:`Water.at`) replaces the converter's own water for
+        this trace: its density and sound speed give the intensities and MI, and the
+        result records it. The pressures do not depend on it.
 
         Raises
         ------
@@ -469,7 +471,8 @@ class Converter:
             f_zc = self._zero_crossing(pressure, dt_s, gate, noise_power, doubts)
             if f_zc is not None:
                 f_awf, awf_used = f_zc, "zero-crossing"
-        params = pulse_parameters(pressure, dt_s, f_awf, impedance_rayl=self._impedance,
+        water = self.water if water is None else water
+        params = pulse_parameters(pressure, dt_s, f_awf, impedance_rayl=water.impedance_rayl,
                                   derating_depth_m=s.derating_depth_m,
                                   derating_db_per_cm_mhz=s.derating_db_per_cm_mhz,
                                   bounds=bounds, gate=(gate.start, gate.stop))
@@ -478,7 +481,7 @@ class Converter:
             spread = _p_r_spread(spec, entry.alternatives, n, gate, k1)
         doubts.extend(self._doubts(snr_db, share_outside, spread, gate, noise, n))
         return TraceResult(pressure, dt_s, used, freqs, mag, plan.sensitivity_abs_v_per_pa,
-                           params, nb, self.water, self.calibration.phase_source,
+                           params, nb, water, self.calibration.phase_source,
                            self._settings_dict, f_v, snr_db=snr_db, noise=noise, gate=gate,
                            weights=weights, passband_hz=passband, noise_band_hz=noise_band,
                            warnings=tuple(doubts), awf_method=awf_used,

@@ -51,8 +51,8 @@ def add_parser(subparsers) -> None:
     p.add_argument("--serial", action="store_true",
                    help="also start a simulated stage (it moves the hydrophone in the "
                         "invented scene) and a simulated thermometer, each on a "
-                        "pseudo-terminal, and print their serial device paths; try them "
-                        "with `tankside probe --stage` / `--thermometer`")
+                        "pseudo-terminal; print their serial device paths and write "
+                        "[stage] and [thermometer] into the bench file")
     p.add_argument("--seed", type=SEED, default=0, metavar="N",
                    help="seed of the simulated noise and trigger jitter (default 0)")
     p.add_argument("--trigger-period", type=number(low=1e-4, high=100.0), default=None,

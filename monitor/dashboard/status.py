@@ -7,7 +7,8 @@ import os
 
 from textual.strip import Strip
 
-from ..live.snapshot import Snapshot
+from ..live.snapshot import BenchView, Snapshot
+from ..live.views import stage_text, water_text
 from .panel import LinePanel, text_strips
 from .units import size, volts
 
@@ -33,10 +34,12 @@ class BenchStatus(LinePanel):
         self.invalidate()
 
     def build(self, rows: int, cols: int) -> list[Strip]:
-        return text_strips(self.lines(cols), rows, cols, self.visual_style.rich_style)
+        return text_strips(self.lines(cols, rows), rows, cols, self.visual_style.rich_style)
 
-    def lines(self, cols: int) -> list[list[tuple[str, str]]]:
-        """The panel's lines as (text, style) pieces, for a panel ``cols`` wide."""
+    def lines(self, cols: int, rows: int | None = None) -> list[list[tuple[str, str]]]:
+        """The panel's lines as (text, style) pieces, for a panel ``cols`` wide (and
+        ``rows`` high: with a stage or thermometer line, the session file's name goes
+        when there is no room for it)."""
         snap = self._snap
         if snap is None:
             return [[("waiting for the session", KEY)]]
@@ -61,6 +64,8 @@ class BenchStatus(LinePanel):
                 if inst.detail:
                     line.append((f"  {inst.detail}", KEY))
             lines.append(line)
+        if snap.bench is not None:
+            lines.append(bench_line(snap.bench, cols))
         lines.append([])
         pair("rate", f"{snap.traces_per_s:.1f}/s")
         pair("clipped", str(snap.clipped_traces), BAD if snap.clipped_traces else VALUE)
@@ -84,8 +89,29 @@ class BenchStatus(LinePanel):
         q_style = WARN if half_full else VALUE
         pair("queue", f"{snap.queue_depth}/{snap.queue_capacity}", q_style)
         pair("file", size(snap.session_bytes))
-        lines.append([(os.path.basename(snap.session_path) if snap.session_path else "-", VALUE)])
+        if snap.bench is None or rows is None or len(lines) < rows:
+            lines.append([(os.path.basename(snap.session_path) if snap.session_path else "-",
+                           VALUE)])
         return lines
+
+
+def bench_line(view: BenchView, cols: int) -> list[tuple[str, str]]:
+    """The stage's position and the water's temperature on one line, shorter when
+    ``cols`` is narrow; LOST, or a reading too old to use, in warning colours."""
+    width = max(0, cols - 2)
+    for compact in (False, True):
+        stage = stage_text(view, compact=compact)
+        water = water_text(view, compact=compact)
+        if len(stage) + len(water) + 2 <= width or compact:
+            break
+    line: list[tuple[str, str]] = []
+    if stage:
+        line.append((f"{stage}  ", BAD if not view.stage_connected else
+                     WARN if view.stage_moving else VALUE))
+    if water:
+        line.append((water, BAD if view.has_thermometer and not view.thermometer_connected
+                     else WARN if view.water_source == "bench" else VALUE))
+    return line
 
 
 def count(n: int) -> str:

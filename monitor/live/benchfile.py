@@ -44,6 +44,21 @@ Layout (every section except ``[digitiser]`` and ``[calibration]`` is optional):
     queue_capacity = 64
     reconnect_give_up_s = 60.0
 
+    [stage]                # a positioning stage on a serial line (optional)
+    profile = "stage.toml"                  # stage profile (TOML, kind = "stage")
+    port = "/dev/ttyUSB0"                   # serial device; or address = "host:port"
+    baud_rate = 115200                      # optional, overrides the profile
+    timeout_s = 1.0                         # optional, overrides the profile
+    [stage.limits]         # mm; soft limits of every axis, required with [stage]
+    x = [-20.0, 20.0]
+    y = [-20.0, 20.0]
+    z = [0.0, 80.0]
+
+    [thermometer]          # a water thermometer on a serial line (optional)
+    profile = "thermometer.toml"            # thermometer profile (kind = "thermometer")
+    port = "/dev/ttyUSB1"                   # or address = "host:port"
+    max_age_s = 30.0       # an older reading: the [water] temperature, with a warning
+
 Relative paths (profile, calibration file, session folder) are resolved against the
 folder that holds the bench file, so a bench folder can be moved as a whole.
 """
@@ -81,7 +96,12 @@ _SESSION_KEYS = {
 # Plausibility checks of the calibration loader (tankside.monitor.acoustics.calibration).
 _CALIBRATION_CHECKS = {"max_step_db": float, "check_phase_steps": bool}
 _SECTIONS = ("digitiser", "generator", "calibration", "loading", "conversion", "water",
-             "alerts", "session")
+             "alerts", "session", "stage", "thermometer")
+# Keys of [stage] and [thermometer] (serial instruments); limits are [stage.limits].
+_SERIAL_KEYS = {"profile": str, "port": str, "address": str, "baud_rate": int,
+                "timeout_s": float}
+_THERMOMETER_EXTRA = {"max_age_s": float}
+DEFAULT_MAX_AGE_S = 30.0
 
 
 @dataclass(frozen=True)
@@ -115,6 +135,45 @@ class GeneratorConfig(InstrumentConfig):
 
 
 @dataclass(frozen=True)
+class SerialConfig:
+    """How to reach a serial-line instrument (stage, thermometer).
+
+    ``profile`` is an absolute path (or a bare name); exactly one of ``port`` (a serial
+    device path) and ``address`` (``"host:port"`` over TCP) is set. ``baud_rate`` and
+    ``timeout_s`` (s) override the profile's when given.
+    """
+
+    profile: str
+    port: str | None = None
+    address: str | None = None
+    baud_rate: int | None = None
+    timeout_s: float | None = None
+
+    @property
+    def resource(self) -> str:
+        """The port or address, as the status view and the instrument lock name it."""
+        return self.port if self.port is not None else str(self.address)
+
+
+@dataclass(frozen=True)
+class StageConfig(SerialConfig):
+    """The stage's connection and its soft limits: axis -> (low, high), mm.
+
+    A move outside the limits is refused before anything is sent.
+    """
+
+    limits: dict[str, tuple[float, float]] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class ThermometerConfig(SerialConfig):
+    """The thermometer's connection; a reading older than ``max_age_s`` (s) is not used
+    (the conversion falls back to the bench's ``[water] temperature_c``, with a warning)."""
+
+    max_age_s: float = DEFAULT_MAX_AGE_S
+
+
+@dataclass(frozen=True)
 class BenchConfig:
     """A validated bench file (after command-line overrides).
 
@@ -138,6 +197,8 @@ class BenchConfig:
     reconnect_give_up_s: float = 60.0
     tables: dict = field(default_factory=dict)
     calibration_checks: dict = field(default_factory=dict)
+    stage: StageConfig | None = None
+    thermometer: ThermometerConfig | None = None
 
     def digitiser_settings(self):
         """The :class:`tankside.drivers.digitiser.DigitiserSettings` of ``[digitiser]``."""
@@ -289,6 +350,60 @@ def _instrument(table: dict, name: str, source: str, base: Path, extra: dict):
     return conn, rest
 
 
+def _serial(table: dict, name: str, source: str, base: Path, extra: dict) -> dict[str, Any]:
+    """The connection keys of ``[stage]`` or ``[thermometer]``, checked (no limits)."""
+    values: dict[str, Any] = {}
+    for key, value in table.items():
+        if key == "limits" and name == "stage":
+            continue
+        kind = _SERIAL_KEYS.get(key, extra.get(key))
+        if kind is None:
+            known = ", ".join((*_SERIAL_KEYS, *extra, *(("limits",) if name == "stage" else ())))
+            raise ConfigError(f"{source}: [{name}] {key}: unknown key (expected one of {known})")
+        values[key] = _typed(value, kind, source, f"[{name}] {key}")
+    if "profile" not in values:
+        raise ConfigError(f"{source}: [{name}] profile: missing")
+    if ("port" in values) == ("address" in values):
+        raise ConfigError(f"{source}: [{name}] port: give either port (a serial device) or "
+                          "address (host:port), not both or neither")
+    if "address" in values:
+        host, sep, port = values["address"].rpartition(":")
+        if not (sep and host and port.isdigit() and 0 < int(port) < 65536):
+            raise ConfigError(f"{source}: [{name}] address: expected host:port, got "
+                              f"{values['address']!r}")
+    for key in ("baud_rate", "timeout_s", *extra):
+        if key in values and values[key] <= 0:
+            raise ConfigError(f"{source}: [{name}] {key}: must be above 0")
+    values["profile"] = _resolve_profile(values["profile"], base)
+    return values
+
+
+def _stage_limits(table: dict, source: str) -> dict[str, tuple[float, float]]:
+    """``[stage.limits]``: axis -> [low, high] in mm, low below high, at least one axis."""
+    limits = table.get("limits")
+    if limits is None:
+        raise ConfigError(f"{source}: [stage.limits]: missing; give the soft limits of every "
+                          "axis in mm (x = [-20.0, 20.0], ...), the travel in which the "
+                          "hydrophone cannot hit the transducer or the tank wall")
+    if not isinstance(limits, dict) or not limits:
+        raise ConfigError(f"{source}: [stage.limits]: expected a table of axis = [low, high] "
+                          "in mm")
+    out: dict[str, tuple[float, float]] = {}
+    for axis, pair in limits.items():
+        where = f"[stage.limits] {axis}"
+        if not (axis.isidentifier() and axis.isascii()):
+            raise ConfigError(f"{source}: {where}: an axis name must be a plain word")
+        if not isinstance(pair, list) or len(pair) != 2:
+            raise ConfigError(f"{source}: {where}: expected [low, high] in mm, got {pair!r}")
+        low = _typed(pair[0], float, source, where)
+        high = _typed(pair[1], float, source, where)
+        if not low < high:
+            raise ConfigError(f"{source}: {where}: low {low:g} mm must be below high "
+                              f"{high:g} mm")
+        out[axis] = (low, high)
+    return out
+
+
 def merge_overrides(data: dict, overrides: dict | None) -> dict:
     """Return a copy of the bench tables with ``overrides`` applied.
 
@@ -422,8 +537,23 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
     if sess_values.get("queue_capacity", 1) < 1:
         raise ConfigError(f"{source}: [session] queue_capacity: must be at least 1")
 
+    stage = None
+    stage_table = _section(data, "stage", source, False)
+    if "stage" in data:
+        stage = StageConfig(**_serial(stage_table, "stage", source, base, {}),
+                            limits=_stage_limits(stage_table, source))
+    thermometer = None
+    thermo_table = _section(data, "thermometer", source, False)
+    if "thermometer" in data:
+        thermometer = ThermometerConfig(**_serial(thermo_table, "thermometer", source, base,
+                                                  _THERMOMETER_EXTRA))
+
     tables = copy.deepcopy(data)
     tables.setdefault("digitiser", {})["profile"] = dig_conn["profile"]
+    if stage is not None:
+        tables["stage"]["profile"] = stage.profile
+    if thermometer is not None:
+        tables["thermometer"]["profile"] = thermometer.profile
     if gen is not None:
         tables["generator"]["profile"] = gen.profile
     tables["calibration"] = {"file": str(cal_path), **cal_checks}
@@ -443,5 +573,7 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
         session_folder=folder,
         tables=tables,
         calibration_checks=cal_checks,
+        stage=stage,
+        thermometer=thermometer,
         **sess_values,
     )

@@ -61,7 +61,17 @@ def session_parts(bench: Any, *, session_path: str | Path | None = None) -> dict
                 lambda device: instruments.apply_generator_settings(device, gen_config),
             "leave_drive_on_at_end": gen_config.leave_on_at_end,
             "safe_off_give_up_s": gen_config.safe_off_give_up_s}
-    return {**generator, "open_digitiser": open_dig, "open_generator": open_gen,
+    serial: dict[str, Any] = {}
+    if getattr(bench, "stage", None) is not None:
+        resources["stage"] = bench.stage.resource
+        serial["open_stage"] = instruments.stage_opener(bench.stage)
+        serial["stage_limits"] = dict(bench.stage.limits)
+    if getattr(bench, "thermometer", None) is not None:
+        resources["thermometer"] = bench.thermometer.resource
+        serial["open_thermometer"] = instruments.thermometer_opener(bench.thermometer)
+        serial["max_age_s"] = bench.thermometer.max_age_s
+        serial["bench_temperature_c"] = bench.temperature_c
+    return {**generator, **serial, "open_digitiser": open_dig, "open_generator": open_gen,
             "converter": converter,
             "rules": rules, "open_store": open_store, "metadata": metadata,
             "session_path": path, "trigger_timeout_s": bench.trigger_timeout_s,

@@ -47,7 +47,8 @@ if TYPE_CHECKING:
     from .benchfile import BenchConfig
 
 #: The session methods the parent may call in the child (stop has no answer).
-COMMANDS = ("mark", "acknowledge", "set_method", "switch_drive", "reset_figures")
+COMMANDS = ("mark", "acknowledge", "set_method", "switch_drive", "reset_figures",
+            "move_stage", "stop_stage")
 #: How long a command waits for the child's answer, s.
 ANSWER_WAIT_S = 10.0
 #: How long the child waits, after its session has ended, for the parent to ask for
@@ -189,6 +190,14 @@ class SessionProcess:
 
     def reset_figures(self, cause: str = "operator") -> None:
         self._call("reset_figures", str(cause))
+
+    def move_stage(self, target: dict[str, float]) -> None:
+        """Move the stage (see ``LiveSession.move_stage``; a target outside the soft
+        limits raises OutsideLimitsError here, nothing sent)."""
+        self._call("move_stage", {str(axis): mm for axis, mm in dict(target).items()})
+
+    def stop_stage(self, cause: str = "operator") -> None:
+        self._call("stop_stage", str(cause))
 
     def stop(self, reason: str = "operator") -> None:
         """Ask the child to stop its session cleanly; returns at once.

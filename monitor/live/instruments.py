@@ -12,6 +12,8 @@ from ...drivers.errors import InstrumentError
 from ...drivers.generator import Generator
 from ...drivers.profile import load_profile
 from ...drivers.scpi import ScpiLink
+from ...drivers.stage import Stage, load_stage_profile, open_stage
+from ...drivers.thermometer import Thermometer, load_thermometer_profile, open_thermometer
 from .acquisition import OpenInstrument
 
 
@@ -114,3 +116,28 @@ def apply_generator_settings(device, config) -> None:
     if config.burst_cycles is not None or config.burst_period_s is not None:
         device.set_burst(config.burst_cycles, config.burst_period_s)
 
+
+def stage_opener(config):
+    """Returns ``open() -> Stage`` for a bench's ``[stage]`` (a
+    :class:`~tankside.monitor.live.benchfile.StageConfig`): the profile is loaded now, so
+    a bad one is reported before anything is opened; the soft limits go to the driver
+    too, which refuses a target outside them before sending."""
+    profile = load_stage_profile(config.profile)
+
+    def open_() -> Stage:
+        return open_stage(profile, port=config.port, address=config.address,
+                          baud_rate=config.baud_rate, timeout_s=config.timeout_s,
+                          limits=dict(config.limits))
+
+    return open_
+
+
+def thermometer_opener(config):
+    """Returns ``open() -> Thermometer`` for a bench's ``[thermometer]``."""
+    profile = load_thermometer_profile(config.profile)
+
+    def open_() -> Thermometer:
+        return open_thermometer(profile, port=config.port, address=config.address,
+                                baud_rate=config.baud_rate, timeout_s=config.timeout_s)
+
+    return open_

@@ -28,16 +28,21 @@ from typing import Any
 
 import numpy as np
 
+from ..acoustics.water import Water
 from ..errors import TanksideError
-from ..record.schema import EventKind, FaultKind
+from ..record.benchstate import TraceBench
+from ..record.schema import EventKind, FaultKind, WaterSource
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop
 from .actions import Cause, SafeOff, SetRange
 from .autorange import range_after
+from .benchfile import DEFAULT_MAX_AGE_S
 from .figures import FigureSet, RateMeter
 from .generator import GeneratorWorker
 from .recorder import AlertItem, EventItem, TraceItem
 from .rules import Firing, observation_from_trace
-from .snapshot import AlertView, EventView, InstrumentView, Snapshot
+from .snapshot import AlertView, BenchView, EventView, InstrumentView, Snapshot
+from .stage import StageWorker
+from .thermometer import ThermometerWorker, WaterChoice, water_for_trace
 from .views import drive_text, event_text, optional_bool, result_arrays
 
 MAX_ALERTS_SHOWN = 300
@@ -87,13 +92,23 @@ class TraceProcessor:
         Keywords for :func:`tankside.monitor.live.autorange.range_after`.
     resources : dict, optional
         Instrument name -> resource string, for the instrument views.
+    stage : StageWorker, optional
+        Its latest position goes with each trace; a safe-off also stops it.
+    thermometer : ThermometerWorker, optional
+        Its latest reading sets each trace's water (see :func:`.thermometer.water_for_trace`).
+    max_age_s : float
+        The oldest reading a conversion uses, s (``[thermometer] max_age_s``).
+    bench_temperature_c : float
+        The bench file's ``[water] temperature_c``: the fallback.
     """
 
     def __init__(self, *, converter: Any, rules: Any, acquisition: AcquisitionLoop,
                  generator: GeneratorWorker | None, record: Callable[[Any], None],
                  stop_by_rule: Callable[[str], None],
                  session_path: Path, method: str, bell: Callable[[], None] | None = None,
-                 autorange_options: dict | None = None, resources: dict | None = None):
+                 autorange_options: dict | None = None, resources: dict | None = None,
+                 stage: StageWorker | None = None, thermometer: ThermometerWorker | None = None,
+                 max_age_s: float = DEFAULT_MAX_AGE_S, bench_temperature_c: float = 20.0):
         self._converter = converter
         self._rules = rules
         self._acq = acquisition
@@ -131,6 +146,13 @@ class TraceProcessor:
         self._left_out_counts: dict[str, int] = {}
         self._figures_since = (float("nan"), "")
         self._numeric_error_shown = False   # the first one's traceback goes to stderr
+        self._stage = stage
+        self._thermometer = thermometer
+        self.max_age_s = float(max_age_s)
+        self.bench_temperature_c = float(bench_temperature_c)
+        self._water_source: WaterSource | None = None   # of the latest trace's conversion
+        self._water_used_c = float("nan")
+        self._stage_moving = False      # the latest trace was acquired while it moved
         self.snap = Snapshot(session_path=str(session_path), state="starting")
 
     # -- what the session reads and asks --------------------------------------------
@@ -203,10 +225,14 @@ class TraceProcessor:
         error = None
         with np.errstate(all="ignore"):     # codes x scale may overflow: judged below
             volts = raw.volts()
+        bench, water, position = self._bench_at(raw)
+        # (without a thermometer the converter is called as it always was)
+        water_kw = {} if water is None else {"water": water}
         try:
             # one code's worth of volts: the noise floor of a quantised quiet record
             result = self._converter.process(volts, raw.dt_s,
-                                             resolution_v=abs(float(raw.volts_per_code)))
+                                             resolution_v=abs(float(raw.volts_per_code)),
+                                             **water_kw)
             flat = result.flat()
             self.converted += 1
         except TanksideError as err:
@@ -222,7 +248,7 @@ class TraceProcessor:
                 traceback.print_exc(file=sys.stderr)
         codes = () if result is None else tuple(str(w.code) for w in result.warnings)
         obs = observation_from_trace(raw, flat, error, method_in_use=self.method,
-                                     volts_v=volts, drive_on=self._drive_on,
+                                     volts_v=volts, drive_on=self._drive_on, position=position,
                                      warning_codes=codes, **self._rules.presence_options())
         self._range_v = raw.range_v
         self._fraction = obs.fraction_of_full_scale
@@ -238,6 +264,8 @@ class TraceProcessor:
             self._no_pulse += 1
         if self._drive_on is False:
             flags["drive_off"] = True
+        if self._stage_moving:
+            flags["stage_moving"] = True        # the position is only where it was read
         if raw.clipped:
             self.clipped += 1
         if result is not None:
@@ -254,8 +282,82 @@ class TraceProcessor:
         elif flat is not None:          # always so when nothing left it out
             self._figures.add(flat)
             self._figures_time_s = float(raw.time_s)
-        self._record(TraceItem(raw, flat, flags, error))
+        self._record(TraceItem(raw, flat, flags, error, bench))
         self._publish_trace(raw, volts, result, flat)
+
+    # -- stage position and water, per trace ------------------------------------------
+    def _bench_at(self, raw: Any) -> tuple[TraceBench | None, Water | None, tuple | None]:
+        """The bench state to record with ``raw``, the water its conversion uses (None:
+        the converter's own, no thermometer) and its position for the rules."""
+        if self._stage is None and self._thermometer is None:
+            return None, None, None
+        positions: dict[str, float] = {}
+        position = None
+        self._stage_moving = False
+        if self._stage is not None:
+            reading = self._stage.latest()
+            if reading is not None:
+                positions = dict(reading.positions_mm)
+                self._stage_moving = reading.moving
+                # to a micrometre, so that read-back jitter is not a new position for drift
+                position = tuple((axis, round(mm, 3)) for axis, mm in sorted(positions.items()))
+        if self._thermometer is None:
+            return TraceBench(positions_mm=positions), None, position
+        choice = water_for_trace(self._thermometer.latest(), raw.time_s,
+                                 max_age_s=self.max_age_s, bench_c=self.bench_temperature_c)
+        if choice.source != self._water_source:
+            self._water_source_changed(choice, raw)
+        self._water_used_c = choice.temperature_c
+        bench = TraceBench(positions_mm=positions, water_reading_c=choice.reading_c,
+                           water_reading_age_s=choice.age_s, water_source=choice.source)
+        return bench, Water.at(choice.temperature_c), position
+
+    def _water_source_changed(self, choice: WaterChoice, raw: Any) -> None:
+        first = self._water_source is None
+        self._water_source = choice.source
+        detail = {"source": choice.source, "reading_c": choice.reading_c,
+                  "age_s": choice.age_s, "max_age_s": self.max_age_s,
+                  "temperature_c": choice.temperature_c, "from_seq": raw.seq}
+        self._record(EventItem(raw.time_s, EventKind.WATER_SOURCE, detail, seq=raw.seq))
+        if choice.source == WaterSource.BENCH:
+            self.handle_firings([Firing(
+                rule="water-reading-old", severity="warning",
+                message=(f"Water temperature from the bench file ({choice.temperature_c:g} "
+                         f"degC) from trace {raw.seq}: {choice.why}"),
+                actions=("record",), seq=raw.seq, detail=detail, time_s=raw.time_s)],
+                judged_trace=False)
+        elif not first:
+            self.publish()
+
+    def water_reading_for_rules(self, now_s: float) -> float | None:
+        """The thermometer's latest reading when a conversion at ``now_s`` would use it."""
+        if self._thermometer is None:
+            return None
+        choice = water_for_trace(self._thermometer.latest(), now_s, max_age_s=self.max_age_s,
+                                 bench_c=self.bench_temperature_c)
+        return choice.reading_c if choice.source == WaterSource.THERMOMETER else None
+
+    def _bench_view(self) -> BenchView | None:
+        stage, thermo = self._stage, self._thermometer
+        if stage is None and thermo is None:
+            return None
+        view = BenchView(water_temperature_c=self._water_used_c,
+                         water_source=str(self._water_source or ""), max_age_s=self.max_age_s)
+        if stage is not None:
+            reading = stage.latest()
+            view.has_stage = True
+            view.stage_connected = stage.connected
+            if reading is not None:
+                view.position_mm = dict(reading.positions_mm)
+                view.stage_moving = reading.moving
+        if thermo is not None:
+            latest = thermo.latest()
+            view.has_thermometer = True
+            view.thermometer_connected = thermo.connected
+            if latest is not None:
+                view.reading_c = latest.temperature_c
+                view.reading_age_s = max(0.0, time.time() - latest.time_s)
+        return view
 
     def _switch_method(self, method: str, seq: int) -> None:
         self.pending_method = None
@@ -321,6 +423,8 @@ class TraceProcessor:
             self.snap = dataclasses.replace(self.snap, alerts=self._alerts_copy())
 
     def _safe_off(self, cause: Cause, time_s: float) -> None:
+        if self._stage is not None:
+            self._stage.request_stop("safe-off")
         if self._generator is not None:
             self._generator.request(SafeOff(cause))
             return
@@ -381,7 +485,7 @@ class TraceProcessor:
             figures_time_s=self._figures_time_s, figures_left_out=self._figures_left_out,
             figures_left_out_counts=dict(self._left_out_counts),
             figures_since_s=self._figures_since[0], figures_since_reason=self._figures_since[1],
-            events=self._events_copy(),
+            events=self._events_copy(), bench=self._bench_view(),
             state=state or self.snap.state,
             stop_reason=self.snap.stop_reason if stop_reason is None else stop_reason)
 

@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING, Any
 
 from ..errors import StoreError
 from ..outcome import ExitStatus
+from ..record.benchstate import TraceBench
 from ..record.schema import EventKind
 
 if TYPE_CHECKING:
@@ -29,6 +30,7 @@ class TraceItem:
     result: dict | None
     flags: dict
     error: str | None
+    bench: TraceBench | None = None     # stage position and water reading (layout 3)
 
 
 @dataclass
@@ -159,7 +161,7 @@ class Writer:
     def _handle(self, item: object) -> None:
         store = self._open_store()
         if isinstance(item, TraceItem):
-            store.add_trace(item.raw, item.result, item.flags or None, item.error)
+            store.add_trace(item.raw, item.result, item.flags or None, item.error, item.bench)
             self.stored += 1
             if self._oldest_uncommitted_s is None:
                 self._oldest_uncommitted_s = float(item.raw.time_s)

@@ -143,6 +143,13 @@ RULES: MappingProxyType[str, RuleSpec] = MappingProxyType({spec.name: spec for s
     RuleSpec("store_lag", Severity.WARNING, (Action.RECORD,), (
         Param(key="max_lag_s", kind=ParamKind.FLOAT, default=5.0, unit="s", low=0.0,
               meaning="age of the oldest uncommitted trace"),)),
+    RuleSpec("water_temperature", Severity.WARNING, (Action.RECORD, Action.BELL), (
+        Param(key="band_c", kind=ParamKind.FLOAT, default=2.0, unit="degC", low=0.0,
+              low_inclusive=True,
+              meaning="half-width of the band around [water] temperature_c (0: no band check)"),
+        Param(key="max_change_c", kind=ParamKind.FLOAT, default=1.0, unit="degC", low=0.0,
+              low_inclusive=True,
+              meaning="change from the session's first reading (0: no change check)"))),
 )})
 
 COMMON_KEYS = ("enabled", "severity", "actions", "repeat_after_s", "clear_after_traces")

@@ -155,6 +155,9 @@ class TickObservation:
         Free space on the disk holding the session file; None when unknown.
     store_lag_s : float
         Age of the oldest trace not yet committed to the store, s (0 when none).
+    water_reading_c : float or None
+        The thermometer's latest reading when it is fresh enough to be used, degC; None
+        without a thermometer or when the reading is too old.
     """
 
     now_s: float
@@ -163,6 +166,7 @@ class TickObservation:
     queue_capacity: int = 0
     disk_free_bytes: int | None = None
     store_lag_s: float = 0.0
+    water_reading_c: float | None = None
 
 
 @dataclass(frozen=True)
@@ -303,8 +307,11 @@ class RuleEngine:
     engine per session, fed from one thread.
     """
 
-    def __init__(self, config: AlertConfig | None = None):
+    def __init__(self, config: AlertConfig | None = None, *, water_reference_c: float = 20.0):
         self.config = config if config is not None else AlertConfig.defaults()
+        # the centre of water_temperature's band: the bench file's [water] temperature_c
+        self.water_reference_c = float(water_reference_c)
+        self._first_water_c: float | None = None
         self._latches = {name: _Latch(rule.repeat_after_s, rule.clear_after_traces)
                          for name, rule in self.config.rules.items()}
         self._range_v: float | None = None
@@ -399,6 +406,7 @@ class RuleEngine:
             "disk_space_low": self._disk_space_low(tick),
             "falling_behind": self._falling_behind(tick),
             "store_lag": self._store_lag(tick),
+            "water_temperature": self._water_temperature(tick),
         }
         return self._fire(verdicts, tick.now_s, None)
 
@@ -584,6 +592,33 @@ class RuleEngine:
                    f"{tick.store_lag_s:.1f} s old (limit {limit:g} s).")
         detail = {"store_lag_s": tick.store_lag_s, "max_lag_s": limit}
         return tick.store_lag_s >= limit, message, detail
+
+
+    def _water_temperature(self, tick: TickObservation) -> _Verdict:
+        reading = tick.water_reading_c
+        if reading is None or not math.isfinite(reading):
+            return None
+        if self._first_water_c is None:
+            self._first_water_c = reading
+        band = self._p("water_temperature", "band_c")
+        max_change = self._p("water_temperature", "max_change_c")
+        centre, first = self.water_reference_c, self._first_water_c
+        change = reading - first
+        outside = band > 0 and abs(reading - centre) >= band
+        changed = max_change > 0 and abs(change) >= max_change
+        why = []
+        if outside:
+            why.append(f"outside the band {centre - band:.4g} to {centre + band:.4g} degC "
+                       f"([water] temperature_c {centre:g} +/- {band:g})")
+        if changed:
+            why.append(f"changed by {change:+.3g} degC since the session's first reading "
+                       f"{first:.4g} degC (limit {max_change:g} degC)")
+        message = (f"Water temperature {reading:.4g} degC: {' and '.join(why) or 'in band'}; "
+                   "the conversion's sound speed and density follow it.")
+        detail = {"reading_c": reading, "reference_c": centre, "band_c": band,
+                  "first_reading_c": first, "change_c": change, "max_change_c": max_change,
+                  "outside_band": outside, "changed": changed}
+        return outside or changed, message, detail
 
 
 class _Unset:

@@ -38,12 +38,18 @@ from ..errors import ConfigError
 from ..outcome import ExitStatus
 from ..record.schema import EventKind
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop, OpenInstrument
+from .benchfile import DEFAULT_MAX_AGE_S
 from .generator import DEFAULT_SAFE_OFF_GIVE_UP_S, DriveOff, DriveOn, GeneratorWorker
 from .locks import InstrumentLock
 from .processing import TraceProcessor
 from .recorder import END, AckItem, CloseItem, EventItem, Writer
 from .rules import TickObservation
+from .serial_ports import StagePort, ThermometerPort
 from .snapshot import Snapshot
+from .stage import POLL_S as STAGE_POLL_S
+from .stage import StageWorker
+from .thermometer import POLL_S as THERMOMETER_POLL_S
+from .thermometer import ThermometerWorker
 
 TICK_EVERY_S = 1.0
 
@@ -95,6 +101,15 @@ class LiveSession:
         ``up_on_clip``).
     resources : dict, optional
         Name -> resource string, for the instrument status view.
+    open_stage : callable () -> StagePort, optional
+        Opens the positioning stage (called again to reconnect); with ``stage_limits``,
+        axis -> (low, high) in mm, the bench file's soft limits.
+    open_thermometer : callable () -> ThermometerPort, optional
+        Opens the water thermometer (called again to reconnect); ``max_age_s`` is the
+        oldest reading a conversion uses, and ``bench_temperature_c`` the fallback.
+    serial_poll_s : dict, optional
+        ``"stage"`` / ``"thermometer"`` -> reading interval, s (defaults
+        :data:`.stage.POLL_S`, :data:`.thermometer.POLL_S`).
     """
 
     def __init__(self, *, open_digitiser: Callable[[], OpenInstrument],
@@ -108,7 +123,12 @@ class LiveSession:
                  method: str | None = None,
                  apply_generator_settings: Callable[[Any], None] | None = None,
                  drive_on_at_start: str | None = None, leave_drive_on_at_end: bool = False,
-                 safe_off_give_up_s: float = DEFAULT_SAFE_OFF_GIVE_UP_S):
+                 safe_off_give_up_s: float = DEFAULT_SAFE_OFF_GIVE_UP_S,
+                 open_stage: Callable[[], StagePort] | None = None,
+                 stage_limits: dict[str, tuple[float, float]] | None = None,
+                 open_thermometer: Callable[[], ThermometerPort] | None = None,
+                 max_age_s: float = DEFAULT_MAX_AGE_S, bench_temperature_c: float = 20.0,
+                 serial_poll_s: dict[str, float] | None = None):
         self.session_path = Path(session_path)
         self._rules = rules
         self._open_store = open_store
@@ -127,6 +147,22 @@ class LiveSession:
                 emit=lambda kind, detail, alert: self._acq.event(kind, detail, alert),
                 current_seq=lambda: self._acq.seq, on_unsafe=self._drive_unsafe,
                 safe_off_give_up_s=safe_off_give_up_s)
+        # the stage and the thermometer: threads of their own, events in order with the traces
+        polls = dict(serial_poll_s or {})
+        self._stage: StageWorker | None = None
+        if open_stage is not None:
+            self._stage = StageWorker(
+                open_stage=open_stage, limits=dict(stage_limits or {}),
+                emit=lambda kind, detail, alert: self._acq.event(kind, detail, alert),
+                current_seq=lambda: self._acq.seq,
+                poll_s=polls.get("stage", STAGE_POLL_S))
+        self._thermometer: ThermometerWorker | None = None
+        if open_thermometer is not None:
+            self._thermometer = ThermometerWorker(
+                open_thermometer=open_thermometer,
+                emit=lambda kind, detail, alert: self._acq.event(kind, detail, alert),
+                current_seq=lambda: self._acq.seq,
+                poll_s=polls.get("thermometer", THERMOMETER_POLL_S))
         self._acq = AcquisitionLoop(open_digitiser=open_digitiser, out=self._raw_q,
                                     stop=self._stop, trigger_timeout_s=trigger_timeout_s,
                                     give_up_s=give_up_s, max_traces=max_traces, gate=gate,
@@ -142,7 +178,9 @@ class LiveSession:
             record=self._put,
             stop_by_rule=lambda reason: self._request_stop(ExitStatus.STOPPED_BY_RULE, reason),
             session_path=self.session_path, method=method or _method_of(converter),
-            bell=bell, autorange_options=autorange_options, resources=self._resources)
+            bell=bell, autorange_options=autorange_options, resources=self._resources,
+            stage=self._stage, thermometer=self._thermometer, max_age_s=max_age_s,
+            bench_temperature_c=bench_temperature_c)
         self._writer_thread: threading.Thread | None = None
         self._acquisition_thread: threading.Thread | None = None
         self._done = threading.Event()
@@ -192,6 +230,10 @@ class LiveSession:
             self._acq.connect()
             if self._gen is not None:
                 self._gen.connect()
+            if self._stage is not None:
+                self._stage.connect()
+            if self._thermometer is not None:
+                self._thermometer.connect()
         except BaseException:
             self._close_instruments()
             self._done.set()        # never ran: not running, nothing to wait for
@@ -202,6 +244,13 @@ class LiveSession:
         if self._gen is not None:
             identities["generator"] = {"resource": self._resources.get("generator", ""),
                                        "identity": self._gen.identity}
+        if self._stage is not None:
+            identities["stage"] = {"resource": self._resources.get("stage", ""),
+                                   "identity": self._stage.identity,
+                                   "axes": list(self._stage.axes)}
+        if self._thermometer is not None:
+            identities["thermometer"] = {"resource": self._resources.get("thermometer", ""),
+                                         "identity": self._thermometer.identity}
         wt = threading.Thread(target=self._writer.run, name="tankside-writer", daemon=True)
         try:
             self._meta = self._metadata(identities)
@@ -242,6 +291,10 @@ class LiveSession:
             if self._drive_on_at_start:
                 self._gen.request(DriveOn(self._drive_on_at_start))
             self._gen.start()
+        if self._stage is not None:
+            self._stage.start()
+        if self._thermometer is not None:
+            self._thermometer.start()
         at.start()
 
     def prepare(self) -> None:
@@ -259,6 +312,30 @@ class LiveSession:
         if self._gen is None:
             raise ConfigError("the bench has no generator to switch")
         self._gen.request(DriveOn(str(cause)) if on else DriveOff(str(cause)))
+
+    def move_stage(self, target: dict[str, float]) -> dict[str, float]:
+        """Move the stage (absolute, axis -> mm; only the axes given); returns at once
+        with the checked target. The move is recorded as an event; the snapshot's
+        ``bench`` shows the position as the stage reports it.
+
+        Raises
+        ------
+        ConfigError
+            The bench has no stage.
+        OutsideLimitsError
+            A target outside the bench file's soft limits; nothing is sent.
+        ConnectionLost
+            The stage is lost (being reconnected); nothing is sent.
+        """
+        if self._stage is None:
+            raise ConfigError("the bench has no stage to move")
+        return self._stage.request_move(dict(target))
+
+    def stop_stage(self, cause: str = "operator") -> None:
+        """Stop the stage at once (recorded as an event)."""
+        if self._stage is None:
+            raise ConfigError("the bench has no stage to stop")
+        self._stage.request_stop(str(cause))
 
     def snapshot(self) -> Snapshot:
         """The latest state, with live counters; never blocks."""
@@ -374,6 +451,10 @@ class LiveSession:
         self._acq.close_links()
         if self._gen is not None:
             self._gen.close()
+        if self._stage is not None:
+            self._stage.close()
+        if self._thermometer is not None:
+            self._thermometer.close()
         for lock in self._locks:
             lock.release()
         self._locks = []
@@ -406,6 +487,10 @@ class LiveSession:
             if self._gen is not None:
                 # recorded before the end marker, so the file holds the final state
                 self._gen.stop(leave_on=self._leave_drive_on)
+            if self._stage is not None:
+                self._stage.stop("end of session")
+            if self._thermometer is not None:
+                self._thermometer.stop()
             while True:
                 try:
                     self._raw_q.put(END, timeout=0.1)
@@ -491,7 +576,8 @@ class LiveSession:
         tick = TickObservation(now_s=now_s,
                                since_trigger_s=time.monotonic() - self._acq.last_trigger_mono,
                                queue_depth=depth, queue_capacity=cap, disk_free_bytes=free,
-                               store_lag_s=self._writer.store_lag_s(now_s))
+                               store_lag_s=self._writer.store_lag_s(now_s),
+                               water_reading_c=self._proc.water_reading_for_rules(now_s))
         self._proc.handle_firings(self._rules.on_tick(tick), judged_trace=False)
         self._proc.flush_latest()
         self._proc.publish(stop_reason=self._reason)

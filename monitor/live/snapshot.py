@@ -72,6 +72,30 @@ class InstrumentView:
 
 
 @dataclass
+class BenchView:
+    """The stage and the thermometer as a display shows them (the bench line).
+
+    ``position_mm`` is every axis's latest position (empty while the stage is lost);
+    ``reading_c`` and ``reading_age_s`` the thermometer's latest reading and its age
+    now (None before the first); ``water_temperature_c`` the temperature the latest
+    trace's conversion used, and ``water_source`` where it came from
+    (``thermometer`` or ``bench``; "" before the first trace).
+    """
+
+    has_stage: bool = False
+    stage_connected: bool = False
+    stage_moving: bool = False
+    position_mm: dict[str, float] = field(default_factory=dict)
+    has_thermometer: bool = False
+    thermometer_connected: bool = False
+    reading_c: float | None = None
+    reading_age_s: float | None = None
+    max_age_s: float = float("nan")
+    water_temperature_c: float = float("nan")
+    water_source: str = ""
+
+
+@dataclass
 class Snapshot:
     """The latest state of a live session.
 
@@ -142,3 +166,5 @@ class Snapshot:
     # the session's events (marks, method and range changes, drive on/off, ...), newest
     # last, at most a few hundred kept
     events: list[EventView] = field(default_factory=list)
+    # the stage and the thermometer (None when the bench has neither)
+    bench: BenchView | None = None

@@ -11,6 +11,8 @@ from typing import Any
 
 import numpy as np
 
+from .snapshot import BenchView
+
 
 def result_arrays(result: Any, flat: dict) -> dict[str, np.ndarray]:
     """Arrays of one converted trace for a display.
@@ -89,3 +91,42 @@ def drive_text(drive_on: bool | None, cause: str) -> str:
     if drive_on:
         return "output on"
     return "output off (safe-off)" if cause == "safe-off" else "output off"
+
+
+def stage_text(view: BenchView, *, compact: bool = False) -> str:
+    """The stage's position as the bench line says it (``""`` without a stage).
+
+    ``"stage x 5.00 y -2.00 z 40.00 mm"``; compact ``"x5.0 y-2.0 z40.0"``; ``LOST`` while
+    it does not answer, ``moving`` while it moves.
+    """
+    if not view.has_stage:
+        return ""
+    if not view.stage_connected:
+        return "stage LOST"
+    if not view.position_mm:
+        return "stage -"
+    if compact:
+        axes = " ".join(f"{a}{mm:.1f}" for a, mm in view.position_mm.items())
+        return f"{axes}{' mv' if view.stage_moving else ''}"
+    axes = " ".join(f"{a} {mm:.2f}" for a, mm in view.position_mm.items())
+    return f"stage {axes} mm{' moving' if view.stage_moving else ''}"
+
+
+def water_text(view: BenchView, *, degree: str = "°C", compact: bool = False) -> str:
+    """The thermometer's reading and its age, and the temperature the conversion uses
+    when that is the bench file's (``""`` without a thermometer)."""
+    if not view.has_thermometer:
+        return ""
+    if view.reading_c is None:
+        reading = "-"
+    else:
+        age = view.reading_age_s if view.reading_age_s is not None else float("nan")
+        reading = f"{view.reading_c:.2f}{'' if compact else ' '}{degree}"
+        reading += f" {age:.0f}s" if compact else f" ({age:.0f} s)"
+    text = reading if compact else f"water {reading}"
+    if not view.thermometer_connected:
+        text += " LOST"
+    if view.water_source == "bench":
+        used = f"{view.water_temperature_c:g}{degree}"
+        text += f" ->{used}" if compact else f", using the bench {used}"
+    return text

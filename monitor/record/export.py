@@ -4,7 +4,11 @@ Results CSV
     One row per trace: ``seq``, ``time_s`` (s since the Unix epoch), the result fields
     under the names of ``convert --json`` flattened (the names of
     :data:`tankside.monitor.acoustics.converter.RESULT_FIELDS`), then
-    ``converted``, ``clipped``, ``range_changed`` and ``error``. Floats are written
+    ``converted``, ``clipped``, ``range_changed`` and ``error``; then, in a session that
+    recorded them (layout 3), ``position_<axis>_mm`` for every stage axis (empty where a
+    trace has no position), and ``water_reading_c``, ``water_reading_age_s`` and
+    ``water_source`` (``thermometer`` or ``bench``: which temperature the conversion
+    used, itself in ``water_temperature_c``). Floats are written
     with ``repr`` (shortest text that reads back to the same float64); booleans as
     ``true``/``false``; a field without a value (conversion failed) is empty.
 
@@ -41,6 +45,10 @@ HDF5 layout (``format`` attribute ``"tankside-session-export"``, ``layout_versio
     ``/events/<column>``     event_id, time_s, kind, seq (-1: none), detail_json
     ``/stop``                attributes stop_time_s, exit_status, reason, counts_json
                              (absent when the session was not stopped cleanly)
+    ``/bench/axes``          the stage axes (strings; empty without a stage)
+    ``/bench/position_mm``   shape (N, axes), mm, NaN where a trace has no position
+    ``/bench/water_*``       water_reading_c (degC), water_reading_age_s (s), NaN where
+                             none; water_source ("thermometer", "bench", "" without one)
 
 Every numeric dataset carries a ``units`` attribute (SI; ``""`` when dimensionless).
 """
@@ -59,6 +67,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import ConfigError, OutputFileError, SessionValueError
+from .benchstate import TraceBench
 from .outputs import GuardedFile, describe_os_error, output_file
 from .schema import (
     META_CALIBRATION_SHA256,
@@ -93,17 +102,37 @@ def export_results_csv(reader: SessionReader, out, *, progress: StepsFactory = s
     written under a temporary name and appears under ``out`` only when complete
     (:func:`~tankside.monitor.record.outputs.output_file`)."""
     rows = 0
+    axes = reader.stage_axes()
+    water = reader.has_water_readings()
+    bench_columns = (*(f"position_{axis}_mm" for axis in axes),
+                     *(_WATER_COLUMNS if water else ()))
     with output_file(out) as tmp, open(tmp, "w", newline="", encoding="utf-8") as fh, \
             progress(reader.trace_count(), "results") as bar:
         writer = csv.writer(fh, lineterminator="\n")
-        writer.writerow(RESULTS_CSV_COLUMNS)
+        writer.writerow((*RESULTS_CSV_COLUMNS, *bench_columns))
         for r in reader.iter_results():
             if not r["converted"]:
                 r = {**r, **{name: None for name in RESULT_NAMES}}
-            writer.writerow([_cell(r.get(c)) for c in RESULTS_CSV_COLUMNS])
+            cells = [_cell(r.get(c)) for c in RESULTS_CSV_COLUMNS]
+            if bench_columns:
+                cells += _bench_cells(r["bench"], axes, water)
+            writer.writerow(cells)
             rows += 1
             bar.update()
     return rows
+
+
+_WATER_COLUMNS = ("water_reading_c", "water_reading_age_s", "water_source")
+
+
+def _bench_cells(bench: TraceBench | None, axes: tuple[str, ...], water: bool) -> list[str]:
+    positions = {} if bench is None else bench.positions_mm
+    cells = [_cell(positions.get(axis)) for axis in axes]
+    if water:
+        cells += ([""] * 3 if bench is None else
+                  [_cell(bench.water_reading_c), _cell(bench.water_reading_age_s),
+                   _cell(None if bench.water_source is None else str(bench.water_source))])
+    return cells
 
 
 def export_trace_csv(reader: SessionReader, seq: int, out) -> int:
@@ -277,6 +306,7 @@ def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) 
         _write_results(f.create_group("results"), reader, stop_seq)
         _write_alerts(f.create_group("alerts"), reader.alerts())
         _write_events(f.create_group("events"), reader.events())
+        _write_bench(f.create_group("bench"), reader, stop_seq)
         if stop is not None:
             s = f.create_group("stop")
             s.attrs.update({"stop_time_s": stop["stop_time_s"], "exit_status": stop["exit_status"],
@@ -373,3 +403,29 @@ def _write_events(g, events):
     _strings(g, "kind", [e["kind"] for e in events])
     _numbers(g, "seq", [-1 if e["seq"] is None else e["seq"] for e in events], np.int64, "")
     _strings(g, "detail_json", [strict_json(e["detail"]) for e in events])
+
+
+def _write_bench(g, reader, stop_seq):
+    """``/bench``: every trace's stage position and water reading (NaN / "" where none)."""
+    axes = reader.stage_axes()
+    positions: list[list[float]] = []
+    readings: list[float] = []
+    ages: list[float] = []
+    sources: list[str] = []
+    for r in reader.iter_results(stop_seq):
+        bench = r["bench"]
+        known = {} if bench is None else bench.positions_mm
+        positions.append([known.get(axis, math.nan) for axis in axes])
+        reading = None if bench is None else bench.water_reading_c
+        age = None if bench is None else bench.water_reading_age_s
+        readings.append(math.nan if reading is None else reading)
+        ages.append(math.nan if age is None else age)
+        sources.append("" if bench is None or bench.water_source is None
+                       else str(bench.water_source))
+    _strings(g, "axes", axes)
+    ds = g.create_dataset("position_mm", data=np.array(positions, dtype=np.float64).reshape(
+        len(positions), len(axes)))
+    ds.attrs["units"] = "mm"
+    _numbers(g, "water_reading_c", readings, np.float64, "degC")
+    _numbers(g, "water_reading_age_s", ages, np.float64, "s")
+    _strings(g, "water_source", sources)

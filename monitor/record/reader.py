@@ -23,9 +23,11 @@ import numpy as np
 
 from ...drivers.trace import RawTrace
 from ..errors import SessionFileError, TraceChecksumError
+from .benchstate import TraceBench
 from .cells import Row, codes_dtype, kind_of
 from .opening import OpenedSession, open_read_only, wal_mode
 from .schema import (
+    BENCH_STATE_LAYOUT,
     BOOL_RESULTS,
     CHECKSUM_LAYOUT,
     FORMAT_TAG,
@@ -36,6 +38,7 @@ from .schema import (
     RESULT_COLUMNS,
     RESULT_NAMES,
     TRACE_COLUMNS,
+    WaterSource,
 )
 
 # (derived from the result columns as schema.py derives BOOL_RESULTS and REAL_RESULTS)
@@ -49,13 +52,15 @@ __all__ = ["SessionReader", "StoredTrace"]
 class StoredTrace:
     """One trace read back: the raw trace as sent, its result (None if conversion
     failed), its flags, the conversion error text, and the CRC-32 of its codes as
-    recorded and checked (None in a layout 1 file, which has none)."""
+    recorded and checked (None in a layout 1 file, which has none), and the bench state
+    at the trace (stage position, water reading; None when the file records none)."""
 
     raw: RawTrace
     result: dict | None
     flags: dict = field(default_factory=dict)
     error: str | None = None
     codes_crc32: int | None = None
+    bench: TraceBench | None = None
 
 
 def session_size_bytes(path) -> int:
@@ -134,6 +139,15 @@ class SessionReader:
             if missing:
                 raise SessionFileError(f"{self.path}: table traces of a layout {layout} "
                                        f"session lacks the column(s) {', '.join(missing)}")
+            # Layouts 1 and 2 record no bench state; their traces read back without one.
+            self._bench_state = layout >= BENCH_STATE_LAYOUT
+            if self._bench_state:
+                tables = {r[0] for r in self._query(
+                    "SELECT name FROM sqlite_master WHERE type = 'table'")}
+                lacking = [t for t in ("trace_positions", "trace_water") if t not in tables]
+                if lacking:
+                    raise SessionFileError(f"{self.path}: a layout {layout} session lacks "
+                                           f"the table(s) {', '.join(lacking)}")
         except SessionFileError:
             self.close()
             raise
@@ -304,7 +318,63 @@ class SessionReader:
                             f"{r.values['dtype']!r}")
         return dt
 
-    def _stored(self, trow, rrow) -> StoredTrace:
+    def stage_axes(self) -> tuple[str, ...]:
+        """The stage axes any trace records a position of, sorted (``()`` without)."""
+        if not self._bench_state:
+            return ()
+        axes = []
+        for (axis,) in self._query("SELECT DISTINCT axis FROM trace_positions ORDER BY axis"):
+            r = self._row("trace_positions", f"axis {axis!r}", ("axis",), (axis,))
+            text = r.text("axis")
+            if not text:
+                r.fail("axis", "an empty axis name")
+            axes.append(text)
+        return tuple(axes)
+
+    def has_water_readings(self) -> bool:
+        """Whether any trace records a thermometer's reading (``trace_water`` rows)."""
+        return self._bench_state and bool(self._query("SELECT 1 FROM trace_water LIMIT 1"))
+
+    def bench_states(self, first_seq: int, last_seq: int) -> dict[int, TraceBench]:
+        """The bench state of each trace with ``first_seq <= seq <= last_seq`` that has one
+        (none in a file of layout 1 or 2); every cell checked."""
+        if not self._bench_state:
+            return {}
+        positions: dict[int, dict[str, float]] = {}
+        cols: tuple[str, ...] = ("seq", "axis", "position_mm")
+        for values in self._query(f"SELECT {', '.join(cols)} FROM trace_positions "
+                                  "WHERE seq BETWEEN ? AND ? ORDER BY seq, axis",
+                                  (int(first_seq), int(last_seq))):
+            r = self._row("trace_positions", f"seq {values[0]} axis {values[1]!r}", cols,
+                          values)
+            seq = r.integer("seq")
+            axis = r.text("axis")
+            if not axis:
+                r.fail("axis", "an empty axis name")
+            mm = r.real("position_mm")
+            if not math.isfinite(mm):
+                r.fail("position_mm", f"expected a finite position in mm, found {mm!r}")
+            positions.setdefault(seq, {})[axis] = mm
+        water: dict[int, tuple[float | None, float | None, WaterSource]] = {}
+        cols = ("seq", "water_reading_c", "water_reading_age_s", "water_source")
+        for values in self._query(f"SELECT {', '.join(cols)} FROM trace_water "
+                                  "WHERE seq BETWEEN ? AND ?", (int(first_seq), int(last_seq))):
+            r = self._row("trace_water", f"seq {values[0]}", cols, values)
+            source_text = r.text("water_source")
+            if source_text not in list(WaterSource):
+                r.fail("water_source", f"expected one of {', '.join(WaterSource)}, found "
+                                       f"{source_text!r}")
+            water[r.integer("seq")] = (r.optional_real("water_reading_c"),
+                                       r.optional_real("water_reading_age_s"),
+                                       WaterSource(source_text))
+        out = {}
+        for seq in positions.keys() | water.keys():
+            reading, age, source = water[seq] if seq in water else (None, None, None)
+            out[seq] = TraceBench(positions_mm=positions.get(seq, {}), water_reading_c=reading,
+                                  water_reading_age_s=age, water_source=source)
+        return out
+
+    def _stored(self, trow, rrow, bench: TraceBench | None = None) -> StoredTrace:
         t = self._row("traces", f"seq {trow[0]}", self._trace_cols, trow)
         data = t.blob("codes")
         dt, n = self._layout(t, len(data))
@@ -327,10 +397,10 @@ class SessionReader:
                        clipped_high=t.integer("clipped_high", minimum=0),
                        data_format=t.text("data_format"), state=t.json("state_json", dict))
         if rrow is None:  # trace written without a results row (older layouts)
-            return StoredTrace(raw, None, {}, None, recorded)
+            return StoredTrace(raw, None, {}, None, recorded, bench)
         result, flags, error = self._result_from_row(
             self._row("results", f"seq {trow[0]}", self._result_cols, rrow))
-        return StoredTrace(raw, result, flags, error, recorded)
+        return StoredTrace(raw, result, flags, error, recorded, bench)
 
     def _result_from_row(self, r: Row):
         flags: dict[str, Any] = {"clipped": r.flag("clipped"),
@@ -365,9 +435,13 @@ class SessionReader:
         return self._query(f"SELECT {cols}, {rcols}, r.seq IS NULL FROM traces t "
                            f"LEFT JOIN results r ON r.seq = t.seq {where}", params)
 
-    def _split(self, row) -> StoredTrace:
+    def _split(self, row, benches: dict[int, TraceBench]) -> StoredTrace:
         nt = len(self._trace_cols)
-        return self._stored(row[:nt], None if row[-1] else row[nt:-1])
+        return self._stored(row[:nt], None if row[-1] else row[nt:-1], benches.get(row[0]))
+
+    def _benches_of(self, rows) -> dict[int, TraceBench]:
+        seqs = [row[0] for row in rows if isinstance(row[0], int)]
+        return self.bench_states(min(seqs), max(seqs)) if seqs else {}
 
     def trace(self, seq: int) -> StoredTrace:
         """The trace with sequence number ``seq``; SessionFileError if there is none."""
@@ -376,7 +450,7 @@ class SessionReader:
         rows = self._trace_rows("WHERE t.seq = ?", (int(seq),))
         if not rows:
             raise SessionFileError(f"{self.path}: no trace with seq {seq}")
-        return self._split(rows[0])
+        return self._split(rows[0], self._benches_of(rows))
 
     def iter_traces(self, start_seq: int | None = None,
                     stop_seq: int | None = None) -> Iterator[StoredTrace]:
@@ -386,10 +460,11 @@ class SessionReader:
         while True:
             rows = self._trace_rows("WHERE t.seq > ? ORDER BY t.seq LIMIT ?",
                                     (last, self._CHUNK))
+            benches = self._benches_of(rows)
             for row in rows:
                 if stop_seq is not None and row[0] >= stop_seq:
                     return
-                yield self._split(row)
+                yield self._split(row, benches)
             if len(rows) < self._CHUNK:
                 return
             last = rows[-1][0]
@@ -401,13 +476,14 @@ class SessionReader:
     def iter_results(self, stop_seq: int | None = None) -> Iterator[dict]:
         """One dict per trace (those before ``stop_seq`` when given): seq, time_s,
         converted, error, the RESULT_FIELDS (NaN / None when conversion failed) and the
-        flags."""
+        flags; and ``bench``, the trace's :class:`TraceBench` or None."""
         last = -1
         cols = ", ".join(f"r.{c}" for c in self._result_cols)
         while True:
             rows = self._query(f"SELECT t.seq, t.time_s, {cols} FROM traces t JOIN results r "
                                "ON r.seq = t.seq WHERE t.seq > ? ORDER BY t.seq LIMIT 1000",
                                (last,))
+            benches = self._benches_of(rows)
             for row in rows:
                 if stop_seq is not None and row[0] >= stop_seq:
                     return
@@ -421,6 +497,7 @@ class SessionReader:
                     out[name] = (result or {}).get(
                         name, math.nan if name in REAL_RESULTS else None)
                 out.update(flags)
+                out["bench"] = benches.get(row[0])
                 yield out
             if len(rows) < 1000:
                 return

@@ -16,7 +16,8 @@ What is followed from the record, so that a replay reproduces the live run:
   event's ``seq`` (the first trace converted with it) or, without a seq, to traces
   acquired at or after the event's time. ``--method`` overrides all of them.
 
-Events are copied into the new session; alerts are not (they were raised on the old
+The bench state of each trace (stage position, water reading; layout 3) is copied as
+recorded. Events are copied into the new session; alerts are not (they were raised on the old
 results). The original file is only ever opened read-only.
 """
 
@@ -311,7 +312,7 @@ def replay_session(src, out, *, calibration_path=None, calibration_checks: dict 
                             # read from a damaged file, say) fails alone and is counted.
                             flat, error = None, f"{type(err).__name__}: {err}"
                             failed += 1
-                        store.add_trace(raw, flat, stored.flags, error)
+                        store.add_trace(raw, flat, stored.flags, error, stored.bench)
                         store.maybe_commit()
                         if check and _differs(stored.result, flat):
                             differences += 1

@@ -43,7 +43,7 @@ import enum
 from ..acoustics.converter import RESULT_FIELDS
 
 FORMAT_TAG = "tankside-session"
-LAYOUT_VERSION = 2
+LAYOUT_VERSION = 3
 """Layout of the files this tankside writes (``session_start.layout_version``); the
 reader reads every layout up to it:
 
@@ -51,6 +51,9 @@ reader reads every layout up to it:
 2. ``traces.codes_crc32``: the CRC-32 (:func:`zlib.crc32`, as an unsigned 32-bit
    integer) of the codes' bytes, checked whenever a trace is read, so that a bit flipped
    on a disk or in a copy is reported instead of exported or replayed.
+3. The bench state with each trace: tables ``trace_positions`` (every stage axis, mm)
+   and ``trace_water`` (the thermometer reading, its age and which temperature the
+   conversion used); see the block "layout 3: bench state" at the end of this module.
 """
 
 #: The first layout whose traces carry ``codes_crc32``.
@@ -143,6 +146,23 @@ class EventKind(enum.StrEnum):
     RESYNC = "resync"
     """The digitiser's link was brought back in step after a bad reply: ``after`` (the
     error's type name)."""
+    # -- the serial instruments (stage, thermometer; layout 3) ----------------------
+    INSTRUMENT_LOST = "instrument-lost"
+    """The stage or the thermometer stopped answering (acquisition goes on):
+    ``instrument`` (``stage`` or ``thermometer``), ``message``, ``at_seq``."""
+    INSTRUMENT_BACK = "instrument-back"
+    """The stage or the thermometer answers again: ``instrument``, ``attempts``,
+    ``after_s``, ``identity``."""
+    STAGE_MOVE = "stage-move"
+    """A move was sent to the stage: ``target_mm`` (axis -> mm), ``done`` (true when sent),
+    ``error`` when it could not be."""
+    STAGE_STOP = "stage-stop"
+    """The stage was told to stop: ``cause`` (``end of session``, ``safe-off``, ``stage
+    error``), ``done``, ``error`` when it could not be."""
+    WATER_SOURCE = "water-source"
+    """The conversion's water temperature changed source (a :class:`WaterSource`):
+    ``source``, ``reading_c`` and ``age_s`` (null when none), ``max_age_s``,
+    ``temperature_c`` (the one used), ``from_seq``."""
 
 
 class FaultKind(enum.StrEnum):
@@ -163,6 +183,14 @@ class FaultKind(enum.StrEnum):
     """The generator did not say whether its output is on (state now unknown)."""
     GENERATOR_THREAD = "generator-thread"
     """The generator's thread met an unexpected error (a bug); the session went on."""
+    STAGE_ERROR = "stage-error"
+    """The stage reported an error or sent a reply that does not parse; it was told to
+    stop and the session went on."""
+    THERMOMETER_REPLY = "thermometer-reply"
+    """A thermometer reply that does not parse (recorded once until a good one)."""
+    SERIAL_THREAD = "serial-thread"
+    """The stage's or thermometer's thread met an unexpected error (a bug); the session
+    went on."""
 
 
 # -- result columns: one per field of a trace's result, declared with its unit and dtype
@@ -300,3 +328,44 @@ STATIC_DESCRIPTORS = (
     + [(f.name, "results", f.unit, f.dtype) for f in RESULT_FIELDS]
     + [(name, "results", units_of(name), "bool") for name in FLAG_COLUMNS]
 )
+
+
+# == layout 3: bench state (stage position, water reading) with each trace ==============
+# Kept apart from the tables above so that other layout-3 additions merge beside it.
+
+#: The first layout whose files hold ``trace_positions`` and ``trace_water``.
+BENCH_STATE_LAYOUT = 3
+
+
+class WaterSource(enum.StrEnum):
+    """Where the water temperature of a trace's conversion came from (``trace_water.source``)."""
+
+    THERMOMETER = "thermometer"
+    """The thermometer's latest reading, no older than ``[thermometer] max_age_s``."""
+    BENCH = "bench"
+    """No reading, or one older than ``max_age_s``: the bench file's ``[water]
+    temperature_c`` (the reading, if any, is still recorded with its age)."""
+
+
+BENCH_STATE_DDL = [
+    # one row per stage axis of a trace acquired with a stage whose position was known
+    """CREATE TABLE trace_positions (
+        seq INTEGER NOT NULL REFERENCES traces(seq),
+        axis TEXT NOT NULL,
+        position_mm REAL NOT NULL,
+        PRIMARY KEY (seq, axis))""",
+    # one row per trace acquired with a thermometer configured
+    """CREATE TABLE trace_water (
+        seq INTEGER PRIMARY KEY REFERENCES traces(seq),
+        water_reading_c REAL,
+        water_reading_age_s REAL,
+        water_source TEXT NOT NULL)""",
+]
+BENCH_STATE_DESCRIPTORS = [
+    ("position_mm", "trace_positions", "mm", "float64"),
+    ("water_reading_c", "trace_water", "degC", "float64"),
+    ("water_reading_age_s", "trace_water", "s", "float64"),
+    ("water_source", "trace_water", "", "str"),
+]
+DDL += BENCH_STATE_DDL
+STATIC_DESCRIPTORS += BENCH_STATE_DESCRIPTORS

@@ -44,6 +44,7 @@ from ...drivers.trace import RawTrace
 from .. import __version__
 from ..errors import DiskFullError, SessionFileError, StoreError
 from ..outcome import ExitStatus
+from .benchstate import TraceBench
 from .reader import SessionReader, StoredTrace, session_size_bytes
 from .schema import (
     BOOL_RESULTS,
@@ -190,6 +191,26 @@ def _map_error(err: sqlite3.Error, doing: str, path: Path) -> StoreError:
     return StoreError(f"{path}: {doing} failed ({err})")
 
 
+def _optional_float(value: float | None) -> float | None:
+    return None if value is None else float(value)
+
+
+def _bench_rows(seq: int, bench: TraceBench | None):
+    """The ``trace_positions`` rows and the ``trace_water`` row (or None) of one trace."""
+    if bench is None:
+        return [], None
+    positions = []
+    for axis, value in bench.positions_mm.items():
+        mm = float(value)
+        if math.isfinite(mm):       # an axis whose position is not a number is unknown
+            positions.append((seq, str(axis), mm))
+    water = None
+    if bench.water_source is not None:
+        water = (seq, _optional_float(bench.water_reading_c),
+                 _optional_float(bench.water_reading_age_s), str(bench.water_source))
+    return positions, water
+
+
 class SessionStore:
     """Writes one session file. Single-thread use: one writer owns it.
 
@@ -329,11 +350,13 @@ class SessionStore:
         raise mapped from err
 
     def add_trace(self, raw: RawTrace, result: dict | None, flags: dict | None = None,
-                  error: str | None = None) -> None:
+                  error: str | None = None, bench: TraceBench | None = None) -> None:
         """Record one trace as sent, and its result (``TraceResult.flat()``) or error.
 
         ``flags`` may hold ``clipped`` (default: any sample at a rail),
-        ``range_changed`` (default False) and any other JSON-able flags.
+        ``range_changed`` (default False) and any other JSON-able flags. ``bench``, the
+        stage position and water reading at the trace, goes into ``trace_positions`` and
+        ``trace_water`` (nothing when None or empty).
         """
         codes = np.ascontiguousarray(raw.codes)
         data = codes.tobytes()
@@ -350,6 +373,7 @@ class SessionStore:
             values, extra = self._result_values(result)
             result_row = (int(raw.seq), result is not None, error, *values, clipped,
                           range_changed, strict_json(flags), strict_json(extra))
+            position_rows, water_row = _bench_rows(int(raw.seq), bench)
         except (TypeError, ValueError) as err:
             raise StoreError(f"{self.label}: trace {raw.seq} is not recordable: {err}") from err
 
@@ -360,6 +384,11 @@ class SessionStore:
             self._conn.execute(
                 f"INSERT INTO results VALUES ({','.join('?' * len(RESULT_ROW_COLUMNS))})",
                 result_row)
+            if position_rows:
+                self._conn.executemany("INSERT INTO trace_positions VALUES (?, ?, ?)",
+                                       position_rows)
+            if water_row is not None:
+                self._conn.execute("INSERT INTO trace_water VALUES (?, ?, ?, ?)", water_row)
             if not self._codes_described:
                 self._conn.execute(
                     "INSERT OR REPLACE INTO descriptors "
