@@ -305,3 +305,15 @@ def test_an_answer_too_late_for_an_earlier_command_is_not_taken_for_the_next(tmp
     thread.join(5)
     parent_end.close()
     child_end.close()
+
+
+def test_a_snapshot_read_while_the_child_is_being_spawned_says_starting(tmp_path):
+    # start() runs in a worker thread while the display reads ten times a second: between
+    # making the Process and its start() returning, the pipes are not set and the process
+    # cannot be joined yet (multiprocessing asserts). The read must say "starting".
+    import multiprocessing
+
+    session = SessionProcess(SessionSpec(bench=None, session_path=tmp_path / "x.db"))
+    session._process = multiprocessing.get_context("spawn").Process(target=print)
+    snap = session.snapshot()
+    assert snap.state == "starting" and not session.running

@@ -170,8 +170,12 @@ class SessionProcess:
         returned says so: state "stopped" and the reason.
         """
         self._drain()
-        if self._snapshots is None and not self._ended and self._process is not None:
-            self._process.join(1.0)             # the pipe closed: the child is exiting
+        # the snapshot pipe closed (the commands' pipe is still open): the child is exiting.
+        # While start() spawns the child neither pipe is set yet, and there is nothing
+        # to join: a display reading then sees "starting".
+        if (self._snapshots is None and self._commands is not None and not self._ended
+                and self._process is not None):
+            self._process.join(1.0)
             if not self._process.is_alive():
                 self._finish()
         return self._snap
