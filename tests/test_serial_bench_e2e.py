@@ -55,6 +55,10 @@ def test_three_positions_recorded_and_p_r_follows_the_beam(sim, tmp_path):
     finally:
         session.stop("test done")
         assert session.wait(30)
+    # the session stopped the stage at its end and says so (not LOST)
+    assert "HALT" in sim.stage.received
+    end = session.snapshot().bench
+    assert end is not None and end.stage_ended and end.thermometer_ended
     with SessionReader(tmp_path / "s.db") as reader:
         results = list(reader.iter_results())
         states = reader.bench_states(0, max(r["seq"] for r in results))

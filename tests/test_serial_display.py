@@ -40,6 +40,17 @@ def test_status_line_says_lost_and_the_fallback():
     assert line.endswith(" | stage LOST | water 21.30 C (45 s) LOST, using the bench 20C")
 
 
+def test_status_line_after_the_end_says_closed_not_lost():
+    # the session closed both at its end: the last status line must not cry LOST
+    view = BenchView(has_stage=True, stage_connected=False, stage_ended=True,
+                     has_thermometer=True, thermometer_connected=False,
+                     thermometer_ended=True, reading_c=21.3, reading_age_s=1.0,
+                     water_temperature_c=21.3, water_source="thermometer")
+    line = status_line(Snapshot(state="stopped", bench=view))
+    assert line.endswith(" | stage closed | water 21.30 C (1 s) closed")
+    assert "LOST" not in line
+
+
 def test_status_line_without_serial_instruments_is_as_before():
     assert "stage" not in status_line(Snapshot()) and "water" not in status_line(Snapshot())
 

@@ -106,11 +106,14 @@ def bench_line(view: BenchView, cols: int) -> list[tuple[str, str]]:
             break
     line: list[tuple[str, str]] = []
     if stage:
-        line.append((f"{stage}  ", BAD if not view.stage_connected else
+        lost = not view.stage_connected and not view.stage_ended
+        line.append((f"{stage}  ", BAD if lost else
                      WARN if view.stage_moving else VALUE))
     if water:
-        line.append((water, BAD if view.has_thermometer and not view.thermometer_connected
-                     else WARN if view.water_source == "bench" else VALUE))
+        lost = (view.has_thermometer and not view.thermometer_connected
+                and not view.thermometer_ended)
+        line.append((water, BAD if lost else WARN if view.water_source == "bench"
+                     else VALUE))
     return line
 
 

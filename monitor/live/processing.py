@@ -347,6 +347,7 @@ class TraceProcessor:
             reading = stage.latest()
             view.has_stage = True
             view.stage_connected = stage.connected
+            view.stage_ended = stage.ended
             if reading is not None:
                 view.position_mm = dict(reading.positions_mm)
                 view.stage_moving = reading.moving
@@ -354,6 +355,7 @@ class TraceProcessor:
             latest = thermo.latest()
             view.has_thermometer = True
             view.thermometer_connected = thermo.connected
+            view.thermometer_ended = thermo.ended
             if latest is not None:
                 view.reading_c = latest.temperature_c
                 view.reading_age_s = max(0.0, time.time() - latest.time_s)

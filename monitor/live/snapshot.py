@@ -84,10 +84,12 @@ class BenchView:
 
     has_stage: bool = False
     stage_connected: bool = False
+    stage_ended: bool = False          # closed by the session at its end, not lost
     stage_moving: bool = False
     position_mm: dict[str, float] = field(default_factory=dict)
     has_thermometer: bool = False
     thermometer_connected: bool = False
+    thermometer_ended: bool = False
     reading_c: float | None = None
     reading_age_s: float | None = None
     max_age_s: float = float("nan")

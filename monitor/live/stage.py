@@ -134,6 +134,7 @@ class StageWorker:
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._in_error = False      # a stage error handled, no good reading since
+        self.ended = False          # stopped by the session (its end)
 
     # -- from other threads ---------------------------------------------------------
     @property
@@ -199,7 +200,12 @@ class StageWorker:
             self._thread.join()
         if self.port is not None:
             self._send_stop(self.port, cause)
+            # the traces still queued were acquired where the stage last was: they keep
+            # that reading (a stage lost, by contrast, has no position)
+            last = self._latest
             self.close()
+            self._latest = last
+        self.ended = True           # closed by the session, not lost
 
     def close(self) -> None:
         if self.port is not None:

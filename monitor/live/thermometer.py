@@ -116,6 +116,7 @@ class ThermometerWorker:
         self._garbled = False          # a garbled reply recorded, no good one since
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
+        self.ended = False          # stopped by the session (its end)
 
     @property
     def connected(self) -> bool:
@@ -153,6 +154,7 @@ class ThermometerWorker:
         if self._thread is not None:
             self._thread.join()
         self.close()
+        self.ended = True           # closed by the session, not lost
 
     def close(self) -> None:
         if self.port is not None:

@@ -101,6 +101,8 @@ def stage_text(view: BenchView, *, compact: bool = False) -> str:
     """
     if not view.has_stage:
         return ""
+    if view.stage_ended:
+        return "stage closed"
     if not view.stage_connected:
         return "stage LOST"
     if not view.position_mm:
@@ -124,7 +126,9 @@ def water_text(view: BenchView, *, degree: str = "°C", compact: bool = False) -
         reading = f"{view.reading_c:.2f}{'' if compact else ' '}{degree}"
         reading += f" {age:.0f}s" if compact else f" ({age:.0f} s)"
     text = reading if compact else f"water {reading}"
-    if not view.thermometer_connected:
+    if view.thermometer_ended:
+        text += " closed"
+    elif not view.thermometer_connected:
         text += " LOST"
     if view.water_source == "bench":
         used = f"{view.water_temperature_c:g}{degree}"
