@@ -77,3 +77,26 @@ def test_the_range_in_use_is_the_range_recorded(sim, tmp_path):
     assert not [e for e in events if e["kind"] == "range-change"]
     assert {t.raw.range_v for t in traces} == {range_v}
     assert {t.raw.codes.size for t in traces} == {2000}
+
+
+def test_a_non_ascii_profile_character_is_refused_before_anything_is_sent(sim, tmp_path,
+                                                                          capsys):
+    # a profile typed from a manual with a micro sign in a command: refused when the
+    # profile is loaded, naming file and key, before any instrument is touched (it used
+    # to pass loading and end the session at the first fetch)
+    before = scpi(sim.digitiser_port, "CHAN1:RANG?")
+    profile = tmp_path / "typed-from-manual.toml"
+    text = Path(sim.digitiser_profile_path).read_text(encoding="utf-8")
+    line = next(ln for ln in text.splitlines() if ln.startswith("set_range"))
+    profile.write_text(text.replace(line, line.replace("RANG", "RANG\u00b5"), 1),
+                       encoding="utf-8")
+    path = sim.write_bench_file(tmp_path / "bench.toml", session_folder="sessions")
+    bench_text = path.read_text().replace(str(sim.digitiser_profile_path), str(profile), 1)
+    path.write_text(bench_text)
+    assert main(["watch", "--accept-caution", "--bench", str(path), "--headless",
+                 "--traces", "5"]) == ExitCode.USAGE
+    err = capsys.readouterr().err
+    assert f"{profile}: [commands] set_range" in err and "printable ASCII" in err
+    assert "Traceback" not in err and err.count("\n") == 1
+    assert not (tmp_path / "sessions").exists() or not list((tmp_path / "sessions").iterdir())
+    assert scpi(sim.digitiser_port, "CHAN1:RANG?") == before
