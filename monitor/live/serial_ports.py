@@ -9,7 +9,16 @@ connection, a garbled reply, an error the instrument reports).
 
 from __future__ import annotations
 
-from typing import Protocol
+import sys
+import threading
+import time
+import traceback
+from collections.abc import Callable
+from typing import Any, Protocol
+
+from ...drivers.errors import InstrumentError
+from ..record.schema import EventKind, FaultKind
+from .actions import RaisedAlert
 
 
 class StagePort(Protocol):
@@ -46,3 +55,34 @@ class ThermometerPort(Protocol):
         ...
 
     def close(self) -> None: ...
+
+
+# -- what the stage and thermometer workers share ---------------------------------------
+
+def close_quietly(port: Any) -> None:
+    """Close a serial instrument's line, ignoring a line already gone."""
+    try:
+        port.close()
+    except InstrumentError:
+        pass  # a line already gone has nothing left to release
+
+
+def reconnect_after_pause(stop: threading.Event, backoff_s: tuple[float, ...], attempt: int,
+                          lost_at: float, reopen: Callable[[int, float], bool]) -> int | None:
+    """One reconnect attempt after the backoff pause for ``attempt``: ``reopen(attempt,
+    seconds since lost_at)``; the next attempt's number (0 once the instrument is back),
+    or None when the session stopped meanwhile."""
+    if stop.wait(backoff_s[min(attempt, len(backoff_s) - 1)]):
+        return None
+    attempt += 1
+    return 0 if reopen(attempt, time.monotonic() - lost_at) else attempt
+
+
+def report_worker_bug(emit: Callable[[EventKind, dict, RaisedAlert | None], None],
+                      seq: int, instrument: str, err: Exception) -> None:
+    """A bug in a worker's own handling: printed, recorded as a fault and alerted; the
+    worker (and acquisition) go on."""
+    traceback.print_exc(file=sys.stderr)
+    emit(EventKind.FAULT, {"kind": FaultKind.SERIAL_THREAD, "message": repr(err),
+                           "at_seq": seq},
+         RaisedAlert("instrument-fault", "critical", f"{instrument} handling failed: {err!r}"))

@@ -26,19 +26,16 @@ from __future__ import annotations
 
 import math
 import queue
-import sys
 import threading
 import time
-import traceback
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
 
 from ...drivers.errors import ConnectionLost, InstrumentError, InstrumentTimeout
 from ..errors import ConfigError, OutsideLimitsError
 from ..record.schema import EventKind, FaultKind
 from .actions import RaisedAlert
-from .serial_ports import StagePort
+from .serial_ports import StagePort, close_quietly, reconnect_after_pause, report_worker_bug
 
 POLL_S = 0.2
 BACKOFF_S = (0.2, 0.5, 1.0, 2.0, 5.0)
@@ -184,7 +181,7 @@ class StageWorker:
                                   f"its [low, high] in mm (the stage's axes: {', '.join(axes)})")
             self._latest = self._read(port)
         except BaseException:
-            _close_quietly(port)
+            close_quietly(port)
             raise
         self.port, self.identity, self.axes = port, identity, axes
 
@@ -209,7 +206,7 @@ class StageWorker:
 
     def close(self) -> None:
         if self.port is not None:
-            _close_quietly(self.port)
+            close_quietly(self.port)
             self.port = None
         self._latest = None
 
@@ -221,12 +218,11 @@ class StageWorker:
         while not self._stop.is_set():
             port = self.port
             if port is None:
-                pause = self.backoff_s[min(attempt, len(self.backoff_s) - 1)]
-                if self._stop.wait(pause):
+                next_attempt = reconnect_after_pause(self._stop, self.backoff_s, attempt,
+                                                     lost_at, self._reopen)
+                if next_attempt is None:
                     break
-                attempt += 1
-                if self._reopen(attempt, time.monotonic() - lost_at):
-                    attempt = 0
+                attempt = next_attempt
                 continue
             try:
                 self._carry_out(port)
@@ -239,11 +235,7 @@ class StageWorker:
                 self._failed(port, err)
                 continue
             except Exception as err:  # noqa: BLE001 - a bug here must not end acquisition
-                traceback.print_exc(file=sys.stderr)
-                self._emit(EventKind.FAULT, {"kind": FaultKind.SERIAL_THREAD,
-                                             "message": repr(err), "at_seq": self._current_seq()},
-                           RaisedAlert("instrument-fault", "critical",
-                                       f"stage handling failed: {err!r}"))
+                report_worker_bug(self._emit, self._current_seq(), "stage", err)
                 self._stop.wait(1.0)
             self._wake.wait(max(0.0, next_poll - time.monotonic()))
             self._wake.clear()
@@ -331,7 +323,7 @@ class StageWorker:
             identity = port.identify()
             reading = self._read(port)
         except InstrumentError:
-            _close_quietly(port)
+            close_quietly(port)
             return False
         self.port, self.identity, self._latest = port, identity, reading
         self._emit(EventKind.INSTRUMENT_BACK, {"instrument": INSTRUMENT, "attempts": attempt,
@@ -339,9 +331,3 @@ class StageWorker:
                                                "identity": identity}, None)
         return True
 
-
-def _close_quietly(port: Any) -> None:
-    try:
-        port.close()
-    except InstrumentError:
-        pass  # a line already gone has nothing left to release

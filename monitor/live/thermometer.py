@@ -17,19 +17,21 @@ fault, recorded once until the next good reading. Neither stops acquisition.
 from __future__ import annotations
 
 import math
-import sys
 import threading
 import time
-import traceback
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
 
 from ...drivers.errors import ConnectionLost, InstrumentError, InstrumentTimeout
 from ..acoustics.water import TEMPERATURE_RANGE_C
 from ..record.schema import EventKind, FaultKind, WaterSource
 from .actions import RaisedAlert
-from .serial_ports import ThermometerPort
+from .serial_ports import (
+    ThermometerPort,
+    close_quietly,
+    reconnect_after_pause,
+    report_worker_bug,
+)
 
 POLL_S = 1.0
 BACKOFF_S = (0.2, 0.5, 1.0, 2.0, 5.0)
@@ -136,7 +138,7 @@ class ThermometerWorker:
         try:
             self.identity = port.identify() or ""
         except BaseException:
-            _close_quietly(port)
+            close_quietly(port)
             raise
         self.port = port
         try:
@@ -158,7 +160,7 @@ class ThermometerWorker:
 
     def close(self) -> None:
         if self.port is not None:
-            _close_quietly(self.port)
+            close_quietly(self.port)
             self.port = None
 
     def _read(self, port: ThermometerPort) -> None:
@@ -172,12 +174,11 @@ class ThermometerWorker:
         while not self._stop.is_set():
             port = self.port
             if port is None:
-                pause = self.backoff_s[min(attempt, len(self.backoff_s) - 1)]
-                if self._stop.wait(pause):
+                next_attempt = reconnect_after_pause(self._stop, self.backoff_s, attempt,
+                                                     lost_at, self._reopen)
+                if next_attempt is None:
                     break
-                attempt += 1
-                if self._reopen(attempt, time.monotonic() - lost_at):
-                    attempt = 0
+                attempt = next_attempt
                 continue
             try:
                 self._read(port)
@@ -200,11 +201,7 @@ class ThermometerWorker:
                                RaisedAlert("instrument-fault", "warning",
                                            f"thermometer reply not understood: {err}"))
             except Exception as err:  # noqa: BLE001 - a bug here must not end acquisition
-                traceback.print_exc(file=sys.stderr)
-                self._emit(EventKind.FAULT, {"kind": FaultKind.SERIAL_THREAD,
-                                             "message": repr(err), "at_seq": self._current_seq()},
-                           RaisedAlert("instrument-fault", "critical",
-                                       f"thermometer handling failed: {err!r}"))
+                report_worker_bug(self._emit, self._current_seq(), "thermometer", err)
             self._stop.wait(self.poll_s)
 
     def _reopen(self, attempt: int, after_s: float) -> bool:
@@ -215,7 +212,7 @@ class ThermometerWorker:
         try:
             identity = port.identify() or ""
         except InstrumentError:
-            _close_quietly(port)
+            close_quietly(port)
             return False
         self.port, self.identity = port, identity
         self._emit(EventKind.INSTRUMENT_BACK, {"instrument": INSTRUMENT, "attempts": attempt,
@@ -223,9 +220,3 @@ class ThermometerWorker:
                                                "identity": identity}, None)
         return True
 
-
-def _close_quietly(port: Any) -> None:
-    try:
-        port.close()
-    except InstrumentError:
-        pass  # a line already gone has nothing left to release
