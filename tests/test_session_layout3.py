@@ -91,7 +91,8 @@ def test_the_per_trace_water_is_the_one_used(layout3):
 def test_layout3_reads_back_every_axis_and_the_reading(layout3):
     path, raws, _ = layout3
     with SessionReader(path) as reader:
-        assert reader.start["layout_version"] == LAYOUT_VERSION == BENCH_STATE_LAYOUT == 3
+        assert reader.start["layout_version"] == LAYOUT_VERSION == 4
+        assert BENCH_STATE_LAYOUT == 3
         assert reader.stage_axes() == ("x", "y", "z")
         assert reader.has_water_readings()
         assert [s.bench for s in reader.iter_traces()] == BENCHES

@@ -16,6 +16,7 @@ from typing import TYPE_CHECKING, Any
 from ..errors import StoreError
 from ..outcome import ExitStatus
 from ..record.benchstate import TraceBench
+from ..record.scanpoints import PointRecord
 from ..record.schema import EventKind
 
 if TYPE_CHECKING:
@@ -31,6 +32,12 @@ class TraceItem:
     flags: dict
     error: str | None
     bench: TraceBench | None = None     # stage position and water reading (layout 3)
+    point: tuple[int, bool, str] | None = None  # scan point, counted, why not (layout 4)
+
+
+@dataclass
+class PointItem:
+    point: PointRecord
 
 
 @dataclass
@@ -161,7 +168,8 @@ class Writer:
     def _handle(self, item: object) -> None:
         store = self._open_store()
         if isinstance(item, TraceItem):
-            store.add_trace(item.raw, item.result, item.flags or None, item.error, item.bench)
+            store.add_trace(item.raw, item.result, item.flags or None, item.error, item.bench,
+                            item.point)
             self.stored += 1
             if self._oldest_uncommitted_s is None:
                 self._oldest_uncommitted_s = float(item.raw.time_s)
@@ -175,5 +183,7 @@ class Writer:
                 store.acknowledge_alert(stored_id, item.time_s)
         elif isinstance(item, EventItem):
             store.add_event(item.time_s, item.kind, item.detail, seq=item.seq)
+        elif isinstance(item, PointItem):
+            store.add_scan_point(item.point)
         else:  # pragma: no cover - a programming error, not a user's
             raise TypeError(f"writer: unexpected item {item!r}")

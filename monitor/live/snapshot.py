@@ -98,6 +98,63 @@ class BenchView:
 
 
 @dataclass
+class ScanView:
+    """A running scan as a display shows it (the map panel, the status line).
+
+    Attributes
+    ----------
+    kind : str
+        The plan's kind: ``line``, ``raster``, ``volume`` or ``points``.
+    total, completed : int
+        Points in the plan, and points completed (done or failed; resumed ones included).
+    current : int or None
+        The point being moved to or measured (None before the first and when ended).
+    phase : str
+        ``waiting`` (for the drive, say), ``moving``, ``settling``, ``acquiring``,
+        ``paused``, ``ended``.
+    why : str
+        What a waiting, paused or ended scan waits for or ended on ("" otherwise).
+    targets_mm : numpy.ndarray
+        Shape ``(total, len(target_axes))``: every point's target, mm, in plan order.
+    target_axes : tuple of str
+        The columns of ``targets_mm``.
+    grid_axes : tuple of str
+        The scanned axes (those that vary; the first is the fast one); ``()`` when the
+        targets lie on no grid (see :func:`tankside.monitor.record.scanpoints.plan_grid`).
+    grid_coords_mm : tuple of numpy.ndarray
+        Per grid axis, its sorted coordinates, mm.
+    grid_index : numpy.ndarray
+        Shape ``(total, len(grid_axes))``: each point's place on the grid.
+    values : dict
+        Result name (the combined parameters: ``peak_rarefactional_pa``, ...) -> array of
+        ``total`` combined means, NaN for points not done or failed.
+    failed : numpy.ndarray
+        ``total`` booleans: points recorded as failed (never mapped as valid).
+    time_left_s : float
+        Estimated time to the end, s (NaN before the first point is done).
+    beam : dict
+        The beam figures of the points so far (:mod:`tankside.monitor.acoustics.beam`
+        ``as_dict()``), empty until computed.
+    """
+
+    kind: str = ""
+    total: int = 0
+    completed: int = 0
+    current: int | None = None
+    phase: str = "waiting"
+    why: str = ""
+    targets_mm: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    target_axes: tuple[str, ...] = ()
+    grid_axes: tuple[str, ...] = ()
+    grid_coords_mm: tuple[np.ndarray, ...] = ()
+    grid_index: np.ndarray = field(default_factory=lambda: np.zeros((0, 0), dtype=int))
+    values: dict[str, np.ndarray] = field(default_factory=dict)
+    failed: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
+    time_left_s: float = float("nan")
+    beam: dict = field(default_factory=dict)
+
+
+@dataclass
 class Snapshot:
     """The latest state of a live session.
 
@@ -170,3 +227,5 @@ class Snapshot:
     events: list[EventView] = field(default_factory=list)
     # the stage and the thermometer (None when the bench has neither)
     bench: BenchView | None = None
+    # the scan (None when the session runs none)
+    scan: ScanView | None = None

@@ -26,6 +26,7 @@ from ..errors import SessionFileError, TraceChecksumError
 from .benchstate import TraceBench
 from .cells import Row, codes_dtype, kind_of
 from .opening import OpenedSession, open_read_only, wal_mode
+from .scanpoints import Combined, PointRecord
 from .schema import (
     BENCH_STATE_LAYOUT,
     BOOL_RESULTS,
@@ -33,11 +34,14 @@ from .schema import (
     FORMAT_TAG,
     LAYOUT_VERSION,
     META_CALIBRATION_TEXT,
+    META_SCAN_PLAN,
     METADATA_KINDS,
     REAL_RESULTS,
     RESULT_COLUMNS,
     RESULT_NAMES,
+    SCAN_LAYOUT,
     TRACE_COLUMNS,
+    PointStatus,
     WaterSource,
 )
 
@@ -122,6 +126,7 @@ class SessionReader:
                 ("format", "layout_version", "session_uid", "start_time_s", "tool_version"),
                 rows[0], strict=True)))
             layout = row.integer("layout_version", minimum=1)
+            self.layout = layout
             if layout > LAYOUT_VERSION:
                 raise SessionFileError(f"{self.path}: session layout {layout} is newer than "
                                        f"this tankside reads ({LAYOUT_VERSION})")
@@ -527,6 +532,64 @@ class SessionReader:
                         "detail": r.json("detail_json", dict)})
         return out
 
+    # -- scans (layout 4) ------------------------------------------------------------
+    def _has_table(self, name: str) -> bool:
+        return bool(self._query("SELECT 1 FROM sqlite_master WHERE type = 'table' "
+                                "AND name = ?", (name,)))
+
+    @property
+    def scan_plan(self) -> dict | None:
+        """The scan plan recorded in the metadata (``ScanPlan.as_dict()``), or None when
+        the session ran no scan."""
+        plan = self.metadata.get(META_SCAN_PLAN)
+        return plan if isinstance(plan, dict) else None
+
+    def scan_points(self) -> list[PointRecord]:
+        """The completed scan points, by index (none before layout 4); every cell checked."""
+        if self.layout < SCAN_LAYOUT or not self._has_table("scan_points"):
+            return []
+        cols = ("point_index", "status", "time_s", "target_json", "position_json", "counted",
+                "rejected", "first_seq", "last_seq", "resumed", "results_json", "note")
+        out = []
+        for values in self._query(f"SELECT {', '.join(cols)} FROM scan_points "
+                                  "ORDER BY point_index"):
+            r = self._row("scan_points", f"point_index {values[0]}", cols, values)
+            status = r.text("status")
+            if status not in list(PointStatus):
+                r.fail("status", f"expected one of {', '.join(PointStatus)}, found {status!r}")
+            results = {}
+            for name, c in r.json("results_json", dict).items():
+                if not (isinstance(c, dict) and set(c) == {"mean", "spread", "n"}):
+                    r.fail("results_json", f"{name}: expected mean, spread and n")
+                mean, spread = (float("nan") if c[k] is None else c[k]
+                                for k in ("mean", "spread"))
+                if not all(isinstance(v, int | float) and not isinstance(v, bool)
+                           for v in (mean, spread, c["n"])):
+                    r.fail("results_json", f"{name}: expected numbers")
+                results[str(name)] = Combined(float(mean), float(spread), int(c["n"]))
+            out.append(PointRecord(
+                index=r.integer("point_index", minimum=0), status=PointStatus(status),
+                time_s=r.real("time_s"), target_mm=_mm_of(r, "target_json"),
+                position_mm=_mm_of(r, "position_json"),
+                counted=r.integer("counted", minimum=0), rejected=r.integer("rejected",
+                                                                            minimum=0),
+                first_seq=r.optional_integer("first_seq"),
+                last_seq=r.optional_integer("last_seq"),
+                resumed=bool(r.integer("resumed")), results=results, note=r.text("note")))
+        return out
+
+    def trace_points(self) -> dict[int, tuple[int, bool, str]]:
+        """seq -> (point index, counted, why not) for every trace acquired at a scan point."""
+        if self.layout < SCAN_LAYOUT or not self._has_table("trace_points"):
+            return {}
+        cols = ("seq", "point_index", "counted", "why_not")
+        out = {}
+        for values in self._query(f"SELECT {', '.join(cols)} FROM trace_points ORDER BY seq"):
+            r = self._row("trace_points", f"seq {values[0]}", cols, values)
+            out[r.integer("seq")] = (r.integer("point_index", minimum=0),
+                                     bool(r.integer("counted")), r.text("why_not"))
+        return out
+
     def size_bytes(self) -> int:
         """Bytes on disk: the database file and its WAL."""
         return session_size_bytes(self.path)
@@ -551,3 +614,13 @@ def _fits(name: str, value: Any) -> bool:
     if name in _TEXT_RESULTS:
         return isinstance(value, str)
     return True
+
+
+def _mm_of(r: Row, column: str) -> dict[str, float]:
+    """An axis -> mm object of a ``scan_points`` cell, each a finite number."""
+    out = {}
+    for axis, mm in r.json(column, dict).items():
+        if isinstance(mm, bool) or not isinstance(mm, int | float) or not math.isfinite(mm):
+            r.fail(column, f"axis {axis!r}: expected a finite position in mm, found {mm!r}")
+        out[str(axis)] = float(mm)
+    return out

@@ -43,7 +43,7 @@ import enum
 from ..acoustics.converter import RESULT_FIELDS
 
 FORMAT_TAG = "tankside-session"
-LAYOUT_VERSION = 3
+LAYOUT_VERSION = 4
 """Layout of the files this tankside writes (``session_start.layout_version``); the
 reader reads every layout up to it:
 
@@ -54,6 +54,10 @@ reader reads every layout up to it:
 3. The bench state with each trace: tables ``trace_positions`` (every stage axis, mm)
    and ``trace_water`` (the thermometer reading, its age and which temperature the
    conversion used); see the block "layout 3: bench state" at the end of this module.
+4. Scans: tables ``trace_points`` (the scan point a trace was acquired at, and whether
+   it counts towards that point) and ``scan_points`` (one row per completed point: its
+   target, measured position and combined results), and the plan in the metadata
+   (``scan_plan``); see the block "layout 4: scans" at the end of this module.
 """
 
 #: The first layout whose traces carry ``codes_crc32``.
@@ -73,6 +77,7 @@ META_START_TIME_S = "start_time_s"            # float, s since the Unix epoch
 META_REPLAY_OF = "replay_of"                  # dict, set by replay: source file, id, overrides
 META_PROTECTION_WARNINGS = "protection_warnings"  # list of str, the protection the alert
                                                   # settings switch off (empty: none)
+META_SCAN_PLAN = "scan_plan"                  # dict, the scan plan (ScanPlan.as_dict())
 
 REQUIRED_FOR_REPLAY = (META_CALIBRATION_TEXT, META_LOADING, META_SETTINGS, META_TEMPERATURE_C)
 
@@ -91,6 +96,7 @@ METADATA_KINDS: dict[str, tuple[type, ...]] = {
     META_START_TIME_S: (int, float),
     META_REPLAY_OF: (dict,),
     META_PROTECTION_WARNINGS: (list,),
+    META_SCAN_PLAN: (dict,),
 }
 
 # -- event kinds ---------------------------------------------------------------------
@@ -163,6 +169,24 @@ class EventKind(enum.StrEnum):
     """The conversion's water temperature changed source (a :class:`WaterSource`):
     ``source``, ``reading_c`` and ``age_s`` (null when none), ``max_age_s``,
     ``temperature_c`` (the one used), ``from_seq``."""
+    # -- scans (layout 4) -------------------------------------------------------------
+    SCAN_START = "scan-start"
+    """A scan began: ``points`` (how many in the plan), ``kind``, ``first_point``."""
+    SCAN_RESUMED = "scan-resumed"
+    """An interrupted scan continues in the same file: ``first_point`` (the first point
+    not completed), ``completed`` (points already done), ``previous_stop`` (the stop
+    record the file had, or null when it had none: killed, crashed, power lost),
+    ``first_seq`` (the first trace recorded after resuming)."""
+    SCAN_PAUSED = "scan-paused"
+    """The scan waits: ``point``, ``why`` (stage lost, stage did not arrive, drive off,
+    ...). The stage is not moved until the cause is gone."""
+    SCAN_CONTINUED = "scan-continued"
+    """A paused scan goes on: ``point``, ``after_s``."""
+    SCAN_POINT_FAILED = "scan-point-failed"
+    """A point could not be measured and is recorded as failed: ``point``, ``why``."""
+    SCAN_END = "scan-end"
+    """The scan ended: ``completed`` (points done or failed), ``points``, ``why``
+    (``complete``, or why it stopped early)."""
 
 
 class FaultKind(enum.StrEnum):
@@ -369,3 +393,53 @@ BENCH_STATE_DESCRIPTORS = [
 ]
 DDL += BENCH_STATE_DDL
 STATIC_DESCRIPTORS += BENCH_STATE_DESCRIPTORS
+
+
+# == layout 4: scans ======================================================================
+
+#: The first layout whose files can hold ``trace_points`` and ``scan_points``.
+SCAN_LAYOUT = 4
+
+
+class PointStatus(enum.StrEnum):
+    """How a scan point ended (``scan_points.status``)."""
+
+    DONE = "done"
+    """Its traces were acquired and combined; the point is mapped."""
+    FAILED = "failed"
+    """It could not be measured (every trace clipped, say); ``note`` says why. The point
+    is completed (a resumed scan does not visit it again) but never mapped as valid."""
+
+
+SCAN_DDL = [
+    # one row per trace acquired while a scan ran at a point (moves and settling: none)
+    """CREATE TABLE trace_points (
+        seq INTEGER PRIMARY KEY REFERENCES traces(seq),
+        point_index INTEGER NOT NULL,
+        counted INTEGER NOT NULL,
+        why_not TEXT NOT NULL)""",
+    # one row per completed point; the primary key keeps a point from being recorded twice
+    """CREATE TABLE scan_points (
+        point_index INTEGER PRIMARY KEY,
+        status TEXT NOT NULL,
+        time_s REAL NOT NULL,
+        target_json TEXT NOT NULL,
+        position_json TEXT NOT NULL,
+        counted INTEGER NOT NULL,
+        rejected INTEGER NOT NULL,
+        first_seq INTEGER,
+        last_seq INTEGER,
+        resumed INTEGER NOT NULL,
+        results_json TEXT NOT NULL,
+        note TEXT NOT NULL)""",
+]
+SCAN_DESCRIPTORS = [
+    ("point_index", "trace_points", "", "int64"),
+    ("counted", "trace_points", "", "bool"),
+    ("why_not", "trace_points", "", "str"),
+    ("target_json", "scan_points", "mm", "json"),
+    ("position_json", "scan_points", "mm", "json"),
+    ("results_json", "scan_points", "", "json"),
+]
+DDL += SCAN_DDL
+STATIC_DESCRIPTORS += SCAN_DESCRIPTORS

@@ -46,6 +46,7 @@ from ..errors import DiskFullError, SessionFileError, StoreError
 from ..outcome import ExitStatus
 from .benchstate import TraceBench
 from .reader import SessionReader, StoredTrace, session_size_bytes
+from .scanpoints import PointRecord
 from .schema import (
     BOOL_RESULTS,
     DDL,
@@ -64,6 +65,7 @@ from .schema import (
     REAL_RESULTS,
     RESULT_NAMES,
     RESULT_ROW_COLUMNS,
+    SCAN_LAYOUT,
     STATIC_DESCRIPTORS,
     TRACE_COLUMNS,
     EventKind,
@@ -312,6 +314,51 @@ class SessionStore:
         store.checkpoints = 1
         return store
 
+    @classmethod
+    def reopen(cls, path, *, commit_interval_s: float = 1.0,
+               checkpoint_interval_s: float = 10.0,
+               clock: Callable[[], float] = time.monotonic,
+               wall_clock: Callable[[], float] = time.time) -> tuple[SessionStore, dict | None]:
+        """Open an existing session file to go on writing it (a resumed scan).
+
+        The file must be a session of this tankside's layout (:data:`SCAN_LAYOUT` and
+        up: older files are never written into). Its stop record, if any, is removed
+        (in the same transaction that opens it; the caller records it in the
+        ``scan-resumed`` event) and returned; None when the file had none (killed,
+        crashed, power lost). Rows go on from the traces already there.
+
+        Raises
+        ------
+        SessionFileError
+            Not a session file, or one of another layout.
+        StoreError
+            The file cannot be written.
+        """
+        path = Path(path)
+        with SessionReader(path) as reader:
+            layout = reader.start["layout_version"]
+            if layout != LAYOUT_VERSION or layout < SCAN_LAYOUT:
+                raise SessionFileError(f"{path}: a layout {layout} session; only files of "
+                                       f"layout {LAYOUT_VERSION} (this tankside's) can be "
+                                       "resumed")
+            previous = reader.stop
+            written = reader.trace_count()
+            source = _digitiser_source(reader.metadata)
+        try:
+            conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
+            conn.execute("PRAGMA journal_mode=WAL")
+            conn.execute("PRAGMA synchronous=FULL")
+            conn.execute("BEGIN IMMEDIATE")
+            conn.execute("DELETE FROM session_stop")
+            conn.execute("COMMIT")
+        except sqlite3.Error as err:
+            raise _map_error(err, "reopening the session file", path) from err
+        store = cls(conn, path, commit_interval_s, clock, wall_clock, source,
+                    checkpoint_interval_s)
+        store.traces_written = int(written)
+        store._codes_described = written > 0
+        return store, previous
+
     # -- writing ------------------------------------------------------------------------
     def _write(self, doing: str, fn):
         if self._closed:
@@ -350,13 +397,16 @@ class SessionStore:
         raise mapped from err
 
     def add_trace(self, raw: RawTrace, result: dict | None, flags: dict | None = None,
-                  error: str | None = None, bench: TraceBench | None = None) -> None:
+                  error: str | None = None, bench: TraceBench | None = None,
+                  point: tuple[int, bool, str] | None = None) -> None:
         """Record one trace as sent, and its result (``TraceResult.flat()``) or error.
 
         ``flags`` may hold ``clipped`` (default: any sample at a rail),
         ``range_changed`` (default False) and any other JSON-able flags. ``bench``, the
         stage position and water reading at the trace, goes into ``trace_positions`` and
-        ``trace_water`` (nothing when None or empty).
+        ``trace_water`` (nothing when None or empty). ``point``, the scan point the trace
+        was acquired at, whether it counts towards it and why not, goes into
+        ``trace_points`` (nothing when None: no scan, or between points).
         """
         codes = np.ascontiguousarray(raw.codes)
         data = codes.tobytes()
@@ -374,6 +424,8 @@ class SessionStore:
             result_row = (int(raw.seq), result is not None, error, *values, clipped,
                           range_changed, strict_json(flags), strict_json(extra))
             position_rows, water_row = _bench_rows(int(raw.seq), bench)
+            point_row = None if point is None else (int(raw.seq), int(point[0]),
+                                                    bool(point[1]), str(point[2]))
         except (TypeError, ValueError) as err:
             raise StoreError(f"{self.label}: trace {raw.seq} is not recordable: {err}") from err
 
@@ -389,6 +441,8 @@ class SessionStore:
                                        position_rows)
             if water_row is not None:
                 self._conn.execute("INSERT INTO trace_water VALUES (?, ?, ?, ?)", water_row)
+            if point_row is not None:
+                self._conn.execute("INSERT INTO trace_points VALUES (?, ?, ?, ?)", point_row)
             if not self._codes_described:
                 self._conn.execute(
                     "INSERT OR REPLACE INTO descriptors "
@@ -444,6 +498,34 @@ class SessionStore:
         self._write(f"recording event {kind!r}", lambda: self._conn.execute(
             "INSERT INTO events (time_s, kind, seq, detail_json) VALUES (?, ?, ?, ?)",
             (float(time_s), str(kind), None if seq is None else int(seq), detail_json)))
+
+    def add_scan_point(self, point: PointRecord) -> None:
+        """Record a completed scan point (``scan_points``).
+
+        Raises
+        ------
+        StoreError
+            The point is already recorded (a point is never recorded twice), or a value
+            is not recordable.
+        """
+        try:
+            row = (int(point.index), str(point.status), float(point.time_s),
+                   strict_json({k: float(v) for k, v in point.target_mm.items()}),
+                   strict_json({k: float(v) for k, v in point.position_mm.items()}),
+                   int(point.counted), int(point.rejected),
+                   None if point.first_seq is None else int(point.first_seq),
+                   None if point.last_seq is None else int(point.last_seq),
+                   bool(point.resumed),
+                   strict_json({k: c.as_dict() for k, c in point.results.items()}),
+                   str(point.note))
+        except (TypeError, ValueError) as err:
+            raise StoreError(f"{self.label}: scan point {point.index} is not recordable: "
+                             f"{err}") from err
+
+        def insert():     # a repeated index is refused by the primary key (_write)
+            self._conn.execute(
+                "INSERT INTO scan_points VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", row)
+        self._write(f"recording scan point {point.index}", insert)
 
     # -- commits ------------------------------------------------------------------------
     def maybe_commit(self) -> bool:
