@@ -31,15 +31,16 @@ import numpy as np
 from ..acoustics.water import Water
 from ..errors import TanksideError
 from ..record.benchstate import TraceBench
-from ..record.schema import EventKind, FaultKind, WaterSource
+from ..record.schema import EventKind, FaultKind, PointStatus, WaterSource
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop
 from .actions import Cause, SafeOff, SetRange
 from .autorange import range_after
 from .benchfile import DEFAULT_MAX_AGE_S
 from .figures import FigureSet, RateMeter
 from .generator import GeneratorWorker
-from .recorder import AlertItem, EventItem, TraceItem
+from .recorder import AlertItem, EventItem, PointItem, TraceItem
 from .rules import Firing, observation_from_trace
+from .scan import ScanCollector
 from .snapshot import AlertView, BenchView, EventView, InstrumentView, Snapshot
 from .stage import StageWorker
 from .thermometer import ThermometerWorker, WaterChoice, water_for_trace
@@ -108,7 +109,11 @@ class TraceProcessor:
                  session_path: Path, method: str, bell: Callable[[], None] | None = None,
                  autorange_options: dict | None = None, resources: dict | None = None,
                  stage: StageWorker | None = None, thermometer: ThermometerWorker | None = None,
-                 max_age_s: float = DEFAULT_MAX_AGE_S, bench_temperature_c: float = 20.0):
+                 max_age_s: float = DEFAULT_MAX_AGE_S, bench_temperature_c: float = 20.0,
+                 scan: ScanCollector | None = None,
+                 on_safe_off: Callable[[str], None] | None = None):
+        self._scan = scan
+        self._on_safe_off = on_safe_off
         self._converter = converter
         self._rules = rules
         self._acq = acquisition
@@ -156,6 +161,11 @@ class TraceProcessor:
         self.snap = Snapshot(session_path=str(session_path), state="starting")
 
     # -- what the session reads and asks --------------------------------------------
+    @property
+    def drive_on(self) -> bool | None:
+        """The generator output as processing last learnt it (None: unknown)."""
+        return self._drive_on
+
     def set_range(self, range_v: float) -> None:
         self._range_v = range_v
 
@@ -282,7 +292,15 @@ class TraceProcessor:
         elif flat is not None:          # always so when nothing left it out
             self._figures.add(flat)
             self._figures_time_s = float(raw.time_s)
-        self._record(TraceItem(raw, flat, flags, error, bench))
+        point, completed = (None, None) if self._scan is None else self._scan.on_trace(
+            raw.seq, flat, flags, None if bench is None else bench.positions_mm)
+        self._record(TraceItem(raw, flat, flags, error, bench, point))
+        if completed is not None:       # after the trace that completed it
+            self._record(PointItem(completed))
+            if completed.status != PointStatus.DONE:
+                self._record(EventItem(time.time(), EventKind.SCAN_POINT_FAILED,
+                                       {"point": completed.index, "why": completed.note},
+                                       seq=raw.seq))
         self._publish_trace(raw, volts, result, flat)
 
     # -- stage position and water, per trace ------------------------------------------
@@ -427,6 +445,8 @@ class TraceProcessor:
     def _safe_off(self, cause: Cause, time_s: float) -> None:
         if self._stage is not None:
             self._stage.request_stop("safe-off")
+        if self._on_safe_off is not None:
+            self._on_safe_off(f"safe-off ({cause.rule})")
         if self._generator is not None:
             self._generator.request(SafeOff(cause))
             return
@@ -488,6 +508,7 @@ class TraceProcessor:
             figures_left_out_counts=dict(self._left_out_counts),
             figures_since_s=self._figures_since[0], figures_since_reason=self._figures_since[1],
             events=self._events_copy(), bench=self._bench_view(),
+            scan=None if self._scan is None else self._scan.view(),
             state=state or self.snap.state,
             stop_reason=self.snap.stop_reason if stop_reason is None else stop_reason)
 

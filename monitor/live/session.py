@@ -30,12 +30,14 @@ import threading
 import time
 import traceback
 from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from ..acoustics.settings import Method
 from ..errors import ConfigError
 from ..outcome import ExitStatus
+from ..record.scanpoints import PointRecord
 from ..record.schema import EventKind
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop, OpenInstrument
 from .benchfile import DEFAULT_MAX_AGE_S
@@ -44,6 +46,7 @@ from .locks import InstrumentLock
 from .processing import TraceProcessor
 from .recorder import END, AckItem, CloseItem, EventItem, Writer
 from .rules import TickObservation
+from .scan import ScanCollector, ScanRunner
 from .serial_ports import StagePort, ThermometerPort
 from .snapshot import Snapshot
 from .stage import POLL_S as STAGE_POLL_S
@@ -52,6 +55,17 @@ from .thermometer import POLL_S as THERMOMETER_POLL_S
 from .thermometer import ThermometerWorker
 
 TICK_EVERY_S = 1.0
+
+
+@dataclass(frozen=True)
+class ScanResume:
+    """What a resumed scan takes from its file (:func:`.build.scan_resume`)."""
+
+    completed: tuple[PointRecord, ...]
+    previous_stop: dict | None
+    first_seq: int
+    first_point: int | None
+    configuration: dict
 
 
 class LiveSession:
@@ -128,7 +142,9 @@ class LiveSession:
                  stage_limits: dict[str, tuple[float, float]] | None = None,
                  open_thermometer: Callable[[], ThermometerPort] | None = None,
                  max_age_s: float = DEFAULT_MAX_AGE_S, bench_temperature_c: float = 20.0,
-                 serial_poll_s: dict[str, float] | None = None):
+                 serial_poll_s: dict[str, float] | None = None,
+                 scan_plan: Any = None, scan_resume: ScanResume | None = None,
+                 beam_figures: Callable[[Any], dict] | None = None):
         self.session_path = Path(session_path)
         self._rules = rules
         self._open_store = open_store
@@ -163,10 +179,28 @@ class LiveSession:
                 emit=lambda kind, detail, alert: self._acq.event(kind, detail, alert),
                 current_seq=lambda: self._acq.seq,
                 poll_s=polls.get("thermometer", THERMOMETER_POLL_S))
+        self._scan_resume = scan_resume
+        first_seq = 0 if scan_resume is None else scan_resume.first_seq
         self._acq = AcquisitionLoop(open_digitiser=open_digitiser, out=self._raw_q,
                                     stop=self._stop, trigger_timeout_s=trigger_timeout_s,
                                     give_up_s=give_up_s, max_traces=max_traces, gate=gate,
+                                    first_seq=first_seq,
                                     hold=None if self._gen is None else self._gen.hold)
+        self._scan: ScanCollector | None = None
+        self._scan_runner: ScanRunner | None = None
+        if scan_plan is not None:
+            if self._stage is None:
+                raise ConfigError("a scan needs a stage: the bench file has no [stage]")
+            self._scan = ScanCollector(
+                scan_plan, completed=() if scan_resume is None else scan_resume.completed,
+                beam_figures=beam_figures)
+            self._scan_runner = ScanRunner(
+                plan=scan_plan, collector=self._scan, stage=self._stage,
+                next_seq=lambda: self._acq.seq, drive_on=lambda: self._proc.drive_on,
+                needs_drive=self._gen is not None,
+                emit=lambda kind, detail, alert: self._acq.event(kind, detail, alert),
+                finished=self._scan_finished, stop=self._stop,
+                resumed=scan_resume is not None)
         self._drive_on_at_start = drive_on_at_start
         self._locks: list[InstrumentLock] = []
         self._leave_drive_on = bool(leave_drive_on_at_end)
@@ -180,7 +214,8 @@ class LiveSession:
             session_path=self.session_path, method=method or _method_of(converter),
             bell=bell, autorange_options=autorange_options, resources=self._resources,
             stage=self._stage, thermometer=self._thermometer, max_age_s=max_age_s,
-            bench_temperature_c=bench_temperature_c)
+            bench_temperature_c=bench_temperature_c, scan=self._scan,
+            on_safe_off=self._halt_scan)
         self._writer_thread: threading.Thread | None = None
         self._acquisition_thread: threading.Thread | None = None
         self._done = threading.Event()
@@ -265,6 +300,12 @@ class LiveSession:
             self._done.set()
             raise
         self._writer_thread = wt
+        if self._scan_resume is not None:
+            r = self._scan_resume
+            self._put(EventItem(time.time(), EventKind.SCAN_RESUMED, {
+                "first_point": r.first_point, "completed": len(r.completed),
+                "previous_stop": r.previous_stop, "first_seq": r.first_seq,
+                "configuration": r.configuration}))
         if self._gen is not None:
             try:
                 self._gen.apply_settings()
@@ -296,6 +337,8 @@ class LiveSession:
         if self._thermometer is not None:
             self._thermometer.start()
         at.start()
+        if self._scan_runner is not None:
+            self._scan_runner.start()
 
     def prepare(self) -> None:
         """Nothing to prepare in this process (see ``SessionProcess.prepare``)."""
@@ -437,6 +480,18 @@ class LiveSession:
                     self.message_for_operator = message
         self._stop.set()
 
+    def _scan_finished(self, why: str, complete: bool) -> None:
+        if complete:
+            self._request_stop(ExitStatus.COMPLETED, f"scan complete ({why})")
+        elif why.startswith("safe-off"):
+            self._request_stop(ExitStatus.STOPPED_BY_RULE, f"scan ended: {why}")
+        elif why.startswith("scan thread"):
+            self._request_stop(ExitStatus.INTERNAL_ERROR, why)
+
+    def _halt_scan(self, why: str) -> None:
+        if self._scan_runner is not None:
+            self._scan_runner.halt(why)
+
     def _drive_unsafe(self, message: str) -> None:
         self._request_stop(ExitStatus.DRIVE_MAY_BE_ON, "output not confirmed off", message)
 
@@ -484,6 +539,9 @@ class LiveSession:
             elif self._acq.max_traces is not None and self._acq.seq >= self._acq.max_traces:
                 self._request_stop(ExitStatus.COMPLETED, f"{self._acq.max_traces} traces acquired")
             self._stop.set()
+            if self._scan_runner is not None:
+                # its scan-end event goes in before the end marker
+                self._scan_runner.join(5.0)
             if self._gen is not None:
                 # recorded before the end marker, so the file holds the final state
                 self._gen.stop(leave_on=self._leave_drive_on)

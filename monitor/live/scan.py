@@ -1,0 +1,514 @@
+"""A scan running in a live session: move, settle, acquire, combine, point by point.
+
+Two parts, on two threads:
+
+- :class:`ScanRunner` (a thread of its own) walks the plan: it asks the stage worker to
+  move to a point (soft limits checked there, before anything is sent), waits until the
+  stage reads back at the target and at rest, waits the settle time, and then opens the
+  point to traces. It waits while the drive is off (tankside never switches it on), and
+  pauses while the stage is lost or does not arrive, with an event and an alert, going
+  on when the cause is gone. It never waits on the digitiser: acquisition runs on
+  throughout, and traces acquired while moving or settling are recorded without a point.
+- :class:`ScanCollector` (called by the processing thread, in order with the traces)
+  decides for each trace whether it counts towards the open point. A trace counts when
+  it converted, did not clip, was acquired with the drive on and with the stage at rest
+  within ``tolerance_mm`` of the target. A trace with no pulse above its noise counts
+  (the beam's edges and nulls are measurements too). Once the point has its
+  ``traces_per_point`` traces the combined point (:func:`..record.scanpoints.combine_results`)
+  is recorded, after the trace that completed it. A point whose traces keep being
+  refused (``max_rejected``; every trace clipped, say) is recorded as failed, never
+  mapped as valid; the clipping rule's auto-range acts on those traces as on any other,
+  so a clipped point is normally re-acquired at the new range and counts then.
+
+Over-pressure: a rule's safe-off stops the stage and the drive (processing does both),
+and the scan ends there; the session then stops, and ``tankside scan --resume`` goes on
+from the first point not completed once the cause is understood.
+
+Resume: a point is completed when its ``scan_points`` row is written (the primary key
+keeps it from being written twice). A scan resumed in the same file skips the completed
+points; traces of a point that was being measured when the session died stay in the file
+with their ``trace_points`` rows (an attempt that did not complete) and the point is
+measured again.
+"""
+
+from __future__ import annotations
+
+import math
+import threading
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from typing import Any, Protocol
+
+import numpy as np
+
+from ..record.scanpoints import COMBINED_RESULTS, PointRecord, combine_results, plan_grid
+from ..record.schema import EventKind, PointStatus
+from .actions import RaisedAlert
+from .snapshot import ScanView
+
+#: A reading within this of the target is at the target, mm (the simulated stage and
+#: most controllers resolve a micrometre; a stall leaves the stage far further off).
+TOLERANCE_MM = 0.01
+#: How long a move may take beyond its travel at the plan's speed, s.
+ARRIVE_MARGIN_S = 10.0
+#: The speed assumed for the arrival timeout when the plan gives none, mm/s.
+ASSUMED_SPEED_MM_S = 1.0
+#: Refused traces at one point before it is recorded as failed: this many times the
+#: traces it needs, and at least :data:`MIN_REJECTED`.
+REJECTED_FACTOR = 10
+MIN_REJECTED = 50
+
+
+class PlanPoint(Protocol):
+    index: int
+    target_mm: dict[str, float]
+
+
+class Plan(Protocol):
+    """What the runner needs of a scan plan (:mod:`.scanplan`)."""
+
+    kind: str
+    points: Sequence[Any]
+    settle_s: float
+    traces_per_point: int
+    speed_mm_s: float | None
+
+
+class StageLike(Protocol):
+    @property
+    def connected(self) -> bool: ...
+    def latest(self) -> Any: ...
+    def request_move(self, target: dict[str, float]) -> dict[str, float]: ...
+    def request_stop(self, cause: str) -> None: ...
+
+
+@dataclass
+class _OpenPoint:
+    index: int
+    target_mm: dict[str, float]
+    from_seq: int
+    needed: int
+    resumed: bool
+    flats: list
+    positions: list
+    seqs: list
+    rejected: int = 0
+    done: bool = False
+
+
+class ScanCollector:
+    """The processing thread's side of a scan: which trace belongs to which point.
+
+    Parameters
+    ----------
+    plan : Plan
+    completed : list of PointRecord
+        Points already in the file (a resumed scan); they are mapped and skipped.
+    tolerance_mm : float
+    max_rejected : int, optional
+        Refused traces before a point fails (default from :data:`REJECTED_FACTOR`).
+    beam_figures : callable (ScanView) -> dict, optional
+        Computes the beam figures shown with the map, after each point.
+    """
+
+    def __init__(self, plan: Plan, *, completed: Sequence[PointRecord] = (),
+                 tolerance_mm: float = TOLERANCE_MM, max_rejected: int | None = None,
+                 beam_figures: Callable[[ScanView], dict] | None = None):
+        self.plan = plan
+        self.tolerance_mm = float(tolerance_mm)
+        n = int(plan.traces_per_point)
+        self.max_rejected = int(max_rejected if max_rejected is not None
+                                else max(MIN_REJECTED, REJECTED_FACTOR * n))
+        self._lock = threading.Lock()
+        self._open: _OpenPoint | None = None
+        self._finished = threading.Condition(self._lock)
+        self._beam_figures = beam_figures
+        targets = [dict(p.target_mm) for p in plan.points]
+        self.total = len(targets)
+        axes = tuple(sorted({a for t in targets for a in t}))
+        self._target_axes = axes
+        self._targets = np.array([[t.get(a, np.nan) for a in axes] for t in targets],
+                                 dtype=float).reshape(self.total, len(axes))
+        self._grid = plan_grid(targets)
+        self._values = {name: np.full(self.total, np.nan) for name in COMBINED_RESULTS}
+        self._failed = np.zeros(self.total, dtype=bool)
+        self.completed: set[int] = set()
+        for rec in completed:
+            self._take(rec)
+        self.completed_before = len(self.completed)
+        self.current: int | None = None
+        self.phase = "waiting"
+        self.why = ""
+        self._beam: dict = {}
+        self._durations: list[float] = []
+        self._last_done_mono: float | None = None
+
+    # -- the runner's side ----------------------------------------------------------
+    def open_point(self, index: int, target_mm: dict[str, float], from_seq: int, *,
+                   resumed: bool) -> None:
+        """Traces from ``from_seq`` on may count towards point ``index``."""
+        with self._lock:
+            self._open = _OpenPoint(index, dict(target_mm), int(from_seq),
+                                    int(self.plan.traces_per_point), resumed, [], [], [])
+            self.phase = "acquiring"
+
+    def wait_point(self, stop: threading.Event, timeout_s: float = 0.2) -> bool:
+        """Wait up to ``timeout_s`` for the open point to complete; True when it has."""
+        with self._lock:
+            if self._open is None or self._open.done:
+                return True
+            self._finished.wait(timeout_s)
+            return self._open is None or self._open.done
+
+    def close_point(self) -> None:
+        """Stop counting traces (the point is abandoned: a pause, the end)."""
+        with self._lock:
+            self._open = None
+
+    def set_phase(self, phase: str, why: str = "", current: int | None = None) -> None:
+        self.phase, self.why = phase, why
+        if current is not None:
+            self.current = current
+
+    # -- the processing thread's side -----------------------------------------------
+    def on_trace(self, seq: int, flat: dict | None, flags: dict,
+                 positions_mm: dict[str, float] | None
+                 ) -> tuple[tuple[int, bool, str] | None, PointRecord | None]:
+        """Judge one trace: its ``trace_points`` entry (None: not at a point) and the
+        point it completed (None: none)."""
+        with self._lock:
+            op = self._open
+            if op is None or op.done or seq < op.from_seq:
+                return None, None
+            why = self._why_not(flat, flags, positions_mm, op.target_mm)
+            if why:
+                op.rejected += 1
+                if op.rejected >= self.max_rejected:
+                    rec = self._finish(op, PointStatus.FAILED,
+                                       f"{op.rejected} traces refused, the last: {why}")
+                    return (op.index, False, why), rec
+                return (op.index, False, why), None
+            op.flats.append(flat)
+            op.positions.append(dict(positions_mm or {}))
+            op.seqs.append(seq)
+            if len(op.flats) >= op.needed:
+                return (op.index, True, ""), self._finish(op, PointStatus.DONE, "")
+            return (op.index, True, ""), None
+
+    def _why_not(self, flat, flags, positions_mm, target_mm) -> str:
+        if flat is None:
+            return "not converted"
+        if flags.get("clipped"):
+            return "clipped"
+        if flags.get("drive_off"):
+            return "drive off"
+        if flags.get("stage_moving"):
+            return "stage moving"
+        if not positions_mm:
+            return "no stage position"
+        for axis, want in target_mm.items():
+            got = positions_mm.get(axis)
+            if got is None or abs(got - want) > self.tolerance_mm:
+                return "off target"
+        return ""
+
+    def _finish(self, op: _OpenPoint, status: PointStatus, note: str) -> PointRecord:
+        results = combine_results(op.flats) if status == PointStatus.DONE else {}
+        if op.positions:
+            axes = op.positions[0].keys()
+            position = {a: float(np.mean([p[a] for p in op.positions if a in p]))
+                        for a in axes}
+        else:
+            position = dict(op.target_mm)
+        rec = PointRecord(index=op.index, status=status, time_s=time.time(),
+                          target_mm=dict(op.target_mm), position_mm=position,
+                          counted=len(op.flats), rejected=op.rejected,
+                          first_seq=op.seqs[0] if op.seqs else None,
+                          last_seq=op.seqs[-1] if op.seqs else None, resumed=op.resumed,
+                          results=results, note=note)
+        op.done = True
+        self._take(rec)
+        now = time.monotonic()
+        if self._last_done_mono is not None:
+            self._durations.append(now - self._last_done_mono)
+        self._last_done_mono = now
+        self._finished.notify_all()
+        return rec
+
+    def _take(self, rec: PointRecord) -> None:
+        if not 0 <= rec.index < self.total:
+            return
+        self.completed.add(rec.index)
+        if rec.valid:
+            for name in COMBINED_RESULTS:
+                self._values[name][rec.index] = rec.value(name)
+        else:
+            self._failed[rec.index] = True
+        if self._beam_figures is not None:
+            try:
+                self._beam = dict(self._beam_figures(self.view(with_beam=False)))
+            except (ArithmeticError, ValueError) as err:
+                self._beam = {"error": f"{type(err).__name__}: {err}"}
+
+    def mark_started(self) -> None:
+        """The clock of the time-left estimate starts (the first move is asked)."""
+        self._last_done_mono = time.monotonic()
+
+    # -- the display's side ---------------------------------------------------------
+    def time_left_s(self) -> float:
+        left = self.total - len(self.completed)
+        if left == 0:
+            return 0.0
+        if not self._durations:
+            return float("nan")
+        recent = self._durations[-20:]
+        return float(np.mean(recent) * left)
+
+    def view(self, *, with_beam: bool = True) -> ScanView:
+        grid = self._grid
+        return ScanView(
+            kind=str(self.plan.kind), total=self.total, completed=len(self.completed),
+            current=self.current, phase=self.phase, why=self.why,
+            targets_mm=self._targets, target_axes=self._target_axes,
+            grid_axes=grid.axes if grid else (),
+            grid_coords_mm=grid.coords_mm if grid else (),
+            grid_index=grid.index if grid else np.zeros((self.total, 0), dtype=int),
+            values={k: v.copy() for k, v in self._values.items()},
+            failed=self._failed.copy(), time_left_s=self.time_left_s(),
+            beam=dict(self._beam) if with_beam else {})
+
+
+class ScanRunner:
+    """Walks a plan on a thread of its own (see the module docstring).
+
+    Parameters
+    ----------
+    plan : Plan
+    collector : ScanCollector
+    stage : StageLike
+    next_seq : callable () -> int
+        The seq the next trace will get (the acquisition's counter).
+    drive_on : callable () -> bool or None
+        The generator output as last read back (None: unknown); ``needs_drive`` False
+        (no generator on the bench) skips the wait for it.
+    emit : callable (kind, detail, alert) -> None
+        Records an event in order with the traces (and raises the alert, if any).
+    finished : callable (why: str, complete: bool) -> None
+        Called once when the scan ends (the session stops then).
+    stop : threading.Event
+        The session's stop.
+    resumed : bool
+        The scan continues an earlier one in the same file.
+    """
+
+    def __init__(self, *, plan: Plan, collector: ScanCollector, stage: StageLike,
+                 next_seq: Callable[[], int], drive_on: Callable[[], bool | None],
+                 needs_drive: bool, emit: Callable[[EventKind, dict, RaisedAlert | None], None],
+                 finished: Callable[[str, bool], None], stop: threading.Event,
+                 resumed: bool = False, poll_s: float = 0.05,
+                 arrive_margin_s: float = ARRIVE_MARGIN_S):
+        self.plan = plan
+        self.collector = collector
+        self._stage = stage
+        self._next_seq = next_seq
+        self._drive_on = drive_on
+        self._needs_drive = bool(needs_drive)
+        self._emit = emit
+        self._finished_cb = finished
+        self._stop = stop
+        self._resumed = bool(resumed)
+        self._poll_s = float(poll_s)
+        self._margin_s = float(arrive_margin_s)
+        self._halt = threading.Event()
+        self._halt_why = ""
+        self._thread: threading.Thread | None = None
+        self.ended = False
+
+    def start(self) -> None:
+        self._thread = threading.Thread(target=self._main, name="tankside-scan", daemon=True)
+        self._thread.start()
+
+    def halt(self, why: str) -> None:
+        """End the scan at once (a safe-off, the operator); the stage was stopped by the
+        caller. Returns at once."""
+        if not self._halt.is_set():
+            self._halt_why = str(why)
+            self._halt.set()
+
+    def join(self, timeout_s: float | None = None) -> None:
+        if self._thread is not None:
+            self._thread.join(timeout_s)
+
+    # -- the thread -----------------------------------------------------------------
+    def _ended(self) -> bool:
+        return self._stop.is_set() or self._halt.is_set()
+
+    def _main(self) -> None:
+        c = self.collector
+        todo = [p for p in self.plan.points if p.index not in c.completed]
+        first = todo[0].index if todo else None
+        if self._resumed:
+            pass    # the session recorded scan-resumed before the threads started
+        else:
+            self._emit(EventKind.SCAN_START, {"points": c.total, "kind": str(self.plan.kind),
+                                              "first_point": first}, None)
+        c.mark_started()
+        why = "complete"
+        try:
+            for point in todo:
+                if self._ended():
+                    break
+                c.set_phase("moving", current=point.index)
+                if not self._measure(point):
+                    break
+        except Exception as err:  # noqa: BLE001 - a bug here ends the scan, not acquisition
+            why = f"scan thread: {type(err).__name__}: {err}"
+            self._emit(EventKind.SCAN_END, {"completed": len(c.completed), "points": c.total,
+                                            "why": why}, RaisedAlert(
+                "scan-failed", "critical", f"the scan stopped on an internal error: {why}"))
+            c.close_point()
+            c.set_phase("ended", why)
+            self.ended = True
+            self._finished_cb(why, False)
+            return
+        c.close_point()
+        complete = len(c.completed) == c.total
+        if not complete:
+            why = self._halt_why if self._halt.is_set() else "session stopped"
+        c.set_phase("ended", "" if complete else why)
+        c.current = None
+        self._emit(EventKind.SCAN_END, {"completed": len(c.completed), "points": c.total,
+                                        "why": why, "beam": c.view().beam}, None)
+        self.ended = True
+        self._finished_cb(why, complete)
+
+    def _wait(self, seconds: float) -> bool:
+        """Sleep ``seconds`` unless the scan ends; True when it did not."""
+        end = time.monotonic() + seconds
+        while not self._ended():
+            left = end - time.monotonic()
+            if left <= 0:
+                return True
+            self._halt.wait(min(left, self._poll_s))
+        return False
+
+    def _pause(self, point: int, why: str, alert: bool = True) -> float:
+        self.collector.close_point()
+        self.collector.set_phase("paused", why)
+        self._emit(EventKind.SCAN_PAUSED, {"point": point, "why": why},
+                   RaisedAlert("scan-paused", "warning", f"scan paused at point {point}: {why}")
+                   if alert else None)
+        return time.monotonic()
+
+    def _go_on(self, point: int, since: float) -> None:
+        self._emit(EventKind.SCAN_CONTINUED,
+                   {"point": point, "after_s": round(time.monotonic() - since, 3)}, None)
+
+    def _ready(self, point: int) -> bool:
+        """Wait for the drive (when there is a generator) and the stage; False: ended."""
+        paused_at: float | None = None
+        while not self._ended():
+            why = ""
+            if not self._stage.connected:
+                why = "stage lost (reconnecting)"
+            elif self._needs_drive and self._drive_on() is not True:
+                why = "drive off: the scan waits until the operator switches it on"
+            if not why:
+                if paused_at is not None:
+                    self._go_on(point, paused_at)
+                return True
+            if paused_at is None:
+                if why.startswith("drive off"):
+                    self.collector.set_phase("waiting", why)
+                    self._emit(EventKind.SCAN_PAUSED, {"point": point, "why": why}, None)
+                    paused_at = time.monotonic()
+                else:
+                    paused_at = self._pause(point, why)
+            else:
+                self.collector.why = why
+            self._halt.wait(self._poll_s * 4)
+        return False
+
+    def _measure(self, point: Any) -> bool:
+        """Move, settle and acquire one point; False when the scan ended meanwhile."""
+        c = self.collector
+        target = dict(point.target_mm)
+        attempts = 0
+        while not self._ended():
+            if not self._ready(point.index):
+                return False
+            c.set_phase("moving", current=point.index)
+            arrived = self._move(point.index, target, attempts)
+            if arrived is None:
+                return False
+            if not arrived:
+                attempts += 1
+                since = self._pause(point.index, self._not_arrived_why(target),
+                                    alert=attempts == 1 or attempts % 5 == 0)
+                self._stage.request_stop("scan: stage did not arrive")
+                if not self._wait(min(5.0, 0.5 * attempts)):
+                    return False
+                self._go_on(point.index, since)
+                continue
+            c.set_phase("settling")
+            if not self._wait(float(self.plan.settle_s)):
+                return False
+            # the next trace may have been armed while settling: the one after it is the
+            # first wholly acquired at rest
+            c.open_point(point.index, target, self._next_seq() + 1, resumed=self._resumed)
+            while not self._ended():
+                if c.wait_point(self._stop, 0.1):
+                    return True
+                lost = not self._stage.connected
+                reading = self._stage.latest()
+                off = reading is not None and (reading.moving or any(
+                    abs(reading.positions_mm.get(a, math.inf) - v) > c.tolerance_mm
+                    for a, v in target.items()))
+                drive_off = self._needs_drive and self._drive_on() is False
+                if lost or off or drive_off:
+                    why = ("stage lost (reconnecting)" if lost else
+                           "drive off" if drive_off else "stage left the point")
+                    c.close_point()
+                    if drive_off:
+                        c.set_phase("waiting", why)
+                    else:
+                        self._pause(point.index, why)
+                    break       # back to waiting, moving and settling at this point
+            else:
+                return False
+        return False
+
+    def _not_arrived_why(self, target: dict[str, float]) -> str:
+        reading = self._stage.latest()
+        where = ("no reading" if reading is None else ", ".join(
+            f"{a} = {reading.positions_mm.get(a, float('nan')):.3f}" for a in target))
+        want = ", ".join(f"{a} = {v:.3f}" for a, v in target.items())
+        return f"stage did not arrive at {want} mm (reads {where})"
+
+    def _move(self, index: int, target: dict[str, float], attempts: int) -> bool | None:
+        """Ask the move and wait for the stage at rest at the target: True arrived,
+        False did not in time (or the stage was lost meanwhile), None the scan ended."""
+        start = self._stage.latest()
+        distance = 0.0
+        if start is not None:
+            distance = math.sqrt(sum((start.positions_mm.get(a, v) - v) ** 2
+                                     for a, v in target.items()))
+        speed = self.plan.speed_mm_s or ASSUMED_SPEED_MM_S
+        deadline = time.monotonic() + self._margin_s + distance / speed
+        try:
+            self._stage.request_move(target)
+        except Exception as err:  # noqa: BLE001 - lost meanwhile (ConnectionLost); retried
+            self.collector.why = str(err)
+            return False
+        asked = time.time()
+        while not self._ended():
+            if time.monotonic() > deadline or not self._stage.connected:
+                return False
+            reading = self._stage.latest()
+            if (reading is not None and reading.time_s > asked and not reading.moving
+                    and all(abs(reading.positions_mm.get(a, math.inf) - v)
+                            <= self.collector.tolerance_mm for a, v in target.items())):
+                return True
+            self._halt.wait(self._poll_s)
+        return None
