@@ -24,7 +24,7 @@ from .errors import StoreError, TanksideError
 from .outcome import ExitCode
 
 # Each name is a module in tankside.monitor.commands with add_parser() and run().
-COMMANDS = ("convert", "simulate", "probe", "watch", "replay", "export", "demo")
+COMMANDS = ("convert", "simulate", "probe", "watch", "scan", "replay", "export", "demo")
 
 
 def _command_modules():

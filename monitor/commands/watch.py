@@ -54,6 +54,12 @@ def add_parser(subparsers) -> None:
     stop.add_argument("--duration", type=SECONDS, metavar="S",
                       help="stop after S seconds (default: run until stopped)")
     stop.add_argument("--traces", type=COUNT, metavar="N", help="stop after N traces")
+    add_live_options(p)
+    p.set_defaults(func=run)
+
+
+def add_live_options(p) -> None:
+    """The options ``watch`` and ``scan`` share: display, drive, caution, overrides."""
     p.add_argument("--headless", action="store_true",
                    help="no dashboard: print a status line every few seconds and every alert")
     p.add_argument("--status-every", type=number(low=0.05, high=3600.0), default=2.0,
@@ -96,7 +102,6 @@ def add_parser(subparsers) -> None:
                         "'over_pressure.actions=[\"record\",\"safe-off\",\"stop\"]' "
                         "(VALUE in TOML syntax; repeatable)")
     add_loading_options(p, title="overrides of the bench file: electrical loading and water")
-    p.set_defaults(func=run)
 
 
 def _abs(path: str) -> str:
@@ -193,12 +198,21 @@ def acknowledge_caution_headless(*, accepted: bool) -> None:
 
 
 def run(args) -> int:
-    from ..headless import end_summary, run_headless
     from ..live.benchfile import load_bench
+
+    bench = load_bench(args.bench, overrides_from_args(args))
+    return run_live(args, bench, max_traces=args.traces, duration_s=args.duration,
+                    session_path=_abs(args.session) if args.session else None)
+
+
+def run_live(args, bench, *, session_path: str | None, max_traces: int | None = None,
+             duration_s: float | None = None, scan_plan=None, resume: bool = False) -> int:
+    """Run a live session on ``bench`` with the display ``args`` ask for (``watch``,
+    ``scan``); the exit code."""
+    from ..headless import end_summary, run_headless
     from ..live.child import session_for_display
     from ..live.instruments import unapplied_note
 
-    bench = load_bench(args.bench, overrides_from_args(args))
     for warning in bench.protection_warnings():
         print(f"tankside: WARNING: protection off: {warning}", file=sys.stderr, flush=True)
     note = unapplied_note(bench)
@@ -221,10 +235,10 @@ def run(args) -> int:
     # with the dashboard, the session runs in a process of its own: drawing never
     # takes the interpreter from acquisition and conversion
     session = session_for_display(
-        bench, own_process=not headless,
-        session_path=_abs(args.session) if args.session else None,
-        max_traces=args.traces, duration_s=args.duration, bell=bell if headless else None,
-        drive_on_at_start="--drive-on" if args.drive_on else None)
+        bench, own_process=not headless, session_path=session_path,
+        max_traces=max_traces, duration_s=duration_s, bell=bell if headless else None,
+        drive_on_at_start="--drive-on" if args.drive_on else None,
+        scan_plan=scan_plan, resume=resume)
     first_run = _first_run(session.session_path.parent, session.session_path)
 
     def show() -> int:

@@ -11,17 +11,23 @@ from pathlib import Path
 from typing import Any
 
 from ..acoustics.converter import Converter
-from ..errors import ConfigError
-from ..record.schema import META_PROTECTION_WARNINGS
+from ..errors import ConfigError, SessionFileError
+from ..record.reader import SessionReader
+from ..record.schema import LAYOUT_VERSION, META_PROTECTION_WARNINGS, META_SCAN_PLAN
 from ..record.store import SessionStore, session_metadata
 from . import instruments
 from .rule_specs import protection_warnings
 from .rules import RuleEngine
+from .scan import ScanResume
 
 
-def session_parts(bench: Any, *, session_path: str | Path | None = None) -> dict[str, Any]:
+def session_parts(bench: Any, *, session_path: str | Path | None = None,
+                  resume: bool = False) -> dict[str, Any]:
     """The keyword arguments of :class:`~tankside.monitor.live.session.LiveSession`
     for the instruments of a :class:`~tankside.monitor.live.benchfile.BenchConfig`.
+
+    ``resume``: ``session_path`` is an existing session file to go on writing (a resumed
+    scan, :func:`scan_resume`), reopened instead of created.
 
     Raises
     ------
@@ -37,7 +43,12 @@ def session_parts(bench: Any, *, session_path: str | Path | None = None) -> dict
     rules = RuleEngine(alerts)
     warnings = list(protection_warnings(alerts))
     dig_settings = bench.digitiser_settings()
-    path = new_session_path(bench.session_folder, session_path)
+    if resume:
+        if session_path is None or not Path(session_path).is_file():
+            raise ConfigError(f"{session_path}: no such session file to resume")
+        path = Path(session_path)
+    else:
+        path = new_session_path(bench.session_folder, session_path)
     open_dig = instruments.digitiser_opener(bench.digitiser, dig_settings)
     open_gen = (instruments.generator_opener(bench.generator)
                 if bench.generator is not None else None)
@@ -49,6 +60,8 @@ def session_parts(bench: Any, *, session_path: str | Path | None = None) -> dict
             extra={"bench_file": bench.source, META_PROTECTION_WARNINGS: warnings})
 
     def open_store(p: Path, meta: dict) -> SessionStore:
+        if resume:       # the file keeps its own metadata; the resume event says what ran
+            return SessionStore.reopen(p, commit_interval_s=bench.commit_interval_s)[0]
         return SessionStore.create(p, meta, commit_interval_s=bench.commit_interval_s)
 
     resources = {"digitiser": bench.digitiser.resource}
@@ -107,3 +120,63 @@ def default_session_path(folder: str | Path) -> Path:
         path = folder / f"{stem}-{n}.db"
         n += 1
     return path
+
+
+def scan_resume(path: str | Path, bench: Any) -> tuple[dict, ScanResume]:
+    """The plan (as recorded) and what a resumed scan takes from its session file.
+
+    Raises
+    ------
+    SessionFileError
+        Not a session file, not of this tankside's layout, or one that ran no scan.
+    """
+    path = Path(path)
+    with SessionReader(path) as reader:
+        if reader.layout != LAYOUT_VERSION:
+            raise SessionFileError(f"{path}: a layout {reader.layout} session; only files "
+                                   f"of layout {LAYOUT_VERSION} can be resumed")
+        plan = reader.scan_plan
+        if plan is None:
+            raise SessionFileError(f"{path}: this session ran no scan; nothing to resume")
+        completed = tuple(reader.scan_points())
+        last = reader.last_seq()
+        previous = reader.stop
+    done = {p.index for p in completed}
+    indices = [int(p.get("index", i)) for i, p in enumerate(plan.get("points", []))]
+    first_point = next((i for i in indices if i not in done), None)
+    return plan, ScanResume(completed=completed, previous_stop=previous,
+                            first_seq=0 if last is None else last + 1,
+                            first_point=first_point, configuration=dict(bench.tables))
+
+
+def scan_parts(bench: Any, *, session_path: str | Path | None = None, scan_plan: Any = None,
+               resume: bool = False) -> dict[str, Any]:
+    """:func:`session_parts`, with a scan: a new one (``scan_plan``, recorded in the
+    metadata) or the one recorded in ``session_path`` (``resume``)."""
+    from .scanplan import ScanPlan, check_limits
+
+    if resume:
+        if session_path is None:
+            raise ConfigError("resuming a scan needs its session file")
+        plan_dict, resumed = scan_resume(session_path, bench)
+        plan = ScanPlan.from_dict(plan_dict)
+        limits = dict(bench.stage.limits) if getattr(bench, "stage", None) else {}
+        check_limits(plan, limits, source=str(session_path))
+        parts = session_parts(bench, session_path=session_path, resume=True)
+        return {**parts, "scan_plan": plan, "scan_resume": resumed,
+                "beam_figures": beam_figures_for(plan)}
+    parts = session_parts(bench, session_path=session_path)
+    if scan_plan is None:
+        return parts
+    build_metadata = parts["metadata"]
+
+    def metadata(identities: dict) -> dict:
+        return {**build_metadata(identities), META_SCAN_PLAN: scan_plan.as_dict()}
+
+    return {**parts, "metadata": metadata, "scan_plan": scan_plan,
+            "beam_figures": beam_figures_for(scan_plan)}
+
+
+def beam_figures_for(plan: Any):
+    """The beam figures to show with a scan's map (None: none yet)."""
+    return None

@@ -39,7 +39,7 @@ from typing import TYPE_CHECKING, Any, TextIO
 
 from ...drivers.errors import InstrumentError
 from ..acoustics.settings import Method
-from ..errors import TanksideError
+from ..errors import ConfigError, TanksideError
 from ..outcome import ExitCode, ExitStatus
 from .snapshot import Snapshot
 
@@ -65,6 +65,8 @@ class SessionSpec:
     max_traces: int | None = None
     duration_s: float | None = None
     drive_on_at_start: str | None = None
+    scan_plan: Any = None
+    resume: bool = False
 
 
 @dataclasses.dataclass
@@ -366,7 +368,8 @@ def child_main(spec: SessionSpec, commands, snapshots, log_path: str) -> None:
         session = LiveSession.from_bench(spec.bench, session_path=spec.session_path,
                                          max_traces=spec.max_traces,
                                          duration_s=spec.duration_s,
-                                         drive_on_at_start=spec.drive_on_at_start)
+                                         drive_on_at_start=spec.drive_on_at_start,
+                                         scan_plan=spec.scan_plan, resume=spec.resume)
         session.start()
     except (TanksideError, InstrumentError) as err:
         _send_quietly(commands, ("failed", err))
@@ -464,7 +467,8 @@ def _remove_if_empty(path: str) -> None:
 
 def session_for_display(bench, *, own_process: bool, session_path: str | Path | None = None,
                         max_traces: int | None = None, duration_s: float | None = None,
-                        bell=None, drive_on_at_start: str | None = None):
+                        bell=None, drive_on_at_start: str | None = None,
+                        scan_plan: Any = None, resume: bool = False):
     """The session a command shows: in this process (headless), or in a child (dashboard).
 
     Parameters
@@ -473,7 +477,7 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
     own_process : bool
         Run the session in a child process (:class:`SessionProcess`); False builds a
         :class:`~tankside.monitor.live.session.LiveSession` here (``bell`` rings on alerts).
-    session_path, max_traces, duration_s, drive_on_at_start
+    session_path, max_traces, duration_s, drive_on_at_start, scan_plan, resume
         As for :meth:`LiveSession.from_bench`.
     """
     from .build import new_session_path
@@ -482,7 +486,14 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
     if not own_process:
         return LiveSession.from_bench(bench, session_path=session_path, max_traces=max_traces,
                                       duration_s=duration_s, bell=bell,
-                                      drive_on_at_start=drive_on_at_start)
-    path = new_session_path(bench.session_folder, session_path)
+                                      drive_on_at_start=drive_on_at_start,
+                                      scan_plan=scan_plan, resume=resume)
+    if resume:
+        if session_path is None or not Path(session_path).is_file():
+            raise ConfigError(f"{session_path}: no such session file to resume")
+        path = Path(session_path)
+    else:
+        path = new_session_path(bench.session_folder, session_path)
     return SessionProcess(SessionSpec(bench, path, max_traces=max_traces, duration_s=duration_s,
-                                      drive_on_at_start=drive_on_at_start))
+                                      drive_on_at_start=drive_on_at_start,
+                                      scan_plan=scan_plan, resume=resume))

@@ -60,18 +60,12 @@ REJECTED_FACTOR = 10
 MIN_REJECTED = 50
 
 
-class PlanPoint(Protocol):
-    index: int
-    target_mm: dict[str, float]
-
-
 class Plan(Protocol):
-    """What the runner needs of a scan plan (:mod:`.scanplan`)."""
+    """What the runner needs of a scan plan (:class:`.scanplan.ScanPlan`): ``points``
+    with ``index``, ``position_mm`` (the target), ``settle_s`` and ``traces`` each."""
 
-    kind: str
+    kind: Any
     points: Sequence[Any]
-    settle_s: float
-    traces_per_point: int
     speed_mm_s: float | None
 
 
@@ -81,6 +75,19 @@ class StageLike(Protocol):
     def latest(self) -> Any: ...
     def request_move(self, target: dict[str, float]) -> dict[str, float]: ...
     def request_stop(self, cause: str) -> None: ...
+
+
+@dataclass(frozen=True)
+class ScanResume:
+    """What a resumed scan takes from its file (:func:`.build.scan_resume`): the points
+    completed, the stop record the file had (None: none), the first seq and the first
+    point not completed, and the bench configuration it resumes with."""
+
+    completed: tuple[PointRecord, ...]
+    previous_stop: dict | None
+    first_seq: int
+    first_point: int | None
+    configuration: dict
 
 
 @dataclass
@@ -117,14 +124,12 @@ class ScanCollector:
                  beam_figures: Callable[[ScanView], dict] | None = None):
         self.plan = plan
         self.tolerance_mm = float(tolerance_mm)
-        n = int(plan.traces_per_point)
-        self.max_rejected = int(max_rejected if max_rejected is not None
-                                else max(MIN_REJECTED, REJECTED_FACTOR * n))
+        self._max_rejected = max_rejected
         self._lock = threading.Lock()
         self._open: _OpenPoint | None = None
         self._finished = threading.Condition(self._lock)
         self._beam_figures = beam_figures
-        targets = [dict(p.target_mm) for p in plan.points]
+        targets = [dict(p.position_mm) for p in plan.points]
         self.total = len(targets)
         axes = tuple(sorted({a for t in targets for a in t}))
         self._target_axes = axes
@@ -145,12 +150,19 @@ class ScanCollector:
         self._last_done_mono: float | None = None
 
     # -- the runner's side ----------------------------------------------------------
+    def max_rejected(self, needed: int) -> int:
+        """Refused traces before a point of ``needed`` traces fails."""
+        if self._max_rejected is not None:
+            return int(self._max_rejected)
+        return max(MIN_REJECTED, REJECTED_FACTOR * int(needed))
+
     def open_point(self, index: int, target_mm: dict[str, float], from_seq: int, *,
-                   resumed: bool) -> None:
-        """Traces from ``from_seq`` on may count towards point ``index``."""
+                   needed: int, resumed: bool) -> None:
+        """Traces from ``from_seq`` on may count towards point ``index`` (``needed`` of
+        them)."""
         with self._lock:
-            self._open = _OpenPoint(index, dict(target_mm), int(from_seq),
-                                    int(self.plan.traces_per_point), resumed, [], [], [])
+            self._open = _OpenPoint(index, dict(target_mm), int(from_seq), int(needed),
+                                    resumed, [], [], [])
             self.phase = "acquiring"
 
     def wait_point(self, stop: threading.Event, timeout_s: float = 0.2) -> bool:
@@ -184,7 +196,7 @@ class ScanCollector:
             why = self._why_not(flat, flags, positions_mm, op.target_mm)
             if why:
                 op.rejected += 1
-                if op.rejected >= self.max_rejected:
+                if op.rejected >= self.max_rejected(op.needed):
                     rec = self._finish(op, PointStatus.FAILED,
                                        f"{op.rejected} traces refused, the last: {why}")
                     return (op.index, False, why), rec
@@ -433,7 +445,7 @@ class ScanRunner:
     def _measure(self, point: Any) -> bool:
         """Move, settle and acquire one point; False when the scan ended meanwhile."""
         c = self.collector
-        target = dict(point.target_mm)
+        target = dict(point.position_mm)
         attempts = 0
         while not self._ended():
             if not self._ready(point.index):
@@ -452,11 +464,12 @@ class ScanRunner:
                 self._go_on(point.index, since)
                 continue
             c.set_phase("settling")
-            if not self._wait(float(self.plan.settle_s)):
+            if not self._wait(float(point.settle_s)):
                 return False
             # the next trace may have been armed while settling: the one after it is the
             # first wholly acquired at rest
-            c.open_point(point.index, target, self._next_seq() + 1, resumed=self._resumed)
+            c.open_point(point.index, target, self._next_seq() + 1, needed=int(point.traces),
+                         resumed=self._resumed)
             while not self._ended():
                 if c.wait_point(self._stop, 0.1):
                     return True

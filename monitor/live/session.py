@@ -30,14 +30,12 @@ import threading
 import time
 import traceback
 from collections.abc import Callable
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from ..acoustics.settings import Method
 from ..errors import ConfigError
 from ..outcome import ExitStatus
-from ..record.scanpoints import PointRecord
 from ..record.schema import EventKind
 from .acquisition import AcqEvent, Acquired, AcquisitionLoop, OpenInstrument
 from .benchfile import DEFAULT_MAX_AGE_S
@@ -46,7 +44,7 @@ from .locks import InstrumentLock
 from .processing import TraceProcessor
 from .recorder import END, AckItem, CloseItem, EventItem, Writer
 from .rules import TickObservation
-from .scan import ScanCollector, ScanRunner
+from .scan import ScanCollector, ScanResume, ScanRunner
 from .serial_ports import StagePort, ThermometerPort
 from .snapshot import Snapshot
 from .stage import POLL_S as STAGE_POLL_S
@@ -55,17 +53,6 @@ from .thermometer import POLL_S as THERMOMETER_POLL_S
 from .thermometer import ThermometerWorker
 
 TICK_EVERY_S = 1.0
-
-
-@dataclass(frozen=True)
-class ScanResume:
-    """What a resumed scan takes from its file (:func:`.build.scan_resume`)."""
-
-    completed: tuple[PointRecord, ...]
-    previous_stop: dict | None
-    first_seq: int
-    first_point: int | None
-    configuration: dict
 
 
 class LiveSession:
@@ -232,16 +219,22 @@ class LiveSession:
     def from_bench(cls, bench: Any, *, session_path: str | Path | None = None,
                    max_traces: int | None = None, duration_s: float | None = None,
                    bell: Callable[[], None] | None = None,
-                   drive_on_at_start: str | None = None) -> LiveSession:
+                   drive_on_at_start: str | None = None, scan_plan: Any = None,
+                   resume: bool = False) -> LiveSession:
         """A session on the instruments of a bench file (see :mod:`.build`).
 
         ``drive_on_at_start`` (the cause, e.g. ``"--drive-on"``) switches the generator
-        output on once the session runs; None never does.
+        output on once the session runs; None never does. ``scan_plan`` (a
+        :class:`~tankside.monitor.live.scanplan.ScanPlan`) runs a scan, recorded in the
+        file's metadata; ``resume`` goes on with the scan recorded in ``session_path``
+        (its own plan; ``scan_plan`` is not given then).
         """
-        from .build import session_parts
+        from .build import scan_parts
 
-        return cls(**session_parts(bench, session_path=session_path), max_traces=max_traces,
-                   duration_s=duration_s, bell=bell, drive_on_at_start=drive_on_at_start)
+        return cls(**scan_parts(bench, session_path=session_path, scan_plan=scan_plan,
+                                resume=resume),
+                   max_traces=max_traces, duration_s=duration_s, bell=bell,
+                   drive_on_at_start=drive_on_at_start)
 
     # ---------------------------------------------------------------- public API
     def start(self) -> None:
