@@ -533,7 +533,8 @@ class TestDryRun:
         assert any(line.split() == ["1", "2.000", "0.25", "9"] for line in summary.lines())
 
     @pytest.mark.parametrize("options", [{"trace_rate_hz": 0.0},
-                                         {"default_speed_mm_s": math.nan}])
+                                         {"default_speed_mm_s": math.nan},
+                                         {"start_mm": {"x": math.inf}}])
     def test_bad_rate_or_speed(self, tmp_path, options):
         plan = load(tmp_path, 'kind = "line"\n' + HEAD, axis("x", 0, 1, 1))
         with pytest.raises(ScanPlanError, match="dry run"):

@@ -819,7 +819,8 @@ def summarise_plan(plan: ScanPlan, *, start_mm: dict[str, float] | None = None,
     Raises
     ------
     ScanPlanError
-        A rate or speed that is not a finite number above 0.
+        A rate or speed that is not a finite number above 0, a start position that is
+        not finite.
     """
     for name, value in (("trace_rate_hz", trace_rate_hz),
                         ("default_speed_mm_s", default_speed_mm_s)):
@@ -827,6 +828,8 @@ def summarise_plan(plan: ScanPlan, *, start_mm: dict[str, float] | None = None,
             raise ScanPlanError(f"dry run: {name} = {value!r}: expected a number above 0")
     axes = plan.moved_axes
     start = {a: float(mm) for a, mm in (start_mm or {}).items() if a in axes}
+    if not all(map(math.isfinite, start.values())):
+        raise ScanPlanError(f"dry run: start position {start}: expected finite numbers (mm)")
     current = {a: start.get(a, plan.points[0].position_mm[a]) for a in axes}
     travel = dict.fromkeys(axes, 0.0)
     total = 0.0
