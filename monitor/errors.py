@@ -58,6 +58,17 @@ class OutsideLimitsError(TanksideError):
     axis without limits; refused before anything is sent to the stage."""
 
 
+class ScanPlanError(ConfigError):
+    """A scan plan that cannot be used: its TOML file or the bench file's ``[scan]`` table,
+    or its CSV of points. The message names the file and the key, point or line."""
+
+
+class PlanOutsideLimitsError(ScanPlanError, OutsideLimitsError):
+    """A point of a scan plan outside the bench file's soft limits (``[stage.limits]``),
+    or on an axis the stage has no limits for; the plan is refused when it is loaded,
+    with the point named."""
+
+
 class StoreError(TanksideError):
     """The session store cannot be written or read."""
 

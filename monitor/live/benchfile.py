@@ -59,6 +59,16 @@ Layout (every section except ``[digitiser]`` and ``[calibration]`` is optional):
     port = "/dev/ttyUSB1"                   # or address = "host:port"
     max_age_s = 30.0       # an older reading: the [water] temperature, with a warning
 
+    [scan]                 # optional: a scan plan (tankside.monitor.live.scanplan has
+    kind = "line"          # its keys); parsed and checked against [stage.limits] here,
+    settle_s = 0.3         # carried as BenchConfig.scan
+    traces = 8
+    [[scan.axes]]
+    name = "z"
+    start_mm = 20.0
+    stop_mm = 60.0
+    step_mm = 1.0
+
 Relative paths (profile, calibration file, session folder) are resolved against the
 folder that holds the bench file, so a bench folder can be moved as a whole.
 """
@@ -74,6 +84,7 @@ from pathlib import Path
 from typing import Any
 
 from ..errors import ConfigError
+from .scanplan import ScanPlan, plan_from_table
 
 # Keys of [digitiser] and [generator] that are about the connection, not instrument settings.
 _CONNECTION_KEYS = {"resource": str, "profile": str, "visa_library": str, "timeout_s": float}
@@ -96,7 +107,7 @@ _SESSION_KEYS = {
 # Plausibility checks of the calibration loader (tankside.monitor.acoustics.calibration).
 _CALIBRATION_CHECKS = {"max_step_db": float, "check_phase_steps": bool}
 _SECTIONS = ("digitiser", "generator", "calibration", "loading", "conversion", "water",
-             "alerts", "session", "stage", "thermometer")
+             "alerts", "session", "stage", "thermometer", "scan")
 # Keys of [stage] and [thermometer] (serial instruments); limits are [stage.limits].
 _SERIAL_KEYS = {"profile": str, "port": str, "address": str, "baud_rate": int,
                 "timeout_s": float}
@@ -199,6 +210,8 @@ class BenchConfig:
     calibration_checks: dict = field(default_factory=dict)
     stage: StageConfig | None = None
     thermometer: ThermometerConfig | None = None
+    scan: ScanPlan | None = None
+    """The ``[scan]`` table's plan, checked against ``[stage.limits]`` (None without one)."""
 
     def digitiser_settings(self):
         """The :class:`tankside.drivers.digitiser.DigitiserSettings` of ``[digitiser]``."""
@@ -548,12 +561,20 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
         thermometer = ThermometerConfig(**_serial(thermo_table, "thermometer", source, base,
                                                   _THERMOMETER_EXTRA))
 
+    scan = None
+    if "scan" in data:
+        scan = plan_from_table(data["scan"], source=source, base_dir=base,
+                               limits=stage.limits if stage is not None else {},
+                               where="[scan] ")
+
     tables = copy.deepcopy(data)
     tables.setdefault("digitiser", {})["profile"] = dig_conn["profile"]
     if stage is not None:
         tables["stage"]["profile"] = stage.profile
     if thermometer is not None:
         tables["thermometer"]["profile"] = thermometer.profile
+    if scan is not None and scan.points_source is not None:
+        tables["scan"]["file"] = scan.points_source
     if gen is not None:
         tables["generator"]["profile"] = gen.profile
     tables["calibration"] = {"file": str(cal_path), **cal_checks}
@@ -575,5 +596,6 @@ def parse_bench(data: dict, *, source: str = "<bench>", base_dir: Path | None = 
         calibration_checks=cal_checks,
         stage=stage,
         thermometer=thermometer,
+        scan=scan,
         **sess_values,
     )
