@@ -454,6 +454,8 @@ class ScanRunner:
             arrived = self._move(point.index, target, attempts)
             if arrived is None:
                 return False
+            if not arrived and not self._stage.connected:
+                continue        # lost meanwhile: _ready pauses until it is back
             if not arrived:
                 attempts += 1
                 since = self._pause(point.index, self._not_arrived_why(target),

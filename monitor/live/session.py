@@ -464,6 +464,8 @@ class LiveSession:
                 "clipped": self._proc.clipped}
 
     def _request_stop(self, status: ExitStatus, reason: str, message: str = "") -> None:
+        if self._done.is_set():
+            return          # ended: its status is final (a stop asked after the end)
         with self._lock:
             if self._status is None or status.rank > self._status.rank:
                 self._status = status
