@@ -53,6 +53,17 @@ class ConfigError(TanksideError):
     """The setting at fault (``"clipping.min_samples"``), where the raiser names one."""
 
 
+class ScanDataError(ConfigError):
+    """Scan points or beam-figure settings that cannot be used: coordinate and value
+    arrays of different lengths, a coordinate that is not finite, readings of one
+    coordinate spread wider than the gridding tolerance (points not on a grid), more than
+    three scanned axes, an unknown beam axis, a source distance that puts a point behind
+    the source face.
+
+    A scan that is only partly done is not an error: its figures say what is missing.
+    """
+
+
 class OutsideLimitsError(TanksideError):
     """A stage move outside the bench file's soft limits (``[stage.limits]``), or to an
     axis without limits; refused before anything is sent to the stage."""
