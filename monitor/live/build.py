@@ -7,9 +7,13 @@ touched, so that a bad file is reported first.
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
+from ..acoustics.beam import beam_figures
 from ..acoustics.converter import Converter
 from ..errors import ConfigError, SessionFileError
 from ..record.reader import SessionReader
@@ -19,6 +23,7 @@ from . import instruments
 from .rule_specs import protection_warnings
 from .rules import RuleEngine
 from .scan import ScanResume
+from .snapshot import ScanView
 
 
 def session_parts(bench: Any, *, session_path: str | Path | None = None,
@@ -177,6 +182,28 @@ def scan_parts(bench: Any, *, session_path: str | Path | None = None, scan_plan:
             "beam_figures": beam_figures_for(scan_plan)}
 
 
-def beam_figures_for(plan: Any):
-    """The beam figures to show with a scan's map (None: none yet)."""
-    return None
+def beam_figures_for(plan: Any) -> Callable[[ScanView], dict]:
+    """The beam figures of a scan's points so far, from its map (:class:`ScanView`): the
+    maximum and widths of p_r over the plan's targets, and, when the plan scans its beam
+    axis and gives ``source_distance_mm``, the derated axial figures
+    (:func:`tankside.monitor.acoustics.beam.beam_figures`)."""
+    beam_axis = str(getattr(plan, "beam_axis", "z"))
+    distance = getattr(plan, "source_distance_mm", None)
+    steps = [abs(b - a) for p, q in zip(plan.points, plan.points[1:], strict=False)
+             for a, b in ((p.position_mm.get(ax), q.position_mm.get(ax))
+                          for ax in p.position_mm) if a is not None and b is not None and b != a]
+    tolerance = 0.1 * min(steps) if steps else 0.005
+
+    def figures(view: ScanView) -> dict:
+        coords = {axis: view.targets_mm[:, i] for i, axis in enumerate(view.target_axes)}
+        p_r = view.values.get("peak_rarefactional_pa")
+        if p_r is None or not np.isfinite(p_r).any():
+            return {}
+        axial: dict[str, Any] = {}
+        if distance is not None and beam_axis in view.grid_axes:
+            axial = {"pii_j_per_m2": view.values["pulse_intensity_integral_j_per_m2"],
+                     "p_r_pa": p_r, "f_awf_hz": view.values["acoustic_working_frequency_hz"],
+                     "source_distance_mm": float(distance), "beam_axis": beam_axis}
+        return beam_figures(coords, p_r, tolerance_mm=tolerance, **axial).as_dict()
+
+    return figures

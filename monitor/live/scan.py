@@ -42,6 +42,7 @@ from typing import Any, Protocol
 
 import numpy as np
 
+from ..errors import TanksideError
 from ..record.scanpoints import COMBINED_RESULTS, PointRecord, combine_results, plan_grid
 from ..record.schema import EventKind, PointStatus
 from .actions import RaisedAlert
@@ -260,7 +261,7 @@ class ScanCollector:
         if self._beam_figures is not None:
             try:
                 self._beam = dict(self._beam_figures(self.view(with_beam=False)))
-            except (ArithmeticError, ValueError) as err:
+            except (ArithmeticError, ValueError, TanksideError) as err:
                 self._beam = {"error": f"{type(err).__name__}: {err}"}
 
     def mark_started(self) -> None:

@@ -15,6 +15,11 @@ refused before the stage moves at all. An example plan file (the scene is invent
     speed_mm_s = 5.0           # optional: the stage's speed, for the time estimate only
     serpentine = true          # raster, volume: the fast axis turns back at every row
     fixed = { z = 40.0 }       # optional: axes not scanned, moved here first (mm)
+    beam_axis = "z"            # optional: the stage axis along the beam (default z),
+                               # increasing away from the source
+    source_distance_mm = 10.0  # optional: how far that axis's 0 is from the source face,
+                               # mm; with it a scan along the beam gives the derated PII,
+                               # the depth of its maximum and the MI there
 
     [[axes]]                   # the first [[axes]] is the fast one (changes every point)
     name = "x"
@@ -110,6 +115,7 @@ FORMAT = 1                     # of as_dict()
 _RATIO_SLACK = 1e-9            # a span within this fraction of a step of a whole count
 _OVERRIDE_COLUMNS = ("settle_s", "traces")
 _PLAN_KEYS = ("kind", "settle_s", "traces", "combine", "speed_mm_s", "serpentine", "fixed",
+              "beam_axis", "source_distance_mm",
               "axes", "file")
 _AXIS_KEYS = ("name", "start_mm", "stop_mm", "step_mm")
 
@@ -193,6 +199,8 @@ class ScanPlan:
     points_source: str | None = None
     points_text: str | None = None
     notes: tuple[str, ...] = ()
+    beam_axis: str = "z"
+    source_distance_mm: float | None = None
 
     @property
     def moved_axes(self) -> tuple[str, ...]:
@@ -222,6 +230,8 @@ class ScanPlan:
             "points_source": self.points_source,
             "points_text": self.points_text,
             "notes": list(self.notes),
+            "beam_axis": self.beam_axis,
+            "source_distance_mm": self.source_distance_mm,
             "point_axes": list(axes),
             "points": [[p.position_mm[a] for a in axes] for p in self.points],
             # per point only where a CSV row overrides the plan's value
@@ -274,7 +284,11 @@ class ScanPlan:
                 points.append(ScanPoint(i, position, _stored_number(s, where, f"point {i}"),
                                         n))
             speed = data["speed_mm_s"]
-            plan = cls(kind=kind, points=tuple(points), axes=axes, fixed_mm=fixed,
+            distance = data.get("source_distance_mm")
+            plan = cls(beam_axis=_stored_str(data.get("beam_axis", "z"), where, "beam_axis"),
+                       source_distance_mm=None if distance is None else _stored_number(
+                           distance, where, "source_distance_mm"),
+                       kind=kind, points=tuple(points), axes=axes, fixed_mm=fixed,
                        settle_s=settle_s, traces=traces, combine=combine,
                        speed_mm_s=None if speed is None else _stored_number(
                            speed, where, "speed_mm_s"),
@@ -418,6 +432,13 @@ def _parse(table: dict, *, source: str, base_dir: Path,
         speed = _number(table["speed_mm_s"], source, f"{where}speed_mm_s")
         if speed <= 0:
             raise _error(source, f"{where}speed_mm_s", "must be above 0 mm/s")
+    beam_axis = _axis_name(table.get("beam_axis", "z"), source, f"{where}beam_axis")
+    distance = None
+    if "source_distance_mm" in table:
+        distance = _number(table["source_distance_mm"], source, f"{where}source_distance_mm")
+        if distance < 0:
+            raise _error(source, f"{where}source_distance_mm", "must be 0 mm or more (the "
+                         "distance of the beam axis's 0 from the source face)")
     serpentine = table.get("serpentine", False)
     if not isinstance(serpentine, bool):
         raise _error(source, f"{where}serpentine", f"expected true or false, got "
@@ -464,7 +485,7 @@ def _parse(table: dict, *, source: str, base_dir: Path,
                     serpentine=serpentine,
                     source=source if not where else f"{source} {where.strip()}",
                     text=text, points_source=points_source, points_text=points_text,
-                    notes=tuple(notes))
+                    notes=tuple(notes), beam_axis=beam_axis, source_distance_mm=distance)
     check_limits(plan, limits, source=source)
     return plan
 
