@@ -8,7 +8,6 @@ The scene is invented (simulators/scene.py); its beam is the truth the scan maps
 
 from __future__ import annotations
 
-import math
 import time
 from collections import Counter
 from pathlib import Path

@@ -88,10 +88,8 @@ def run(args) -> int:
         path = Path(_abs(args.resume))
         if args.dry_run:
             from ..live.build import scan_resume
-            from ..live.scanplan import ScanPlan
 
-            plan_dict, resumed = scan_resume(path, bench)
-            plan = ScanPlan.from_dict(plan_dict)
+            plan, resumed = scan_resume(path, bench)
             left = len(plan.points) - len(resumed.completed)
             print(f"{path}: {len(resumed.completed)} of {len(plan.points)} points completed; "
                   f"{left} to go from point {resumed.first_point}")

@@ -127,8 +127,9 @@ def default_session_path(folder: str | Path) -> Path:
     return path
 
 
-def scan_resume(path: str | Path, bench: Any) -> tuple[dict, ScanResume]:
-    """The plan (as recorded) and what a resumed scan takes from its session file.
+def scan_resume(path: str | Path, bench: Any) -> tuple[Any, ScanResume]:
+    """The plan (:class:`~.scanplan.ScanPlan`, as recorded) and what a resumed scan takes
+    from its session file.
 
     Raises
     ------
@@ -146,10 +147,12 @@ def scan_resume(path: str | Path, bench: Any) -> tuple[dict, ScanResume]:
         completed = tuple(reader.scan_points())
         last = reader.last_seq()
         previous = reader.stop
+    from .scanplan import ScanPlan
+
+    rebuilt = ScanPlan.from_dict(plan)
     done = {p.index for p in completed}
-    indices = [int(p.get("index", i)) for i, p in enumerate(plan.get("points", []))]
-    first_point = next((i for i in indices if i not in done), None)
-    return plan, ScanResume(completed=completed, previous_stop=previous,
+    first_point = next((p.index for p in rebuilt.points if p.index not in done), None)
+    return rebuilt, ScanResume(completed=completed, previous_stop=previous,
                             first_seq=0 if last is None else last + 1,
                             first_point=first_point, configuration=dict(bench.tables))
 
@@ -158,13 +161,12 @@ def scan_parts(bench: Any, *, session_path: str | Path | None = None, scan_plan:
                resume: bool = False) -> dict[str, Any]:
     """:func:`session_parts`, with a scan: a new one (``scan_plan``, recorded in the
     metadata) or the one recorded in ``session_path`` (``resume``)."""
-    from .scanplan import ScanPlan, check_limits
+    from .scanplan import check_limits
 
     if resume:
         if session_path is None:
             raise ConfigError("resuming a scan needs its session file")
-        plan_dict, resumed = scan_resume(session_path, bench)
-        plan = ScanPlan.from_dict(plan_dict)
+        plan, resumed = scan_resume(session_path, bench)
         limits = dict(bench.stage.limits) if getattr(bench, "stage", None) else {}
         check_limits(plan, limits, source=str(session_path))
         parts = session_parts(bench, session_path=session_path, resume=True)

@@ -140,15 +140,17 @@ class ScanCollector:
         self._values = {name: np.full(self.total, np.nan) for name in COMBINED_RESULTS}
         self._failed = np.zeros(self.total, dtype=bool)
         self.completed: set[int] = set()
-        for rec in completed:
-            self._take(rec)
-        self.completed_before = len(self.completed)
         self.current: int | None = None
         self.phase = "waiting"
         self.why = ""
         self._beam: dict = {}
         self._durations: list[float] = []
         self._last_done_mono: float | None = None
+        for rec in completed:
+            self._take(rec, refresh=False)
+        self.completed_before = len(self.completed)
+        if completed:
+            self._refresh_beam()
 
     # -- the runner's side ----------------------------------------------------------
     def max_rejected(self, needed: int) -> int:
@@ -249,7 +251,7 @@ class ScanCollector:
         self._finished.notify_all()
         return rec
 
-    def _take(self, rec: PointRecord) -> None:
+    def _take(self, rec: PointRecord, *, refresh: bool = True) -> None:
         if not 0 <= rec.index < self.total:
             return
         self.completed.add(rec.index)
@@ -258,6 +260,10 @@ class ScanCollector:
                 self._values[name][rec.index] = rec.value(name)
         else:
             self._failed[rec.index] = True
+        if refresh:
+            self._refresh_beam()
+
+    def _refresh_beam(self) -> None:
         if self._beam_figures is not None:
             try:
                 self._beam = dict(self._beam_figures(self.view(with_beam=False)))
