@@ -16,6 +16,9 @@ POINTS = (
     "touching the transducer, cables or connectors.",
     "Cavitation and high peak pressures destroy hydrophones. Start at low drive, watch p_r "
     "and the clipping count, and respect the hydrophone's rated maximum.",
+    "A positioning stage moves the hydrophone under program control and can drive it into "
+    "the transducer or the tank wall. Set the soft limits ([stage.limits] in the bench "
+    "file) to the travel that is clear, and keep hands clear while it moves.",
     "tankside never switches the generator output on by itself ({how_on}); it is switched "
     "off when the session ends. Alert actions such as safe-off are a convenience, never "
     "the only interlock.",

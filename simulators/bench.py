@@ -119,12 +119,18 @@ class SimulatedBench:
             self.digitiser_server.close()
             raise
         stage, thermometer = self._serial
-        if stage and self.stage is None:
-            # the stage starts where the scene's hydrophone is (stage origin at the focus)
-            x, y, z = self.scene.position_m
-            self.stage = SimulatedStage(self.scene, start_mm=(1e3 * x, 1e3 * y, 1e3 * z))
-        if thermometer and self.thermometer is None:
-            self.thermometer = SimulatedThermometer(seed=self.seed)
+        try:
+            if stage and self.stage is None:
+                # the stage starts where the scene's hydrophone is (stage origin at the
+                # focus)
+                x, y, z = self.scene.position_m
+                self.stage = SimulatedStage(self.scene, start_mm=(1e3 * x, 1e3 * y, 1e3 * z))
+            if thermometer and self.thermometer is None:
+                self.thermometer = SimulatedThermometer(seed=self.seed)
+        except OSError:            # no pty (PtyUnavailable): nothing is left serving
+            self._started = True
+            self.close()
+            raise
         self._started = True
         return self
 

@@ -19,7 +19,11 @@ import select
 import threading
 import tty
 
-__all__ = ["PtyLineDevice"]
+__all__ = ["PtyLineDevice", "PtyUnavailable"]
+
+
+class PtyUnavailable(OSError):
+    """No pseudo-terminal could be opened for a simulated serial instrument."""
 
 
 class PtyLineDevice:
@@ -31,7 +35,11 @@ class PtyLineDevice:
     def __init__(self, *, terminator: str = "\r", name: str = "device"):
         self.terminator = terminator.encode("ascii")
         self.name = name
-        self._master, self._slave = os.openpty()
+        try:
+            self._master, self._slave = os.openpty()
+        except OSError as err:
+            raise PtyUnavailable(err.errno, f"cannot open a pseudo-terminal for the "
+                                 f"simulated {name}: {err.strerror}") from err
         tty.setraw(self._slave)
         tty.setraw(self._master)
         self.device_path = os.ttyname(self._slave)

@@ -10,9 +10,13 @@ The chain from drive to hydrophone voltage:
 1. Drive: a burst of ``cycles`` periods at ``frequency_hz`` with smooth one-cycle edges
    (the source rings up and down), amplitude ``pressure_per_vpp_pa * amplitude_vpp``
    times the source's own band-pass response.
-2. Beam: a Gaussian beam around the focus (transverse ``exp(-r^2/w(z)^2)``, on-axis
-   ``w0/w(z)``, ``w(z) = w0 sqrt(1 + (z/z_R)^2)``, ``z_R = pi w0^2 / lambda``), Gouy phase
-   left out; the stage position is relative to the focus, z away from the source.
+2. Beam: the invented focused field of :mod:`tankside.simulators.focused_field` (a
+   focused circular piston in the Fresnel approximation, stretched along y): a focus a
+   little nearer the source than the geometric one, a -6 dB beam width of about 1.2 mm
+   (x) and 1.5 mm (y) at 3.5 MHz, Airy side lobes about 17 dB down and a focal zone of
+   about 17 mm. The stage position is relative to the geometric focus, z away from the
+   source; the pressure is linear in the beam factor (:func:`beam_factor`), whose figures
+   :func:`beam_truth` gives.
 3. Nonlinear propagation: the Fubini solution (Fubini 1935; Blackstock 1966), valid below
    the shock formation distance ``x_bar = rho c^3 / (beta w p)``::
 
@@ -43,6 +47,9 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.special import jv
 
+from .focused_field import BeamTruth, FocusedSource
+from .focused_field import beam_factor as _source_beam_factor
+from .focused_field import beam_truth as _source_beam_truth
 from .hydrophone import HydrophoneModel
 
 
@@ -65,6 +72,10 @@ class SceneParameters:
     table of B/A; value recalled from memory). Water at 20 degC: c = 1482 m/s,
     rho = 998.2 kg/m^3 (handbook values, recalled from memory).
 
+    ``source_radius_m`` and ``beam_stretch_y`` shape the invented focused field
+    (:class:`~tankside.simulators.focused_field.FocusedSource`, with the focal distance
+    and sound speed here).
+
     ``max_harmonics`` truncates the Fubini series (also to 90 % of the sampling Nyquist
     frequency): 12 harmonics of 3.5 MHz reach 42 MHz, just past the invented hydrophone's
     calibrated band; the dropped tail is below 0.03 % of the amplitude at sigma = 0.5 but
@@ -76,12 +87,21 @@ class SceneParameters:
     source_centre_hz: float = 3.5e6
     source_quality: float = 1.5
     focal_distance_m: float = 0.05
-    beam_waist_m: float = 1.0e-3
+    source_radius_m: float = 12.0e-3
+    beam_stretch_y: float = 1.25
     sound_speed_m_per_s: float = 1482.0
     density_kg_per_m3: float = 998.2
     nonlinearity_beta: float = 3.5
     max_harmonics: int = 12
     sync_high_v: float = 3.3  # the generator's sync output into the digitiser's EXT input
+
+    @property
+    def source(self) -> FocusedSource:
+        """The focused source of the beam (invented)."""
+        return FocusedSource(radius_m=self.source_radius_m,
+                             focal_distance_m=self.focal_distance_m,
+                             stretch_y=self.beam_stretch_y,
+                             sound_speed_m_per_s=self.sound_speed_m_per_s)
 
 
 # ---------------------------------------------------------------- pure functions
@@ -147,15 +167,21 @@ def source_response(frequency_hz: float, centre_hz: float, quality: float) -> fl
     return float(1.0 / np.sqrt(1.0 + (quality * ratio) ** 2))
 
 
-def gaussian_beam_factor(position_m: tuple[float, float, float], frequency_hz: float,
-                         params: SceneParameters) -> float:
-    """Amplitude relative to the focus at ``position_m`` (x, y, z from the focus), Gaussian beam."""
-    x, y, z = position_m
-    wavelength = params.sound_speed_m_per_s / frequency_hz
-    w0 = params.beam_waist_m
-    z_r = np.pi * w0**2 / wavelength
-    w = w0 * np.sqrt(1.0 + (z / z_r) ** 2)
-    return float((w0 / w) * np.exp(-(x * x + y * y) / (w * w)))
+def beam_factor(position_m: tuple[float, float, float], frequency_hz: float,
+                params: SceneParameters) -> float:
+    """Amplitude at ``position_m`` (x, y, z from the geometric focus, m) relative to the
+    on-axis maximum at ``frequency_hz``: the invented focused field
+    (:func:`tankside.simulators.focused_field.beam_factor`)."""
+    return _source_beam_factor(position_m, frequency_hz, params.source)
+
+
+def beam_truth(frequency_hz: float, params: SceneParameters) -> BeamTruth:
+    """The beam's figures at ``frequency_hz`` (m and dB, see
+    :class:`~tankside.simulators.focused_field.BeamTruth`), computed from
+    :func:`beam_factor` alone: the axial maximum ``focus_z_m`` (m from the geometric
+    focus), the -3 and -6 dB full widths along x and y there, the -6 dB focal zone and
+    the first side lobes."""
+    return _source_beam_truth(frequency_hz, params.source)
 
 
 def acoustic_pressure_pa(times_s: np.ndarray, drive: Drive, position_m, params: SceneParameters,
@@ -181,7 +207,7 @@ def acoustic_pressure_pa(times_s: np.ndarray, drive: Drive, position_m, params: 
     distance = params.focal_distance_m + position_m[2]
     amplitude = (params.pressure_per_vpp_pa * drive.amplitude_vpp
                  * source_response(f, params.source_centre_hz, params.source_quality)
-                 * gaussian_beam_factor(position_m, f, params))
+                 * beam_factor(position_m, f, params))
     x_bar = shock_distance_m(amplitude, f, beta=params.nonlinearity_beta,
                              density_kg_per_m3=params.density_kg_per_m3,
                              sound_speed_m_per_s=params.sound_speed_m_per_s)
@@ -248,6 +274,10 @@ class Scene:
     @property
     def position_m(self) -> tuple[float, float, float]:
         return self._position
+
+    def beam_factor(self) -> float:
+        """The beam factor where the hydrophone is, at the drive's frequency."""
+        return beam_factor(self._position, self._drive.frequency_hz, self.params)
 
     def set_position_m(self, x: float, y: float, z: float) -> None:
         """Move the hydrophone (stage position relative to the focus, m)."""

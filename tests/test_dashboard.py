@@ -16,6 +16,7 @@ import pytest
 from dashboard_pilot import screen_text, sync
 from fake_session import FakeLiveSession
 
+from tankside.monitor.caution import caution_points
 from tankside.monitor.dashboard.alerts import AlertList
 from tankside.monitor.dashboard.app import DashboardApp
 from tankside.monitor.dashboard.caution import CautionScreen
@@ -119,7 +120,18 @@ async def test_caution_shown_first_and_dismissed_with_enter():
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause()
         assert isinstance(app.screen, CautionScreen)
-        assert "hydrophone" in screen_text(app)
+        text = screen_text(app)
+        assert "hydrophone" in text
+        # the whole box fits 80 x 24: its top and bottom borders, every point's first
+        # and last words, the bench file's section name as written, and the key line
+        rows = text.splitlines()
+        assert len(rows) == 24 and max(len(row) for row in rows) <= 80
+        assert sum(1 for row in rows if "━━━━━━━━━━" in row) == 2
+        flat = " ".join(row.strip(" ┃") for row in rows)
+        for point in caution_points("press d and confirm with y when you are ready"):
+            words = point.split()
+            assert " ".join(words[:3]) in flat and " ".join(words[-3:]) in flat, point
+        assert "([stage.limits] in the bench" in flat and "press Enter to continue" in flat
         await pilot.press("q")            # the caution takes no other key
         assert isinstance(app.screen, CautionScreen) and fake.stops == []
         await pilot.press("enter")

@@ -4,17 +4,17 @@ are the simulator's, and p_r follows the simulated beam there."""
 
 from __future__ import annotations
 
-import math
 import time
 
 import numpy as np
 import pytest
+from scipy.optimize import brentq
 
 from tankside.monitor.live.benchfile import load_bench
 from tankside.monitor.live.session import LiveSession
 from tankside.monitor.record.reader import SessionReader
 from tankside.simulators.bench import SimulatedBench
-from tankside.simulators.scene import gaussian_beam_factor
+from tankside.simulators.scene import beam_factor
 
 
 @pytest.fixture
@@ -39,9 +39,16 @@ def test_three_positions_recorded_and_p_r_follows_the_beam(sim, tmp_path):
     session = LiveSession.from_bench(bench, session_path=tmp_path / "s.db",
                                      drive_on_at_start="test operator")
     session.start()
-    w0_mm = 1e3 * sim.scene.params.beam_waist_m
-    # across the beam at the waist: on axis, where the amplitude is 0.75 and 0.5
-    targets = [0.0, w0_mm * math.sqrt(-math.log(0.75)), w0_mm * math.sqrt(math.log(2))]
+    params, f = sim.scene.params, sim.scene.drive.frequency_hz
+
+    def beam_mm(x_mm: float) -> float:
+        # the scene's beam across the geometric focal plane, re its on-axis value there
+        return (beam_factor((x_mm * 1e-3, 0.0, 0.0), f, params)
+                / beam_factor((0.0, 0.0, 0.0), f, params))
+
+    # on axis, and where the scene's beam is 0.75 and 0.5 of it (brentq in the main lobe)
+    targets = [0.0] + [round(brentq(lambda x, lv=lv: beam_mm(x) - lv, 0.0, 1.0), 3)
+                       for lv in (0.75, 0.5)]
     windows = []
     try:
         for x in targets:
@@ -71,10 +78,8 @@ def test_three_positions_recorded_and_p_r_follows_the_beam(sim, tmp_path):
         recorded = [states[r["seq"]].positions_mm["x"] for r in here]
         assert max(abs(v - x) for v in recorded) <= 1.0e-3 + 1e-9, (x, recorded[:3])
         p_r.append(float(np.median([r["peak_rarefactional_pa"] for r in here])))
-    # the scene's own truth: its Gaussian beam factor at those points (invented scene);
-    # the issue asks that p_r follow it within 2 %
-    f = sim.scene.drive.frequency_hz
+    # the scene's own truth: its beam factor at those points (invented scene), p_r to
+    # follow it within 2 %
     for x, p in zip(targets[1:], p_r[1:], strict=True):
-        truth = (gaussian_beam_factor((x * 1e-3, 0.0, 0.0), f, sim.scene.params)
-                 / gaussian_beam_factor((0.0, 0.0, 0.0), f, sim.scene.params))
+        truth = beam_mm(x)
         assert p / p_r[0] == pytest.approx(truth, rel=0.02), (x, p / p_r[0], truth)

@@ -364,7 +364,7 @@ class TestSimulateCommand:
             cli_main(["simulate", "--help"])
         assert exc.value.code == 0
         out = capsys.readouterr().out
-        for word in ("--port", "--bench-file", "--seed", "--inject", "N+1"):
+        for word in ("--port", "--bench-file", "--seed", "--inject", "N+1", "--no-serial"):
             assert word in out
 
     def test_short_run_writes_bench_file(self, tmp_path, capsys):
@@ -374,6 +374,49 @@ class TestSimulateCommand:
         out = capsys.readouterr().out
         assert "TCPIP0::127.0.0.1::" in out
         assert tomllib.loads(path.read_text())["digitiser"]["resource"] in out
+
+    def test_stage_and_thermometer_start_by_default(self, tmp_path, capsys):
+        path = tmp_path / "b.toml"
+        assert cli_main(["simulate", "--duration", "0.2", "--bench-file", str(path)]) == 0
+        out = capsys.readouterr().out
+        bench = tomllib.loads(path.read_text())
+        for section in ("stage", "thermometer"):
+            port = bench[section]["port"]
+            assert port.startswith("/dev/") and f"{section:<10} {port} (serial" in out
+        assert bench["stage"]["profile"].endswith("sim-stage.toml")
+        assert set(bench["stage"]["limits"]) == {"x", "y", "z"}
+
+    @pytest.mark.parametrize("argv, serial", [(["--no-serial"], False), (["--serial"], True)])
+    def test_no_serial_leaves_them_out_and_serial_is_the_default(self, tmp_path, capsys,
+                                                                  argv, serial):
+        path = tmp_path / "b.toml"
+        assert cli_main(["simulate", "--duration", "0.2", "--bench-file", str(path),
+                         *argv]) == 0
+        out = capsys.readouterr().out
+        bench = tomllib.loads(path.read_text())
+        assert ("stage" in bench) is serial and ("thermometer" in bench) is serial
+        assert ("(serial; profile" in out) is serial
+        assert "digitiser" in bench and "TCPIP0::127.0.0.1::" in out
+
+    def test_serial_and_no_serial_together_are_refused(self, capsys):
+        with pytest.raises(SystemExit) as exc:
+            cli_main(["simulate", "--serial", "--no-serial"])
+        assert exc.value.code == 2
+        assert "not allowed with" in capsys.readouterr().err
+
+    def test_no_pseudo_terminal_is_a_one_line_error(self, monkeypatch, capsys):
+        def no_pty():
+            raise OSError(24, "Too many open files")
+
+        monkeypatch.setattr("tankside.simulators.pty_device.os.openpty", no_pty)
+        with socket.socket() as probe:         # a free port, to see it is let go again
+            probe.bind(("127.0.0.1", 0))
+            port = probe.getsockname()[1]
+        assert cli_main(["simulate", "--duration", "0.2", "--port", str(port)]) == 2
+        err = capsys.readouterr().err
+        assert "pseudo-terminal" in err and "--no-serial" in err and "Traceback" not in err
+        with pytest.raises(ConnectionRefusedError):
+            socket.create_connection(("127.0.0.1", port), timeout=1.0).close()
 
     def test_an_existing_bench_file_is_kept_unless_forced(self, tmp_path, capsys):
         path = tmp_path / "b.toml"

@@ -4,10 +4,9 @@ stage driver over a pty, moves the hydrophone in the scene, and the digitiser's 
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pytest
+from scipy.optimize import brentq
 
 from tankside.drivers.digitiser import Digitiser, DigitiserSettings
 from tankside.drivers.profile import load_profile
@@ -15,7 +14,7 @@ from tankside.drivers.scpi import ScpiLink
 from tankside.drivers.stage import load_stage_profile, open_stage
 from tankside.drivers.thermometer import load_thermometer_profile, open_thermometer
 from tankside.simulators.bench import PROFILE_DIR, SimulatedBench
-from tankside.simulators.scene import Drive
+from tankside.simulators.scene import Drive, beam_factor
 
 SETTINGS = DigitiserSettings(record_length=10000, sample_rate_hz=250e6, range_v=0.1,
                              trigger_source="EXT", trigger_level_v=1.0)
@@ -42,14 +41,17 @@ def test_traces_follow_the_stage(bench):
                        port=bench.stage.device_path, limits={"x": (-10, 10)})
     try:
         at_focus = _peak(dig)
-        w0 = bench.scene.params.beam_waist_m
-        x_mm = 1e3 * w0 * math.sqrt(math.log(2))        # where exp(-(x/w0)^2) = 1/2
+        params, f = bench.scene.params, bench.scene.drive.frequency_hz
+        on_axis = beam_factor((0.0, 0.0, 0.0), f, params)
+        # where the scene's beam (invented) falls to half its on-axis value in the
+        # geometric focal plane (scipy.optimize.brentq inside the main lobe)
+        x_mm = 1e3 * brentq(lambda x: beam_factor((x, 0.0, 0.0), f, params) - 0.5 * on_axis,
+                            0.0, 1.0e-3)
         stage.move_to({"x": x_mm})
         assert stage.wait_until_still(5.0)["x"] == pytest.approx(x_mm, abs=1e-3)
         off_axis = _peak(dig)
-        # the scene's beam is Gaussian across the axis at the waist: amplitude
-        # exp(-(x/w0)^2) (Gaussian beam, common physics); the peak also carries the
-        # nonlinear harmonics, hence the 5 % allowance (1 % seen)
+        # the peak voltage follows the scene's beam; it also carries the nonlinear
+        # harmonics, hence the 5 % allowance
         assert off_axis / at_focus == pytest.approx(0.5, rel=0.05)
         assert bench.scene.position_m[0] == pytest.approx(x_mm * 1e-3, abs=1e-6)
     finally:

@@ -17,12 +17,15 @@ FAULT_KINDS = ("drop", "stall", "bad-block", "short-block", "miss", "error")
 
 HELP = """\
 Start a simulated digitiser and signal generator on 127.0.0.1, sharing one invented
-acoustic scene (a focused 3.5 MHz source, an invented needle hydrophone), and print
-each instrument's VISA resource string. Runs until Ctrl-C (or SIGTERM).
+acoustic scene (a focused 3.5 MHz source, an invented needle hydrophone), and beside them
+a simulated positioning stage (it moves the hydrophone through the invented beam) and a
+simulated water thermometer, each on a pseudo-terminal. Prints each instrument's VISA
+resource string or serial device path. Runs until Ctrl-C (or SIGTERM).
 
 With --port N the digitiser listens on N and the generator on N+1; by default two free
-ports are picked. --bench-file writes a bench description (resources, profiles,
-calibration file) that `tankside watch --bench` and other commands take.
+ports are picked. --bench-file writes a bench description (resources, serial ports,
+profiles, calibration file, the stage's soft limits) that `tankside watch --bench` and
+other commands take. --no-serial leaves the stage and thermometer out.
 
 Faults (--inject, repeatable) are armed on the digitiser (or --inject-device) at start,
 and again every --inject-every seconds if given:
@@ -37,7 +40,7 @@ and again every --inject-every seconds if given:
 
 def add_parser(subparsers) -> None:
     p = subparsers.add_parser(
-        "simulate", help="run the simulated digitiser and generator on 127.0.0.1",
+        "simulate", help="run the simulated digitiser, generator, stage and thermometer",
         description=HELP, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("--port", type=number(low=0, high=65534, whole=True), default=0,
                    metavar="N",
@@ -48,11 +51,14 @@ def add_parser(subparsers) -> None:
     p.add_argument("--force", action="store_true",
                    help="with --bench-file: overwrite an existing file (it may be a "
                         "hand-edited bench, or one another simulate is serving)")
-    p.add_argument("--serial", action="store_true",
-                   help="also start a simulated stage (it moves the hydrophone in the "
-                        "invented scene) and a simulated thermometer, each on a "
-                        "pseudo-terminal; print their serial device paths and write "
-                        "[stage] and [thermometer] into the bench file")
+    serial = p.add_mutually_exclusive_group()
+    serial.add_argument("--no-serial", dest="serial", action="store_false", default=True,
+                        help="start no simulated stage or thermometer (by default both run, "
+                             "each on a pseudo-terminal; their device paths are printed and "
+                             "[stage] and [thermometer] written into the bench file)")
+    # --serial was the way to ask for them before they became the default
+    serial.add_argument("--serial", dest="serial", action="store_true", default=True,
+                        help="the default; accepted for older scripts")
     p.add_argument("--seed", type=SEED, default=0, metavar="N",
                    help="seed of the simulated noise and trigger jitter (default 0)")
     p.add_argument("--trigger-period", type=number(low=1e-4, high=100.0), default=None,
@@ -133,19 +139,23 @@ def arm(faults, parsed: list[tuple[str, str]], device: str) -> None:
 def run(args) -> int:
     from ...simulators.bench import PROFILE_DIR as SERIAL_PROFILES
     from ...simulators.bench import SimulatedBench
+    from ...simulators.pty_device import PtyUnavailable
 
     parsed = [parse_fault(text) for text in args.inject]
     position = parse_position_mm(args.position_mm) if args.position_mm else None
     if args.bench_file and not args.force and Path(args.bench_file).exists():
         raise ConfigError(f"--bench-file {args.bench_file}: the file exists (a hand-edited "
                           "bench, or another simulate's); choose a new name or add --force")
+    bench = SimulatedBench(seed=args.seed, port=args.port,
+                           trigger_period_s=args.trigger_period, start=False,
+                           stage=args.serial, thermometer=args.serial)
+    if position is not None:       # before the start: the stage starts there
+        bench.scene.set_position_m(*position)
     try:
-        bench = SimulatedBench(seed=args.seed, port=args.port,
-                               trigger_period_s=args.trigger_period, start=False,
-                               stage=args.serial, thermometer=args.serial)
-        if position is not None:       # before the start: the stage starts there
-            bench.scene.set_position_m(*position)
         bench.start()
+    except PtyUnavailable as err:
+        raise ConfigError(f"{err.strerror}; --no-serial starts the bench without the "
+                          "stage and thermometer") from err
     except OSError as err:
         raise ConfigError(f"cannot listen on 127.0.0.1 port {args.port}: {err.strerror}") from err
     stop = threading.Event()

@@ -7,13 +7,14 @@ import textwrap
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Vertical
+from textual.markup import escape
 from textual.screen import ModalScreen
 from textual.widgets import Static
 
 from ..caution import caution_points
 
 CAUTION_TEXT = "[b]Before you watch the tank[/b]\n\n" + "\n".join(
-    textwrap.fill(point, 72, initial_indent="• ", subsequent_indent="  ")
+    escape(textwrap.fill(point, 72, initial_indent="• ", subsequent_indent="  "))
     for point in caution_points("press d and confirm with y when you are ready"))
 
 
