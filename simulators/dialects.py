@@ -11,8 +11,9 @@ any profile, so a mistake in a profile cannot be matched by the same mistake her
 - ``simdig`` (the default): the model's own words (``ACQuire:``, ``CHANnel#:``,
   ``WAVeform:``, described by ``simulators/profiles/sim-digitiser.toml``), and beside them
   the ``SENSe:``/``FETCh:`` words of the ``sense-fetch`` dialect.
-- ``sense-fetch``: SCPI-1999 style ``SENSe:``/``FETCh:`` words alone; ranges in +/- peak
-  volts, a time step that can only be read.
+- ``sense-fetch``: SCPI-1999 style ``SENSe:``/``FETCh:`` words alone, with SCPI's
+  ``INITiate``, ``ABORt`` and ``TRIGger:SOURce``; ranges in +/- peak volts, a time step
+  that can only be read.
 - ``channel-waveform``: words addressed per input port (``PORT#:``), a settable rate
   (``CAPTure:RATE``), ranges in volts per division (eight across the span), and blocks of
   either 16-bit codes (``WAVE:KIND WORD``, the power-on format) or 32-bit floats counting
@@ -61,18 +62,23 @@ class Dialect:
     range_divisions: int = 10
 
 
-_SIMDIG_ROWS = (
+# SCPI-1999's own INITiate and TRIGger:SOURce, spoken by both the model's words and the
+# SENSe:/FETCh: dialect.
+_SCPI_ARM_ROWS = (
+    Row("INITiate[:IMMediate]", "arm"),
+    Row("ABORt", "abort"),
+    Row("TRIGger:SOURce", "trigger_source", "trigger_source?"),
+)
+
+_SIMDIG_ROWS = _SCPI_ARM_ROWS + (
     Row("ACQuire:POINts", "points", "points?"),
     Row("ACQuire:SRATe", "rate", "rate?"),
     Row("ACQuire:AVERage", "averages", "averages?"),
     Row("ACQuire:DONE", query="done?"),
-    Row("INITiate[:IMMediate]", "arm"),
-    Row("ABORt", "abort"),
     Row("CHANnel#:RANGe", "range", "range?"),
     Row("CHANnel#:OFFSet", "offset", "offset?"),
     Row("CHANnel#:COUPling", "coupling", "coupling?"),
     Row("CHANnel#:IMPedance", "impedance", "impedance?"),
-    Row("TRIGger:SOURce", "trigger_source", "trigger_source?"),
     Row("TRIGger:LEVel", "trigger_level", "trigger_level?"),
     Row("TRIGger:SLOPe", "slope", "slope?"),
     Row("TRIGger:DELay", "delay", "delay?"),
@@ -122,7 +128,7 @@ _CHANNEL_WAVEFORM_ROWS = (
 DIALECTS: dict[str, Dialect] = {
     "simdig": Dialect("simdig", _SIMDIG_ROWS + _SENSE_FETCH_ROWS,
                       identity="TANKSIDE,SIMDIG-2,0001,1.0"),
-    "sense-fetch": Dialect("sense-fetch", _SENSE_FETCH_ROWS,
+    "sense-fetch": Dialect("sense-fetch", _SCPI_ARM_ROWS + _SENSE_FETCH_ROWS,
                            identity="TANKSIDE,SIMDIG-2SF,0001,1.0", range_kind="peak"),
     "channel-waveform": Dialect("channel-waveform", _CHANNEL_WAVEFORM_ROWS,
                                 identity="TANKSIDE,SIMDIG-2CW,0001,1.0",

@@ -54,8 +54,9 @@ invented one, described by ``drivers/profiles/example-sense-fetch-digitiser.toml
 =====================================  ==================================================
 
 Which words it answers is its ``dialect`` (the tables of :mod:`.dialects`): ``simdig``
-(the default) both tables above, ``sense-fetch`` the second alone (ranges in +/- peak
-volts), and ``channel-waveform`` a third, invented one (described by
+(the default) both tables above, ``sense-fetch`` the second alone with ``INITiate``,
+``ABORt`` and ``TRIGger:SOURce`` (ranges in +/- peak volts), and ``channel-waveform`` a
+third, invented one (described by
 ``drivers/profiles/example-channel-waveform-digitiser.toml``), in which ranges are volts
 per division, eight divisions across the span:
 
