@@ -17,8 +17,14 @@ import numpy as np
 import pytest
 
 from tankside.drivers.digitiser import Digitiser, DigitiserSettings
-from tankside.drivers.errors import InstrumentReportedError, SettingError
-from tankside.drivers.profile import PROFILE_DIR, builtin_profiles, load_profile, parse_profile
+from tankside.drivers.errors import InstrumentReportedError, ProfileError, SettingError
+from tankside.drivers.profile import (
+    KINDS,
+    PROFILE_DIR,
+    builtin_profiles,
+    load_profile,
+    parse_profile,
+)
 from tankside.drivers.scpi import ScpiLink
 from tankside.monitor.commands.simulate import DIALECT_PROFILES
 from tankside.monitor.live.benchfile import InstrumentConfig, load_bench
@@ -42,7 +48,7 @@ SETTINGS = DigitiserSettings(record_length=2000, sample_rate_hz=250e6, range_v=0
 @pytest.mark.parametrize("name", builtin_profiles())
 def test_every_shipped_profile_loads(name):
     profile = load_profile(name)
-    assert profile.kind == "digitiser"
+    assert profile.kind in KINDS
     assert profile.source == str(PROFILE_DIR / f"{name}.toml")
 
 
@@ -67,8 +73,6 @@ def test_the_two_examples_are_two_different_dialects():
 
 
 def test_a_broken_copy_of_the_second_example_is_refused_by_key():
-    from tankside.drivers.errors import ProfileError
-
     text = (PROFILE_DIR / f"{CHANNEL_WAVEFORM}.toml").read_text()
     with pytest.raises(ProfileError, match=r"my-scope\.toml: \[ranges\] divisions"):
         parse_profile(text.replace("divisions = 8", "divisions = 0"), source="my-scope.toml")
