@@ -16,6 +16,7 @@ import threading
 import time
 from pathlib import Path
 
+from .dialects import DEFAULT_DIALECT
 from .digitiser import SimulatedDigitiser
 from .faults import FaultPlan
 from .generator import SimulatedGenerator
@@ -62,6 +63,11 @@ class SimulatedBench:
         output off, as most real generators power on.
     noise_v_rms, jitter_s : float
         Digitiser front-end noise (V rms) and trigger jitter (s rms).
+    dialect : str
+        The digitiser's command words (:data:`~tankside.simulators.dialects.DIALECTS`);
+        the default speaks ``simulators/profiles/sim-digitiser.toml``. Another dialect
+        needs its own profile: set :attr:`digitiser_profile_path` before writing a bench
+        file.
     start : bool
         Start the servers at once (default); otherwise call :meth:`start`.
     stage, thermometer : bool
@@ -74,7 +80,8 @@ class SimulatedBench:
                  trigger_period_s: float | None = None, precomputed: int | bool = 0,
                  scene_parameters: SceneParameters | None = None, drive: Drive | None = None,
                  noise_v_rms: float = 0.3e-3, jitter_s: float = 0.5e-9, start: bool = True,
-                 stage: bool = False, thermometer: bool = False):
+                 stage: bool = False, thermometer: bool = False,
+                 dialect: str = DEFAULT_DIALECT):
         if not (port == 0 or 1 <= port <= 65534):
             raise ValueError(f"port must be 0 or 1..65534 (the generator takes port + 1), "
                              f"got {port}")
@@ -89,6 +96,7 @@ class SimulatedBench:
         self.digitiser = SimulatedDigitiser(
             self.scene, seed=seed, clock=time.monotonic, sleep=self._stop.wait,
             noise_v_rms=noise_v_rms, jitter_s=jitter_s, precomputed=precomputed,
+            dialect=dialect,
             missed_triggers=lambda: self.faults.take_missed_triggers("digitiser"))
         self.generator = SimulatedGenerator(self.scene, power_on=drive)
         self._port = port

@@ -1,7 +1,8 @@
 """The simulated digitiser (pure device model): SCPI in, reply bytes out.
 
-Identity ``TANKSIDE,SIMDIG-2,0001,1.0``. Two channels; channel 1 carries the hydrophone of
-the shared :class:`~tankside.simulators.scene.Scene`, channel 2 is unconnected (noise only).
+Identity ``TANKSIDE,SIMDIG-2,0001,1.0`` (in the default dialect). Two channels; channel 1
+carries the hydrophone of the shared :class:`~tankside.simulators.scene.Scene`, channel 2
+is unconnected (noise only).
 The trigger comes from the generator's sync output on EXT (one per burst period) unless
 the source is IMMediate: then the record starts at once, at a random moment of the burst
 cycle, so it holds the pulse only by chance (as on a real free-running digitiser).
@@ -52,8 +53,35 @@ invented one, described by ``drivers/profiles/example-sense-fetch-digitiser.toml
 ``FETCh#:WAVeform?``                    the trace of channel #, a definite-length block
 =====================================  ==================================================
 
+Which words it answers is its ``dialect`` (the tables of :mod:`.dialects`): ``simdig``
+(the default) both tables above, ``sense-fetch`` the second alone with ``INITiate``,
+``ABORt`` and ``TRIGger:SOURce`` (ranges in +/- peak volts), and ``channel-waveform`` a
+third, invented one (described by
+``drivers/profiles/example-channel-waveform-digitiser.toml``), in which ranges are volts
+per division, eight divisions across the span:
+
+=====================================  ==================================================
+``CAPTure:LENGth <n>`` / ``?``          record length (as ``ACQuire:POINts``)
+``CAPTure:RATE <hz>`` / ``?``           sample rate (as ``ACQuire:SRATe``)
+``CAPTure:STEP?``                       time step, s
+``CAPTure:STARt`` / ``HALT``            arm one acquisition / disarm
+``CAPTure:READy?``                      1 when the armed acquisition is complete, else 0
+``CUE:FROM EXT|PORT#|IMM`` / ``?``      trigger source
+``CUE:LEVel <v>`` / ``?``               trigger level (as ``TRIGger:LEVel``)
+``CUE:DELay <s>`` / ``?``               time of the first sample after the trigger
+``PORT#:GRID <v>`` / ``?``              volts per division (``range_kind`` applies)
+``PORT#:SHIFt <v>`` / ``?``             voltage at mid-screen (as ``CHANnel#:OFFSet``)
+``PORT#:LOAD 50|1e6`` / ``?``           input impedance, ohm
+``PORT#:UNIT?``                         volts per sample (per division for GRID blocks)
+``PORT#:WAVE?``                         the trace of port #, a definite-length block
+``WAVE:KIND WORD|GRID`` / ``?``         WORD int16 codes (power-on), GRID float32 samples
+                                        in divisions from mid-screen, 12-bit steps
+``WAVE:ORDer HIGH|LOW`` / ``?``         byte order: HIGH first or LOW first (power-on)
+=====================================  ==================================================
+
 volts = code * YINC + YOFF; int16 codes span the range in 65536 steps and clip at
--32768 / 32767 (int8: 256 steps, -128 / 127; float32: volts, clipped at the range edges).
+-32768 / 32767 (int8: 256 steps, -128 / 127; float32: volts, clipped at the range edges;
+GRID: 4096 steps, clipped at -4 and 4 - 1/512 divisions with eight divisions).
 Time is read from an injected ``clock`` and waits use an injected ``sleep``, so the
 model is testable without a wall clock.
 """
@@ -67,8 +95,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .dialects import DEFAULT_DIALECT, RANGE_KINDS, dialect_named
 from .scene import Scene
-from .scpi_device import ScpiDevice
+from .scpi_device import Handler, ScpiDevice
 from .scpi_parser import (
     ScpiError,
     expect_args,
@@ -84,16 +113,33 @@ BASE_CLOCK_HZ = 1.0e9
 CHANNELS = (1, 2)
 FORMATS = {"int16": (np.int16, -32768, 32767), "int8": (np.int8, -128, 127),
            "float32": (np.float32, None, None)}
+# "grid" (the channel-waveform dialect's WAVE:KIND GRID): a 12-bit converter whose codes are
+# sent as float32 screen divisions from mid-screen (code / 4096 * divisions).
+GRID_BITS = 12
+_WAVE_KINDS = {"int16": "WORD", "grid": "GRID"}
 MAX_WAIT_S = 600.0  # *OPC? gives up (no reply) on a trigger that has not come by then
 
 
+def grid_rails(divisions: int) -> tuple[float, float]:
+    """The lowest and highest sample of the "grid" format, in divisions from mid-screen."""
+    steps = 2 ** GRID_BITS
+    return -(steps // 2) * divisions / steps, (steps // 2 - 1) * divisions / steps
+
+
 def quantise(volts: np.ndarray, range_v: float, offset_v: float,
-             data_format: str = "int16") -> tuple[np.ndarray, float, float]:
+             data_format: str = "int16", divisions: int = 10) -> tuple[np.ndarray, float, float]:
     """Quantise volts as an ADC set to ``range_v`` (p-p) around ``offset_v`` would.
 
     Returns ``(codes, volts_per_code, volts_at_code_0)`` with volts = codes * scale + offset.
-    Values beyond the range clip at the rails. For float32 the codes are volts.
+    Values beyond the range clip at the rails. For float32 the codes are volts; for "grid"
+    they are the codes of a :data:`GRID_BITS` converter in screen divisions (``divisions``
+    across the span), so the scale is the volts of one division.
     """
+    if data_format == "grid":
+        steps = 2 ** GRID_BITS
+        codes = np.clip(np.rint((volts - offset_v) / (range_v / steps)), -(steps // 2),
+                        steps // 2 - 1)
+        return (codes * (divisions / steps)).astype(np.float32), range_v / divisions, offset_v
     dtype, lo, hi = FORMATS[data_format]
     if lo is None or hi is None:
         half = range_v / 2
@@ -156,17 +202,21 @@ class SimulatedDigitiser(ScpiDevice):
         compare what a client received with what was sent).
     """
 
-    IDENTITY = "TANKSIDE,SIMDIG-2,0001,1.0"
+    IDENTITY = "TANKSIDE,SIMDIG-2,0001,1.0"     # of the default dialect
 
     def __init__(self, scene: Scene, *, seed: int = 0, clock: Callable[[], float] = time.monotonic,
                  sleep: Callable[[float], object] = time.sleep, noise_v_rms: float = 0.3e-3,
                  jitter_s: float = 0.5e-9, missed_triggers: Callable[[], int] | None = None,
-                 precomputed: int = 0, range_kind: str = "span", range_divisions: int = 10):
+                 precomputed: int = 0, range_kind: str | None = None,
+                 range_divisions: int | None = None, dialect: str = DEFAULT_DIALECT):
         super().__init__()
-        if range_kind not in ("span", "peak", "per_division"):
+        self.dialect = dialect_named(dialect)
+        range_kind = self.dialect.range_kind if range_kind is None else range_kind
+        if range_kind not in RANGE_KINDS:
             raise ValueError(f"range_kind must be span, peak or per_division, got {range_kind!r}")
         self.range_kind = range_kind
-        self.range_divisions = range_divisions
+        self.range_divisions = (self.dialect.range_divisions if range_divisions is None
+                                else range_divisions)
         self.scene = scene
         self.rng = np.random.default_rng(seed)
         self.clock = clock
@@ -196,7 +246,7 @@ class SimulatedDigitiser(ScpiDevice):
 
     # ------------------------------------------------------------ IEEE 488.2
     def identity(self) -> str:
-        return self.IDENTITY
+        return self.dialect.identity
 
     def reset(self) -> None:
         self.state = DigitiserState()
@@ -224,70 +274,76 @@ class SimulatedDigitiser(ScpiDevice):
             if self.sleep(min(min(self.ready_at, deadline) - now, 0.05)):
                 return False
 
-    # ------------------------------------------------------------ registration
+    # ------------------------------------------------------------ the dialect's words
+    def handlers(self) -> dict[str, Handler]:
+        """Every handler a dialect row may name (simulators/dialects.py): a write by its
+        name, a query by its name and ``?``."""
+        return {
+            "points": self._set_points, "points?": self.text_reply(lambda s: self.state.points),
+            "rate": self._set_rate, "rate?": self.number_reply(lambda s: self.sample_rate_hz),
+            "averages": self._set_averages,
+            "averages?": self.text_reply(lambda s: self.state.averages),
+            "done?": self.text_reply(lambda s: int(self.done())),
+            "arm": self._arm, "abort": self._abort,
+            "range": self._set_range,
+            "range?": self.number_reply(lambda s: self._range_word(self._ch(s).range_v)),
+            "offset": self._set_offset,
+            "offset?": self.number_reply(lambda s: self._ch(s).offset_v),
+            "coupling": self._set_coupling,
+            "coupling?": self.text_reply(lambda s: self._ch(s).coupling),
+            "impedance": self._set_impedance,
+            "impedance?": self.number_reply(lambda s: self._ch(s).impedance_ohm),
+            "trigger_source": self._set_trigger_source,
+            "trigger_source?": self.text_reply(lambda s: self.state.trigger_source),
+            "trigger_level": self._set_trigger_level,
+            "trigger_level?": self.number_reply(lambda s: self.state.trigger_level_v),
+            "slope": self._set_slope, "slope?": self.text_reply(lambda s: self.state.trigger_slope),
+            "delay": self._set_delay,
+            "delay?": self.number_reply(lambda s: self.state.trigger_delay_s),
+            "wave_source": self._set_wave_source,
+            "wave_source?": self.text_reply(lambda s: f"CHAN{self.state.wave_source}"),
+            "format": self._set_format,
+            "format?": self.text_reply(lambda s: self.state.data_format.upper()),
+            "border": self._set_border,
+            "border?": self.text_reply(lambda s: self._order_word("LSBF", "MSBF")),
+            "fetch?": self._fetch,
+            "time_step?": self.number_reply(lambda s: self.time_step_s),
+            "source_volts_per_code?": self.number_reply(lambda s: self._scaling()[0]),
+            "source_offset?": self.number_reply(lambda s: self._scaling()[1]),
+            "code_min?": self.text_reply(lambda s: self._rails()[0]),
+            "code_max?": self.text_reply(lambda s: self._rails()[1]),
+            "volts_per_code?": self.number_reply(
+                lambda s: self._channel_scaling(self._ch(s))[0]),
+            # SENSe:/FETCh:
+            "sense_format": self._set_sense_format,
+            "sense_border": self._set_sense_border,
+            "sense_border?": self.text_reply(lambda s: self._order_word("SWAP", "NORM")),
+            "sense_fetch?": self._fetch_channel,
+            # CAPTure:/CUE:/PORT#:/WAVE:
+            "cue_from": self._set_cue_from,
+            "cue_from?": self.text_reply(
+                lambda s: self.state.trigger_source.replace("CHAN", "PORT")),
+            "port_fetch?": self._fetch_channel,
+            "wave_kind": self._set_wave_kind,
+            "wave_kind?": self.text_reply(lambda s: _WAVE_KINDS.get(
+                self.state.data_format, self.state.data_format.upper())),
+            "wave_order": self._set_wave_order,
+            "wave_order?": self.text_reply(lambda s: self._order_word("LOW", "HIGH")),
+        }
+
+    def _order_word(self, little: str, big: str) -> str:
+        return little if self.state.byte_order == "little" else big
+
     def _register(self) -> None:
-        self.add("ACQuire:POINts", write=self._set_points,
-                 query=self.text_reply(lambda s: self.state.points))
-        self.add("ACQuire:SRATe", write=self._set_rate,
-                 query=self.number_reply(lambda s: self.sample_rate_hz))
-        self.add("ACQuire:AVERage", write=self._set_averages,
-                 query=self.text_reply(lambda s: self.state.averages))
-        self.add("ACQuire:DONE", query=self.text_reply(lambda s: int(self.done())))
-        self.add("INITiate[:IMMediate]", write=self._arm)
-        self.add("ABORt", write=self._abort)
-        self.add("CHANnel#:RANGe", write=self._set_range,
-                 query=self.number_reply(lambda s: self._range_word(self._ch(s).range_v)))
-        self.add("CHANnel#:OFFSet", write=self._set_offset,
-                 query=self.number_reply(lambda s: self._ch(s).offset_v))
-        self.add("CHANnel#:COUPling", write=self._set_coupling,
-                 query=self.text_reply(lambda s: self._ch(s).coupling))
-        self.add("CHANnel#:IMPedance", write=self._set_impedance,
-                 query=self.number_reply(lambda s: self._ch(s).impedance_ohm))
-        self.add("TRIGger:SOURce", write=self._set_trigger_source,
-                 query=self.text_reply(lambda s: self.state.trigger_source))
-        self.add("TRIGger:LEVel", write=self._set_trigger_level,
-                 query=self.number_reply(lambda s: self.state.trigger_level_v))
-        self.add("TRIGger:SLOPe", write=self._set_slope,
-                 query=self.text_reply(lambda s: self.state.trigger_slope))
-        self.add("TRIGger:DELay", write=self._set_delay,
-                 query=self.number_reply(lambda s: self.state.trigger_delay_s))
-        self.add("WAVeform:SOURce", write=self._set_wave_source,
-                 query=self.text_reply(lambda s: f"CHAN{self.state.wave_source}"))
-        self.add("WAVeform:FORMat", write=self._set_format,
-                 query=self.text_reply(lambda s: self.state.data_format.upper()))
-        self.add("WAVeform:BORDer", write=self._set_border,
-                 query=self.text_reply(lambda s: "LSBF"
-                                              if self.state.byte_order == "little" else "MSBF"))
-        self.add("WAVeform:DATA", query=self._fetch)
-        self.add("WAVeform:XINCrement", query=self.number_reply(lambda s: self.time_step_s))
-        self.add("WAVeform:XORigin", query=self.number_reply(lambda s: self.state.trigger_delay_s))
-        self.add("WAVeform:YINCrement", query=self.number_reply(lambda s: self._scaling()[0]))
-        self.add("WAVeform:YOFFset", query=self.number_reply(lambda s: self._scaling()[1]))
-        self.add("WAVeform:CMIN",
-                 query=self.text_reply(lambda s: FORMATS[self.state.data_format][1]))
-        self.add("WAVeform:CMAX",
-                 query=self.text_reply(lambda s: FORMATS[self.state.data_format][2]))
-
-        self._register_sense()
-
-    def _register_sense(self) -> None:
-        """The ``SENSe:``/``FETCh:`` dialect (module docstring, second table)."""
-        self.add("SENSe:SWEep:POINts", write=self._set_points,
-                 query=self.text_reply(lambda s: self.state.points))
-        self.add("SENSe:SWEep:TINTerval", query=self.number_reply(lambda s: self.time_step_s))
-        self.add("SENSe:SWEep:OFFSet:TIME",
-                 query=self.number_reply(lambda s: self.state.trigger_delay_s))
-        self.add("SENSe#:VOLTage:RANGe", write=self._set_range,
-                 query=self.number_reply(lambda s: self._range_word(self._ch(s).range_v)))
-        self.add("SENSe#:VOLTage:OFFSet", write=self._set_offset,
-                 query=self.number_reply(lambda s: self._ch(s).offset_v))
-        self.add("SENSe#:VOLTage:RESolution",
-                 query=self.number_reply(lambda s: self._channel_scaling(self._ch(s))[0]))
-        self.add("FORMat:BORDer", write=self._set_sense_border,
-                 query=self.text_reply(lambda s: "SWAP"
-                                              if self.state.byte_order == "little" else "NORM"))
-        self.add("FORMat[:DATA]", write=self._set_sense_format)
-        self.add("FETCh#:WAVeform", query=self._fetch_sense)
+        handlers = self.handlers()
+        for row in self.dialect.rows:
+            try:
+                write = handlers[row.write] if row.write is not None else None
+                query = handlers[row.query] if row.query is not None else None
+            except KeyError as err:
+                raise ValueError(f"dialect {self.dialect.name!r}: {row.header} names no "
+                                 f"handler {err.args[0]!r}") from err
+            self.add(row.header, write=write, query=query)
 
     def _set_sense_format(self, args, s):
         expect_args(args, 2)
@@ -302,9 +358,25 @@ class SimulatedDigitiser(ScpiDevice):
         expect_args(args, 1)
         self.state.byte_order = parse_choice(args[0], {"NORMal": "big", "SWAPped": "little"})
 
-    def _fetch_sense(self, args, s):
+    def _fetch_channel(self, args, s):
+        """The block of the channel in the header's suffix (``FETCh2:WAV?``, ``PORT2:WAVE?``)."""
         expect_args(args, 0)
         return self._fetch((f"CHAN{s[0]}",), s)
+
+    def _set_cue_from(self, args, s):
+        expect_args(args, 1)
+        value = parse_choice(args[0], {"EXTernal": "EXT", "IMMediate": "IMM", "PORT#": "CHAN"})
+        if value.startswith("CHAN") and int(value[4:]) not in CHANNELS:
+            raise ScpiError(-224, f"no port {value[4:]}")
+        self.state.trigger_source = value
+
+    def _set_wave_kind(self, args, s):
+        expect_args(args, 1)
+        self.state.data_format = parse_choice(args[0], {"WORD": "int16", "GRID": "grid"})
+
+    def _set_wave_order(self, args, s):
+        expect_args(args, 1)
+        self.state.byte_order = parse_choice(args[0], {"HIGH": "big", "LOW": "little"})
 
     def _ch(self, suffixes) -> ChannelState:
         number = suffixes[0]
@@ -325,10 +397,18 @@ class SimulatedDigitiser(ScpiDevice):
         return self._channel_scaling(self.state.channels[self.state.wave_source])
 
     def _channel_scaling(self, ch: ChannelState) -> tuple[float, float]:
+        if self.state.data_format == "grid":
+            return ch.range_v / self.range_divisions, ch.offset_v
         _, lo, hi = FORMATS[self.state.data_format]
         if lo is None or hi is None:
             return 1.0, 0.0
         return ch.range_v / (hi - lo + 1), ch.offset_v
+
+    def _rails(self) -> tuple[float | None, float | None]:
+        if self.state.data_format == "grid":
+            return grid_rails(self.range_divisions)
+        _, lo, hi = FORMATS[self.state.data_format]
+        return lo, hi
 
     # ------------------------------------------------------------ setters
     def _set_points(self, args, s):
@@ -495,7 +575,8 @@ class SimulatedDigitiser(ScpiDevice):
     def acquire_codes(self, channel: int) -> tuple[np.ndarray, float, float]:
         """Quantised codes, volts per code and offset of ``channel`` for the current acquisition."""
         ch = self.state.channels[channel]
-        return quantise(self._volts(channel), ch.range_v, ch.offset_v, self.state.data_format)
+        return quantise(self._volts(channel), ch.range_v, ch.offset_v, self.state.data_format,
+                        self.range_divisions)
 
     def _encode(self, codes: np.ndarray) -> bytes:
         dtype = codes.dtype.newbyteorder("<" if self.state.byte_order == "little" else ">")
@@ -526,7 +607,7 @@ class SimulatedDigitiser(ScpiDevice):
         st = self.state
         ch = st.channels[channel]
         key = (channel, st.points, st.divider, st.averages, st.trigger_delay_s, st.data_format,
-               st.byte_order, ch.range_v, ch.offset_v, self.scene.version)
+               st.byte_order, ch.range_v, ch.offset_v, self.range_divisions, self.scene.version)
         if key != self._pre_key:
             self._pre_codes = [self.acquire_codes(channel)[0] for _ in range(self.precomputed)]
             self._pre_blocks = [self._encode(codes) for codes in self._pre_codes]

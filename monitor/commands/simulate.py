@@ -10,10 +10,20 @@ import threading
 import time
 from pathlib import Path
 
+from ...drivers.profile import PROFILE_DIR
 from ..errors import ConfigError
 from .options import SECONDS, SEED, number
 
 FAULT_KINDS = ("drop", "stall", "bad-block", "short-block", "miss", "error")
+
+# The simulated digitiser's dialects (simulators/dialects.py) and the profile that speaks
+# each; None: the bench's own (simulators/profiles/sim-digitiser.toml). A test checks that
+# these are the simulator's dialects.
+DIALECT_PROFILES = {
+    "simdig": None,
+    "sense-fetch": PROFILE_DIR / "example-sense-fetch-digitiser.toml",
+    "channel-waveform": PROFILE_DIR / "example-channel-waveform-digitiser.toml",
+}
 
 HELP = """\
 Start a simulated digitiser and signal generator on 127.0.0.1, sharing one invented
@@ -26,6 +36,10 @@ With --port N the digitiser listens on N and the generator on N+1; by default tw
 ports are picked. --bench-file writes a bench description (resources, serial ports,
 profiles, calibration file, the stage's soft limits) that `tankside watch --bench` and
 other commands take. --no-serial leaves the stage and thermometer out.
+
+--dialect picks the digitiser's command words: simdig (its own, the default),
+sense-fetch or channel-waveform (the two example profiles in drivers/profiles/, which
+the bench file then names).
 
 Faults (--inject, repeatable) are armed on the digitiser (or --inject-device) at start,
 and again every --inject-every seconds if given:
@@ -59,6 +73,8 @@ def add_parser(subparsers) -> None:
     # --serial was the way to ask for them before they became the default
     serial.add_argument("--serial", dest="serial", action="store_true", default=True,
                         help="the default; accepted for older scripts")
+    p.add_argument("--dialect", choices=tuple(DIALECT_PROFILES), default="simdig",
+                   help="the simulated digitiser's command words (default simdig)")
     p.add_argument("--seed", type=SEED, default=0, metavar="N",
                    help="seed of the simulated noise and trigger jitter (default 0)")
     p.add_argument("--trigger-period", type=number(low=1e-4, high=100.0), default=None,
@@ -148,7 +164,10 @@ def run(args) -> int:
                           "bench, or another simulate's); choose a new name or add --force")
     bench = SimulatedBench(seed=args.seed, port=args.port,
                            trigger_period_s=args.trigger_period, start=False,
-                           stage=args.serial, thermometer=args.serial)
+                           stage=args.serial, thermometer=args.serial, dialect=args.dialect)
+    profile = DIALECT_PROFILES[args.dialect]
+    if profile is not None:
+        bench.digitiser_profile_path = profile
     if position is not None:       # before the start: the stage starts there
         bench.scene.set_position_m(*position)
     try:
