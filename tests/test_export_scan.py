@@ -528,3 +528,36 @@ class TestOlderAndPlainSessions:
             assert mean.shape == (4,) and np.isnan(mean).all()
             np.testing.assert_array_equal(f["scan/grid/done"][:], [-1, -1, -1, -1])
             np.testing.assert_array_equal(f["scan/grid/x_mm"][:], XS_MM[:4])
+
+
+class TestDamagedOrOddScans:
+    def test_a_damaged_point_cell_is_named_and_nothing_written(self, raster, tmp_path, capsys):
+        path, _, _ = raster
+        with sqlite3.connect(path) as conn:
+            conn.execute("UPDATE scan_points SET target_json = '{\"x\": \"far\"}' "
+                         "WHERE point_index = 3")
+        out, h5 = tmp_path / "map.csv", tmp_path / "s.h5"
+        assert _export(path, "--map", out) == ExitCode.USAGE
+        err = capsys.readouterr().err.strip()
+        assert len(err.splitlines()) == 1
+        assert "scan_points" in err and "point_index 3" in err and "target_json" in err
+        assert _export(path, "--hdf5", h5) == ExitCode.USAGE
+        assert "target_json" in capsys.readouterr().err
+        assert not out.exists() and not h5.exists()
+        assert sorted(p.name for p in tmp_path.iterdir()) == ["raster.db"]
+
+    def test_a_plan_whose_points_cannot_be_read_grids_the_completed_points(self, tmp_path):
+        targets = _raster_targets()[:5]
+        plan = {"kind": "line", "points": [{"index": i, "target_mm": {"x": "somewhere"}}
+                                           for i in range(len(targets))]}
+        path = tmp_path / "odd.db"
+        done = _write_scan(path, targets, plan, skip={1})
+        out = tmp_path / "odd.h5"
+        assert _export(path, "--hdf5", out) == ExitCode.OK
+        with h5py.File(out, "r") as f:
+            assert f["scan"].attrs["grid_from"] == "completed points"
+            assert f["scan"].attrs["points_planned"] == -1
+            np.testing.assert_array_equal(f["scan/grid/x_mm"][:], XS_MM[[0, 2, 3, 4]])
+            want = _expected_stat(done, len(targets), "peak_rarefactional_pa", "mean")
+            np.testing.assert_array_equal(f["scan/grid/mean_peak_rarefactional_pa"][:],
+                                          want[[0, 2, 3, 4]])
