@@ -31,8 +31,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--calibration-out", metavar="CAL.csv",
                    help="the recorded hydrophone calibration file, verbatim")
     p.add_argument("--map", metavar="OUT.csv",
-                   help="a scan's map: one row per completed point: index, status, target and "
-                        "measured position of each axis (mm), traces counted and rejected, "
+                   help="a scan's map: one row per completed point: index, status, time, "
+                        "target and measured position of each axis (mm), traces counted and "
+                        "rejected, "
                         "first and last seq, resumed, the mean and spread of each combined "
                         "parameter, note (an error for a session without a scan)")
     p.add_argument("--hdf5", metavar="OUT.h5",
