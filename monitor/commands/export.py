@@ -1,4 +1,5 @@
-"""``tankside export``: results, a trace, the calibration file or everything out of a session."""
+"""``tankside export``: results, a trace, the calibration file, a scan's map or everything
+out of a session."""
 
 from __future__ import annotations
 
@@ -13,7 +14,8 @@ from .options import add_progress_options, number
 def add_parser(subparsers) -> argparse.ArgumentParser:
     p = subparsers.add_parser(
         "export",
-        help="write a recorded session's results, traces or calibration to CSV or HDF5",
+        help="write a recorded session's results, traces, calibration or scan map to CSV "
+             "or HDF5",
         description=(
             "Export parts of a recorded session. Give one or more of the outputs below; "
             "the session file is only read, also while it is still being recorded."),
@@ -28,8 +30,16 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="where --trace goes: time_s,voltage_v in volts, the form `convert` reads")
     p.add_argument("--calibration-out", metavar="CAL.csv",
                    help="the recorded hydrophone calibration file, verbatim")
+    p.add_argument("--map", metavar="OUT.csv",
+                   help="a scan's map: one row per completed point: index, status, time, "
+                        "target and measured position of each axis (mm), traces counted and "
+                        "rejected, "
+                        "first and last seq, resumed, the mean and spread of each combined "
+                        "parameter, note (an error for a session without a scan)")
     p.add_argument("--hdf5", metavar="OUT.h5",
-                   help="all traces, results, alerts, events and metadata, units as attributes")
+                   help="all traces, results, alerts, events and metadata, units as "
+                        "attributes; with a scan, also /scan: its points and, on a line, "
+                        "raster or volume, the gridded parameters with coordinate axes in mm")
     add_progress_options(p)
     p.set_defaults(func=run)
     return p
@@ -37,13 +47,14 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 def run(args) -> int:
     from ..record import export
+    from ..record.scanexport import require_scan
     from ..record.store import SessionReader
 
     if (args.trace is None) != (args.out is None):
         raise ConfigError("--trace SEQ and --out TRACE.csv go together")
-    if not any((args.results, args.out, args.calibration_out, args.hdf5)):
+    if not any((args.results, args.out, args.calibration_out, args.map, args.hdf5)):
         raise ConfigError("nothing to export: give --results, --trace/--out, "
-                          "--calibration-out or --hdf5")
+                          "--calibration-out, --map or --hdf5")
     with StopSignals() as stops, SessionReader(args.session) as reader:
         steps = bar_factory(args.progress, check=stops.check)
         if reader.note:
@@ -53,6 +64,8 @@ def run(args) -> int:
                   "cleanly (or is still being recorded)", file=sys.stderr)
         if args.trace is not None:
             reader.trace(args.trace)  # an unknown seq fails before any file is written
+        if args.map:
+            require_scan(reader, "--map")  # so does a session without a scan
         if args.results:
             rows = export.export_results_csv(reader, args.results, progress=steps)
             print(f"wrote {rows} result rows to {args.results}")
@@ -62,6 +75,9 @@ def run(args) -> int:
         if args.calibration_out:
             sha = export.export_calibration(reader, args.calibration_out)
             print(f"wrote the calibration file to {args.calibration_out} (sha256 {sha})")
+        if args.map:
+            rows = export.export_map_csv(reader, args.map)
+            print(f"wrote {rows} scan points to {args.map}")
         if args.hdf5:
             n = export.export_hdf5(reader, args.hdf5, progress=steps)
             print(f"wrote {n} traces with results, alerts and events to {args.hdf5}")

@@ -8,9 +8,23 @@ Results CSV
     recorded them (layout 3), ``position_<axis>_mm`` for every stage axis (empty where a
     trace has no position), and ``water_reading_c``, ``water_reading_age_s`` and
     ``water_source`` (``thermometer`` or ``bench``: which temperature the conversion
-    used, itself in ``water_temperature_c``). Floats are written
+    used, itself in ``water_temperature_c``); then, in a session with a scan (layout 4),
+    ``point_index``, ``counted`` and ``why_not``: the scan point the trace was acquired
+    at, whether it counts towards that point and why not (all three empty for a trace
+    acquired between points: moving, settling). Floats are written
     with ``repr`` (shortest text that reads back to the same float64); booleans as
     ``true``/``false``; a field without a value (conversion failed) is empty.
+
+Map CSV (a session with a scan)
+    One row per completed scan point, by index: ``point_index``, ``status`` (``done`` or
+    ``failed``), ``time_s`` (when it was completed), ``target_<axis>_mm`` and then
+    ``position_<axis>_mm`` (the mean stage reading of its counted traces) for every axis
+    (sorted; empty where a point has none), ``counted``, ``rejected``, ``first_seq``,
+    ``last_seq`` (empty when none), ``resumed``, then ``mean_<name>`` and
+    ``spread_<name>`` (sample standard deviation) of every combined result
+    (:data:`~tankside.monitor.record.scanpoints.COMBINED_RESULTS`; the name keeps its unit
+    suffix, so ``mean_peak_rarefactional_pa`` is in Pa; empty where the point has no
+    value, a failed point has none), and ``note``.
 
 Trace CSV
     ``time_s,voltage_v``, the form ``tankside convert`` reads, written by
@@ -49,6 +63,32 @@ HDF5 layout (``format`` attribute ``"tankside-session-export"``, ``layout_versio
     ``/bench/position_mm``   shape (N, axes), mm, NaN where a trace has no position
     ``/bench/water_*``       water_reading_c (degC), water_reading_age_s (s), NaN where
                              none; water_source ("thermometer", "bench", "" without one)
+    ``/results/point_index`` in a session with a scan: each trace's scan point (-1 for a
+                             trace between points), ``counted`` (int8: 1, 0, -1 between
+                             points) and ``why_not`` (string, "" when counted or between)
+    ``/scan``                in a session with a scan; attributes kind (the plan's, ""
+                             when unknown), points_planned (-1 when the plan lists none),
+                             points_completed, axes, grid_from ("plan": the grid covers
+                             every planned point; "completed points")
+    ``/scan/points/<column>`` one 1-D dataset per column of the map CSV, one entry per
+                             completed point: point_index, status, time_s,
+                             target_<axis>_mm, position_<axis>_mm (NaN: none), counted,
+                             rejected, first_seq, last_seq (-1: none), resumed (int8),
+                             note, mean_<name> and spread_<name> (NaN: none) and
+                             n_<name> (values combined, 0: none)
+    ``/scan/grid``           when the targets lie on a grid (a line, raster, volume):
+                             attributes axes (grid dimension k is axis axes[k], the fast
+                             axis first) and fixed_<axis>_mm for the axes that do not vary;
+                             ``<axis>_mm``, each axis's sorted coordinates (mm), an HDF5
+                             dimension scale attached to dimension k of every dataset
+                             below; ``point_index`` (int64, -1 where no planned point),
+                             ``done`` (int8: 1 done, 0 failed, -1 not completed or no
+                             point), ``mean_<name>`` and ``spread_<name>`` (float64, NaN
+                             where no point, a failed point, or no value)
+    ``/scan/beam``           the ``beam`` figures of the last ``scan-end`` event, when it
+                             has them: one attribute per figure (numbers float64, text as
+                             strings, null as NaN), a group per nested object, and the
+                             whole as JSON text in the attribute ``beam_json``
 
 Every numeric dataset carries a ``units`` attribute (SI; ``""`` when dimensionless).
 """
@@ -66,24 +106,35 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import ConfigError, OutputFileError, SessionValueError
+from ..errors import OutputFileError, SessionValueError
 from .benchstate import TraceBench
+from .h5data import h5py_module as _h5
+from .h5data import number_dataset as _numbers
+from .h5data import string_dataset as _strings
 from .outputs import GuardedFile, describe_os_error, output_file
+from .scanexport import has_scan, no_scan_error, scan_export, write_scan_group
+from .scanpoints import COMBINED_RESULTS
 from .schema import (
     META_CALIBRATION_SHA256,
     RESULT_COLUMNS,
     RESULT_NAMES,
     RESULT_UNITS,
-    units_of,
 )
 from .steps import StepsFactory, silent
 from .store import SessionReader, strict_json
 
 __all__ = ["export_results_csv", "export_trace_csv", "export_calibration", "export_hdf5",
-           "RESULTS_CSV_COLUMNS"]
+           "export_map_csv", "RESULTS_CSV_COLUMNS", "POINT_CSV_COLUMNS", "MAP_COUNT_COLUMNS",
+           "MAP_RESULT_COLUMNS"]
 
 RESULTS_CSV_COLUMNS = ("seq", "time_s", *RESULT_NAMES, "converted", "clipped",
                        "range_changed", "error")
+#: The per-trace scan columns of the results CSV (a session with a scan).
+POINT_CSV_COLUMNS = ("point_index", "counted", "why_not")
+#: The map CSV's columns after the positions; then MAP_RESULT_COLUMNS, then ``note``.
+MAP_COUNT_COLUMNS = ("counted", "rejected", "first_seq", "last_seq", "resumed")
+MAP_RESULT_COLUMNS = tuple(f"{stat}_{name}" for name in COMBINED_RESULTS
+                           for stat in ("mean", "spread"))
 _BOM = "\ufeff"
 
 
@@ -104,18 +155,23 @@ def export_results_csv(reader: SessionReader, out, *, progress: StepsFactory = s
     rows = 0
     axes = reader.stage_axes()
     water = reader.has_water_readings()
+    points = reader.trace_points() if has_scan(reader) else None
     bench_columns = (*(f"position_{axis}_mm" for axis in axes),
                      *(_WATER_COLUMNS if water else ()))
+    point_columns = POINT_CSV_COLUMNS if points is not None else ()
     with output_file(out) as tmp, open(tmp, "w", newline="", encoding="utf-8") as fh, \
             progress(reader.trace_count(), "results") as bar:
         writer = csv.writer(fh, lineterminator="\n")
-        writer.writerow((*RESULTS_CSV_COLUMNS, *bench_columns))
+        writer.writerow((*RESULTS_CSV_COLUMNS, *bench_columns, *point_columns))
         for r in reader.iter_results():
             if not r["converted"]:
                 r = {**r, **{name: None for name in RESULT_NAMES}}
             cells = [_cell(r.get(c)) for c in RESULTS_CSV_COLUMNS]
             if bench_columns:
                 cells += _bench_cells(r["bench"], axes, water)
+            if points is not None:
+                at = points.get(r["seq"])
+                cells += ["", "", ""] if at is None else [_cell(v) for v in at]
             writer.writerow(cells)
             rows += 1
             bar.update()
@@ -133,6 +189,39 @@ def _bench_cells(bench: TraceBench | None, axes: tuple[str, ...], water: bool) -
                   [_cell(bench.water_reading_c), _cell(bench.water_reading_age_s),
                    _cell(None if bench.water_source is None else str(bench.water_source))])
     return cells
+
+
+def export_map_csv(reader: SessionReader, out) -> int:
+    """Write the map CSV (one row per completed scan point; the module docstring lists
+    its columns); returns the number of rows.
+
+    Raises
+    ------
+    SessionFileError
+        The session ran no scan (nothing is written).
+    """
+    scan = scan_export(reader)
+    if scan is None:
+        raise no_scan_error(reader, "--map")
+    header = ("point_index", "status", "time_s",
+              *(f"target_{axis}_mm" for axis in scan.axes),
+              *(f"position_{axis}_mm" for axis in scan.axes),
+              *MAP_COUNT_COLUMNS, *MAP_RESULT_COLUMNS, "note")
+    with output_file(out) as tmp, open(tmp, "w", newline="", encoding="utf-8") as fh:
+        writer = csv.writer(fh, lineterminator="\n")
+        writer.writerow(header)
+        for p in scan.points:
+            cells = [_cell(p.index), str(p.status), _cell(p.time_s)]
+            cells += [_cell(p.target_mm.get(axis)) for axis in scan.axes]
+            cells += [_cell(p.position_mm.get(axis)) for axis in scan.axes]
+            cells += [_cell(v) for v in (p.counted, p.rejected, p.first_seq, p.last_seq,
+                                         p.resumed)]
+            for name in COMBINED_RESULTS:
+                c = p.results.get(name)
+                cells += ["", ""] if c is None else [_cell(c.mean), _cell(c.spread)]
+            cells.append(p.note)
+            writer.writerow(cells)
+    return len(scan.points)
 
 
 def export_trace_csv(reader: SessionReader, seq: int, out) -> int:
@@ -176,14 +265,6 @@ _TRACE_FLOATS = ("time_s", "volts_per_code", "offset_v", "dt_s", "t0_s", "range_
                  "code_min", "code_max")
 _TRACE_INTS = ("seq", "clipped_low", "clipped_high", "codes_crc32")
 _TRACE_STRS = ("dtype", "data_format", "state_json")
-
-
-def _h5():
-    try:
-        import h5py  # type: ignore[import-untyped]  # h5py ships no type information
-    except ImportError as err:  # pragma: no cover - h5py is a dependency
-        raise ConfigError("HDF5 export needs h5py (pip install h5py)") from err
-    return h5py
 
 
 def _hdf5_reason(err: BaseException) -> str:
@@ -265,17 +346,6 @@ def _close_quietly(f) -> None:
         pass  # the file is removed; the error that got us here is the one reported
 
 
-def _strings(group, name: str, values):
-    return group.create_dataset(name, data=np.array(list(values), dtype=object),
-                                dtype=_h5().string_dtype())
-
-
-def _numbers(group, name: str, values, dtype, units: str | None = None):
-    ds = group.create_dataset(name, data=np.array(list(values), dtype=dtype))
-    ds.attrs["units"] = units_of(name) if units is None else units
-    return ds
-
-
 def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) -> int:
     """Write the whole session to HDF5 (layout in the module docstring); returns N traces."""
     h5py = _h5()
@@ -303,10 +373,13 @@ def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) 
             ds.attrs["sha256"] = meta.get(META_CALIBRATION_SHA256) or ""
         _write_traces(f.create_group("traces"), reader, n_traces, layouts, uniform,
                       _Checked(bar, guard.check), stop_seq)
-        _write_results(f.create_group("results"), reader, stop_seq)
+        scan = scan_export(reader)
+        _write_results(f.create_group("results"), reader, stop_seq, scan is not None)
         _write_alerts(f.create_group("alerts"), reader.alerts())
         _write_events(f.create_group("events"), reader.events())
         _write_bench(f.create_group("bench"), reader, stop_seq)
+        if scan is not None:
+            write_scan_group(f.create_group("scan"), scan)
         if stop is not None:
             s = f.create_group("stop")
             s.attrs.update({"stop_time_s": stop["stop_time_s"], "exit_status": stop["exit_status"],
@@ -358,11 +431,18 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar, stop_seq):
         _strings(g, c, cols[c])
 
 
-def _write_results(g, reader, stop_seq):
+def _write_results(g, reader, stop_seq, with_points: bool):
     cols: dict[str, list[Any]] = {c: [] for c in ("seq", *RESULT_NAMES, "converted", "clipped",
                                                   "range_changed", "error")}
     kinds = dict(RESULT_COLUMNS)
+    points = reader.trace_points() if with_points else {}
+    at_point: tuple[list[int], list[int], list[str]] = ([], [], [])
     for r in reader.iter_results(stop_seq):
+        if with_points:
+            index, counted, why_not = points.get(r["seq"], (-1, -1, ""))
+            at_point[0].append(index)
+            at_point[1].append(int(counted))
+            at_point[2].append(why_not)
         for c in cols:
             v = r.get(c)
             if c in kinds and kinds[c] == "BOOL":
@@ -383,6 +463,10 @@ def _write_results(g, reader, stop_seq):
             _numbers(g, c, values, np.int64, "")
         else:
             _numbers(g, c, values, np.float64, RESULT_UNITS[c])
+    if with_points:
+        _numbers(g, "point_index", at_point[0], np.int64, "")
+        _numbers(g, "counted", at_point[1], np.int8, "")
+        _strings(g, "why_not", at_point[2])
 
 
 def _write_alerts(g, alerts):
@@ -429,3 +513,4 @@ def _write_bench(g, reader, stop_seq):
     _numbers(g, "water_reading_c", readings, np.float64, "degC")
     _numbers(g, "water_reading_age_s", ages, np.float64, "s")
     _strings(g, "water_source", sources)
+
