@@ -128,6 +128,13 @@ def _write_scan(path, targets: list[dict], plan: dict, *, skip=(), failed=(),
     return done
 
 
+def _plan(kind: str, targets: list[dict]) -> dict:
+    """The parts of a recorded plan (``ScanPlan.as_dict()``) the export reads: the axes
+    of the points and a row of mm per point, in visiting order."""
+    axes = sorted(targets[0])
+    return {"kind": kind, "point_axes": axes, "points": [[t[a] for a in axes] for t in targets]}
+
+
 def _raster_targets() -> list[dict]:
     grid_x, grid_y = np.meshgrid(XS_MM, YS_MM)      # shape (ny, nx); C order: x fast
     return [{"x": float(x), "y": float(y), "z": Z_MM}
@@ -137,8 +144,7 @@ def _raster_targets() -> list[dict]:
 @pytest.fixture
 def raster(tmp_path):
     targets = _raster_targets()
-    plan = {"kind": "raster",
-            "points": [{"index": i, "target_mm": t} for i, t in enumerate(targets)]}
+    plan = _plan("raster", targets)
     path = tmp_path / "raster.db"
     done = _write_scan(path, targets, plan, skip={NOT_DONE}, failed={FAILED},
                        resumed_from=RESUMED_FROM, beam=BEAM)
@@ -508,8 +514,7 @@ class TestOlderAndPlainSessions:
 
     def test_a_plan_with_no_point_done_yet(self, tmp_path):
         targets = _raster_targets()[:4]
-        plan = {"kind": "raster",
-                "points": [{"index": i, "target_mm": t} for i, t in enumerate(targets)]}
+        plan = _plan("raster", targets)
         path = tmp_path / "started.db"
         store = SessionStore.create(path, _meta(plan))
         store.add_trace(make_raw(0, n=256), _flat(1e5, 1), point=(0, True, ""))
@@ -548,8 +553,8 @@ class TestDamagedOrOddScans:
 
     def test_a_plan_whose_points_cannot_be_read_grids_the_completed_points(self, tmp_path):
         targets = _raster_targets()[:5]
-        plan = {"kind": "line", "points": [{"index": i, "target_mm": {"x": "somewhere"}}
-                                           for i in range(len(targets))]}
+        plan = {"kind": "line", "point_axes": ["x"],
+                "points": [["somewhere"] for _ in range(len(targets))]}
         path = tmp_path / "odd.db"
         done = _write_scan(path, targets, plan, skip={1})
         out = tmp_path / "odd.h5"

@@ -3,7 +3,7 @@ they lie on and the beam figures (:func:`scan_export`), and the HDF5 group that 
 (:func:`write_scan_group`; the layout is in :mod:`tankside.monitor.record.export`).
 
 The grid covers the whole plan when the plan in the metadata lists its points with their
-targets (``{"points": [{"index": i, "target_mm": {axis: mm}}, ...]}``), so that points not
+targets (``ScanPlan.as_dict()``: ``point_axes`` and a row of mm per point), so that points not
 yet done are holes; otherwise it is the grid of the completed points alone. A completed
 point's own recorded target (``scan_points.target_json``) always wins over the plan's.
 """
@@ -100,24 +100,26 @@ def require_scan(reader: SessionReader, option: str) -> None:
 
 
 def _plan_targets(plan: dict | None) -> dict[int, dict[str, float]] | None:
-    """Point index -> target (mm) of every point the plan lists, or None when it lists
-    none in the form ``{"index": int, "target_mm": {axis: number}}`` (each entry checked)."""
-    if plan is None or not isinstance(plan.get("points"), list) or not plan["points"]:
+    """Point index -> target (mm) of every point the plan lists (``ScanPlan.as_dict()``:
+    ``point_axes`` names the columns of ``points``, one row of mm per point in visiting
+    order, the index being the row's), or None when it lists none that way (each row
+    checked)."""
+    if plan is None:
+        return None
+    axes, rows = plan.get("point_axes"), plan.get("points")
+    if not (isinstance(axes, list) and axes and all(isinstance(a, str) for a in axes)
+            and isinstance(rows, list) and rows):
         return None
     out: dict[int, dict[str, float]] = {}
-    for entry in plan["points"]:
-        if not isinstance(entry, dict):
-            return None
-        index, target = entry.get("index"), entry.get("target_mm")
-        if isinstance(index, bool) or not isinstance(index, int) or index < 0 \
-                or index in out or not isinstance(target, dict) or not target:
+    for index, row in enumerate(rows):
+        if not isinstance(row, list) or len(row) != len(axes):
             return None
         mm = {}
-        for axis, value in target.items():
+        for axis, value in zip(axes, row, strict=True):
             if isinstance(value, bool) or not isinstance(value, int | float) \
                     or not math.isfinite(value):
                 return None
-            mm[str(axis)] = float(value)
+            mm[axis] = float(value)
         out[index] = mm
     return out
 
