@@ -12,7 +12,9 @@ as an event, raised as an alert, and the stage is told to stop.
   the stage reports an error or stops answering. A stop goes before any move still
   queued, and those moves are dropped (recorded), so nothing restarts the motion.
 - About five times a second (``poll_s``) the position of every axis and whether the stage
-  moves are read; each trace is recorded with the latest reading (:meth:`latest`).
+  moves are read, at once after a move or stop is sent, and every
+  :data:`MOVING_POLL_S` while it moves; each trace is recorded with the latest reading
+  (:meth:`latest`).
 - A stage that stops answering (a timeout, a lost connection) is an ``instrument-lost``
   event and alert; the line is reopened with a growing pause (``BACKOFF_S``) for as long
   as the session runs, and its return is an ``instrument-back`` event. Meanwhile traces
@@ -38,6 +40,9 @@ from .actions import RaisedAlert
 from .serial_ports import StagePort, close_quietly, reconnect_after_pause, report_worker_bug
 
 POLL_S = 0.2
+#: The reading interval while the stage moves (or was just told to), s: a scan waits for
+#: the reading that says it arrived, so this is most of its wait beyond the move itself.
+MOVING_POLL_S = 0.02
 BACKOFF_S = (0.2, 0.5, 1.0, 2.0, 5.0)
 INSTRUMENT = "stage"
 
@@ -225,11 +230,14 @@ class StageWorker:
                 attempt = next_attempt
                 continue
             try:
-                self._carry_out(port)
+                if self._carry_out(port):
+                    next_poll = time.monotonic()        # read where it goes at once
                 if time.monotonic() >= next_poll:
-                    next_poll = time.monotonic() + self.poll_s
                     self._latest = self._read(port)
                     self._in_error = False
+                    fast = self._latest.moving
+                    next_poll = time.monotonic() + (min(self.poll_s, MOVING_POLL_S) if fast
+                                                    else self.poll_s)
             except InstrumentError as err:
                 lost_at = time.monotonic()
                 self._failed(port, err)
@@ -240,8 +248,9 @@ class StageWorker:
             self._wake.wait(max(0.0, next_poll - time.monotonic()))
             self._wake.clear()
 
-    def _carry_out(self, port: StagePort) -> None:
-        """Stops first (dropping the moves queued before them), then one move."""
+    def _carry_out(self, port: StagePort) -> bool:
+        """Stops first (dropping the moves queued before them), then one move; True when
+        a move or a stop was sent."""
         stopped = False
         while True:
             try:
@@ -252,11 +261,11 @@ class StageWorker:
             self._send_stop(port, cause)
         if stopped:
             self._drop_moves("the stage was stopped")
-            return
+            return True
         try:
             move = self._moves.get_nowait()
         except queue.Empty:
-            return
+            return False
         try:
             port.move_to(move.target_mm)
         except InstrumentError as err:
@@ -264,7 +273,7 @@ class StageWorker:
                                               "error": str(err)}, None)
             raise
         self._emit(EventKind.STAGE_MOVE, {"target_mm": move.target_mm, "done": True}, None)
-        self._wake.set()        # read the position soon: it is moving now
+        return True
 
     def _read(self, port: StagePort) -> StageReading:
         positions = {str(axis): float(mm) for axis, mm in port.position().items()}
