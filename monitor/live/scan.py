@@ -13,8 +13,10 @@ Two parts, on two threads:
   decides for each trace whether it counts towards the open point. A trace counts when
   it converted, did not clip, was acquired with the drive on and with the stage at rest
   within ``tolerance_mm`` of the target. A trace with no pulse above its noise counts
-  (the beam's edges and nulls are measurements too). Once the point has its
-  ``traces_per_point`` traces the combined point (:func:`..record.scanpoints.combine_results`)
+  (the beam's edges and nulls are measurements too), even when it could not be
+  converted: the point is then a measurement of "nothing above the noise" there,
+  recorded done with a note and without the parameters it has no value for. Once the
+  point has its traces (the plan's ``traces``) the combined point (:func:`..record.scanpoints.combine_results`)
   is recorded, after the trace that completed it. A point whose traces keep being
   refused (``max_rejected``; every trace clipped, say) is recorded as failed, never
   mapped as valid; the clipping rule's auto-range acts on those traces as on any other,
@@ -102,6 +104,7 @@ class _OpenPoint:
     positions: list
     seqs: list
     rejected: int = 0
+    quiet: int = 0          # counted traces with no pulse that did not convert
     done: bool = False
 
 
@@ -204,15 +207,18 @@ class ScanCollector:
                                        f"{op.rejected} traces refused, the last: {why}")
                     return (op.index, False, why), rec
                 return (op.index, False, why), None
-            op.flats.append(flat)
+            if flat is not None:
+                op.flats.append(flat)
+            else:
+                op.quiet += 1
             op.positions.append(dict(positions_mm or {}))
             op.seqs.append(seq)
-            if len(op.flats) >= op.needed:
+            if len(op.seqs) >= op.needed:
                 return (op.index, True, ""), self._finish(op, PointStatus.DONE, "")
             return (op.index, True, ""), None
 
     def _why_not(self, flat, flags, positions_mm, target_mm) -> str:
-        if flat is None:
+        if flat is None and not flags.get("no_pulse"):
             return "not converted"
         if flags.get("clipped"):
             return "clipped"
@@ -230,6 +236,9 @@ class ScanCollector:
 
     def _finish(self, op: _OpenPoint, status: PointStatus, note: str) -> PointRecord:
         results = combine_results(op.flats) if status == PointStatus.DONE else {}
+        if status == PointStatus.DONE and op.quiet:
+            note = (f"{op.quiet} of {len(op.seqs)} traces held no pulse above the noise "
+                    "(not converted; below the noise floor here)")
         if op.positions:
             axes = op.positions[0].keys()
             position = {a: float(np.mean([p[a] for p in op.positions if a in p]))
@@ -238,7 +247,7 @@ class ScanCollector:
             position = dict(op.target_mm)
         rec = PointRecord(index=op.index, status=status, time_s=time.time(),
                           target_mm=dict(op.target_mm), position_mm=position,
-                          counted=len(op.flats), rejected=op.rejected,
+                          counted=len(op.seqs), rejected=op.rejected,
                           first_seq=op.seqs[0] if op.seqs else None,
                           last_seq=op.seqs[-1] if op.seqs else None, resumed=op.resumed,
                           results=results, note=note)
