@@ -167,8 +167,9 @@ class DashboardApp(App[None]):
         if snap is self.latest:
             return
         self.latest = snap
-        # while a scan runs its map takes the spectrum's place
-        self.screen.set_class(snap.scan is not None, "-scan")
+        # while a scan runs its map takes the spectrum's place (on the dashboard's own
+        # screen: a dialog may be on top)
+        self.screen_stack[0].set_class(snap.scan is not None, "-scan")
         self.status.show(snap)
         alerts_key = tuple((a.alert_id, a.acknowledged) for a in snap.alerts)
         if alerts_key != self._alerts_key:
@@ -179,7 +180,6 @@ class DashboardApp(App[None]):
         if not self.held and (shown is None or snap.seq != shown.seq
                               or snap.pressure_pa is not shown.pressure_pa):
             self._show_plots(snap)
-
         if not self.held and snap.scan is not self.scan_map.view:
             self.scan_map.show(snap.scan)     # the scan moves on between traces too
 
@@ -282,7 +282,7 @@ class DashboardApp(App[None]):
     @property
     def map_shown(self) -> bool:
         """The scan map is on screen (in the spectrum's place)."""
-        return self.screen.has_class("-scan")
+        return self.screen_stack[0].has_class("-scan")
 
     def action_toggle_scale(self) -> None:
         """dB or linear: of the scan map while it is shown, else of the spectrum."""

@@ -66,8 +66,10 @@ def beam_text(beam: object) -> str:
                if isinstance(where.get(a), int | float)}
         if pos:
             parts.append(f"max at {position_text(pos)}")
-    widths = [w for w in beam.get("widths") or [] if isinstance(w, dict)
-              and w.get("level_db") == -6.0 and isinstance(w.get("width_mm"), int | float)]
+    listed = beam.get("widths")
+    widths = [w for w in listed if isinstance(w, dict)] if isinstance(listed, list) else []
+    widths = [w for w in widths
+              if w.get("level_db") == -6.0 and isinstance(w.get("width_mm"), int | float)]
     if widths:
         parts.append("-6 dB " + " ".join(f"{w.get('axis', '?')} {mm_text(w['width_mm'])}"
                                          for w in widths) + " mm")
