@@ -32,7 +32,8 @@ from tankside.monitor.dashboard.scantext import beam_text, mm_text
 from tankside.monitor.dashboard.spectrum import SpectrumView
 from tankside.monitor.dashboard.units import countdown
 from tankside.monitor.headless import scan_status, status_line
-from tankside.monitor.live.snapshot import Snapshot
+from tankside.monitor.live.snapshot import ScanView, Snapshot
+from tankside.monitor.record.scanpoints import plan_grid
 
 XS = np.arange(-4.0, 4.5, 1.0)        # 9 columns, mm
 YS = np.arange(-2.0, 2.5, 1.0)        # 5 rows, mm
@@ -127,6 +128,34 @@ class TestHeatMap:
         assert cells[cr][cc][2] is None               # being measured: no value yet
         # the panel's own geometry agrees with what is drawn
         assert panel.cell_at(mr, mc) == (5, 1)
+
+    @sync
+    async def test_serpentine_raster_on_the_plan_grid(self):
+        # the grid as the scan's plan gives it (record.scanpoints.plan_grid), rows
+        # alternating in direction; the field is the same invented Gaussian
+        targets = [{"x": float(x), "y": float(y), "z": 40.0}
+                   for j, y in enumerate(YS) for x in (XS if j % 2 == 0 else XS[::-1])]
+        grid = plan_grid(targets)
+        assert grid is not None and grid.axes == ("x", "y")
+        t = np.array([[p["x"], p["y"], p["z"]] for p in targets])
+        p_r = PEAK_PA * np.exp(-((t[:, 0] - 1.0) ** 2 + (t[:, 1] + 1.0) ** 2) / 8.0)
+        view = ScanView(kind="raster", total=len(targets), completed=len(targets) - 1,
+                        current=len(targets) - 1, phase="acquiring", targets_mm=t,
+                        target_axes=("x", "y", "z"), grid_axes=grid.axes,
+                        grid_coords_mm=grid.coords_mm, grid_index=grid.index,
+                        values={"peak_rarefactional_pa": np.where(
+                            np.arange(len(targets)) < len(targets) - 1, p_r, np.nan)},
+                        failed=np.zeros(len(targets), dtype=bool))
+        _, cells, _ = await _drawn(view)
+        r0, r1, c0, c1 = _heat_extent(cells)
+
+        def cell_of(r: int, c: int) -> tuple[int, int]:
+            return (c - c0) * XS.size // (c1 - c0 + 1), (r1 - r) * YS.size // (r1 - r0 + 1)
+
+        ((mr, mc),) = _find(cells, MAX_GLYPH)
+        assert cell_of(mr, mc) == (5, 1)
+        ((cr, cc),) = _find(cells, CURRENT_GLYPH)
+        assert cell_of(cr, cc) == (XS.size - 1, YS.size - 1)   # the last row runs to +x
 
     @sync
     async def test_cells_not_done_are_blank(self):
@@ -282,6 +311,8 @@ class TestShownValues:
         assert beam_text(beam) == ("beam max at x 1.02 y -0.98 · -6 dB x 4.71 y 4.7 mm"
                                    " · MI 0.62 at 41.5 mm")
         assert beam_text({}) == "" and beam_text({"maximum": "?", "widths": 3}) == ""
+        assert beam_text({"error": "ValueError: one point"}) == \
+            "beam figures not had: ValueError: one point"
 
     def test_gridded_puts_each_value_in_its_cell(self):
         view = raster_view(XS, YS)

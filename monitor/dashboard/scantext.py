@@ -53,10 +53,13 @@ def beam_text(beam: object) -> str:
     """One line of beam figures: maximum position, -6 dB widths, MI at its depth.
 
     Reads the layout of :meth:`tankside.monitor.acoustics.beam.BeamFigures.as_dict`;
-    a figure missing or not found is left out, and "" is returned when none is there.
+    a figure missing or not found is left out, and "" is returned when none is there;
+    ``{"error": text}`` (the figures failed on the points so far) is said as such.
     """
     if not isinstance(beam, dict):
         return ""
+    if isinstance(beam.get("error"), str):
+        return f"beam figures not had: {beam['error']}"
     parts = []
     maximum = beam.get("maximum")
     where = maximum.get("position_mm") if isinstance(maximum, dict) else None
