@@ -171,6 +171,17 @@ class TestHeatMap:
                              for ch, fg, bg in above)
 
     @sync
+    async def test_before_the_first_point_only_the_current_one(self):
+        view = raster_view(XS, YS, done=0, phase="waiting", why="drive off",
+                           time_left_s=math.nan)
+        panel, cells, lines = await _drawn(view)
+        assert not _find(cells, MAX_GLYPH) and len(_find(cells, CURRENT_GLYPH)) == 1
+        assert not {fg for row in cells for _, fg, _ in row} & set(RAMP)   # no colours yet
+        assert "waiting: drive off" in str(panel.border_title)
+        assert "point 1/45" in str(panel.border_title) and "left" not in str(
+            panel.border_title)
+
+    @sync
     async def test_failed_point_has_its_own_glyph(self):
         view = raster_view(XS, YS, done=30, failed=(12,))
         _, cells, _ = await _drawn(view)
