@@ -13,6 +13,8 @@ import time
 from datetime import datetime
 from typing import TextIO
 
+from .dashboard.scantext import phase_text, point_number, position_mm, position_text
+from .dashboard.units import countdown
 from .live.snapshot import AlertView, Snapshot
 from .live.views import stage_text, water_text
 from .outcome import ExitStatus
@@ -50,7 +52,32 @@ def status_line(snap: Snapshot, alert_count: int | None = None) -> str:
             f"{snap.method or '-'} | {nb} | acquired {snap.acquired} converted "
             f"{snap.converted} stored {snap.stored} | queue {snap.queue_depth}/"
             f"{snap.queue_capacity} | range {fmt_si(snap.range_v, 'V')} | alerts {alerts}"
-            f" | doubtful {snap.doubtful_traces}{_last_warnings(snap)}{bench_status(snap)}")
+            f" | doubtful {snap.doubtful_traces}{_last_warnings(snap)}{bench_status(snap)}"
+            f"{scan_status(snap)}")
+
+
+#: Phases of a scan that are its normal course, not said on the status line.
+_BUSY_PHASES = ("moving", "settling", "acquiring")
+
+
+def scan_status(snap: Snapshot) -> str:
+    """`` | pt 37/81 x 2.5 y -1 mm 44% 1:23 left`` while a scan runs ("" without one).
+
+    The point being measured (1-based) and its target on the scanned axes, the share of
+    the points completed, the time left when known, and the phase when it is not the
+    scan's normal course (``paused: stage lost``, ``waiting: ...``, ``ended``).
+    """
+    view = snap.scan
+    if view is None:
+        return ""
+    where = position_text(position_mm(view, view.current))
+    share = f"{100.0 * view.completed / view.total:.0f}%" if view.total else "-"
+    left = countdown(view.time_left_s)
+    parts = [f"pt {point_number(view)}/{view.total}", f"{where} mm" if where else "", share,
+             f"{left} left" if left else ""]
+    if view.phase not in _BUSY_PHASES:
+        parts.append(phase_text(view))
+    return " | " + " ".join(p for p in parts if p)
 
 
 def bench_status(snap: Snapshot) -> str:

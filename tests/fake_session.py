@@ -16,6 +16,7 @@ from tankside.monitor.live.snapshot import (
     AlertView,
     InstrumentView,
     RunningFigure,
+    ScanView,
     Snapshot,
 )
 
@@ -53,6 +54,7 @@ class FakeLiveSession:
         self._alerts: list[AlertView] = []
         self._history: dict[str, list[float]] = {key: [] for key, _, _ in FIGURES}
         self._snap = Snapshot()
+        self.scan: ScanView | None = None     # published with the next snapshot
 
     # -- the LiveSession interface -------------------------------------------------------------
     def start(self) -> None:
@@ -163,4 +165,5 @@ class FakeLiveSession:
             queue_depth=1, queue_capacity=64, acquired=self._seq + 1, converted=self._seq + 1,
             stored=self._seq + 1, session_path=self.session_path, session_bytes=123_456,
             state=state or ("running" if self.running else "stopped"), stop_reason=stop_reason,
+            scan=self.scan,
         )

@@ -27,6 +27,7 @@ from .driveconfirm import DriveConfirmScreen
 from .eventlog import EventLogScreen
 from .figures import RunningFigures
 from .marknote import MarkNoteScreen
+from .scanmap import ScanMap
 from .spectrum import SpectrumView
 from .status import BenchStatus
 from .units import clock
@@ -63,6 +64,8 @@ class DashboardApp(App[None]):
         Binding("c", "cycle_method", "method"),
         Binding("r", "reset_figures", "reset"),
         Binding("l", "toggle_scale", "dB"),
+        # the scan map's parameter; only while a scan runs, and no room in the footer
+        Binding("p", "cycle_map_parameter", "param", show=False),
         Binding("z", "toggle_zoom", "zoom"),
         Binding("s", "save_capture", "save"),
         Binding("d", "drive", "drive"),
@@ -97,6 +100,7 @@ class DashboardApp(App[None]):
         self.banner = Banner(id="banner")
         self.trace = PressureTrace(id="trace")
         self.spectrum = SpectrumView(id="spectrum")
+        self.scan_map = ScanMap(id="scanmap")
         self.figures = RunningFigures(id="figures")
         self.status = BenchStatus(id="status")
         self.alert_list = AlertList(id="alerts")
@@ -104,6 +108,7 @@ class DashboardApp(App[None]):
         with Horizontal(id="plots"):
             yield self.trace
             yield self.spectrum
+            yield self.scan_map
         with Horizontal(id="middle"):
             yield self.figures
             yield self.status
@@ -162,6 +167,9 @@ class DashboardApp(App[None]):
         if snap is self.latest:
             return
         self.latest = snap
+        # while a scan runs its map takes the spectrum's place (on the dashboard's own
+        # screen: a dialog may be on top)
+        self.screen_stack[0].set_class(snap.scan is not None, "-scan")
         self.status.show(snap)
         alerts_key = tuple((a.alert_id, a.acknowledged) for a in snap.alerts)
         if alerts_key != self._alerts_key:
@@ -172,12 +180,15 @@ class DashboardApp(App[None]):
         if not self.held and (shown is None or snap.seq != shown.seq
                               or snap.pressure_pa is not shown.pressure_pa):
             self._show_plots(snap)
+        if not self.held and snap.scan is not self.scan_map.view:
+            self.scan_map.show(snap.scan)     # the scan moves on between traces too
 
     def _show_plots(self, snap: Snapshot) -> None:
         self.shown = snap
         self.trace.show(snap)
         self.spectrum.show(snap)
         self.figures.show(snap)
+        self.scan_map.show(snap.scan)
 
     def _ring_for_new_alerts(self, snap: Snapshot) -> None:
         fresh = [a for a in snap.alerts if a.alert_id > self._bell_seen]
@@ -268,8 +279,24 @@ class DashboardApp(App[None]):
         """The session's events and alerts in a scrollable list (Escape closes)."""
         self.push_screen(EventLogScreen(self.latest))
 
+    @property
+    def map_shown(self) -> bool:
+        """The scan map is on screen (in the spectrum's place)."""
+        return self.screen_stack[0].has_class("-scan")
+
     def action_toggle_scale(self) -> None:
-        self.spectrum.set_linear(not self.spectrum.linear)
+        """dB or linear: of the scan map while it is shown, else of the spectrum."""
+        if self.map_shown:
+            self.scan_map.set_db(not self.scan_map.db)
+        else:
+            self.spectrum.set_linear(not self.spectrum.linear)
+
+    def action_cycle_map_parameter(self) -> None:
+        """The scan map shows the next parameter: p_r, p_c, PII, I_pa, MI."""
+        if not self.map_shown:
+            self.notify("no scan running: no map", timeout=2)
+            return
+        self.notify(f"map: {self.scan_map.cycle_parameter()}", timeout=2)
 
     def action_toggle_zoom(self) -> None:
         """The trace panel shows the pulse, or the whole record."""

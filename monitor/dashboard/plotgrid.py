@@ -129,6 +129,26 @@ class PlotGrid:
         block = self._cells[:, c0:c1]
         block[fill] = self._number(colour)
 
+    def image(self, col0: int, step0: int, levels: np.ndarray, palette: tuple[str, ...]) -> None:
+        """Paint a block of half-cells from colour numbers into ``palette``.
+
+        ``levels[r, c]`` goes to half-cell step ``step0 + r`` (row 0 at the bottom) of
+        column ``col0 + c``; a negative level paints nothing there. Parts outside the
+        grid are cut off.
+        """
+        levels = np.asarray(levels, dtype=np.int64)
+        if levels.ndim != 2 or not levels.size or not palette:
+            return
+        s0, s1 = max(step0, 0), min(step0 + levels.shape[0], self.steps)
+        c0, c1 = max(col0, 0), min(col0 + levels.shape[1], self.cols)
+        if s1 <= s0 or c1 <= c0:
+            return
+        block = levels[s0 - step0:s1 - step0, c0 - col0:c1 - col0]
+        numbers = np.array([self._number(colour) for colour in palette], dtype=np.int32)
+        drawn = (block >= 0) & (block < len(palette))
+        target = self._cells[s0:s1, c0:c1]
+        target[drawn] = numbers[block[drawn]]
+
     def hline(self, step: int, colour: str, cols: range | None = None, *,
               over: bool = False) -> None:
         """A horizontal rule one half-cell thick, under what is drawn (or ``over`` it)."""

@@ -84,3 +84,13 @@ def wall_time(time_s: float | None) -> str:
     if time_s < 1e8:
         return "+" + clock(time_s)
     return time.strftime("%H:%M:%S", time.localtime(time_s))
+
+
+def countdown(seconds: float | None) -> str:
+    """A time left as M:SS, or H:MM:SS from an hour; "" when unknown."""
+    if seconds is None or not math.isfinite(seconds):
+        return ""
+    s = max(0, int(math.ceil(seconds)))
+    if s >= 3600:
+        return f"{s // 3600}:{s % 3600 // 60:02d}:{s % 60:02d}"
+    return f"{s // 60}:{s % 60:02d}"
