@@ -16,8 +16,9 @@ Two parts, on two threads:
   (the beam's edges and nulls are measurements too), even when it could not be
   converted: the point is then a measurement of "nothing above the noise" there,
   recorded done with a note and without the parameters it has no value for. Once the
-  point has its traces (the plan's ``traces``) the combined point (:func:`..record.scanpoints.combine_results`)
-  is recorded, after the trace that completed it. A point whose traces keep being
+  point has its traces (the plan's ``traces``) the combined point
+  (:func:`..record.scanpoints.combine_results`) is recorded, after the trace that
+  completed it. A point whose traces keep being
   refused (``max_rejected``; every trace clipped, say) is recorded as failed, never
   mapped as valid; the clipping rule's auto-range acts on those traces as on any other,
   so a clipped point is normally re-acquired at the new range and counts then.
