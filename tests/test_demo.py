@@ -5,6 +5,7 @@ from __future__ import annotations
 import pytest
 
 from tankside.monitor.cli import main
+from tankside.monitor.live.scan import TOLERANCE_MM
 from tankside.monitor.outcome import ExitCode
 from tankside.monitor.record.store import SessionReader
 from tankside.simulators.hydrophone import DEMO_CALIBRATION_PATH
@@ -40,5 +41,26 @@ def test_demo_help_names_every_option(capsys):
     with pytest.raises(SystemExit):
         main(["demo", "--help"])
     text = capsys.readouterr().out
-    for option in ("--sessions", "--headless", "--duration", "--seed"):
+    for option in ("--sessions", "--headless", "--duration", "--seed", "--scan"):
         assert option in text
+
+
+def test_the_scan_demo_maps_the_simulated_beam_from_its_centre_outward(tmp_path, capsys):
+    folder = tmp_path / "sessions"
+    args = ["demo", "--scan", "--sessions", str(folder), "--headless", "--duration", "6"]
+    assert main(args) == 0
+    out = capsys.readouterr().out
+    assert "pt " in out                       # the status line gives the point
+    (session,) = sorted(folder.glob("*.db"))
+    plan_text = (folder / "demo-scan-plan.toml").read_text(encoding="utf-8")
+    assert 'kind = "raster"' in plan_text and "invented" in plan_text
+    with SessionReader(session) as reader:
+        plan = reader.scan_plan
+        points = reader.scan_points()
+    assert plan is not None and plan["kind"] == "raster" and len(plan["points"]) == 17 * 17
+    # six seconds: the first rows of the raster, in plan order, each point once
+    assert len(points) >= 10
+    assert [p.index for p in points] == list(range(len(points)))
+    # at the target within the scan's tolerance (a reading a few counts short counts)
+    assert all(p.position_mm["x"] == pytest.approx(p.target_mm["x"], abs=TOLERANCE_MM)
+               for p in points)

@@ -12,11 +12,13 @@ import time
 from collections import Counter
 from pathlib import Path
 
+import numpy as np
 import pytest
 from polling import wait_for
 from scpi_client import scpi
 
 from tankside.monitor.live.benchfile import load_bench
+from tankside.monitor.live.scan import TOLERANCE_MM
 from tankside.monitor.live.scanplan import plan_from_table
 from tankside.monitor.live.session import LiveSession
 from tankside.monitor.record.reader import SessionReader
@@ -80,8 +82,9 @@ def test_a_line_scan_completes_every_point_once_at_the_stages_positions(sim, tmp
     assert all(p.status == PointStatus.DONE and p.counted == 4 for p in points)
     for p, want in zip(points, (-1.0, -0.5, 0.0, 0.5, 1.0), strict=True):
         assert p.target_mm == {"x": want}
-        # the recorded position is the stage's own reading, to its 1 um count
-        assert p.position_mm["x"] == pytest.approx(want, abs=1.0e-3)
+        # the recorded position is the mean of the stage's own readings at the point,
+        # each within the scan's tolerance of the target
+        assert p.position_mm["x"] == pytest.approx(want, abs=TOLERANCE_MM)
     # the counted traces are the ones the points name, and each trace counts at most once
     counted = sorted(seq for seq, (_, c, _) in trace_points.items() if c)
     assert len(counted) == 20
@@ -133,7 +136,7 @@ def test_a_stall_mid_move_pauses_the_scan_and_it_goes_on(sim, tmp_path):
     assert [p.index for p in points] == [0, 1, 2]
     assert all(p.status == PointStatus.DONE for p in points)
     for p in points:
-        assert p.position_mm["x"] == pytest.approx(p.target_mm["x"], abs=1.0e-3)
+        assert p.position_mm["x"] == pytest.approx(p.target_mm["x"], abs=TOLERANCE_MM)
     kinds = [e["kind"] for e in events]
     assert EventKind.SCAN_PAUSED in kinds and EventKind.SCAN_CONTINUED in kinds
 
@@ -198,3 +201,33 @@ def test_over_pressure_mid_scan_stops_stage_and_drive_and_ends_the_scan(sim, tmp
     end = [e for e in events if e["kind"] == EventKind.SCAN_END]
     assert len(end) == 1 and "safe-off" in end[0]["detail"]["why"]
     assert end[0]["detail"]["completed"] == len(points)
+
+
+def test_a_mean_waveform_plan_converts_each_points_mean_trace_once(sim, tmp_path):
+    bench = _bench(sim, tmp_path)
+    table = {"kind": "line", "settle_s": 0.05, "traces": 4, "speed_mm_s": 20.0,
+             "combine": "mean-waveform",
+             "axes": [{"name": "x", "start_mm": 0.0, "stop_mm": 0.5, "step_mm": 0.5}]}
+    plan = plan_from_table(table, source="test plan", base_dir=Path("."),
+                           limits=dict(bench.stage.limits))
+    session = _run(bench, plan, tmp_path / "s.db")
+    assert session.exit_status == "completed", session.stop_reason
+    with SessionReader(tmp_path / "s.db") as reader:
+        points = reader.scan_points()
+        traces = {s: reader.trace(s) for p in points
+                  for s in range(p.first_seq, p.last_seq + 1)}
+        counted = reader.trace_points()
+    from tankside.monitor.live.build import session_parts
+    converter = session_parts(bench, session_path=tmp_path / "other.db")["converter"]
+    for p in points:
+        mine = [traces[s].raw for s in range(p.first_seq, p.last_seq + 1) if counted[s][1]]
+        assert len(mine) == 4
+        # the reference: numpy's mean of the same four traces' volts, converted once
+        mean = np.mean([r.volts() for r in mine], axis=0)
+        want = converter.process(mean, mine[0].dt_s,
+                                 resolution_v=max(abs(r.volts_per_code) for r in mine)).flat()
+        for name in ("peak_rarefactional_pa", "peak_compressional_pa",
+                     "pulse_intensity_integral_j_per_m2"):
+            assert p.waveform[name] == pytest.approx(want[name], rel=1e-9), name
+        # and the per-trace parameters are still averaged beside it
+        assert p.results["peak_rarefactional_pa"].n == 4

@@ -23,6 +23,31 @@ CAUTION = caution_text(
     heading="CAUTION: this demo drives a simulated bench with invented data. On a real bench:")
 
 BENCH_FILE_NAME = "demo-bench.toml"
+PLAN_FILE_NAME = "demo-scan-plan.toml"
+# A raster across the simulated (invented) beam at its focus: 17 x 17 points 0.25 mm
+# apart, two traces each at 50 traces/s, so the map fills in about half a minute.
+DEMO_PLAN = """\
+# tankside demo scan plan: a raster across the simulated beam (invented scene) at the
+# focus; written by `tankside demo --scan`, yours to copy for `tankside scan --plan`.
+kind = "raster"
+settle_s = 0.0
+traces = 2
+serpentine = true
+fixed = { z = 0.0 }
+
+[[axes]]
+name = "x"
+start_mm = -2.0
+stop_mm = 2.0
+step_mm = 0.25
+
+[[axes]]
+name = "y"
+start_mm = -2.0
+stop_mm = 2.0
+step_mm = 0.25
+"""
+DEMO_SCAN_TRIGGER_PERIOD_S = 0.02
 # The demo alone switches a drive on by itself: its simulated one, after the caution.
 DEMO_DRIVE_CAUSE = "demo (simulated generator)"
 DEMO_DRIVE_NOTE = ("demo: the simulated generator's output was switched on (simulated "
@@ -48,6 +73,10 @@ def add_parser(subparsers) -> None:
                    help="stop after S seconds (default: until q, Ctrl-C or SIGTERM)")
     p.add_argument("--seed", type=SEED, default=0, metavar="N",
                    help="seed of the simulated digitiser's noise and jitter (default 0)")
+    p.add_argument("--scan", action="store_true",
+                   help="scan the simulated beam: a simulated stage moves the hydrophone "
+                        "through a raster across the focus and the map fills in live "
+                        "(about half a minute); the plan is written beside the bench file")
     p.set_defaults(func=run)
 
 
@@ -73,20 +102,33 @@ def run(args) -> int:
     first_run = _first_run(folder)
 
     try:
-        bench = SimulatedBench(seed=args.seed)
+        if args.scan:
+            bench = SimulatedBench(seed=args.seed, stage=True,
+                                   trigger_period_s=DEMO_SCAN_TRIGGER_PERIOD_S)
+        else:
+            bench = SimulatedBench(seed=args.seed)
     except OSError as err:
         raise ConfigError(f"cannot start the simulated bench on 127.0.0.1: {err}") from err
     with bench:
         try:
             bench_path = bench.write_bench_file(folder / BENCH_FILE_NAME,
                                                 session_folder=str(folder))
+            plan = None
+            if args.scan:
+                from ..live.scanplan import load_plan
+
+                plan_path = folder / PLAN_FILE_NAME
+                plan_path.write_text(DEMO_PLAN, encoding="utf-8")
+                loaded = load_bench(bench_path)
+                assert loaded.stage is not None      # the simulated bench has its stage
+                plan = load_plan(plan_path, limits=dict(loaded.stage.limits))
         except OSError as err:
             raise ConfigError(f"{folder}: cannot write the demo bench file: {err}") from err
         # with the dashboard the session runs in a child process; the simulated
         # instruments stay here, behind their sockets, like instruments of their own
         session = session_for_display(load_bench(bench_path), own_process=not args.headless,
                                       duration_s=args.duration,
-                                      drive_on_at_start=DEMO_DRIVE_CAUSE)
+                                      drive_on_at_start=DEMO_DRIVE_CAUSE, scan_plan=plan)
         return _watch(session, bench_path, headless=args.headless, first_run=first_run,
                       run_headless=run_headless)
 

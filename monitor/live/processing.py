@@ -161,6 +161,14 @@ class TraceProcessor:
         self.snap = Snapshot(session_path=str(session_path), state="starting")
 
     # -- what the session reads and asks --------------------------------------------
+    def convert_waveform(self, volts: np.ndarray, dt_s: float, resolution_v: float) -> dict:
+        """One waveform converted as the latest trace was (method, water); its
+        ``TraceResult.flat()``. Raises what the converter raises."""
+        water_kw = {} if self._thermometer is None or not np.isfinite(self._water_used_c) \
+            else {"water": Water.at(self._water_used_c)}
+        return self._converter.process(volts, dt_s, resolution_v=resolution_v,
+                                       **water_kw).flat()
+
     @property
     def drive_on(self) -> bool | None:
         """The generator output as processing last learnt it (None: unknown)."""
@@ -293,7 +301,8 @@ class TraceProcessor:
             self._figures.add(flat)
             self._figures_time_s = float(raw.time_s)
         point, completed = (None, None) if self._scan is None else self._scan.on_trace(
-            raw.seq, flat, flags, None if bench is None else bench.positions_mm)
+            raw.seq, flat, flags, None if bench is None else bench.positions_mm,
+            volts=volts, dt_s=float(raw.dt_s), resolution_v=abs(float(raw.volts_per_code)))
         self._record(TraceItem(raw, flat, flags, error, bench, point))
         if completed is not None:       # after the trace that completed it
             self._record(PointItem(completed))

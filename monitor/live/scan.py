@@ -107,6 +107,13 @@ class _OpenPoint:
     rejected: int = 0
     quiet: int = 0          # counted traces with no pulse that did not convert
     done: bool = False
+    # a mean-waveform plan: the sum of the counted traces' volts, their time step, how
+    # many, the largest code step among them, and why no mean was formed
+    wave_sum: np.ndarray | None = None
+    wave_dt: float = float("nan")
+    wave_n: int = 0
+    wave_resolution: float = 0.0
+    wave_note: str = ""
 
 
 class ScanCollector:
@@ -122,12 +129,20 @@ class ScanCollector:
         Refused traces before a point fails (default from :data:`REJECTED_FACTOR`).
     beam_figures : callable (ScanView) -> dict, optional
         Computes the beam figures shown with the map, after each point.
+    convert : callable (volts, dt_s, resolution_v) -> dict, optional
+        Converts a waveform (the converter in use, ``TraceResult.flat()``); with it and a
+        plan whose ``combine`` is ``mean-waveform``, the mean of each point's counted
+        waveforms is converted once (:attr:`PointRecord.waveform`).
     """
 
     def __init__(self, plan: Plan, *, completed: Sequence[PointRecord] = (),
                  tolerance_mm: float = TOLERANCE_MM, max_rejected: int | None = None,
-                 beam_figures: Callable[[ScanView], dict] | None = None):
+                 beam_figures: Callable[[ScanView], dict] | None = None,
+                 convert: Callable[[np.ndarray, float, float], dict] | None = None):
         self.plan = plan
+        self._convert = convert
+        self._mean_waveform = (convert is not None
+                               and str(getattr(plan, "combine", "")) == "mean-waveform")
         self.tolerance_mm = float(tolerance_mm)
         self._max_rejected = max_rejected
         self._lock = threading.Lock()
@@ -192,10 +207,13 @@ class ScanCollector:
 
     # -- the processing thread's side -----------------------------------------------
     def on_trace(self, seq: int, flat: dict | None, flags: dict,
-                 positions_mm: dict[str, float] | None
+                 positions_mm: dict[str, float] | None, *,
+                 volts: np.ndarray | None = None, dt_s: float = float("nan"),
+                 resolution_v: float = 0.0
                  ) -> tuple[tuple[int, bool, str] | None, PointRecord | None]:
         """Judge one trace: its ``trace_points`` entry (None: not at a point) and the
-        point it completed (None: none)."""
+        point it completed (None: none). ``volts`` (with ``dt_s`` and the code step
+        ``resolution_v``) are summed for a mean-waveform plan."""
         with self._lock:
             op = self._open
             if op is None or op.done or seq < op.from_seq:
@@ -214,6 +232,8 @@ class ScanCollector:
                 op.quiet += 1
             op.positions.append(dict(positions_mm or {}))
             op.seqs.append(seq)
+            if self._mean_waveform and volts is not None:
+                self._add_waveform(op, volts, dt_s, resolution_v)
             if len(op.seqs) >= op.needed:
                 return (op.index, True, ""), self._finish(op, PointStatus.DONE, "")
             return (op.index, True, ""), None
@@ -235,11 +255,46 @@ class ScanCollector:
                 return "off target"
         return ""
 
+    @staticmethod
+    def _add_waveform(op: _OpenPoint, volts: np.ndarray, dt_s: float,
+                      resolution_v: float) -> None:
+        v = np.asarray(volts, dtype=float)
+        if op.wave_sum is None and not op.wave_note:
+            op.wave_sum, op.wave_dt = v.copy(), float(dt_s)
+        elif op.wave_sum is not None and (v.shape != op.wave_sum.shape
+                                          or not math.isclose(dt_s, op.wave_dt, rel_tol=1e-9)):
+            op.wave_sum = None
+            op.wave_note = "mean waveform not formed: the traces differ in length or time step"
+            return
+        elif op.wave_sum is not None:
+            op.wave_sum += v
+        op.wave_n += 1
+        op.wave_resolution = max(op.wave_resolution, float(resolution_v))
+
+    def _waveform_results(self, op: _OpenPoint) -> tuple[dict[str, float], str]:
+        if op.wave_sum is None or op.wave_n == 0 or self._convert is None:
+            return {}, op.wave_note
+        try:
+            flat = self._convert(op.wave_sum / op.wave_n, op.wave_dt, op.wave_resolution)
+        except (TanksideError, ArithmeticError, ValueError) as err:
+            return {}, f"mean waveform not converted: {type(err).__name__}: {err}"
+        out = {}
+        for name in COMBINED_RESULTS:
+            v = flat.get(name)
+            if isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v):
+                out[name] = float(v)
+        return out, ""
+
     def _finish(self, op: _OpenPoint, status: PointStatus, note: str) -> PointRecord:
         results = combine_results(op.flats) if status == PointStatus.DONE else {}
+        waveform: dict[str, float] = {}
         if status == PointStatus.DONE and op.quiet:
             note = (f"{op.quiet} of {len(op.seqs)} traces held no pulse above the noise "
                     "(not converted; below the noise floor here)")
+        if status == PointStatus.DONE and self._mean_waveform:
+            waveform, why = self._waveform_results(op)
+            if why:
+                note = f"{note}; {why}" if note else why
         if op.positions:
             axes = op.positions[0].keys()
             position = {a: float(np.mean([p[a] for p in op.positions if a in p]))
@@ -251,7 +306,7 @@ class ScanCollector:
                           counted=len(op.seqs), rejected=op.rejected,
                           first_seq=op.seqs[0] if op.seqs else None,
                           last_seq=op.seqs[-1] if op.seqs else None, resumed=op.resumed,
-                          results=results, note=note)
+                          results=results, note=note, waveform=waveform)
         op.done = True
         self._take(rec)
         now = time.monotonic()
@@ -308,6 +363,19 @@ class ScanCollector:
             beam=dict(self._beam) if with_beam else {})
 
 
+@dataclass(frozen=True)
+class PointTiming:
+    """When (monotonic s) the runner asked the move to a point, saw the stage arrive,
+    opened the point to traces (after settling) and saw it complete: what a benchmark
+    of the scan loop's own overhead reads (tests/bench/bench_scan.py)."""
+
+    index: int
+    asked: float
+    arrived: float
+    opened: float
+    done: float
+
+
 class ScanRunner:
     """Walks a plan on a thread of its own (see the module docstring).
 
@@ -353,6 +421,7 @@ class ScanRunner:
         self._halt_why = ""
         self._thread: threading.Thread | None = None
         self.ended = False
+        self.timings: list[PointTiming] = []     # of the points measured, in order
 
     def start(self) -> None:
         self._thread = threading.Thread(target=self._main, name="tankside-scan", daemon=True)
@@ -468,6 +537,7 @@ class ScanRunner:
             if not self._ready(point.index):
                 return False
             c.set_phase("moving", current=point.index)
+            asked = time.monotonic()
             arrived = self._move(point.index, target, attempts)
             if arrived is None:
                 return False
@@ -482,6 +552,7 @@ class ScanRunner:
                     return False
                 self._go_on(point.index, since)
                 continue
+            at = time.monotonic()
             c.set_phase("settling")
             if not self._wait(float(point.settle_s)):
                 return False
@@ -489,8 +560,11 @@ class ScanRunner:
             # first wholly acquired at rest
             c.open_point(point.index, target, self._next_seq() + 1, needed=int(point.traces),
                          resumed=self._resumed)
+            opened = time.monotonic()
             while not self._ended():
                 if c.wait_point(self._stop, 0.1):
+                    self.timings.append(PointTiming(point.index, asked, at, opened,
+                                                    time.monotonic()))
                     return True
                 lost = not self._stage.connected
                 reading = self._stage.latest()

@@ -180,7 +180,8 @@ class LiveSession:
                 raise ConfigError("a scan needs a stage: the bench file has no [stage]")
             self._scan = ScanCollector(
                 scan_plan, completed=() if scan_resume is None else scan_resume.completed,
-                beam_figures=beam_figures)
+                beam_figures=beam_figures,
+                convert=lambda v, dt, res: self._proc.convert_waveform(v, dt, res))
             self._scan_runner = ScanRunner(
                 plan=scan_plan, collector=self._scan, stage=self._stage,
                 next_seq=lambda: self._acq.seq, drive_on=lambda: self._proc.drive_on,

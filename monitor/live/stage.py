@@ -276,8 +276,12 @@ class StageWorker:
         return True
 
     def _read(self, port: StagePort) -> StageReading:
+        # whether it moves first: a stage found at rest is still at rest when its position
+        # is read just after (the other order could pair a position read in the last
+        # moment of a move with "not moving", and a scan would take it for the target)
+        moving = bool(port.is_moving())
         positions = {str(axis): float(mm) for axis, mm in port.position().items()}
-        return StageReading(positions, self._clock(), bool(port.is_moving()))
+        return StageReading(positions, self._clock(), moving)
 
     def _send_stop(self, port: StagePort, cause: str) -> None:
         try:

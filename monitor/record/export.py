@@ -24,7 +24,9 @@ Map CSV (a session with a scan)
     ``spread_<name>`` (sample standard deviation) of every combined result
     (:data:`~tankside.monitor.record.scanpoints.COMBINED_RESULTS`; the name keeps its unit
     suffix, so ``mean_peak_rarefactional_pa`` is in Pa; empty where the point has no
-    value, a failed point has none), and ``note``.
+    value, a failed point has none), and ``note``; for a scan whose plan combines
+    ``mean-waveform``, then ``waveform_<name>``: the results of each point's mean
+    waveform, converted once.
 
 Trace CSV
     ``time_s,voltage_v``, the form ``tankside convert`` reads, written by
@@ -75,7 +77,9 @@ HDF5 layout (``format`` attribute ``"tankside-session-export"``, ``layout_versio
                              target_<axis>_mm, position_<axis>_mm (NaN: none), counted,
                              rejected, first_seq, last_seq (-1: none), resumed (int8),
                              note, mean_<name> and spread_<name> (NaN: none) and
-                             n_<name> (values combined, 0: none)
+                             n_<name> (values combined, 0: none); in a scan whose
+                             plan combines "mean-waveform", waveform_<name> (the mean
+                             waveform's result, NaN: none)
     ``/scan/grid``           when the targets lie on a grid (a line, raster, volume):
                              attributes axes (grid dimension k is axis axes[k], the fast
                              axis first) and fixed_<axis>_mm for the axes that do not vary;
@@ -203,10 +207,13 @@ def export_map_csv(reader: SessionReader, out) -> int:
     scan = scan_export(reader)
     if scan is None:
         raise no_scan_error(reader, "--map")
+    # a mean-waveform scan: the results of each point's mean waveform, converted once
+    waveform = any(p.waveform for p in scan.points)
     header = ("point_index", "status", "time_s",
               *(f"target_{axis}_mm" for axis in scan.axes),
               *(f"position_{axis}_mm" for axis in scan.axes),
-              *MAP_COUNT_COLUMNS, *MAP_RESULT_COLUMNS, "note")
+              *MAP_COUNT_COLUMNS, *MAP_RESULT_COLUMNS, "note",
+              *((f"waveform_{name}" for name in COMBINED_RESULTS) if waveform else ()))
     with output_file(out) as tmp, open(tmp, "w", newline="", encoding="utf-8") as fh:
         writer = csv.writer(fh, lineterminator="\n")
         writer.writerow(header)
@@ -220,6 +227,8 @@ def export_map_csv(reader: SessionReader, out) -> int:
                 c = p.results.get(name)
                 cells += ["", ""] if c is None else [_cell(c.mean), _cell(c.spread)]
             cells.append(p.note)
+            if waveform:
+                cells += [_cell(p.waveform.get(name)) for name in COMBINED_RESULTS]
             writer.writerow(cells)
     return len(scan.points)
 

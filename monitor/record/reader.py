@@ -549,7 +549,8 @@ class SessionReader:
         if self.layout < SCAN_LAYOUT or not self._has_table("scan_points"):
             return []
         cols = ("point_index", "status", "time_s", "target_json", "position_json", "counted",
-                "rejected", "first_seq", "last_seq", "resumed", "results_json", "note")
+                "rejected", "first_seq", "last_seq", "resumed", "results_json", "note",
+                "waveform_json")
         out = []
         for values in self._query(f"SELECT {', '.join(cols)} FROM scan_points "
                                   "ORDER BY point_index"):
@@ -575,7 +576,8 @@ class SessionReader:
                                                                             minimum=0),
                 first_seq=r.optional_integer("first_seq"),
                 last_seq=r.optional_integer("last_seq"),
-                resumed=bool(r.integer("resumed")), results=results, note=r.text("note")))
+                resumed=bool(r.integer("resumed")), results=results, note=r.text("note"),
+                waveform=_numbers_of(r, "waveform_json")))
         return out
 
     def trace_points(self) -> dict[int, tuple[int, bool, str]]:
@@ -623,4 +625,16 @@ def _mm_of(r: Row, column: str) -> dict[str, float]:
         if isinstance(mm, bool) or not isinstance(mm, int | float) or not math.isfinite(mm):
             r.fail(column, f"axis {axis!r}: expected a finite position in mm, found {mm!r}")
         out[str(axis)] = float(mm)
+    return out
+
+
+def _numbers_of(r: Row, column: str) -> dict[str, float]:
+    """A name -> number object of a ``scan_points`` cell (null reads as NaN)."""
+    out = {}
+    for name, v in r.json(column, dict).items():
+        if v is None:
+            v = float("nan")
+        if isinstance(v, bool) or not isinstance(v, int | float):
+            r.fail(column, f"{name}: expected a number, found {v!r}")
+        out[str(name)] = float(v)
     return out

@@ -189,6 +189,10 @@ def write_scan_group(g, scan: ScanExport) -> None:
         number_dataset(p, f"spread_{name}", [math.nan if c is None else c.spread for c in found],
                  np.float64, RESULT_UNITS[name])
         number_dataset(p, f"n_{name}", [0 if c is None else c.n for c in found], np.int64, "")
+        if any(q.waveform for q in points):      # a mean-waveform scan
+            number_dataset(p, f"waveform_{name}", [q.waveform.get(name, math.nan)
+                                                   for q in points],
+                           np.float64, RESULT_UNITS[name])
     if scan.grid is not None:
         _write_grid(g.create_group("grid"), scan)
     if scan.beam is not None:

@@ -83,6 +83,10 @@ class PointRecord:
         Result name -> :class:`Combined` (empty for a failed point).
     note : str
         Why a point failed, or what was odd about it ("" when nothing).
+    waveform : dict
+        With ``combine = "mean-waveform"``: the results (``TraceResult.flat()`` values
+        of :data:`COMBINED_RESULTS`) of the mean of the counted traces' waveforms,
+        converted once; empty otherwise, or when that conversion failed (``note`` says).
     """
 
     index: int
@@ -97,6 +101,7 @@ class PointRecord:
     resumed: bool = False
     results: dict[str, Combined] = field(default_factory=dict)
     note: str = ""
+    waveform: dict[str, float] = field(default_factory=dict)
 
     @property
     def valid(self) -> bool:

@@ -431,7 +431,8 @@ SCAN_DDL = [
         last_seq INTEGER,
         resumed INTEGER NOT NULL,
         results_json TEXT NOT NULL,
-        note TEXT NOT NULL)""",
+        note TEXT NOT NULL,
+        waveform_json TEXT NOT NULL)""",
 ]
 SCAN_DESCRIPTORS = [
     ("point_index", "trace_points", "", "int64"),
@@ -440,6 +441,7 @@ SCAN_DESCRIPTORS = [
     ("target_json", "scan_points", "mm", "json"),
     ("position_json", "scan_points", "mm", "json"),
     ("results_json", "scan_points", "", "json"),
+    ("waveform_json", "scan_points", "", "json"),
 ]
 DDL += SCAN_DDL
 STATIC_DESCRIPTORS += SCAN_DESCRIPTORS

@@ -517,14 +517,15 @@ class SessionStore:
                    None if point.last_seq is None else int(point.last_seq),
                    bool(point.resumed),
                    strict_json({k: c.as_dict() for k, c in point.results.items()}),
-                   str(point.note))
+                   str(point.note),
+                   strict_json({k: float(v) for k, v in point.waveform.items()}))
         except (TypeError, ValueError) as err:
             raise StoreError(f"{self.label}: scan point {point.index} is not recordable: "
                              f"{err}") from err
 
         def insert():     # a repeated index is refused by the primary key (_write)
             self._conn.execute(
-                "INSERT INTO scan_points VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", row)
+                "INSERT INTO scan_points VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", row)
         self._write(f"recording scan point {point.index}", insert)
 
     # -- commits ------------------------------------------------------------------------
