@@ -323,8 +323,9 @@ class ScanCollector:
         if rec.valid:
             for name in COMBINED_RESULTS:
                 self._values[name][rec.index] = rec.value(name)
-        else:
+        elif rec.status == PointStatus.FAILED:
             self._failed[rec.index] = True
+        # (a point done whose traces held no pulse above the noise has no values: blank)
         if refresh:
             self._refresh_beam()
 
