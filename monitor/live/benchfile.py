@@ -78,13 +78,13 @@ from __future__ import annotations
 import copy
 import dataclasses
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from ..errors import ConfigError
 from .scanplan import ScanPlan, plan_from_table
+from .tomlfile import read_toml
 
 # Keys of [digitiser] and [generator] that are about the connection, not instrument settings.
 _CONNECTION_KEYS = {"resource": str, "profile": str, "visa_library": str, "timeout_s": float}
@@ -463,16 +463,7 @@ def load_bench(path: str | Path, overrides: dict | None = None) -> BenchConfig:
     """
     path = Path(path)
     source = str(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError as err:
-        raise ConfigError(f"{source}: no such bench file") from err
-    except (OSError, UnicodeDecodeError) as err:
-        raise ConfigError(f"{source}: cannot read bench file: {err}") from err
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise ConfigError(f"{source}: not valid TOML: {err}") from err
+    _, data = read_toml(path, "bench file")
     return parse_bench(data, source=source, base_dir=path.resolve().parent, overrides=overrides)
 
 

@@ -48,12 +48,7 @@ def session_parts(bench: Any, *, session_path: str | Path | None = None,
     rules = RuleEngine(alerts)
     warnings = list(protection_warnings(alerts))
     dig_settings = bench.digitiser_settings()
-    if resume:
-        if session_path is None or not Path(session_path).is_file():
-            raise ConfigError(f"{session_path}: no such session file to resume")
-        path = Path(session_path)
-    else:
-        path = new_session_path(bench.session_folder, session_path)
+    path = session_file(bench.session_folder, session_path, resume=resume)
     open_dig = instruments.digitiser_opener(bench.digitiser, dig_settings)
     open_gen = (instruments.generator_opener(bench.generator)
                 if bench.generator is not None else None)
@@ -95,6 +90,23 @@ def session_parts(bench: Any, *, session_path: str | Path | None = None,
             "session_path": path, "trigger_timeout_s": bench.trigger_timeout_s,
             "queue_capacity": bench.queue_capacity, "give_up_s": bench.reconnect_give_up_s,
             "resources": resources}
+
+
+def session_file(folder: str | Path, session_path: str | Path | None, *,
+                 resume: bool) -> Path:
+    """The session file a session writes: an existing one to resume (``resume``), or a
+    new one (:func:`new_session_path`).
+
+    Raises
+    ------
+    ConfigError
+        No file to resume, or the new file exists already.
+    """
+    if resume:
+        if session_path is None or not Path(session_path).is_file():
+            raise ConfigError(f"{session_path}: no such session file to resume")
+        return Path(session_path)
+    return new_session_path(folder, session_path)
 
 
 def new_session_path(folder: str | Path, session_path: str | Path | None = None) -> Path:

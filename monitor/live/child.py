@@ -39,7 +39,7 @@ from typing import TYPE_CHECKING, Any, TextIO
 
 from ...drivers.errors import InstrumentError
 from ..acoustics.settings import Method
-from ..errors import ConfigError, TanksideError
+from ..errors import TanksideError
 from ..outcome import ExitCode, ExitStatus
 from .snapshot import Snapshot
 
@@ -480,7 +480,7 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
     session_path, max_traces, duration_s, drive_on_at_start, scan_plan, resume
         As for :meth:`LiveSession.from_bench`.
     """
-    from .build import new_session_path
+    from .build import session_file
     from .session import LiveSession
 
     if not own_process:
@@ -488,12 +488,7 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
                                       duration_s=duration_s, bell=bell,
                                       drive_on_at_start=drive_on_at_start,
                                       scan_plan=scan_plan, resume=resume)
-    if resume:
-        if session_path is None or not Path(session_path).is_file():
-            raise ConfigError(f"{session_path}: no such session file to resume")
-        path = Path(session_path)
-    else:
-        path = new_session_path(bench.session_folder, session_path)
+    path = session_file(bench.session_folder, session_path, resume=resume)
     return SessionProcess(SessionSpec(bench, path, max_traces=max_traces, duration_s=duration_s,
                                       drive_on_at_start=drive_on_at_start,
                                       scan_plan=scan_plan, resume=resume))

@@ -95,12 +95,12 @@ import enum
 import io
 import json
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from ..errors import PlanOutsideLimitsError, ScanPlanError
+from .tomlfile import read_toml
 
 MAX_POINTS = 100_000
 MAX_TRACES = 10_000
@@ -342,16 +342,7 @@ def load_plan(path: str | Path, *, limits: dict[str, tuple[float, float]]) -> Sc
     """
     path = Path(path)
     source = str(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError as err:
-        raise ScanPlanError(f"{source}: no such scan plan file") from err
-    except (OSError, UnicodeDecodeError) as err:
-        raise ScanPlanError(f"{source}: cannot read scan plan file: {err}") from err
-    try:
-        table = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise ScanPlanError(f"{source}: not valid TOML: {err}") from err
+    text, table = read_toml(path, "scan plan file", ScanPlanError)
     return _parse(table, source=source, base_dir=path.resolve().parent, limits=limits,
                   where="", text=text)
 
