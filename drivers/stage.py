@@ -54,7 +54,11 @@ _COMMANDS = {
     "query_position": ("axis",), "query_moving": ("axis",), "home": ("axis",),
     "stop": ("axis",), "set_velocity": ("axis", "counts_per_s"), "error_query": (),
 }
-_REQUIRED = ("move_absolute", "query_position", "query_moving", "stop")
+_REQUIRED = ("query_position", "query_moving")
+# A profile without move_absolute is *passive*: another program moves the stage and
+# tankside only reads where it is (a scan then maps what it sees). One that moves must
+# also say how to stop.
+_REQUIRED_TO_MOVE = ("move_absolute", "stop")
 # reply key -> named groups its pattern must have
 _REPLIES = {"acknowledge": (), "position": ("counts",), "moving": ("moving",),
             "error": ("code", "message"), "no_error": (), "identity": ()}
@@ -82,6 +86,11 @@ class StageProfile:
     replies: dict[str, re.Pattern]
     moving_when: str
     settle_s: float = 0.0
+
+    @property
+    def passive(self) -> bool:
+        """No move command: tankside reads the position and never moves or stops it."""
+        return "move_absolute" not in self.commands
 
     def axis(self, name: str) -> StageAxis:
         for a in self.axes:
@@ -134,6 +143,12 @@ def _from_doc(doc: dict, source: str) -> StageProfile:
     for key in _REQUIRED:
         if key not in commands_doc:
             raise fail(source, f"[commands] {key}", "required")
+    if "move_absolute" in commands_doc or "move_relative" in commands_doc:
+        for key in _REQUIRED_TO_MOVE:
+            if key not in commands_doc:
+                raise fail(source, f"[commands] {key}", "required with a move command (a "
+                           "profile without move_absolute and move_relative only reads "
+                           "the position: a passive stage)")
     commands = {k: _template(source, k, v, _COMMANDS[k]) for k, v in commands_doc.items()}
     replies_doc = table(source, doc, "replies")
     check_keys(source, "replies", replies_doc, (*_REPLIES, "moving_when"))
@@ -292,14 +307,21 @@ class Stage:
         """Start an absolute move (mm) of the axes given; returns once it is sent. Every
         target is checked against the soft limits before the first command."""
         checked = self._check_target(target)
+        self._refuse_if_passive("move")
         for name, mm in checked.items():
             a = self.profile.axis(name)
             self._command(self._fill("move_absolute", axis=a.address,
                                      counts=round(mm * a.counts_per_mm)))
 
+    @property
+    def passive(self) -> bool:
+        """Its profile has no move command (see :attr:`StageProfile.passive`)."""
+        return self.profile.passive
+
     def move_by(self, delta: dict[str, float]) -> None:
         """Start a relative move (mm); the end point is checked against the soft limits
         (which needs the present position)."""
+        self._refuse_if_passive("move")
         here = self.position()
         target = {name: here[name] + float(d) for name, d in delta.items() if name in here}
         for name in delta:
@@ -337,8 +359,16 @@ class Stage:
         self._each_axis("home")
 
     def stop(self) -> None:
-        """Stop every axis at once (a stopped stage accepts it as well)."""
-        self._each_axis("stop")
+        """Stop every axis at once (a stopped stage accepts it as well). A passive stage
+        has no stop command: nothing is sent (the program that moves it stops it)."""
+        if "stop" in self.profile.commands:
+            self._each_axis("stop")
+
+    def _refuse_if_passive(self, what: str) -> None:
+        if self.profile.passive:
+            raise SettingError(f"{self.profile.source}: a passive stage profile (no "
+                               f"move_absolute): tankside does not {what} this stage",
+                               resource=self.resource)
 
     def set_velocity(self, mm_per_s: float) -> None:
         if not (math.isfinite(mm_per_s) and mm_per_s > 0):

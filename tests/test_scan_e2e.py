@@ -17,12 +17,14 @@ import pytest
 from polling import wait_for
 from scpi_client import scpi
 
+from tankside.monitor.errors import ConfigError
 from tankside.monitor.live.benchfile import load_bench
 from tankside.monitor.live.scan import TOLERANCE_MM
 from tankside.monitor.live.scanplan import plan_from_table
 from tankside.monitor.live.session import LiveSession
 from tankside.monitor.record.reader import SessionReader
 from tankside.monitor.record.schema import EventKind, PointStatus
+from tankside.simulators.bench import PROFILE_DIR as SIM_PROFILES
 from tankside.simulators.bench import SimulatedBench
 
 FAST = {"digitiser.record_length": 2000, "digitiser.trigger_timeout_s": 0.5,
@@ -231,3 +233,41 @@ def test_a_mean_waveform_plan_converts_each_points_mean_trace_once(sim, tmp_path
             assert p.waveform[name] == pytest.approx(want[name], rel=1e-9), name
         # and the per-trace parameters are still averaged beside it
         assert p.results["peak_rarefactional_pa"].n == 4
+
+
+def test_a_passive_scan_maps_the_points_another_program_moves_the_stage_to(sim, tmp_path):
+    # a stage profile with query commands only: tankside reads the position, never moves
+    # or stops the stage; here "another program" is the test, at the simulated stage
+    text = (Path(SIM_PROFILES) / "sim-stage.toml").read_text(encoding="utf-8")
+    passive = "\n".join(line for line in text.splitlines()
+                        if not line.startswith(("move_", "home", "stop", "set_velocity")))
+    profile = tmp_path / "passive-stage.toml"
+    profile.write_text(passive + "\n", encoding="utf-8")
+    bench_path = sim.write_bench_file(tmp_path / "bench.toml", session_folder=str(tmp_path))
+    bench_path.write_text(bench_path.read_text().replace(
+        str(Path(SIM_PROFILES) / "sim-stage.toml"), str(profile)))
+    bench = load_bench(bench_path, FAST)
+    plan = _line_plan(bench, (0.0, 1.0, 0.5))
+    visits = (1.0, 0.0, 0.5)
+
+    def during(session):
+        for x in visits:
+            sim.stage.handle(f"X GO {round(x * 1000)}")
+            wait_for(lambda x=x: any(
+                p.target_mm["x"] == x for p in _points(tmp_path / "s.db")[0]), 20,
+                f"the point at x = {x}")
+        with pytest.raises(ConfigError, match="passive"):
+            session.move_stage({"x": 0.25})
+
+    session = _run(bench, plan, tmp_path / "s.db", during=during)
+    assert session.exit_status == "completed", session.stop_reason
+    points, *_ = _points(tmp_path / "s.db")
+    # measured in the order the stage was brought there, each once, at its reading
+    assert sorted(p.index for p in points) == [0, 1, 2]
+    order = [p.target_mm["x"] for p in sorted(points, key=lambda p: p.time_s)]
+    assert order == list(visits)
+    assert all(p.position_mm["x"] == pytest.approx(p.target_mm["x"], abs=TOLERANCE_MM)
+               for p in points)
+    # tankside sent the stage no move, home, speed or stop: only its queries
+    sent = [line for line in sim.stage.received if line != "WHO?"]
+    assert sent and all(line.endswith(("AT?", "BUSY?")) for line in sent), set(sent)

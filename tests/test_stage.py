@@ -67,11 +67,11 @@ class ScriptedTransport:
         self.closed = True
 
 
-def stage_on(script, **kw) -> tuple[Stage, ScriptedTransport]:
+def stage_on(script, profile=None, **kw) -> tuple[Stage, ScriptedTransport]:
     transport = ScriptedTransport(script)
     session = LineSession(transport, write_terminator="\r", read_terminator="\r",
                           timeout_s=0.1)
-    return Stage(session, load_stage_profile(SIM_STAGE), **kw), transport
+    return Stage(session, profile or load_stage_profile(SIM_STAGE), **kw), transport
 
 
 # ---------------------------------------------------------------- line session
@@ -161,6 +161,23 @@ class TestStageProfile:
         with pytest.raises(ProfileError) as caught:
             parse_stage_profile(GOOD.replace(old, new, 1), "my-stage.toml")
         assert str(caught.value).startswith(f"my-stage.toml: {key}")
+
+    def test_a_profile_with_query_commands_only_is_passive_and_never_moves(self):
+        text = "\n".join(line for line in GOOD.splitlines()
+                         if not line.startswith(("move_", "home", "stop", "set_velocity")))
+        profile = parse_stage_profile(text, "watch-only.toml")
+        assert profile.passive and not parse_stage_profile(GOOD).passive
+        stage, t = stage_on([], profile=profile)
+        with pytest.raises(SettingError, match="passive"):
+            stage.move_to({"x": 1.0})
+        with pytest.raises(SettingError, match="passive"):
+            stage.move_by({"x": 1.0})
+        stage.stop()                # nothing to send: the program that moves it stops it
+        assert t.sent == []
+
+    def test_a_profile_that_moves_must_say_how_to_stop(self):
+        with pytest.raises(ProfileError, match=r"\[commands\] stop: required with a move"):
+            parse_stage_profile(GOOD.replace('stop = "HALT"\n', ""), "s.toml")
 
     def test_error_query_needs_a_no_error_pattern(self):
         text = GOOD.replace("set_velocity =", 'error_query = "ERR?"\nset_velocity =')

@@ -49,6 +49,10 @@ def add_parser(subparsers) -> None:
                    help="go on with the scan recorded in FILE.db from its first point not "
                         "completed, in the same file (its own plan; not with --plan or "
                         "--session)")
+    p.add_argument("--passive", action="store_true",
+                   help="never move the stage: another program moves it, and each point of "
+                        "the plan is measured when the stage comes to rest there (so also "
+                        "with a stage profile that has no move command)")
     p.add_argument("--dry-run", action="store_true",
                    help="print the points, the travel and an estimate of the time, and "
                         "exit; nothing is sent to any instrument")
@@ -95,7 +99,8 @@ def run(args) -> int:
                   f"{left} to go from point {resumed.first_point}")
             print(summarise_plan(plan, trace_rate_hz=args.trace_rate).text())
             return 0
-        return run_live(args, bench, session_path=str(path), resume=True)
+        return run_live(args, bench, session_path=str(path), resume=True,
+                        passive=args.passive)
     plan = _plan(args, bench)
     if args.dry_run:
         print(summarise_plan(plan, trace_rate_hz=args.trace_rate).text())
@@ -104,4 +109,4 @@ def run(args) -> int:
         for note in plan.notes:
             print(f"tankside: note: {note}", file=sys.stderr, flush=True)
     return run_live(args, bench, session_path=_abs(args.session) if args.session else None,
-                    scan_plan=plan)
+                    scan_plan=plan, passive=args.passive)

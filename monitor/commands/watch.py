@@ -206,7 +206,8 @@ def run(args) -> int:
 
 
 def run_live(args, bench, *, session_path: str | None, max_traces: int | None = None,
-             duration_s: float | None = None, scan_plan=None, resume: bool = False) -> int:
+             duration_s: float | None = None, scan_plan=None, resume: bool = False,
+             passive: bool = False) -> int:
     """Run a live session on ``bench`` with the display ``args`` ask for (``watch``,
     ``scan``); the exit code."""
     from ..headless import end_summary, run_headless
@@ -238,7 +239,7 @@ def run_live(args, bench, *, session_path: str | None, max_traces: int | None = 
         bench, own_process=not headless, session_path=session_path,
         max_traces=max_traces, duration_s=duration_s, bell=bell if headless else None,
         drive_on_at_start="--drive-on" if args.drive_on else None,
-        scan_plan=scan_plan, resume=resume)
+        scan_plan=scan_plan, resume=resume, passive=passive)
     first_run = _first_run(session.session_path.parent, session.session_path)
 
     def show() -> int:

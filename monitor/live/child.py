@@ -67,6 +67,7 @@ class SessionSpec:
     drive_on_at_start: str | None = None
     scan_plan: Any = None
     resume: bool = False
+    passive: bool = False
 
 
 @dataclasses.dataclass
@@ -369,7 +370,8 @@ def child_main(spec: SessionSpec, commands, snapshots, log_path: str) -> None:
                                          max_traces=spec.max_traces,
                                          duration_s=spec.duration_s,
                                          drive_on_at_start=spec.drive_on_at_start,
-                                         scan_plan=spec.scan_plan, resume=spec.resume)
+                                         scan_plan=spec.scan_plan, resume=spec.resume,
+                                         passive=spec.passive)
         session.start()
     except (TanksideError, InstrumentError) as err:
         _send_quietly(commands, ("failed", err))
@@ -468,7 +470,8 @@ def _remove_if_empty(path: str) -> None:
 def session_for_display(bench, *, own_process: bool, session_path: str | Path | None = None,
                         max_traces: int | None = None, duration_s: float | None = None,
                         bell=None, drive_on_at_start: str | None = None,
-                        scan_plan: Any = None, resume: bool = False):
+                        scan_plan: Any = None, resume: bool = False,
+                        passive: bool = False):
     """The session a command shows: in this process (headless), or in a child (dashboard).
 
     Parameters
@@ -477,7 +480,7 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
     own_process : bool
         Run the session in a child process (:class:`SessionProcess`); False builds a
         :class:`~tankside.monitor.live.session.LiveSession` here (``bell`` rings on alerts).
-    session_path, max_traces, duration_s, drive_on_at_start, scan_plan, resume
+    session_path, max_traces, duration_s, drive_on_at_start, scan_plan, resume, passive
         As for :meth:`LiveSession.from_bench`.
     """
     from .build import session_file
@@ -487,8 +490,9 @@ def session_for_display(bench, *, own_process: bool, session_path: str | Path | 
         return LiveSession.from_bench(bench, session_path=session_path, max_traces=max_traces,
                                       duration_s=duration_s, bell=bell,
                                       drive_on_at_start=drive_on_at_start,
-                                      scan_plan=scan_plan, resume=resume)
+                                      scan_plan=scan_plan, resume=resume, passive=passive)
     path = session_file(bench.session_folder, session_path, resume=resume)
     return SessionProcess(SessionSpec(bench, path, max_traces=max_traces, duration_s=duration_s,
                                       drive_on_at_start=drive_on_at_start,
-                                      scan_plan=scan_plan, resume=resume))
+                                      scan_plan=scan_plan, resume=resume,
+                                      passive=passive))

@@ -23,6 +23,10 @@ Two parts, on two threads:
   mapped as valid; the clipping rule's auto-range acts on those traces as on any other,
   so a clipped point is normally re-acquired at the new range and counts then.
 
+Passive: where another program moves the stage (a stage profile with query commands
+only, or ``tankside scan --passive``), the runner never moves it; it measures each point
+of the plan when the stage comes to rest there, and records what it sees between.
+
 Over-pressure: a rule's safe-off stops the stage and the drive (processing does both),
 and the scan ends there; the session then stops, and ``tankside scan --resume`` goes on
 from the first point not completed once the cause is understood.
@@ -398,6 +402,10 @@ class ScanRunner:
         The session's stop.
     resumed : bool
         The scan continues an earlier one in the same file.
+    passive : bool
+        Never move the stage: another program moves it, and the points of the plan are
+        measured as the stage comes to rest at them, in whatever order (also so when the
+        stage's profile has no move command).
     """
 
     def __init__(self, *, plan: Plan, collector: ScanCollector, stage: StageLike,
@@ -405,7 +413,7 @@ class ScanRunner:
                  needs_drive: bool, emit: Callable[[EventKind, dict, RaisedAlert | None], None],
                  finished: Callable[[str, bool], None], stop: threading.Event,
                  resumed: bool = False, poll_s: float = 0.05,
-                 arrive_margin_s: float = ARRIVE_MARGIN_S):
+                 arrive_margin_s: float = ARRIVE_MARGIN_S, passive: bool = False):
         self.plan = plan
         self.collector = collector
         self._stage = stage
@@ -423,6 +431,8 @@ class ScanRunner:
         self._thread: threading.Thread | None = None
         self.ended = False
         self.timings: list[PointTiming] = []     # of the points measured, in order
+        # never move the stage: another program does (also when its profile is passive)
+        self.passive = bool(passive)
 
     def start(self) -> None:
         self._thread = threading.Thread(target=self._main, name="tankside-scan", daemon=True)
@@ -455,7 +465,10 @@ class ScanRunner:
         c.mark_started()
         why = "complete"
         try:
-            for point in todo:
+            if self.passive or getattr(self._stage, "passive", False):
+                self.passive = True
+                self._watch_passively(todo)
+            for point in () if self.passive else todo:
                 if self._ended():
                     break
                 c.set_phase("moving", current=point.index)
@@ -585,6 +598,55 @@ class ScanRunner:
             else:
                 return False
         return False
+
+    # -- passive: another program moves the stage --------------------------------------
+    def _watch_passively(self, todo: list) -> None:
+        """Measure the plan's points as another program brings the stage to them: a
+        point is opened when the stage reads back at rest within the tolerance of a
+        point not yet completed, for the settle time, and abandoned (to be measured when
+        the stage comes back) if the stage leaves it first. Positions that are no point
+        of the plan are recorded with their traces but not mapped."""
+        c = self.collector
+        left = {p.index: p for p in todo}
+        while left and not self._ended():
+            if not self._ready(next(iter(left))):
+                return
+            point = self._resting_at(left.values())
+            if point is None:
+                c.set_phase("waiting", "passive: the stage is moved by another program; "
+                            "waiting for it to rest at a point of the plan not yet done")
+                self._halt.wait(self._poll_s)
+                continue
+            c.set_phase("settling", current=point.index)
+            if not self._wait(float(point.settle_s)):
+                return
+            if self._resting_at([point]) is None:
+                continue                # it moved on while settling
+            asked = arrived = time.monotonic()
+            c.open_point(point.index, dict(point.position_mm), self._next_seq() + 1,
+                         needed=int(point.traces), resumed=self._resumed)
+            opened = time.monotonic()
+            while not self._ended():
+                if c.wait_point(self._stop, 0.1):
+                    self.timings.append(PointTiming(point.index, asked, arrived, opened,
+                                                    time.monotonic()))
+                    del left[point.index]
+                    break
+                if self._resting_at([point]) is None:
+                    c.close_point()     # it left before the point was complete
+                    break
+
+    def _resting_at(self, points) -> Any:
+        """The first of ``points`` the stage rests at now (within the tolerance), or None."""
+        reading = self._stage.latest()
+        if reading is None or reading.moving:
+            return None
+        tol = self.collector.tolerance_mm
+        for p in points:
+            if all(abs(reading.positions_mm.get(a, math.inf) - v) <= tol
+                   for a, v in p.position_mm.items()):
+                return p
+        return None
 
     def _not_arrived_why(self, target: dict[str, float]) -> str:
         reading = self._stage.latest()

@@ -131,7 +131,8 @@ class LiveSession:
                  max_age_s: float = DEFAULT_MAX_AGE_S, bench_temperature_c: float = 20.0,
                  serial_poll_s: dict[str, float] | None = None,
                  scan_plan: Any = None, scan_resume: ScanResume | None = None,
-                 beam_figures: Callable[[Any], dict] | None = None):
+                 beam_figures: Callable[[Any], dict] | None = None,
+                 scan_passive: bool = False):
         self.session_path = Path(session_path)
         self._rules = rules
         self._open_store = open_store
@@ -188,7 +189,7 @@ class LiveSession:
                 needs_drive=self._gen is not None,
                 emit=lambda kind, detail, alert: self._acq.event(kind, detail, alert),
                 finished=self._scan_finished, stop=self._stop,
-                resumed=scan_resume is not None)
+                resumed=scan_resume is not None, passive=scan_passive)
         self._drive_on_at_start = drive_on_at_start
         self._locks: list[InstrumentLock] = []
         self._leave_drive_on = bool(leave_drive_on_at_end)
@@ -221,21 +222,22 @@ class LiveSession:
                    max_traces: int | None = None, duration_s: float | None = None,
                    bell: Callable[[], None] | None = None,
                    drive_on_at_start: str | None = None, scan_plan: Any = None,
-                   resume: bool = False) -> LiveSession:
+                   resume: bool = False, passive: bool = False) -> LiveSession:
         """A session on the instruments of a bench file (see :mod:`.build`).
 
         ``drive_on_at_start`` (the cause, e.g. ``"--drive-on"``) switches the generator
         output on once the session runs; None never does. ``scan_plan`` (a
         :class:`~tankside.monitor.live.scanplan.ScanPlan`) runs a scan, recorded in the
         file's metadata; ``resume`` goes on with the scan recorded in ``session_path``
-        (its own plan; ``scan_plan`` is not given then).
+        (its own plan; ``scan_plan`` is not given then); ``passive`` never moves the
+        stage (another program does).
         """
         from .build import scan_parts
 
         return cls(**scan_parts(bench, session_path=session_path, scan_plan=scan_plan,
                                 resume=resume),
                    max_traces=max_traces, duration_s=duration_s, bell=bell,
-                   drive_on_at_start=drive_on_at_start)
+                   drive_on_at_start=drive_on_at_start, scan_passive=passive)
 
     # ---------------------------------------------------------------- public API
     def start(self) -> None:

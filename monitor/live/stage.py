@@ -137,6 +137,7 @@ class StageWorker:
         self._thread: threading.Thread | None = None
         self._in_error = False      # a stage error handled, no good reading since
         self.ended = False          # stopped by the session (its end)
+        self.passive = False        # its profile cannot move it (known once connected)
 
     # -- from other threads ---------------------------------------------------------
     @property
@@ -152,6 +153,9 @@ class StageWorker:
         checked target. Raises :class:`OutsideLimitsError` (nothing queued or sent), or
         :class:`~tankside.drivers.errors.ConnectionLost` while the stage is lost."""
         checked = check_target(target, self.limits)
+        if self.passive:
+            raise ConfigError(f"{INSTRUMENT}: a passive stage (its profile has no move "
+                              f"command): tankside does not move it; {checked} not sent")
         if self.port is None:
             raise ConnectionLost(f"{INSTRUMENT}: not connected (reconnecting); the move to "
                                  f"{checked} was not sent")
@@ -189,6 +193,7 @@ class StageWorker:
             close_quietly(port)
             raise
         self.port, self.identity, self.axes = port, identity, axes
+        self.passive = bool(getattr(port, "passive", False))
 
     def start(self) -> None:
         self._thread = threading.Thread(target=self._main, name="tankside-stage", daemon=True)
@@ -284,6 +289,13 @@ class StageWorker:
         return StageReading(positions, self._clock(), moving)
 
     def _send_stop(self, port: StagePort, cause: str) -> None:
+        if self.passive:
+            why = "a passive stage: no stop command; the program that moves it must stop it"
+            self._emit(EventKind.STAGE_STOP, {"cause": cause, "done": False, "error": why},
+                       RaisedAlert("stage-stop-failed", "critical",
+                                   f"the stage could not be stopped ({cause}): {why}")
+                       if cause == "safe-off" else None)
+            return
         try:
             port.stop()
         except InstrumentError as err:
