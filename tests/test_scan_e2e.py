@@ -198,8 +198,14 @@ def test_over_pressure_mid_scan_stops_stage_and_drive_and_ends_the_scan(sim, tmp
     # read back from the instruments themselves
     assert scpi(sim.generator_port, "OUTP?") == "0"
     assert "HALT" in sim.stage.received
+    assert not any(ax.moving(time.monotonic()) for ax in sim.stage.axes.values())
     points, trace_points, events, _, _ = _points(tmp_path / "s.db")
     assert len(points) < 5
+    # the stage was told to stop for the safe-off itself (not only at the session's end)
+    stops = [e["detail"] for e in events if e["kind"] == EventKind.STAGE_STOP]
+    assert {"cause": "safe-off", "done": True} in stops, stops
+    safe_off = [e for e in events if e["kind"] == EventKind.SAFE_OFF and e["detail"].get("done")]
+    assert safe_off
     end = [e for e in events if e["kind"] == EventKind.SCAN_END]
     assert len(end) == 1 and "safe-off" in end[0]["detail"]["why"]
     assert end[0]["detail"]["completed"] == len(points)
