@@ -50,10 +50,13 @@ class BenchStatus(LinePanel):
 
         wide = cols >= 50
         for inst in snap.instruments:
-            line = [("● " if inst.connected else "○ ", GOOD if inst.connected else BAD),
-                    (f"{inst.name[:3]} ", KEY)]
-            if not inst.connected:
+            lost = not inst.connected and not inst.closed
+            line = [("● " if inst.connected else "○ ", GOOD if inst.connected else
+                     KEY if inst.closed else BAD), (f"{inst.name[:3]} ", KEY)]
+            if lost:
                 line.append(("lost ", BAD))
+            elif not inst.connected:
+                line.append(("closed ", KEY))
             identity = (inst.identity if wide else short_identity(inst.identity)
                         or inst.resource, VALUE)
             if inst.detail and not wide:

@@ -492,7 +492,8 @@ class TraceProcessor:
             views.append(InstrumentView(name="digitiser",
                                         resource=self._resources.get("digitiser", ""),
                                         identity=self._acq.digitiser.identity,
-                                        connected=self._acq.connected))
+                                        connected=self._acq.connected,
+                                        closed=self._acq.closed))
         if self._generator is not None:
             views.append(InstrumentView(name="generator",
                                         resource=self._resources.get("generator", ""),
