@@ -457,11 +457,11 @@ class ScanRunner:
         c = self.collector
         todo = [p for p in self.plan.points if p.index not in c.completed]
         first = todo[0].index if todo else None
-        if self._resumed:
-            pass    # the session recorded scan-resumed before the threads started
-        else:
+        if not self._resumed:   # (a resumed scan's session recorded scan-resumed)
             self._emit(EventKind.SCAN_START, {"points": c.total, "kind": str(self.plan.kind),
-                                              "first_point": first}, None)
+                                              "first_point": first, "passive": self.passive
+                                              or bool(getattr(self._stage, "passive", False))},
+                       None)
         c.mark_started()
         why = "complete"
         try:

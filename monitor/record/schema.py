@@ -171,7 +171,8 @@ class EventKind(enum.StrEnum):
     ``temperature_c`` (the one used), ``from_seq``."""
     # -- scans (layout 4) -------------------------------------------------------------
     SCAN_START = "scan-start"
-    """A scan began: ``points`` (how many in the plan), ``kind``, ``first_point``."""
+    """A scan began: ``points`` (how many in the plan), ``kind``, ``first_point``,
+    ``passive`` (true: tankside never moves the stage; another program does)."""
     SCAN_RESUMED = "scan-resumed"
     """An interrupted scan continues in the same file: ``first_point`` (the first point
     not completed), ``completed`` (points already done), ``previous_stop`` (the stop
