@@ -480,7 +480,8 @@ class LiveSession:
 
     def _scan_finished(self, why: str, complete: bool) -> None:
         if complete:
-            self._request_stop(ExitStatus.COMPLETED, f"scan complete ({why})")
+            total = 0 if self._scan is None else self._scan.total
+            self._request_stop(ExitStatus.COMPLETED, f"scan complete ({total} points)")
         elif why.startswith("safe-off"):
             self._request_stop(ExitStatus.STOPPED_BY_RULE, f"scan ended: {why}")
         elif why.startswith("scan thread"):
