@@ -25,3 +25,16 @@ def screen_text(app) -> str:
                       color_system=None, legacy_windows=False)
     console.print(painted_screen(app.screen))
     return console.file.getvalue()
+
+
+async def painted_with(pilot, app, text: str, timeout_s: float = 5.0) -> str:
+    """The screen text once it shows ``text`` (the footer, say): on a loaded machine a
+    first paint can come before every widget has drawn. The last screen if it never does,
+    for the caller's assertion to show."""
+    loop = asyncio.get_running_loop()
+    deadline = loop.time() + timeout_s
+    shown = screen_text(app)
+    while text not in shown and loop.time() < deadline:
+        await pilot.pause(0.05)
+        shown = screen_text(app)
+    return shown

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from dashboard_pilot import screen_text, sync
+from dashboard_pilot import painted_with, screen_text, sync
 from fake_session import FakeLiveSession
 from textual.app import App, ComposeResult
 from textual.strip import Strip
@@ -169,7 +169,7 @@ async def test_repainted_screen_equals_a_fresh_full_paint(size):
                 await pilot.press("escape", "a")      # ... gone again; acknowledge
             await pilot.pause(0.15)
         assert app.trace.seq == live.snapshot().seq
-        repainted = screen_text(app)
+        repainted = await painted_with(pilot, app, "q quit")
         await pilot.press("q")
 
     fresh = FakeLiveSession()
@@ -181,6 +181,6 @@ async def test_repainted_screen_equals_a_fresh_full_paint(size):
     app = DashboardApp(fresh, first_run_notice=False)
     async with app.run_test(size=size) as pilot:
         await pilot.pause(0.15)
-        painted = screen_text(app)
+        painted = await painted_with(pilot, app, "q quit")
         await pilot.press("q")
     assert repainted == painted

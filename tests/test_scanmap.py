@@ -12,7 +12,7 @@ import re
 
 import numpy as np
 import pytest
-from dashboard_pilot import screen_text, sync
+from dashboard_pilot import painted_with, screen_text, sync
 from fake_session import FakeLiveSession
 from scan_samples import PEAK_PA, line_view, points_view, raster_view
 from textual.app import App, ComposeResult
@@ -382,7 +382,7 @@ async def test_dashboard_shows_the_map_in_the_spectrum_place(size):
     app = DashboardApp(_scan_fake(view), first_run_notice=False)
     async with app.run_test(size=size) as pilot:
         await pilot.pause(0.2)
-        text = screen_text(app)
+        text = await painted_with(pilot, app, "q quit")
         lines = text.splitlines()
         assert len(lines) == size[1] and max(len(line) for line in lines) <= size[0]
         assert app.map_shown and app.scan_map.display and not app.spectrum.display
