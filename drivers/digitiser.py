@@ -56,7 +56,7 @@ class DigitiserSettings:
         scaling commands; None: no monitor channel.
     monitor_range_v : float or None
         Full-scale span (p-p, V) of the monitor channel, one of ``ranges_v``, set once at
-        configuration when the profile has ``set_range`` (never auto-ranged); None
+        configuration with the profile's ``set_range`` (never auto-ranged); None
         leaves the channel's range as the instrument has it.
     """
 
@@ -230,10 +230,7 @@ def unapplied_settings(profile: Profile, names) -> list[str]:
     command to send, in the order they would be sent. ``sample_rate_hz`` without
     ``set_sample_rate`` is among them: it is checked against the time step, not set."""
     given = set(names)
-    out = [name for name, key, _ in _STEPS if name in given and not profile.has(key)]
-    if "monitor_range_v" in given and not profile.has("set_range"):
-        out.append("monitor_range_v")
-    return out
+    return [name for name, key, _ in _STEPS if name in given and not profile.has(key)]
 
 
 def full_scale_v(profile: Profile, volts_per_code: float) -> float | None:
@@ -346,11 +343,9 @@ class Digitiser:
                                                          **{placeholder: value}))
         self._monitor_range_v = None
         if settings.monitor_channel is not None and settings.monitor_range_v is not None:
-            if self.profile.has("set_range"):
-                self._monitor_range_v = self._write_range(settings.monitor_channel,
-                                                          settings.monitor_range_v)
-            else:
-                skipped.append("monitor_range_v")
+            # (set_range is a required command of every digitiser profile)
+            self._monitor_range_v = self._write_range(settings.monitor_channel,
+                                                      settings.monitor_range_v)
         self.skipped = tuple(skipped)
         self._settings = settings.replace(range_v=span_v)
         if self._monitor_range_v is not None:     # the span read back, when the profile can
