@@ -14,7 +14,6 @@ quantisation step (half a code from rounding).
 
 from __future__ import annotations
 
-import math
 import queue
 import shutil
 import sqlite3
@@ -237,9 +236,14 @@ def test_a_bench_channel_out_of_range_is_a_config_error(sim, tmp_path, capsys):
 class _FakeLink:
     def __init__(self):
         self.resyncs = 0
+        self.queue = [(-224, "no channel 2")]
 
     def resync(self):
         self.resyncs += 1
+
+    def drain_errors(self):
+        out, self.queue = self.queue, []
+        return out
 
     def close(self, quiet=False):
         pass
@@ -273,11 +277,35 @@ def test_a_failed_monitor_fetch_is_a_fault_event_and_the_trace_is_kept():
     items = []
     while not out.empty():
         items.append(out.get_nowait())
-    fault, trace, resync = items
+    fault, trace, resync, queued = items
     assert isinstance(fault, AcqEvent) and fault.kind == EventKind.FAULT
     assert fault.detail["kind"] == FaultKind.MONITOR_CHANNEL
     assert fault.detail["cause"] == FaultKind.MALFORMED_REPLY and fault.detail["at_seq"] == 0
     assert fault.alert is not None and "monitor channel" in fault.alert.message
     assert isinstance(trace, Acquired) and trace.raw.seq == 0 and trace.raw.monitor is None
     assert isinstance(resync, AcqEvent) and resync.kind == EventKind.RESYNC
-    assert link.resyncs == 1 and math.isfinite(loop.seq) and loop.seq == 1
+    # the error the instrument queued for the monitor fetch goes with the monitor's fault
+    assert isinstance(queued, AcqEvent) and queued.detail["kind"] == FaultKind.MONITOR_CHANNEL
+    assert queued.detail["cause"] == FaultKind.INSTRUMENT_ERROR and queued.alert is None
+    assert "-224" in queued.detail["message"] and link.queue == []
+    assert link.resyncs == 1 and loop.seq == 1
+
+
+def test_a_monitor_channel_the_digitiser_lacks_costs_no_hydrophone_trace(tmp_path):
+    """Without monitor_range_v nothing refuses channel 3 at start: each trace's monitor
+    fetch gets no reply (the simulator queues -224 instead), is a fault, and the
+    hydrophone's traces are all kept, one per acquisition."""
+    with SimulatedBench(seed=2, trigger_period_s=PERIOD_S) as sim:
+        session = run_live(sim, tmp_path, {"digitiser.monitor_channel": 3,
+                                           "digitiser.record_length": 2000,
+                                           "digitiser.timeout_s": 0.3}, n=3)
+        assert session.exit_code == ExitCode.OK
+        acquisitions = sim.digitiser.acquisitions
+    with SessionReader(tmp_path / "s.db") as r:
+        assert r.seqs() == [0, 1, 2] and not r.has_monitor_channel()
+        faults = [e["detail"] for e in r.events() if e["kind"] == EventKind.FAULT]
+    assert acquisitions == 3
+    assert [(f["kind"], f["cause"], f["at_seq"]) for f in faults] == [
+        (FaultKind.MONITOR_CHANNEL, cause, seq) for seq in range(3)
+        for cause in (FaultKind.STALLED, FaultKind.INSTRUMENT_ERROR)]
+    assert all("no channel 3" in f["message"] for f in faults[1::2])
