@@ -279,7 +279,7 @@ class Digitiser:
         self._settings: DigitiserSettings | None = None
         self._scaling: dict | None = None
         self._monitor_scaling: dict | None = None
-        # The monitor channel's span as set (None: not set, the profile cannot).
+        # The monitor channel's span as set (None: not set, the bench gave no range).
         self._monitor_range_v: float | None = None
         if profile.has("get_error"):
             link.error_query = profile.command("get_error")
@@ -350,12 +350,14 @@ class Digitiser:
         self._settings = settings.replace(range_v=span_v)
         if self._monitor_range_v is not None:     # the span read back, when the profile can
             self._settings = self._settings.replace(monitor_range_v=self._monitor_range_v)
-        dt_s = self.fetch_scaling()["dt_s"]
-        if settings.monitor_channel is not None:
+        if settings.monitor_channel is None:
+            dt_s = self.fetch_scaling()["dt_s"]
+        else:
             # A profile whose scaling queries name no channel asks about the channel last
-            # fetched, which may be the monitor's: read the hydrophone's again after its
-            # first block.
-            self._scaling = None
+            # fetched, which may be the monitor's (after a reconnect): only the time step,
+            # common to both, is taken now; the hydrophone's scaling is read (and checked
+            # against its range) after its first block.
+            dt_s = self._read_scaling(settings.channel)["dt_s"]
         if settings.sample_rate_hz is not None:
             problem = rate_problem(settings.sample_rate_hz, dt_s)
             if problem is not None:

@@ -61,8 +61,8 @@ def scaling(ch: int, yinc: bytes, yoff: bytes, named: bool = True):
             (b"WAV:YINC?" + tail + b"\n", yinc), (b"WAV:YOFF?" + tail + b"\n", yoff)]
 
 
-HYDROPHONE_SCALING = scaling(3, b"1.52587890625E-05\n", b"0.001\n")
-MONITOR_SCALING = scaling(2, b"6.103515625E-05\n", b"0\n")
+HYDROPHONE_SCALING = scaling(3, b"7.62939453125E-06\n", b"0.001\n")
+MONITOR_SCALING = scaling(2, b"3.0517578125E-05\n", b"0\n")
 
 
 def configure_steps(s: DigitiserSettings, *, readback=True, named=True):
@@ -80,7 +80,7 @@ def configure_steps(s: DigitiserSettings, *, readback=True, named=True):
     steps += [(f"CHAN2:RANG {s.monitor_range_v}\n".encode(), None), OK]
     if readback:
         steps.append((b"CHAN2:RANG?\n", f"{s.monitor_range_v}\n".encode()))
-    return steps + scaling(3, b"1.52587890625E-05\n", b"0.001\n", named)
+    return steps + scaling(3, b"7.62939453125E-06\n", b"0.001\n", named)
 
 
 def block(codes) -> bytes:
@@ -92,12 +92,12 @@ def acquire_steps(*, first: bool, named=True, monitor_reply=None):
              (b"ACQ3:DONE?\n" if named else b"ACQ:DONE?\n", b"1\n"),
              (b"WAV:DATA? CHAN3\n", block(CODES))]
     if first:       # configure read the hydrophone's scaling; with a monitor it is re-read
-        steps += scaling(3, b"1.52587890625E-05\n", b"0.001\n", named)
+        steps += scaling(3, b"7.62939453125E-06\n", b"0.001\n", named)
     steps += [OK, (b"WAV:DATA? CHAN2\n", block(MONITOR_CODES) if monitor_reply is None
                    else monitor_reply)]
     if monitor_reply is None:
         if first:
-            steps += scaling(2, b"6.103515625E-05\n", b"0\n", named)
+            steps += scaling(2, b"3.0517578125E-05\n", b"0\n", named)
         steps.append(OK)
     return steps
 
@@ -111,18 +111,18 @@ class TestChannelPlaceholders:
             dig.configure(SETTINGS)
             raw = dig.acquire(0, trigger_timeout_s=1.0)
             again = dig.acquire(1, trigger_timeout_s=1.0)
-        assert np.array_equal(raw.codes, CODES) and raw.volts_per_code == 1.52587890625e-05
+        assert np.array_equal(raw.codes, CODES) and raw.volts_per_code == 7.62939453125e-06
         assert raw.offset_v == 0.001 and raw.monitor_error is None
         mon = raw.monitor
         assert mon is not None and mon.channel == 2
         assert np.array_equal(mon.codes, MONITOR_CODES) and mon.codes.dtype == np.dtype("=i2")
         assert (mon.volts_per_code, mon.offset_v, mon.dt_s, mon.t0_s) == (
-            6.103515625e-05, 0.0, 1e-8, -2e-6)
+            3.0517578125e-05, 0.0, 1e-8, -2e-6)
         assert mon.range_v == 2.0 and (mon.clipped_low, mon.clipped_high) == (0, 1)
-        np.testing.assert_array_equal(mon.volts(), MONITOR_CODES * 6.103515625e-05)
+        np.testing.assert_array_equal(mon.volts(), MONITOR_CODES * 3.0517578125e-05)
         np.testing.assert_allclose(mon.times(), -2e-6 + 1e-8 * np.arange(4), rtol=1e-12)
         # the second trace reuses both scalings (no queries: the transcript has none)
-        assert again.monitor is not None and again.monitor.volts_per_code == 6.103515625e-05
+        assert again.monitor is not None and again.monitor.volts_per_code == 3.0517578125e-05
         assert raw.state["channel"] == 3 and raw.state["monitor_channel"] == 2
         assert raw.state["monitor_range_v"] == 2.0
 
@@ -137,8 +137,28 @@ class TestChannelPlaceholders:
             dig = Digitiser(ScpiLink(fake), PLAIN, poll_interval_s=0)
             dig.configure(plain)
             raw = dig.acquire(0, trigger_timeout_s=1.0)
-        assert raw.volts_per_code == 1.52587890625e-05
-        assert raw.monitor is not None and raw.monitor.volts_per_code == 6.103515625e-05
+        assert raw.volts_per_code == 7.62939453125e-06
+        assert raw.monitor is not None and raw.monitor.volts_per_code == 3.0517578125e-05
+
+    def test_configuring_again_after_a_monitor_block_takes_no_monitor_scale(self):
+        """Configured again (as after a reconnect) when the monitor's block came last, the
+        channel-less scaling queries answer for the monitor (a 2 V full scale against the
+        hydrophone's 0.5 V): only the time step is taken then, so no false scale warning,
+        and the hydrophone's trace gets its own scale."""
+        plain = SETTINGS.replace(channel=3)
+        again = configure_steps(plain, named=False)
+        again[-4:] = scaling(2, b"3.0517578125E-05\n", b"0\n", named=False)
+        steps = (configure_steps(plain, named=False) + acquire_steps(first=True, named=False)
+                 + again + acquire_steps(first=True, named=False))
+        with FakeResource(steps) as fake:
+            dig = Digitiser(ScpiLink(fake), PLAIN, poll_interval_s=0)
+            dig.configure(plain)
+            dig.acquire(0, trigger_timeout_s=1.0)
+            dig.configure(plain)
+            raw = dig.acquire(1, trigger_timeout_s=1.0)
+        assert dig.take_warnings() == []
+        assert raw.volts_per_code == 7.62939453125e-06
+        assert raw.monitor is not None and raw.monitor.volts_per_code == 3.0517578125e-05
 
     def test_monitor_range_without_readback_is_the_span_sent(self):
         steps = configure_steps(SETTINGS, readback=False) + acquire_steps(first=True)
