@@ -15,10 +15,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import ieee488
-from .errors import InstrumentTimeout, NoTrigger, ProtocolError, SettingError
+from .errors import InstrumentError, InstrumentTimeout, NoTrigger, ProtocolError, SettingError
 from .profile import Profile, command_text_problem
 from .scpi import ScpiLink
-from .trace import RawTrace, count_at_rails
+from .trace import ChannelTrace, RawTrace, count_at_rails
 
 
 @dataclass(frozen=True)
@@ -48,7 +48,16 @@ class DigitiserSettings:
     averages : int
         Traces averaged per acquisition (1 = none).
     channel : int
-        Input channel number.
+        Input channel number of the hydrophone (1 .. :data:`MAX_CHANNEL`); every
+        profile command with a ``channel`` placeholder is sent with it.
+    monitor_channel : int or None
+        A second input channel fetched raw with each trace, after the hydrophone's and
+        from the same acquisition (no second trigger), with the profile's fetch and
+        scaling commands; None: no monitor channel.
+    monitor_range_v : float or None
+        Full-scale span (p-p, V) of the monitor channel, one of ``ranges_v``, set once at
+        configuration with the profile's ``set_range`` (never auto-ranged); None
+        leaves the channel's range as the instrument has it.
     """
 
     record_length: int = 10000
@@ -62,6 +71,8 @@ class DigitiserSettings:
     trigger_slope: str = "POS"
     averages: int = 1
     channel: int = 1
+    monitor_channel: int | None = None
+    monitor_range_v: float | None = None
 
     def __post_init__(self):
         if not (isinstance(self.record_length, int) and self.record_length > 0):
@@ -79,8 +90,23 @@ class DigitiserSettings:
                 raise SettingError(f"{name} must be a number, got {value!r}")
         if not (isinstance(self.averages, int) and self.averages >= 1):
             raise SettingError(f"averages must be an integer >= 1, got {self.averages!r}")
-        if not (isinstance(self.channel, int) and self.channel >= 1):
-            raise SettingError(f"channel must be an integer >= 1, got {self.channel!r}")
+        if not _is_channel(self.channel):
+            raise SettingError(f"channel must be an integer 1 .. {MAX_CHANNEL}, "
+                               f"got {self.channel!r}")
+        if self.monitor_channel is not None:
+            if not _is_channel(self.monitor_channel):
+                raise SettingError(f"monitor_channel must be an integer 1 .. {MAX_CHANNEL}, "
+                                   f"got {self.monitor_channel!r}")
+            if self.monitor_channel == self.channel:
+                raise SettingError(f"monitor_channel {self.monitor_channel} is the "
+                                   "hydrophone's channel; name another or leave it out")
+        if self.monitor_range_v is not None:
+            value = self.monitor_range_v
+            if not (isinstance(value, int | float) and not isinstance(value, bool)
+                    and math.isfinite(value) and value > 0):
+                raise SettingError(f"monitor_range_v must be a positive number, got {value!r}")
+            if self.monitor_channel is None:
+                raise SettingError("monitor_range_v is given without a monitor_channel")
         for name in ("coupling", "trigger_source", "trigger_slope"):
             value = getattr(self, name)
             if not (isinstance(value, str) and value):
@@ -94,6 +120,16 @@ class DigitiserSettings:
 
     def replace(self, **changes) -> DigitiserSettings:
         return dataclasses.replace(self, **changes)
+
+
+#: The highest input channel number a bench may name (no digitiser tankside knows of has
+#: more inputs).
+MAX_CHANNEL = 16
+
+
+def _is_channel(value) -> bool:
+    return (isinstance(value, int) and not isinstance(value, bool)
+            and 1 <= value <= MAX_CHANNEL)
 
 
 def decode_codes(payload: bytes | bytearray, dtype: np.dtype) -> np.ndarray:
@@ -242,6 +278,9 @@ class Digitiser:
         self._warned: set[str] = set()
         self._settings: DigitiserSettings | None = None
         self._scaling: dict | None = None
+        self._monitor_scaling: dict | None = None
+        # The monitor channel's span as set (None: not set, the bench gave no range).
+        self._monitor_range_v: float | None = None
         if profile.has("get_error"):
             link.error_query = profile.command("get_error")
         link.add_reopen_hook(self._reapply)
@@ -267,7 +306,7 @@ class Digitiser:
         """Send the profile's ``reset`` command and forget the applied settings."""
         self.link.write_step(self.profile.command("reset"))
         self._settings = None
-        self._scaling = None
+        self._forget_scaling()
 
     def send_setup(self) -> None:
         """Send the profile's ``[commands] setup`` lines in order, checking errors after
@@ -284,7 +323,10 @@ class Digitiser:
         more than :data:`RATE_TOLERANCE` is a :class:`SettingError`.
         """
         settings = settings.replace(range_v=_match_range(self.ranges_v, settings.range_v))
-        self._scaling = None
+        if settings.monitor_range_v is not None:
+            settings = settings.replace(
+                monitor_range_v=_match_range(self.ranges_v, settings.monitor_range_v))
+        self._forget_scaling()
         skipped = []
         span_v = settings.range_v
         for name, key, placeholder in _STEPS:
@@ -299,9 +341,23 @@ class Digitiser:
                 continue
             self.link.write_step(self.profile.command(key, channel=settings.channel,
                                                          **{placeholder: value}))
+        self._monitor_range_v = None
+        if settings.monitor_channel is not None and settings.monitor_range_v is not None:
+            # (set_range is a required command of every digitiser profile)
+            self._monitor_range_v = self._write_range(settings.monitor_channel,
+                                                      settings.monitor_range_v)
         self.skipped = tuple(skipped)
         self._settings = settings.replace(range_v=span_v)
-        dt_s = self.fetch_scaling()["dt_s"]
+        if self._monitor_range_v is not None:     # the span read back, when the profile can
+            self._settings = self._settings.replace(monitor_range_v=self._monitor_range_v)
+        if settings.monitor_channel is None:
+            dt_s = self.fetch_scaling()["dt_s"]
+        else:
+            # A profile whose scaling queries name no channel asks about the channel last
+            # fetched, which may be the monitor's (after a reconnect): only the time step,
+            # common to both, is taken now; the hydrophone's scaling is read (and checked
+            # against its range) after its first block.
+            dt_s = self._read_scaling(settings.channel)["dt_s"]
         if settings.sample_rate_hz is not None:
             problem = rate_problem(settings.sample_rate_hz, dt_s)
             if problem is not None:
@@ -311,8 +367,12 @@ class Digitiser:
         """Change the vertical range to one of :attr:`ranges_v`."""
         current = self._require_settings()
         range_v = _match_range(self.ranges_v, range_v)
-        self._scaling = None
+        self._forget_scaling()
         self._settings = current.replace(range_v=self._write_range(current.channel, range_v))
+
+    def _forget_scaling(self) -> None:
+        self._scaling = None
+        self._monitor_scaling = None
 
     def _write_range(self, channel: int, span_v: float) -> float:
         """Set the range for a span of ``span_v`` (p-p, V) in the instrument's own kind
@@ -357,30 +417,32 @@ class Digitiser:
     def fetch_scaling(self) -> dict:
         """Time step, time origin, volts per code and offset; cached until settings change."""
         if self._scaling is None:
-            ch = self._require_settings().channel
-
-            def number(key: str, default: float | None = None) -> float:
-                if default is not None and not self.profile.has(key):
-                    return default
-                reply = self.link.query(self.profile.command(key, channel=ch))
-                try:
-                    return ieee488.parse_number(reply)
-                except ProtocolError as err:
-                    raise ProtocolError(f"{key}: {err.message}",
-                                        resource=self.link.name) from err
-
-            scaling = {"dt_s": number("get_time_step"), "t0_s": number("get_time_origin", 0.0),
-                       "volts_per_code": number("get_volts_per_code"),
-                       "offset_v": number("get_offset", 0.0)}
-            for key, problem in scaling_problems(scaling):
-                raise ProtocolError(f"{key}: {problem}", resource=self.link.name)
-            self._scaling = scaling
-            full_scale = full_scale_v(self.profile, scaling["volts_per_code"])
+            self._scaling = self._read_scaling(self._require_settings().channel)
+            full_scale = full_scale_v(self.profile, self._scaling["volts_per_code"])
             if full_scale is not None:
                 mismatch = scale_problem(self._require_settings().range_v, full_scale)
                 if mismatch is not None:
                     self._warn(mismatch)
         return self._scaling
+
+    def _read_scaling(self, ch: int) -> dict:
+        """The scaling replies of channel ``ch``, checked (:func:`scaling_problems`)."""
+        def number(key: str, default: float | None = None) -> float:
+            if default is not None and not self.profile.has(key):
+                return default
+            reply = self.link.query(self.profile.command(key, channel=ch))
+            try:
+                return ieee488.parse_number(reply)
+            except ProtocolError as err:
+                raise ProtocolError(f"{key}: {err.message}",
+                                    resource=self.link.name) from err
+
+        scaling = {"dt_s": number("get_time_step"), "t0_s": number("get_time_origin", 0.0),
+                   "volts_per_code": number("get_volts_per_code"),
+                   "offset_v": number("get_offset", 0.0)}
+        for key, problem in scaling_problems(scaling):
+            raise ProtocolError(f"{key}: {problem}", resource=self.link.name)
+        return scaling
 
     def _wait_for_trigger(self, channel: int, trigger_timeout_s: float) -> None:
         deadline = time.monotonic() + trigger_timeout_s
@@ -439,12 +501,48 @@ class Digitiser:
             self.link.check_errors("acquire")
         low, high = count_at_rails(codes, self.profile.code_min, self.profile.code_max)
         state = self.recorded_state(scaling)
+        monitor, monitor_error = None, None
+        if settings.monitor_channel is not None:
+            try:
+                monitor = self.fetch_monitor(settings.monitor_channel)
+            except InstrumentError as err:
+                monitor_error = err
         return RawTrace(codes=codes, volts_per_code=scaling["volts_per_code"],
                         offset_v=scaling["offset_v"], dt_s=scaling["dt_s"],
                         t0_s=scaling["t0_s"], seq=int(seq), time_s=time_s,
                         range_v=settings.range_v, code_min=self.profile.code_min,
                         code_max=self.profile.code_max, clipped_low=low, clipped_high=high,
-                        data_format=self.profile.data_format, state=state)
+                        data_format=self.profile.data_format, state=state,
+                        monitor=monitor, monitor_error=monitor_error)
+
+    def fetch_monitor(self, channel: int) -> ChannelTrace:
+        """The block of ``channel`` from the acquisition just fetched (no arm, no wait),
+        with its scaling (read after its first block, then cached until the settings
+        change), exactly as sent. The error queue is checked after it when
+        :attr:`check_errors_each_trace` is set.
+
+        Raises
+        ------
+        ProtocolError, InstrumentTimeout, ConnectionLost, InstrumentReportedError
+        """
+        payload = self.link.query_block(self.profile.command("fetch_waveform",
+                                                             channel=channel))
+        try:
+            codes = decode_codes(payload, self.profile.dtype)
+        except ProtocolError as err:
+            raise ProtocolError(f"monitor channel {channel}: {err.message}",
+                                resource=self.link.name) from err
+        if self._monitor_scaling is None:
+            self._monitor_scaling = self._read_scaling(channel)
+        scaling = self._monitor_scaling
+        if self.check_errors_each_trace:
+            self.link.check_errors(f"monitor channel {channel}")
+        low, high = count_at_rails(codes, self.profile.code_min, self.profile.code_max)
+        return ChannelTrace(channel=int(channel), codes=codes,
+                            volts_per_code=scaling["volts_per_code"],
+                            offset_v=scaling["offset_v"], dt_s=scaling["dt_s"],
+                            t0_s=scaling["t0_s"], range_v=self._monitor_range_v,
+                            clipped_low=low, clipped_high=high)
 
     def recorded_state(self, scaling: dict) -> dict:
         """The instrument state of a trace: only what was sent or read back.
@@ -472,5 +570,5 @@ class Digitiser:
 
     def recover(self) -> str:
         """Resynchronise the link, or reopen it and re-apply the settings."""
-        self._scaling = None
+        self._forget_scaling()
         return self.link.recover()

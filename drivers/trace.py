@@ -6,6 +6,54 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .errors import InstrumentError
+
+
+@dataclass(frozen=True)
+class ChannelTrace:
+    """A second digitiser channel of the same acquisition, kept as sent and never
+    converted (a drive-voltage monitor, say).
+
+    ``volts = codes * volts_per_code + offset_v``; sample ``i`` is at
+    ``t0_s + i * dt_s`` seconds from the trigger.
+
+    Attributes
+    ----------
+    channel : int
+        The digitiser's input channel number.
+    codes : numpy.ndarray
+        The samples exactly as sent (the profile's data format, native byte order).
+    volts_per_code, offset_v, dt_s, t0_s : float
+        Its scaling as the digitiser reported it for this channel (V per code, V, s, s).
+    range_v : float or None
+        Full-scale span, peak to peak, V, as set (read back when the profile can); None
+        when the profile has no command to set a range (never sent).
+    clipped_low, clipped_high : int
+        Count of samples at the lower and upper rail.
+    """
+
+    channel: int
+    codes: np.ndarray
+    volts_per_code: float
+    offset_v: float
+    dt_s: float
+    t0_s: float
+    range_v: float | None
+    clipped_low: int
+    clipped_high: int
+
+    @property
+    def n(self) -> int:
+        return int(self.codes.shape[0])
+
+    def volts(self) -> np.ndarray:
+        """The channel in volts (float64)."""
+        return self.codes.astype(np.float64) * self.volts_per_code + self.offset_v
+
+    def times(self) -> np.ndarray:
+        """Sample times relative to the trigger, s."""
+        return self.t0_s + self.dt_s * np.arange(self.n)
+
 
 @dataclass(frozen=True)
 class RawTrace:
@@ -41,6 +89,12 @@ class RawTrace:
         ``"int8"``, ``"int16"`` or ``"float32"``.
     state : dict
         Instrument settings in force for this trace (record length, coupling, ...).
+    monitor : ChannelTrace or None
+        The bench's monitor channel of the same acquisition, as sent (None without one,
+        or when its fetch failed).
+    monitor_error : InstrumentError or None
+        Why the monitor channel of this trace could not be fetched (the hydrophone's
+        trace is good and kept); None when it was, or none is configured.
     """
 
     codes: np.ndarray
@@ -57,6 +111,8 @@ class RawTrace:
     clipped_high: int
     data_format: str
     state: dict = field(default_factory=dict)
+    monitor: ChannelTrace | None = None
+    monitor_error: InstrumentError | None = None
 
     @property
     def n(self) -> int:

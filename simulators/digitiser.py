@@ -2,7 +2,9 @@
 
 Identity ``TANKSIDE,SIMDIG-2,0001,1.0`` (in the default dialect). Two channels; channel 1
 carries the hydrophone of the shared :class:`~tankside.simulators.scene.Scene`, channel 2
-is unconnected (noise only).
+an invented drive-voltage monitor (:func:`drive_monitor_v`): the generator's burst, as
+the trigger times it, scaled by ``monitor_ratio``, without noise or jitter so that a
+test can check it to one code.
 The trigger comes from the generator's sync output on EXT (one per burst period) unless
 the source is IMMediate: then the record starts at once, at a random moment of the burst
 cycle, so it holds the pulse only by chance (as on a real free-running digitiser).
@@ -96,7 +98,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .dialects import DEFAULT_DIALECT, RANGE_KINDS, dialect_named
-from .scene import Scene
+from .scene import Drive, Scene, burst_envelope
 from .scpi_device import Handler, ScpiDevice
 from .scpi_parser import (
     ScpiError,
@@ -118,6 +120,25 @@ FORMATS = {"int16": (np.int16, -32768, 32767), "int8": (np.int8, -128, 127),
 GRID_BITS = 12
 _WAVE_KINDS = {"int16": "WORD", "grid": "GRID"}
 MAX_WAIT_S = 600.0  # *OPC? gives up (no reply) on a trigger that has not come by then
+
+
+#: Volts at channel 2 per volt of drive (an invented 10:1 monitor output).
+MONITOR_RATIO = 0.1
+
+
+def drive_monitor_v(times_s: np.ndarray, drive: Drive, monitor_ratio: float) -> np.ndarray:
+    """The invented drive-voltage monitor of channel 2, V, at ``times_s`` after the trigger.
+
+    The generator's burst starts at its sync edge (the trigger, t = 0): a sine of the
+    drive's frequency under :func:`~tankside.simulators.scene.burst_envelope`, of peak
+    ``monitor_ratio * amplitude_vpp / 2``; zero with the output off.
+    """
+    times_s = np.asarray(times_s, dtype=float)
+    if not drive.output_on or drive.amplitude_vpp <= 0:
+        return np.zeros(times_s.shape[0])
+    f = drive.frequency_hz
+    env = burst_envelope(times_s, f, drive.burst_cycles)
+    return monitor_ratio * drive.amplitude_vpp / 2 * env * np.sin(2 * np.pi * f * times_s)
 
 
 def grid_rails(divisions: int) -> tuple[float, float]:
@@ -194,6 +215,8 @@ class SimulatedDigitiser(ScpiDevice):
         If above 0, acquisitions complete at once and fetches cycle through this many
         (True: 8) traces computed once per setting (so a fetch benchmark measures the link, not
         the scene).
+    monitor_ratio : float
+        Volts at channel 2 (the invented drive monitor) per volt of drive.
 
     Attributes
     ----------
@@ -208,8 +231,10 @@ class SimulatedDigitiser(ScpiDevice):
                  sleep: Callable[[float], object] = time.sleep, noise_v_rms: float = 0.3e-3,
                  jitter_s: float = 0.5e-9, missed_triggers: Callable[[], int] | None = None,
                  precomputed: int = 0, range_kind: str | None = None,
-                 range_divisions: int | None = None, dialect: str = DEFAULT_DIALECT):
+                 range_divisions: int | None = None, dialect: str = DEFAULT_DIALECT,
+                 monitor_ratio: float = MONITOR_RATIO):
         super().__init__()
+        self.monitor_ratio = float(monitor_ratio)
         self.dialect = dialect_named(dialect)
         range_kind = self.dialect.range_kind if range_kind is None else range_kind
         if range_kind not in RANGE_KINDS:
@@ -565,11 +590,12 @@ class SimulatedDigitiser(ScpiDevice):
         # Averaging n triggers: noise falls by sqrt(n); the jitter is drawn as the mean of n.
         jitter = float(self.rng.normal(0.0, self.jitter_s / math.sqrt(avg)))
         jitter += self.free_run_shift_s
-        if channel == 1:
-            load = self.scene.hydrophone.load_factor(st.channels[1].impedance_ohm)
-            v = load * self.scene.hydrophone_voltage_v(times, jitter_s=jitter)
-        else:
-            v = np.zeros(st.points)
+        if channel != 1:
+            # the invented monitor: the burst as the trigger (its sync) times it, exactly
+            return drive_monitor_v(times - self.free_run_shift_s, self.scene.drive,
+                                   self.monitor_ratio)
+        load = self.scene.hydrophone.load_factor(st.channels[1].impedance_ohm)
+        v = load * self.scene.hydrophone_voltage_v(times, jitter_s=jitter)
         return v + self.rng.normal(0.0, self.noise_v_rms / math.sqrt(avg), st.points)
 
     def acquire_codes(self, channel: int) -> tuple[np.ndarray, float, float]:

@@ -26,6 +26,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                         "of `convert --json`, then converted, clipped, range_changed, error")
     p.add_argument("--trace", type=number(low=0, high=2**62, whole=True), metavar="SEQ",
                    help="sequence number of one trace to write with --out")
+    p.add_argument("--channel", type=number(low=1, high=16, whole=True), metavar="N",
+                   help="with --trace: the digitiser channel to write, the hydrophone's "
+                        "(default) or the monitor channel recorded with the trace, as raw "
+                        "volts (never converted)")
     p.add_argument("--out", metavar="TRACE.csv",
                    help="where --trace goes: time_s,voltage_v in volts, the form `convert` reads")
     p.add_argument("--calibration-out", metavar="CAL.csv",
@@ -52,6 +56,8 @@ def run(args) -> int:
 
     if (args.trace is None) != (args.out is None):
         raise ConfigError("--trace SEQ and --out TRACE.csv go together")
+    if args.channel is not None and args.trace is None:
+        raise ConfigError("--channel N goes with --trace SEQ")
     if not any((args.results, args.out, args.calibration_out, args.map, args.hdf5)):
         raise ConfigError("nothing to export: give --results, --trace/--out, "
                           "--calibration-out, --map or --hdf5")
@@ -63,15 +69,17 @@ def run(args) -> int:
             print(f"note: {args.session} has no stop record: the session was not stopped "
                   "cleanly (or is still being recorded)", file=sys.stderr)
         if args.trace is not None:
-            reader.trace(args.trace)  # an unknown seq fails before any file is written
+            # an unknown seq or channel fails before any file is written
+            export.trace_channel(reader, args.trace, args.channel)
         if args.map:
             require_scan(reader, "--map")  # so does a session without a scan
         if args.results:
             rows = export.export_results_csv(reader, args.results, progress=steps)
             print(f"wrote {rows} result rows to {args.results}")
         if args.trace is not None:
-            n = export.export_trace_csv(reader, args.trace, args.out)
-            print(f"wrote trace {args.trace} ({n} samples) to {args.out}")
+            n = export.export_trace_csv(reader, args.trace, args.out, channel=args.channel)
+            which = "" if args.channel is None else f" channel {args.channel}"
+            print(f"wrote trace {args.trace}{which} ({n} samples) to {args.out}")
         if args.calibration_out:
             sha = export.export_calibration(reader, args.calibration_out)
             print(f"wrote the calibration file to {args.calibration_out} (sha256 {sha})")

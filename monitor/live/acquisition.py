@@ -259,7 +259,43 @@ class AcquisitionLoop:
                                           f"digitiser configuration: {message}"))
         flags, self._next_flags = self._next_flags, {}
         self.seq += 1
+        monitor_error = getattr(raw, "monitor_error", None)
+        if monitor_error is not None:
+            self._monitor_fault(monitor_error, raw.seq)
         self._emit(Acquired(raw, flags))
+        if isinstance(monitor_error, ConnectionLost):
+            self._reconnect(monitor_error)
+        elif isinstance(monitor_error, ProtocolError | InstrumentTimeout):
+            self._recover(monitor_error)
+            if self.connected:
+                self._drain_after_monitor(raw.seq)
+
+    def _monitor_fault(self, err: Exception, seq: int) -> None:
+        """A fault event for a trace whose monitor channel was not fetched (the trace is
+        kept); the link is resynchronised or reconnected after the trace is queued."""
+        cause = (FaultKind.CONNECTION_LOST if isinstance(err, ConnectionLost)
+                 else FaultKind.MALFORMED_REPLY if isinstance(err, ProtocolError)
+                 else FaultKind.STALLED if isinstance(err, InstrumentTimeout)
+                 else FaultKind.INSTRUMENT_ERROR)
+        self.event(EventKind.FAULT, {"kind": FaultKind.MONITOR_CHANNEL, "cause": cause,
+                                      "message": str(err), "at_seq": seq},
+                   alert=RaisedAlert("instrument-fault", "warning",
+                                     f"digitiser monitor channel, trace {seq}: {err}"))
+
+    def _drain_after_monitor(self, seq: int) -> None:
+        """Empty the error queue after a monitor fetch that failed, so that an error the
+        instrument queued for it (a channel it does not have, say) is recorded with the
+        monitor's fault and does not fail the next hydrophone trace."""
+        try:
+            errors = self._digitiser().link.drain_errors()
+        except InstrumentError:
+            return      # the next acquisition meets the fault and recovers as usual
+        if errors:
+            text = "; ".join(f"{code}, {message!r}" for code, message in errors)
+            self.event(EventKind.FAULT, {"kind": FaultKind.MONITOR_CHANNEL,
+                                          "cause": FaultKind.INSTRUMENT_ERROR,
+                                          "message": f"error queue after the monitor fetch: "
+                                                     f"{text}", "at_seq": seq})
 
     def _recover(self, err: Exception) -> None:
         try:

@@ -12,6 +12,9 @@ Layout (every section except ``[digitiser]`` and ``[calibration]`` is optional):
     sample_rate_hz = 250e6                          # optional: without it the digitiser's
                                                     # own time step is used and recorded
     range_v = 0.5
+    channel = 1                                     # the hydrophone's input (default 1)
+    monitor_channel = 2                             # optional: fetched raw with each trace
+    monitor_range_v = 2.0                           # optional: its range, set once
     trigger_source = "EXT"
     trigger_level_v = 0.5
 
@@ -306,7 +309,7 @@ def _check_digitiser_values(table: dict, source: str) -> None:
     kinds = {f.name: f.type for f in dataclasses.fields(DigitiserSettings)}
     for key, value in table.items():
         kind = {"str": str, "float": float, "int": int,
-                "float | None": float}.get(str(kinds.get(key)))
+                "float | None": float, "int | None": int}.get(str(kinds.get(key)))
         if kind is None:
             continue
         where = f"[digitiser] {key}"

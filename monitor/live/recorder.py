@@ -169,7 +169,7 @@ class Writer:
         store = self._open_store()
         if isinstance(item, TraceItem):
             store.add_trace(item.raw, item.result, item.flags or None, item.error, item.bench,
-                            item.point)
+                            item.point, getattr(item.raw, "monitor", None))
             self.stored += 1
             if self._oldest_uncommitted_s is None:
                 self._oldest_uncommitted_s = float(item.raw.time_s)

@@ -32,7 +32,10 @@ Trace CSV
     ``time_s,voltage_v``, the form ``tankside convert`` reads, written by
     :func:`tankside.monitor.record.tracefile.write_trace`: sample times relative to the trigger
     and volts (``codes * volts_per_code + offset_v``), with ``#`` comment lines naming
-    the session, the trace and its exact time step.
+    the session, the trace and its exact time step. With a channel given
+    (``export --trace SEQ --channel N``), the trace's channel N: the hydrophone's (as
+    without one) or the monitor channel recorded with it, in the same form, never
+    converted; a channel the trace does not record is an error.
 
 Calibration
     The recorded calibration file, verbatim (a UTF-8 byte-order mark is restored when
@@ -61,6 +64,15 @@ HDF5 layout (``format`` attribute ``"tankside-session-export"``, ``layout_versio
     ``/events/<column>``     event_id, time_s, kind, seq (-1: none), detail_json
     ``/stop``                attributes stop_time_s, exit_status, reason, counts_json
                              (absent when the session was not stopped cleanly)
+    ``/monitor``             only in a session whose traces record a monitor channel
+                             (table ``trace_channels``), one entry per trace, in the
+                             order of ``/traces``: ``volts`` shape (N, n) float64 (V, as
+                             sent times its scale plus its offset, never converted; NaN
+                             past a trace's sample_count, and the whole row for a trace
+                             without its monitor channel), ``sample_count`` (0: none),
+                             ``channel`` (-1: none), ``volts_per_code``, ``offset_v``,
+                             ``dt_s``, ``t0_s``, ``range_v`` (NaN: none or not set),
+                             ``clipped_low``, ``clipped_high`` (-1: none)
     ``/bench/axes``          the stage axes (strings; empty without a stage)
     ``/bench/position_mm``   shape (N, axes), mm, NaN where a trace has no position
     ``/bench/water_*``       water_reading_c (degC), water_reading_age_s (s), NaN where
@@ -110,7 +122,7 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import OutputFileError, SessionValueError
+from ..errors import ConfigError, OutputFileError, SessionValueError
 from .benchstate import TraceBench
 from .h5data import h5py_module as _h5
 from .h5data import number_dataset as _numbers
@@ -233,23 +245,68 @@ def export_map_csv(reader: SessionReader, out) -> int:
     return len(scan.points)
 
 
-def export_trace_csv(reader: SessionReader, seq: int, out) -> int:
-    """Write trace ``seq`` in volts as ``time_s,voltage_v``; returns the sample count."""
+def trace_channels(raw) -> dict[int, str]:
+    """The channels a stored trace records: number -> ``"hydrophone"`` or ``"monitor"``
+    (the hydrophone's number from the trace's state, 1 when it records none)."""
+    hydrophone = raw.state.get("channel")
+    out = {hydrophone if isinstance(hydrophone, int) else 1: "hydrophone"}
+    if raw.monitor is not None:
+        out[raw.monitor.channel] = "monitor"
+    return out
+
+
+def trace_channel(reader: SessionReader, seq: int, channel: int | None):
+    """``(raw trace, its monitor channel or None)``: the trace ``seq`` and, when
+    ``channel`` names its monitor channel, that channel; None for the hydrophone's.
+
+    Raises
+    ------
+    SessionFileError
+        No trace ``seq``.
+    ConfigError
+        The trace records no channel ``channel``.
+    """
+    raw = reader.trace(seq).raw
+    recorded = trace_channels(raw)
+    if channel is not None and channel not in recorded:
+        have = " and ".join(f"{n} ({what})" for n, what in sorted(recorded.items()))
+        raise ConfigError(f"{reader.path}: trace {seq} records channel {have}; "
+                          f"no channel {channel}")
+    if channel is not None and recorded[channel] == "monitor":
+        return raw, raw.monitor
+    return raw, None
+
+
+def export_trace_csv(reader: SessionReader, seq: int, out, *,
+                     channel: int | None = None) -> int:
+    """Write trace ``seq`` in volts as ``time_s,voltage_v``; returns the sample count.
+
+    ``channel`` picks the hydrophone's channel (the default) or the trace's monitor
+    channel (:func:`trace_channels`); another is a :class:`ConfigError`.
+    """
     from .tracefile import trace_text
 
-    raw = reader.trace(seq).raw
-    for column, value in (("dt_s", raw.dt_s), ("t0_s", raw.t0_s),
-                          ("volts_per_code", raw.volts_per_code), ("offset_v", raw.offset_v)):
+    raw, monitor = trace_channel(reader, seq, channel)
+    source = raw if monitor is None else monitor
+    table = "traces" if monitor is None else "trace_channels"
+    for column, value in (("dt_s", source.dt_s), ("t0_s", source.t0_s),
+                          ("volts_per_code", source.volts_per_code),
+                          ("offset_v", source.offset_v)):
         if not math.isfinite(value) or (column == "dt_s" and not value > 0):
             # a trace file needs real times and volts; the session keeps the value as sent
-            raise SessionValueError(str(reader.path), "traces", f"seq {raw.seq}", column,
+            raise SessionValueError(str(reader.path), table, f"seq {raw.seq}", column,
                                     f"{value!r} cannot be written as a trace file (expected "
                                     f"a finite number{' > 0' if column == 'dt_s' else ''})")
-    text = trace_text("time_s,voltage_v", raw.volts(), raw.dt_s, raw.t0_s, comments=[
+    if monitor is None:
+        what = [f"range {raw.range_v!r} V, {raw.clipped} samples at the rails; codes as "
+                "sent are in the session file"]
+    else:
+        span = "not set" if monitor.range_v is None else f"{monitor.range_v!r} V"
+        what = [f"monitor channel {monitor.channel} (raw volts, not converted): range "
+                f"{span}, {monitor.clipped_low + monitor.clipped_high} samples at the rails"]
+    text = trace_text("time_s,voltage_v", source.volts(), source.dt_s, source.t0_s, comments=[
         f"trace {raw.seq} of session {reader.path.name} ({reader.start['session_uid']})",
-        f"acquired at {raw.time_s!r} s since the Unix epoch; dt_s = {raw.dt_s!r}",
-        f"range {raw.range_v!r} V, {raw.clipped} samples at the rails; codes as sent are "
-        "in the session file"])
+        f"acquired at {raw.time_s!r} s since the Unix epoch; dt_s = {source.dt_s!r}", *what])
     with output_file(out) as tmp:
         tmp.write_text(text, encoding="utf-8")
     return raw.n
@@ -380,8 +437,12 @@ def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) 
             ds = g.create_dataset("calibration_text", data=meta["calibration_text"],
                                   dtype=h5py.string_dtype())
             ds.attrs["sha256"] = meta.get(META_CALIBRATION_SHA256) or ""
+        monitor = (_MonitorColumns(f.create_group("monitor"), n_traces)
+                   if n_traces and reader.has_monitor_channel() else None)
         _write_traces(f.create_group("traces"), reader, n_traces, layouts, uniform,
-                      _Checked(bar, guard.check), stop_seq)
+                      _Checked(bar, guard.check), stop_seq, monitor)
+        if monitor is not None:
+            monitor.finish()
         scan = scan_export(reader)
         _write_results(f.create_group("results"), reader, stop_seq, scan is not None)
         _write_alerts(f.create_group("alerts"), reader.alerts())
@@ -396,7 +457,7 @@ def export_hdf5(reader: SessionReader, out, *, progress: StepsFactory = silent) 
     return n_traces
 
 
-def _write_traces(g, reader, n_traces, layouts, uniform, bar, stop_seq):
+def _write_traces(g, reader, n_traces, layouts, uniform, bar, stop_seq, monitor=None):
     starts: list[int] = []      # where each trace's codes begin, when not uniform
     counts: list[int] = []
     if uniform and n_traces:
@@ -428,6 +489,8 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar, stop_seq):
         cols["dtype"].append(raw.codes.dtype.str)
         cols["data_format"].append(raw.data_format)
         cols["state_json"].append(strict_json(raw.state))
+        if monitor is not None:
+            monitor.add(i, raw.monitor)
         bar.update()
     if not uniform:
         _numbers(g, "code_start", starts, np.int64, "")
@@ -438,6 +501,46 @@ def _write_traces(g, reader, n_traces, layouts, uniform, bar, stop_seq):
         _numbers(g, c, cols[c], np.int64, "")
     for c in _TRACE_STRS:
         _strings(g, c, cols[c])
+
+
+class _MonitorColumns:
+    """``/monitor`` (module docstring), filled one trace at a time: ``volts`` grows to the
+    longest monitor record (NaN beyond a shorter one), so no session is held in memory."""
+
+    _FLOATS = ("volts_per_code", "offset_v", "dt_s", "t0_s", "range_v")
+    _INTS = ("sample_count", "channel", "clipped_low", "clipped_high")
+
+    def __init__(self, g, n_traces: int):
+        self.g = g
+        self.volts = g.create_dataset("volts", shape=(n_traces, 0), maxshape=(n_traces, None),
+                                      dtype=np.float64, chunks=(1, 1024), fillvalue=np.nan)
+        self.volts.attrs["units"] = "V"
+        self.cols: dict[str, list[Any]] = {c: [] for c in (*self._FLOATS, *self._INTS)}
+
+    def add(self, i: int, channel) -> None:
+        if channel is None:
+            for c in self._FLOATS:
+                self.cols[c].append(math.nan)
+            for c in self._INTS:
+                self.cols[c].append(0 if c == "sample_count" else -1)
+            return
+        if channel.n > self.volts.shape[1]:
+            self.volts.resize(channel.n, axis=1)
+        with np.errstate(all="ignore"):     # as sent: a huge scale overflows to inf
+            self.volts[i, :channel.n] = channel.volts()
+        for c in self._FLOATS:
+            value = getattr(channel, c)
+            self.cols[c].append(math.nan if value is None else float(value))
+        self.cols["sample_count"].append(channel.n)
+        self.cols["channel"].append(channel.channel)
+        self.cols["clipped_low"].append(channel.clipped_low)
+        self.cols["clipped_high"].append(channel.clipped_high)
+
+    def finish(self) -> None:
+        for c in self._FLOATS:
+            _numbers(self.g, c, self.cols[c], np.float64)
+        for c in self._INTS:
+            _numbers(self.g, c, self.cols[c], np.int64, "")
 
 
 def _write_results(g, reader, stop_seq, with_points: bool):

@@ -21,7 +21,7 @@ from typing import Any
 
 import numpy as np
 
-from ...drivers.trace import RawTrace
+from ...drivers.trace import ChannelTrace, RawTrace
 from ..errors import SessionFileError, TraceChecksumError
 from .benchstate import TraceBench
 from .cells import Row, codes_dtype, kind_of
@@ -30,6 +30,8 @@ from .scanpoints import Combined, PointRecord
 from .schema import (
     BENCH_STATE_LAYOUT,
     BOOL_RESULTS,
+    CHANNEL_COLUMNS,
+    CHANNEL_LAYOUT,
     CHECKSUM_LAYOUT,
     FORMAT_TAG,
     LAYOUT_VERSION,
@@ -153,6 +155,9 @@ class SessionReader:
                 if lacking:
                     raise SessionFileError(f"{self.path}: a layout {layout} session lacks "
                                            f"the table(s) {', '.join(lacking)}")
+            # A layout 4 file written before the monitor channel has no trace_channels.
+            self._monitor_channels = (layout >= CHANNEL_LAYOUT
+                                      and self._has_table("trace_channels"))
         except SessionFileError:
             self.close()
             raise
@@ -379,7 +384,54 @@ class SessionReader:
                                   water_reading_age_s=age, water_source=source)
         return out
 
-    def _stored(self, trow, rrow, bench: TraceBench | None = None) -> StoredTrace:
+    def has_monitor_channel(self) -> bool:
+        """Whether any trace records a monitor channel (``trace_channels`` rows)."""
+        return self._monitor_channels and bool(
+            self._query("SELECT 1 FROM trace_channels LIMIT 1"))
+
+    def monitor_channels(self, first_seq: int, last_seq: int) -> dict[int, ChannelTrace]:
+        """The monitor channel of each trace with ``first_seq <= seq <= last_seq`` that has
+        one (none in a file without ``trace_channels``); every cell checked, and the
+        codes against their CRC-32 (:class:`TraceChecksumError`)."""
+        if not self._monitor_channels:
+            return {}
+        out = {}
+        for values in self._query(f"SELECT {', '.join(CHANNEL_COLUMNS)} FROM trace_channels "
+                                  "WHERE seq BETWEEN ? AND ? ORDER BY seq, channel",
+                                  (int(first_seq), int(last_seq))):
+            r = self._row("trace_channels", f"seq {values[0]} channel {values[1]!r}",
+                          CHANNEL_COLUMNS, values)
+            data = r.blob("codes")
+            dt, n = self._layout(r, len(data))
+            recorded = r.integer("codes_crc32", minimum=0)
+            computed = zlib.crc32(data)
+            if computed != recorded:
+                raise TraceChecksumError(
+                    str(self.path), "trace_channels", f"seq {values[0]}", "codes",
+                    f"the codes do not match their checksum (CRC-32 recorded {recorded:#010x}, "
+                    f"computed {computed:#010x}): the file was damaged after it was written")
+            scaling = {name: r.real(name) for name in ("volts_per_code", "offset_v", "dt_s",
+                                                        "t0_s")}
+            for name, value in scaling.items():
+                if not math.isfinite(value):
+                    r.fail(name, f"expected a finite number, found {value!r}")
+            if not scaling["dt_s"] > 0:
+                r.fail("dt_s", f"expected a time step above 0 s, found {scaling['dt_s']!r}")
+            range_v = r.optional_real("range_v")
+            if range_v is not None and not (math.isfinite(range_v) and range_v > 0):
+                r.fail("range_v", f"expected a span above 0 V or null, found {range_v!r}")
+            seq = r.integer("seq")
+            if seq in out:          # one monitor channel per trace is all tankside writes
+                r.fail("channel", f"a second channel for trace {seq}")
+            out[seq] = ChannelTrace(
+                channel=r.integer("channel", minimum=1),
+                codes=np.frombuffer(data, dtype=dt, count=n), range_v=range_v,
+                clipped_low=r.integer("clipped_low", minimum=0),
+                clipped_high=r.integer("clipped_high", minimum=0), **scaling)
+        return out
+
+    def _stored(self, trow, rrow, bench: TraceBench | None = None,
+                monitor: ChannelTrace | None = None) -> StoredTrace:
         t = self._row("traces", f"seq {trow[0]}", self._trace_cols, trow)
         data = t.blob("codes")
         dt, n = self._layout(t, len(data))
@@ -400,7 +452,8 @@ class SessionReader:
                        code_max=t.real("code_max"),
                        clipped_low=t.integer("clipped_low", minimum=0),
                        clipped_high=t.integer("clipped_high", minimum=0),
-                       data_format=t.text("data_format"), state=t.json("state_json", dict))
+                       data_format=t.text("data_format"), state=t.json("state_json", dict),
+                       monitor=monitor)
         if rrow is None:  # trace written without a results row (older layouts)
             return StoredTrace(raw, None, {}, None, recorded, bench)
         result, flags, error = self._result_from_row(
@@ -440,9 +493,15 @@ class SessionReader:
         return self._query(f"SELECT {cols}, {rcols}, r.seq IS NULL FROM traces t "
                            f"LEFT JOIN results r ON r.seq = t.seq {where}", params)
 
-    def _split(self, row, benches: dict[int, TraceBench]) -> StoredTrace:
+    def _split(self, row, benches: dict[int, TraceBench],
+               monitors: dict[int, ChannelTrace]) -> StoredTrace:
         nt = len(self._trace_cols)
-        return self._stored(row[:nt], None if row[-1] else row[nt:-1], benches.get(row[0]))
+        return self._stored(row[:nt], None if row[-1] else row[nt:-1], benches.get(row[0]),
+                            monitors.get(row[0]))
+
+    def _monitors_of(self, rows) -> dict[int, ChannelTrace]:
+        seqs = [row[0] for row in rows if isinstance(row[0], int)]
+        return self.monitor_channels(min(seqs), max(seqs)) if seqs else {}
 
     def _benches_of(self, rows) -> dict[int, TraceBench]:
         seqs = [row[0] for row in rows if isinstance(row[0], int)]
@@ -455,7 +514,7 @@ class SessionReader:
         rows = self._trace_rows("WHERE t.seq = ?", (int(seq),))
         if not rows:
             raise SessionFileError(f"{self.path}: no trace with seq {seq}")
-        return self._split(rows[0], self._benches_of(rows))
+        return self._split(rows[0], self._benches_of(rows), self._monitors_of(rows))
 
     def iter_traces(self, start_seq: int | None = None,
                     stop_seq: int | None = None) -> Iterator[StoredTrace]:
@@ -466,10 +525,11 @@ class SessionReader:
             rows = self._trace_rows("WHERE t.seq > ? ORDER BY t.seq LIMIT ?",
                                     (last, self._CHUNK))
             benches = self._benches_of(rows)
+            monitors = self._monitors_of(rows)
             for row in rows:
                 if stop_seq is not None and row[0] >= stop_seq:
                     return
-                yield self._split(row, benches)
+                yield self._split(row, benches, monitors)
             if len(rows) < self._CHUNK:
                 return
             last = rows[-1][0]

@@ -312,7 +312,8 @@ def replay_session(src, out, *, calibration_path=None, calibration_checks: dict 
                             # read from a damaged file, say) fails alone and is counted.
                             flat, error = None, f"{type(err).__name__}: {err}"
                             failed += 1
-                        store.add_trace(raw, flat, stored.flags, error, stored.bench)
+                        store.add_trace(raw, flat, stored.flags, error, stored.bench,
+                                        channel=raw.monitor)
                         store.maybe_commit()
                         if check and _differs(stored.result, flat):
                             differences += 1

@@ -58,6 +58,8 @@ reader reads every layout up to it:
    it counts towards that point) and ``scan_points`` (one row per completed point: its
    target, measured position and combined results), and the plan in the metadata
    (``scan_plan``); see the block "layout 4: scans" at the end of this module.
+   A second digitiser channel with each trace, raw: table ``trace_channels``; see the
+   block "layout 4: monitor channel" at the end of this module.
 """
 
 #: The first layout whose traces carry ``codes_crc32``.
@@ -201,6 +203,9 @@ class FaultKind(enum.StrEnum):
     """The digitiser's transport closed (recorded as :attr:`EventKind.CONNECTION_LOST`)."""
     INSTRUMENT_ERROR = "instrument-error"
     """Any other digitiser error (one in its error queue, a refused setting)."""
+    MONITOR_CHANNEL = "monitor-channel"
+    """The digitiser's monitor channel of one trace could not be fetched (``cause``: the
+    fault kind of the error); the hydrophone's trace was kept, without that channel."""
     CONFIGURATION = "configuration"
     """The digitiser's profile does not describe it (the full scale its volts per code and
     rails make disagrees with the range by more than 5 %); given once a session."""
@@ -446,3 +451,48 @@ SCAN_DESCRIPTORS = [
 ]
 DDL += SCAN_DDL
 STATIC_DESCRIPTORS += SCAN_DESCRIPTORS
+
+
+# == layout 4: monitor channel ===========================================================
+
+#: The first layout whose files can hold ``trace_channels`` (a file of layout 4 written
+#: before it was added has no such table and reads as one without a monitor channel).
+CHANNEL_LAYOUT = 4
+
+#: Columns of ``trace_channels``, in order.
+CHANNEL_COLUMNS = ("seq", "channel", "dtype", "n", "codes", "codes_crc32", "volts_per_code",
+                   "offset_v", "dt_s", "t0_s", "range_v", "clipped_low", "clipped_high")
+
+CHANNEL_DDL = [
+    # one row per trace acquired with a monitor channel that was fetched: its codes as
+    # sent (BLOB, numpy dtype string, CRC-32 as in traces), never converted
+    """CREATE TABLE trace_channels (
+        seq INTEGER NOT NULL REFERENCES traces(seq),
+        channel INTEGER NOT NULL,
+        dtype TEXT NOT NULL,
+        n INTEGER NOT NULL,
+        codes BLOB NOT NULL,
+        codes_crc32 INTEGER NOT NULL,
+        volts_per_code REAL NOT NULL,
+        offset_v REAL NOT NULL,
+        dt_s REAL NOT NULL,
+        t0_s REAL NOT NULL,
+        range_v REAL,
+        clipped_low INTEGER NOT NULL,
+        clipped_high INTEGER NOT NULL,
+        PRIMARY KEY (seq, channel))""",
+]
+# (descriptor names are unique across tables: the channel's carry a prefix)
+CHANNEL_DESCRIPTORS = [
+    ("channel_number", "trace_channels", "", "int64"),
+    ("channel_codes", "trace_channels", "code", "per-row dtype"),
+    ("channel_volts_per_code", "trace_channels", "V/code", "float64"),
+    ("channel_offset_v", "trace_channels", "V", "float64"),
+    ("channel_dt_s", "trace_channels", "s", "float64"),
+    ("channel_t0_s", "trace_channels", "s", "float64"),
+    ("channel_range_v", "trace_channels", "V", "float64"),
+    ("channel_clipped_low", "trace_channels", "", "int64"),
+    ("channel_clipped_high", "trace_channels", "", "int64"),
+]
+DDL += CHANNEL_DDL
+STATIC_DESCRIPTORS += CHANNEL_DESCRIPTORS

@@ -40,7 +40,7 @@ from typing import NoReturn
 
 import numpy as np
 
-from ...drivers.trace import RawTrace
+from ...drivers.trace import ChannelTrace, RawTrace
 from .. import __version__
 from ..errors import DiskFullError, SessionFileError, StoreError
 from ..outcome import ExitStatus
@@ -49,6 +49,7 @@ from .reader import SessionReader, StoredTrace, session_size_bytes
 from .scanpoints import PointRecord
 from .schema import (
     BOOL_RESULTS,
+    CHANNEL_COLUMNS,
     DDL,
     FORMAT_TAG,
     LAYOUT_VERSION,
@@ -213,6 +214,16 @@ def _bench_rows(seq: int, bench: TraceBench | None):
     return positions, water
 
 
+def _channel_row(seq: int, channel: ChannelTrace) -> tuple:
+    """The ``trace_channels`` row of one trace's monitor channel (codes as sent)."""
+    codes = np.ascontiguousarray(channel.codes)
+    data = codes.tobytes()
+    return (seq, int(channel.channel), codes.dtype.str, int(codes.shape[0]), data,
+            zlib.crc32(data), float(channel.volts_per_code), float(channel.offset_v),
+            float(channel.dt_s), float(channel.t0_s), _optional_float(channel.range_v),
+            int(channel.clipped_low), int(channel.clipped_high))
+
+
 class SessionStore:
     """Writes one session file. Single-thread use: one writer owns it.
 
@@ -301,7 +312,7 @@ class SessionStore:
             conn.executemany("INSERT INTO metadata VALUES (?, ?)", meta_rows)
             conn.executemany(
                 "INSERT INTO descriptors VALUES (?, ?, ?, ?, '[]', ?)",
-                [(name, tbl, units, dtype, source if tbl == "traces"
+                [(name, tbl, units, dtype, source if tbl in ("traces", "trace_channels")
                   else "conversion") for name, tbl, units, dtype in STATIC_DESCRIPTORS])
             conn.execute("COMMIT")
             # FILE.db alone now holds the tables and the start record (the WAL is empty).
@@ -398,7 +409,8 @@ class SessionStore:
 
     def add_trace(self, raw: RawTrace, result: dict | None, flags: dict | None = None,
                   error: str | None = None, bench: TraceBench | None = None,
-                  point: tuple[int, bool, str] | None = None) -> None:
+                  point: tuple[int, bool, str] | None = None,
+                  channel: ChannelTrace | None = None) -> None:
         """Record one trace as sent, and its result (``TraceResult.flat()``) or error.
 
         ``flags`` may hold ``clipped`` (default: any sample at a rail),
@@ -406,7 +418,9 @@ class SessionStore:
         stage position and water reading at the trace, goes into ``trace_positions`` and
         ``trace_water`` (nothing when None or empty). ``point``, the scan point the trace
         was acquired at, whether it counts towards it and why not, goes into
-        ``trace_points`` (nothing when None: no scan, or between points).
+        ``trace_points`` (nothing when None: no scan, or between points). ``channel``, a
+        second digitiser channel of the same acquisition (the bench's monitor channel),
+        goes into ``trace_channels`` as sent (nothing when None).
         """
         codes = np.ascontiguousarray(raw.codes)
         data = codes.tobytes()
@@ -426,6 +440,7 @@ class SessionStore:
             position_rows, water_row = _bench_rows(int(raw.seq), bench)
             point_row = None if point is None else (int(raw.seq), int(point[0]),
                                                     bool(point[1]), str(point[2]))
+            channel_row = None if channel is None else _channel_row(int(raw.seq), channel)
         except (TypeError, ValueError) as err:
             raise StoreError(f"{self.label}: trace {raw.seq} is not recordable: {err}") from err
 
@@ -443,6 +458,10 @@ class SessionStore:
                 self._conn.execute("INSERT INTO trace_water VALUES (?, ?, ?, ?)", water_row)
             if point_row is not None:
                 self._conn.execute("INSERT INTO trace_points VALUES (?, ?, ?, ?)", point_row)
+            if channel_row is not None:
+                self._conn.execute(
+                    f"INSERT INTO trace_channels ({', '.join(CHANNEL_COLUMNS)}) "
+                    f"VALUES ({','.join('?' * len(CHANNEL_COLUMNS))})", channel_row)
             if not self._codes_described:
                 self._conn.execute(
                     "INSERT OR REPLACE INTO descriptors "
