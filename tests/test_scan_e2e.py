@@ -258,6 +258,9 @@ def test_a_passive_scan_maps_the_points_another_program_moves_the_stage_to(sim, 
     bench = load_bench(bench_path, FAST)
     plan = _line_plan(bench, (0.0, 1.0, 0.5))
     visits = (1.0, 0.0, 0.5)
+    # the stage starts at x = 0, a point of the plan: park it off the plan first
+    sim.stage.handle("X GO -1000")
+    wait_for(lambda: not sim.stage.axes["X"].moving(time.monotonic()), 5, "the stage parked")
 
     def during(session):
         for x in visits:
