@@ -47,7 +47,7 @@ def test_demo_help_names_every_option(capsys):
 
 def test_the_scan_demo_maps_the_simulated_beam_from_its_centre_outward(tmp_path, capsys):
     folder = tmp_path / "sessions"
-    args = ["demo", "--scan", "--sessions", str(folder), "--headless", "--duration", "6"]
+    args = ["demo", "--scan", "--sessions", str(folder), "--headless", "--duration", "4"]
     assert main(args) == 0
     out = capsys.readouterr().out
     assert "pt " in out                       # the status line gives the point
@@ -58,7 +58,7 @@ def test_the_scan_demo_maps_the_simulated_beam_from_its_centre_outward(tmp_path,
         plan = reader.scan_plan
         points = reader.scan_points()
     assert plan is not None and plan["kind"] == "raster" and len(plan["points"]) == 17 * 17
-    # six seconds: the first rows of the raster, in plan order, each point once
+    # four seconds: the first rows of the raster, in plan order, each point once
     assert len(points) >= 10
     assert [p.index for p in points] == list(range(len(points)))
     # at the target within the scan's tolerance (a reading a few counts short counts)

@@ -60,6 +60,9 @@ from .snapshot import ScanView
 TOLERANCE_MM = 0.01
 #: How long a move may take beyond its travel at the plan's speed, s.
 ARRIVE_MARGIN_S = 10.0
+#: A stage read at rest but off the target this long (after as long again for the move
+#: to start) has not arrived: stalled, or the move was not taken, s.
+STILL_OFF_TARGET_S = 0.5
 #: The speed assumed for the arrival timeout when the plan gives none, mm/s.
 ASSUMED_SPEED_MM_S = 1.0
 #: Refused traces at one point before it is recorded as failed: this many times the
@@ -671,13 +674,22 @@ class ScanRunner:
             self.collector.why = str(err)
             return False
         asked = time.time()
+        still_since: float | None = None
         while not self._ended():
             if time.monotonic() > deadline or not self._stage.connected:
                 return False
             reading = self._stage.latest()
-            if (reading is not None and reading.time_s > asked and not reading.moving
-                    and all(abs(reading.positions_mm.get(a, math.inf) - v)
-                            <= self.collector.tolerance_mm for a, v in target.items())):
-                return True
+            if reading is not None and reading.time_s > asked and not reading.moving:
+                if all(abs(reading.positions_mm.get(a, math.inf) - v)
+                       <= self.collector.tolerance_mm for a, v in target.items()):
+                    return True
+                # at rest off the target: a stall, or a move the stage did not take;
+                # given STILL_OFF_TARGET_S (the move may not have started yet), not arrived
+                if reading.time_s > asked + STILL_OFF_TARGET_S:
+                    still_since = still_since if still_since is not None else reading.time_s
+                    if reading.time_s - still_since >= STILL_OFF_TARGET_S:
+                        return False
+            else:
+                still_since = None
             self._halt.wait(self._poll_s)
         return None
