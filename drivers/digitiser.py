@@ -45,6 +45,11 @@ class DigitiserSettings:
         As the instrument spells them.
     trigger_level_v : float
         Trigger level, V.
+    trigger_delay_s : float or None
+        Time from the trigger to the record's start (the instrument's own sign
+        convention for a pre-trigger), s; None (the default) leaves it as the instrument
+        has it. An axial scan moves the pulse's arrival by about 0.67 us per mm: the
+        record must cover it.
     averages : int
         Traces averaged per acquisition (1 = none).
     channel : int
@@ -69,6 +74,7 @@ class DigitiserSettings:
     trigger_source: str = "EXT"
     trigger_level_v: float = 0.5
     trigger_slope: str = "POS"
+    trigger_delay_s: float | None = None
     averages: int = 1
     channel: int = 1
     monitor_channel: int | None = None
@@ -88,6 +94,12 @@ class DigitiserSettings:
             value = getattr(self, name)
             if not (isinstance(value, int | float) and math.isfinite(value)):
                 raise SettingError(f"{name} must be a number, got {value!r}")
+        delay = self.trigger_delay_s
+        if delay is not None and not (isinstance(delay, int | float)
+                                      and not isinstance(delay, bool)
+                                      and math.isfinite(delay) and abs(delay) <= 10.0):
+            raise SettingError(f"trigger_delay_s must be a number of seconds within +-10 s, "
+                               f"got {delay!r}")
         if not (isinstance(self.averages, int) and self.averages >= 1):
             raise SettingError(f"averages must be an integer >= 1, got {self.averages!r}")
         if not _is_channel(self.channel):
@@ -199,6 +211,7 @@ _STEPS = (
     ("trigger_source", "set_trigger_source", "source"),
     ("trigger_level_v", "set_trigger_level", "level_v"),
     ("trigger_slope", "set_trigger_slope", "slope"),
+    ("trigger_delay_s", "set_trigger_delay", "delay_s"),
     ("averages", "set_averages", "count"),
 )
 
@@ -332,7 +345,7 @@ class Digitiser:
         for name, key, placeholder in _STEPS:
             value = getattr(settings, name)
             if value is None:
-                continue                    # left to the instrument (sample_rate_hz)
+                continue        # left to the instrument (sample_rate_hz, trigger_delay_s)
             if not self.profile.has(key):
                 skipped.append(name)
                 continue

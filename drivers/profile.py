@@ -44,7 +44,8 @@ _DIGITISER_COMMANDS = {
     "set_range": ("channel", "range_v"), "set_offset": ("channel", "offset_v"),
     "set_coupling": ("channel", "coupling"), "set_impedance": ("channel", "impedance_ohm"),
     "set_trigger_source": ("source",), "set_trigger_level": ("level_v", "channel"),
-    "set_trigger_slope": ("slope",), "set_averages": ("count",),
+    "set_trigger_slope": ("slope",), "set_trigger_delay": ("delay_s",),
+    "set_averages": ("count",),
     "arm_single": ("channel",), "acquisition_done": ("channel",), "wait_complete": (),
     "fetch_waveform": ("channel",), "get_time_step": ("channel",),
     "get_time_origin": ("channel",), "get_volts_per_code": ("channel",),
@@ -52,7 +53,8 @@ _DIGITISER_COMMANDS = {
     "query_record_length": (), "query_sample_rate": (), "query_range": ("channel",),
     "query_offset": ("channel",), "query_coupling": ("channel",),
     "query_impedance": ("channel",), "query_trigger_source": (),
-    "query_trigger_level": ("channel",), "query_trigger_slope": (), "query_averages": (),
+    "query_trigger_level": ("channel",), "query_trigger_slope": (),
+    "query_trigger_delay": (), "query_averages": (),
 }
 _DIGITISER_REQUIRED = ("identify", "set_record_length", "set_range",
                        "arm_single", "fetch_waveform", "get_time_step", "get_volts_per_code")
@@ -70,7 +72,7 @@ _GENERATOR_REQUIRED = ("identify", "set_output", "get_output", "set_amplitude",
 
 _SAMPLE_VALUES = {"points": 1000, "rate_hz": 1e8, "channel": 1, "range_v": 1.0,
                   "offset_v": 0.0, "coupling": "DC", "impedance_ohm": 50.0, "source": "EXT",
-                  "level_v": 0.5, "slope": "POS", "count": 1, "state": "ON",
+                  "level_v": 0.5, "slope": "POS", "delay_s": 3e-5, "count": 1, "state": "ON",
                   "amplitude_vpp": 1.0, "frequency_hz": 1e6, "cycles": 10, "period_s": 0.05,
                   # stage profiles (drivers/stage.py)
                   "axis": "1", "counts": 1000, "counts_per_s": 1000}

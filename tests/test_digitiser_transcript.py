@@ -346,3 +346,27 @@ def test_recorded_state_holds_only_what_was_sent_or_read_back(tmp_path):
     from tankside.drivers.digitiser import unapplied_settings
     assert unapplied_settings(profile, ["coupling", "range_v", "averages"]) == [
         "coupling", "averages"]
+
+
+def test_a_trigger_delay_is_sent_after_the_slope_only_when_given():
+    """None (the default) leaves the instrument's own delay: no TRIG:DEL at all; a value is
+    sent in its place in the order of the settings, and recorded as sent."""
+    delayed = SETTINGS.replace(trigger_delay_s=2.5e-5)
+    steps = configure_steps(delayed)
+    slope = steps.index((f"TRIG:SLOP {delayed.trigger_slope}\n".encode(), None))
+    steps[slope + 2:slope + 2] = [(b"TRIG:DEL 2.5e-05\n", None), OK]
+    with FakeResource(steps) as fake:
+        dig = Digitiser(ScpiLink(fake), PROFILE)
+        dig.configure(delayed)
+    assert dig.settings.trigger_delay_s == 2.5e-5
+    assert dig.recorded_state({"dt_s": 1e-8})["trigger_delay_s"] == 2.5e-5
+    with FakeResource(configure_steps(SETTINGS)) as fake:      # no TRIG:DEL in the script
+        dig = Digitiser(ScpiLink(fake), PROFILE)
+        dig.configure(SETTINGS)
+    assert dig.recorded_state({"dt_s": 1e-8})["trigger_delay_s"] is None
+
+
+@pytest.mark.parametrize("delay", [float("nan"), 11.0, True, "1e-5"])
+def test_a_trigger_delay_that_is_no_time_is_refused(delay):
+    with pytest.raises(SettingError, match="trigger_delay_s"):
+        DigitiserSettings(trigger_delay_s=delay)

@@ -46,11 +46,13 @@ def truth(sim):
     return beam_truth(sim.scene.drive.frequency_hz, sim.scene.params)
 
 
-def _scan(sim, tmp_path: Path, table: dict, name: str,
-          record_length: int = 2000) -> tuple[Path, dict]:
+def _scan(sim, tmp_path: Path, table: dict, name: str, record_length: int = 2000,
+          delay_s: float | None = None) -> tuple[Path, dict]:
+    overrides = {**OVERRIDES, "digitiser.record_length": record_length}
+    if delay_s is not None:
+        overrides["digitiser.trigger_delay_s"] = delay_s
     bench = load_bench(sim.write_bench_file(tmp_path / f"{name}.toml",
-                                            session_folder=str(tmp_path)),
-                       {**OVERRIDES, "digitiser.record_length": record_length})
+                                            session_folder=str(tmp_path)), overrides)
     plan = plan_from_table(table, source=name, base_dir=tmp_path,
                            limits=dict(bench.stage.limits))
     path = tmp_path / f"{name}.db"
@@ -118,10 +120,11 @@ def test_a_line_along_the_axis_gives_the_focus_depth_and_the_mi_there(sim, truth
              "beam_axis": "z", "source_distance_mm": 50.0, "fixed": {"x": 0.0, "y": 0.0},
              "axes": [{"name": "z", "start_mm": -12.0, "stop_mm": 12.0, "step_mm": step}]}
     # the pulse arrives up to 8 us earlier or later along the line: a longer record that
-    # starts earlier (set at the simulated instrument, as at a front panel: tankside sets
-    # no trigger delay); 8000 samples at 4 ns span -12 to +20 us about the focus' arrival
-    sim.digitiser.state.trigger_delay_s = round(sim.scene.arrival_time_s() - 12e-6, 7)
-    _, beam = _scan(sim, tmp_path, table, "axial", record_length=8000)
+    # starts earlier (the bench's trigger_delay_s); 8000 samples at 4 ns span -12 to
+    # +20 us about the arrival from the focus
+    delay = round(sim.scene.arrival_time_s() - 12e-6, 7)
+    _, beam = _scan(sim, tmp_path, table, "axial", record_length=8000, delay_s=delay)
+    assert sim.digitiser.state.trigger_delay_s == pytest.approx(delay)   # as the instrument has it
     z_max = beam["maximum"]["position_mm"]["z"]
     assert _close(z_max, 1e3 * truth.focus_z_m, step), (z_max, truth.focus_z_m)
     # the -6 dB focal zone along the axis (the simulator's truth: its two -6 dB points)
