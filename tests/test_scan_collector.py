@@ -170,3 +170,48 @@ def test_a_layout_3_file_has_no_scan_and_cannot_be_resumed(tmp_path):
         assert reader.scan_plan is None
     with pytest.raises(SessionFileError, match="layout 3"):
         SessionStore.reopen(path)
+
+
+def test_a_scan_view_crosses_to_the_dashboard_process_only_when_it_changed():
+    """The child sends a scan's per-point arrays once per version; the parent keeps the
+    view it has while the version stands (a 100,000-point plan is megabytes a view)."""
+    import multiprocessing
+
+    from tankside.monitor.live.child import _answer_snapshots, _with_scan
+    from tankside.monitor.live.snapshot import Snapshot
+
+    c = ScanCollector(Plan())
+    first = c.view()
+    assert c.view() is first                     # nothing changed: the same object
+    c.set_phase("moving", current=0)
+    second = c.view()
+    assert second.version > first.version
+
+    class Session:
+        running = True
+        views = [first, first, second]
+        exit_code, exit_status, stop_reason, message_for_operator, method = 0, "", "", "", ""
+
+        def snapshot(self):
+            view = self.views.pop(0)
+            if not self.views:
+                self.running = False
+            return Snapshot(scan=view)
+
+    parent, child = multiprocessing.Pipe()
+    held = None
+    # the answering loop in a thread, asked three times as the dashboard asks
+    thread = threading.Thread(target=_answer_snapshots, args=(Session(), child), daemon=True)
+    thread.start()
+    answers = []
+    for _ in range(3):
+        parent.send(None)
+        answers.append(parent.recv())
+    thread.join(5)
+    sent = [a[0].scan for a in answers]
+    assert sent[0] is not None and sent[1] is None and sent[2] is not None
+    assert answers[1][2] == first.version        # "the one you hold"
+    for snap, _, payload in answers:
+        held = _with_scan(snap, held, payload)
+        assert held.scan is not None
+    assert held.scan.version == second.version

@@ -306,7 +306,8 @@ class SessionProcess:
             return
         try:
             if self._asked and conn.poll(0):
-                self._snap, self._status = conn.recv()
+                snap, self._status, payload = conn.recv()
+                self._snap = _with_scan(snap, self._snap, payload)
                 self._asked = False
             if not self._asked:
                 conn.send(None)
@@ -423,7 +424,12 @@ def _serve_commands(session, commands) -> None:
 
 
 def _answer_snapshots(session, snapshots) -> None:
-    """Answer each request with the latest snapshot and status, the last one after the end."""
+    """Answer each request with the latest snapshot and status, the last one after the end.
+
+    A scan's view (its per-point arrays) goes only when it changed: the snapshot goes
+    without it, and the version the parent already holds stands for it
+    (:func:`_with_scan`)."""
+    sent_version: int | None = None
     while True:
         try:
             if not snapshots.poll(0.2):
@@ -432,8 +438,24 @@ def _answer_snapshots(session, snapshots) -> None:
         except (EOFError, OSError):
             return                              # the parent has gone; the commands see it
         done = not session.running
-        if not _send_quietly(snapshots, (session.snapshot(), _status_of(session))) or done:
+        snap = session.snapshot()
+        scan = snap.scan
+        if scan is not None and scan.version == sent_version:
+            snap = dataclasses.replace(snap, scan=None)
+            payload: object = sent_version
+        else:
+            payload = None
+            sent_version = None if scan is None else scan.version
+        if not _send_quietly(snapshots, (snap, _status_of(session), payload)) or done:
             return
+
+
+def _with_scan(snap: Snapshot, held: Snapshot | None, payload: object) -> Snapshot:
+    """The snapshot the child sent, with the scan view the parent holds when the child
+    left it out as unchanged (``payload`` its version)."""
+    if payload is None or held is None or held.scan is None or held.scan.version != payload:
+        return snap
+    return dataclasses.replace(snap, scan=held.scan)
 
 
 def _status_of(session) -> SessionStatus:

@@ -53,8 +53,11 @@ from ..errors import TanksideError
 from ..record.scanpoints import COMBINED_RESULTS, PointRecord, combine_results, plan_grid
 from ..record.schema import EventKind, PointStatus
 from .actions import RaisedAlert
-from .snapshot import ScanView
+from .snapshot import FIGURES, ScanView
 
+#: The results a scan's map and beam figures show, per point (the running figures' set):
+#: a snapshot carries these, not every combined result, so that it stays small.
+MAPPED_RESULTS = tuple(name for name, _, _ in FIGURES)
 #: A reading within this of the target is at the target, mm (the simulated stage and
 #: most controllers resolve a micrometre; a stall leaves the stage far further off).
 TOLERANCE_MM = 0.01
@@ -163,8 +166,13 @@ class ScanCollector:
         self._targets = np.array([[t.get(a, np.nan) for a in axes] for t in targets],
                                  dtype=float).reshape(self.total, len(axes))
         self._grid = plan_grid(targets)
-        self._values = {name: np.full(self.total, np.nan) for name in COMBINED_RESULTS}
+        # copy on write: a point completed replaces these arrays, so a view handed out
+        # (a snapshot, in another thread or process) never changes under its reader
+        self._values = {name: np.full(self.total, np.nan) for name in MAPPED_RESULTS}
         self._failed = np.zeros(self.total, dtype=bool)
+        self._version = 0
+        self._view: ScanView | None = None
+        self._beam_version = -1
         self.completed: set[int] = set()
         self.current: int | None = None
         self.phase = "waiting"
@@ -173,10 +181,10 @@ class ScanCollector:
         self._durations: list[float] = []
         self._last_done_mono: float | None = None
         for rec in completed:
-            self._take(rec, refresh=False)
+            self._take(rec, copy=False)     # nothing handed out yet
         self.completed_before = len(self.completed)
         if completed:
-            self._refresh_beam()
+            self.refresh_beam()
 
     # -- the runner's side ----------------------------------------------------------
     def max_rejected(self, needed: int) -> int:
@@ -193,6 +201,7 @@ class ScanCollector:
             self._open = _OpenPoint(index, dict(target_mm), int(from_seq), int(needed),
                                     resumed, [], [], [])
             self.phase = "acquiring"
+            self._version += 1
 
     def wait_point(self, stop: threading.Event, timeout_s: float = 0.2) -> bool:
         """Wait up to ``timeout_s`` for the open point to complete; True when it has."""
@@ -211,6 +220,15 @@ class ScanCollector:
         self.phase, self.why = phase, why
         if current is not None:
             self.current = current
+        self._version += 1
+
+    def set_why(self, why: str) -> None:
+        self.why = why
+        self._version += 1
+
+    def set_current(self, current: int | None) -> None:
+        self.current = current
+        self._version += 1
 
     # -- the processing thread's side -----------------------------------------------
     def on_trace(self, seq: int, flat: dict | None, flags: dict,
@@ -323,25 +341,37 @@ class ScanCollector:
         self._finished.notify_all()
         return rec
 
-    def _take(self, rec: PointRecord, *, refresh: bool = True) -> None:
+    def _take(self, rec: PointRecord, *, copy: bool = True) -> None:
         if not 0 <= rec.index < self.total:
             return
         self.completed.add(rec.index)
         if rec.valid:
-            for name in COMBINED_RESULTS:
-                self._values[name][rec.index] = rec.value(name)
+            values = {name: v.copy() if copy else v for name, v in self._values.items()}
+            for name in values:
+                values[name][rec.index] = rec.value(name)
+            self._values = values
         elif rec.status == PointStatus.FAILED:
-            self._failed[rec.index] = True
+            failed = self._failed.copy() if copy else self._failed
+            failed[rec.index] = True
+            self._failed = failed
         # (a point done whose traces held no pulse above the noise has no values: blank)
-        if refresh:
-            self._refresh_beam()
+        self._version += 1
 
-    def _refresh_beam(self) -> None:
-        if self._beam_figures is not None:
-            try:
-                self._beam = dict(self._beam_figures(self.view(with_beam=False)))
-            except (ArithmeticError, ValueError, TanksideError) as err:
-                self._beam = {"error": f"{type(err).__name__}: {err}"}
+    def refresh_beam(self) -> None:
+        """Recompute the beam figures from the points so far, if any came since the last
+        time. Called by the runner's thread after each point (never by the processing
+        thread: on a large grid it takes tens of milliseconds)."""
+        if self._beam_figures is None:
+            return
+        view = self.view(with_beam=False)
+        if view.completed == self._beam_version:
+            return
+        try:
+            beam = dict(self._beam_figures(view))
+        except (ArithmeticError, ValueError, TanksideError) as err:
+            beam = {"error": f"{type(err).__name__}: {err}"}
+        self._beam, self._beam_version = beam, view.completed
+        self._version += 1
 
     def mark_started(self) -> None:
         """The clock of the time-left estimate starts (the first move is asked)."""
@@ -358,17 +388,26 @@ class ScanCollector:
         return float(np.mean(recent) * left)
 
     def view(self, *, with_beam: bool = True) -> ScanView:
+        """The scan as a display shows it; the same object until something changes
+        (its ``version``), its arrays never written after it is handed out."""
+        cached = self._view
+        if with_beam and cached is not None and cached.version == self._version:
+            return cached
+        version = self._version
         grid = self._grid
-        return ScanView(
+        view = ScanView(
             kind=str(self.plan.kind), total=self.total, completed=len(self.completed),
             current=self.current, phase=self.phase, why=self.why,
             targets_mm=self._targets, target_axes=self._target_axes,
             grid_axes=grid.axes if grid else (),
             grid_coords_mm=grid.coords_mm if grid else (),
             grid_index=grid.index if grid else np.zeros((self.total, 0), dtype=int),
-            values={k: v.copy() for k, v in self._values.items()},
-            failed=self._failed.copy(), time_left_s=self.time_left_s(),
-            beam=dict(self._beam) if with_beam else {})
+            values=dict(self._values), failed=self._failed,
+            time_left_s=self.time_left_s(), beam=dict(self._beam) if with_beam else {},
+            version=version)
+        if with_beam:
+            self._view = view
+        return view
 
 
 @dataclass(frozen=True)
@@ -492,7 +531,8 @@ class ScanRunner:
         if not complete:
             why = self._halt_why if self._halt.is_set() else "session stopped"
         c.set_phase("ended", "" if complete else why)
-        c.current = None
+        c.set_current(None)
+        c.refresh_beam()
         self._emit(EventKind.SCAN_END, {"completed": len(c.completed), "points": c.total,
                                         "why": why, "beam": c.view().beam}, None)
         self.ended = True
@@ -541,7 +581,7 @@ class ScanRunner:
                 else:
                     paused_at = self._pause(point, why)
             else:
-                self.collector.why = why
+                self.collector.set_why(why)
             self._halt.wait(self._poll_s * 4)
         return False
 
@@ -582,6 +622,7 @@ class ScanRunner:
                 if c.wait_point(self._stop, 0.1):
                     self.timings.append(PointTiming(point.index, asked, at, opened,
                                                     time.monotonic()))
+                    c.refresh_beam()
                     return True
                 lost = not self._stage.connected
                 reading = self._stage.latest()
@@ -634,6 +675,7 @@ class ScanRunner:
                     self.timings.append(PointTiming(point.index, asked, arrived, opened,
                                                     time.monotonic()))
                     del left[point.index]
+                    c.refresh_beam()
                     break
                 if self._resting_at([point]) is None:
                     c.close_point()     # it left before the point was complete
@@ -671,7 +713,7 @@ class ScanRunner:
         try:
             self._stage.request_move(target)
         except Exception as err:  # noqa: BLE001 - lost meanwhile (ConnectionLost); retried
-            self.collector.why = str(err)
+            self.collector.set_why(str(err))
             return False
         asked = time.time()
         still_since: float | None = None

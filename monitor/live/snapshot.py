@@ -127,8 +127,8 @@ class ScanView:
     grid_index : numpy.ndarray
         Shape ``(total, len(grid_axes))``: each point's place on the grid.
     values : dict
-        Result name (the combined parameters: ``peak_rarefactional_pa``, ...) -> array of
-        ``total`` combined means, NaN for points not done or failed.
+        Result name (those of :data:`FIGURES`: ``peak_rarefactional_pa``, ...) -> array
+        of ``total`` combined means, NaN for points not done or failed.
     failed : numpy.ndarray
         ``total`` booleans: points recorded as failed (never mapped as valid).
     time_left_s : float
@@ -136,6 +136,9 @@ class ScanView:
     beam : dict
         The beam figures of the points so far (:mod:`tankside.monitor.acoustics.beam`
         ``as_dict()``), empty until computed.
+    version : int
+        Changes whenever anything above does: a view of the same version is the same
+        (its arrays are never written once handed out), so a display may keep it.
     """
 
     kind: str = ""
@@ -153,6 +156,7 @@ class ScanView:
     failed: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
     time_left_s: float = float("nan")
     beam: dict = field(default_factory=dict)
+    version: int = 0
 
 
 @dataclass
