@@ -309,7 +309,7 @@ class TestBench:
         profile = tomllib.loads(bench.digitiser_profile_path.read_text())
         values = dict(channel=1, points=2000, rate_hz=2.5e8, range_v=0.1, offset_v=0.0,
                       coupling="DC", impedance_ohm=1e6, source="EXT", level_v=1.0,
-                      slope="POS", count=1)
+                      slope="POS", count=1, delay_s=2.87e-5)
         for key, template in profile["commands"].items():
             command = template.format(**values)
             if key == "fetch_waveform":
