@@ -78,6 +78,23 @@ def reconnect_after_pause(stop: threading.Event, backoff_s: tuple[float, ...], a
     return 0 if reopen(attempt, time.monotonic() - lost_at) else attempt
 
 
+def report_lost(emit: Callable[[EventKind, dict, RaisedAlert | None], None], seq: int,
+                instrument: str, err: Exception, meanwhile: str) -> None:
+    """The instrument stopped answering: an ``instrument-lost`` event and alert (what
+    acquisition does ``meanwhile``), the worker then reconnects."""
+    emit(EventKind.INSTRUMENT_LOST, {"instrument": instrument, "message": str(err),
+                                     "at_seq": seq},
+         RaisedAlert("instrument-lost", "warning",
+                     f"{instrument} lost ({err}); acquisition goes on{meanwhile}, reconnecting"))
+
+
+def report_back(emit: Callable[[EventKind, dict, RaisedAlert | None], None],
+                instrument: str, attempt: int, after_s: float, identity: str) -> None:
+    """The instrument answers again: an ``instrument-back`` event."""
+    emit(EventKind.INSTRUMENT_BACK, {"instrument": instrument, "attempts": attempt,
+                                     "after_s": round(after_s, 3), "identity": identity}, None)
+
+
 def report_worker_bug(emit: Callable[[EventKind, dict, RaisedAlert | None], None],
                       seq: int, instrument: str, err: Exception) -> None:
     """A bug in a worker's own handling: printed, recorded as a fault and alerted; the

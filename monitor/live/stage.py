@@ -37,7 +37,14 @@ from ...drivers.errors import ConnectionLost, InstrumentError, InstrumentTimeout
 from ..errors import ConfigError, OutsideLimitsError
 from ..record.schema import EventKind, FaultKind
 from .actions import RaisedAlert
-from .serial_ports import StagePort, close_quietly, reconnect_after_pause, report_worker_bug
+from .serial_ports import (
+    StagePort,
+    close_quietly,
+    reconnect_after_pause,
+    report_back,
+    report_lost,
+    report_worker_bug,
+)
 
 POLL_S = 0.2
 #: The reading interval while the stage moves (or was just told to), s: a scan waits for
@@ -327,12 +334,8 @@ class StageWorker:
         self._drop_moves(f"stage error: {err}")
         if lost:
             self.close()
-            self._emit(EventKind.INSTRUMENT_LOST,
-                       {"instrument": INSTRUMENT, "message": str(err),
-                        "at_seq": self._current_seq()},
-                       RaisedAlert("instrument-lost", "warning",
-                                   f"stage lost ({err}); acquisition goes on without positions,"
-                                   " reconnecting"))
+            report_lost(self._emit, self._current_seq(), INSTRUMENT, err,
+                        " without positions")
         else:
             self._emit(EventKind.FAULT, {"kind": FaultKind.STAGE_ERROR, "message": str(err),
                                          "at_seq": self._current_seq()},
@@ -351,8 +354,6 @@ class StageWorker:
             close_quietly(port)
             return False
         self.port, self.identity, self._latest = port, identity, reading
-        self._emit(EventKind.INSTRUMENT_BACK, {"instrument": INSTRUMENT, "attempts": attempt,
-                                               "after_s": round(after_s, 3),
-                                               "identity": identity}, None)
+        report_back(self._emit, INSTRUMENT, attempt, after_s, identity)
         return True
 

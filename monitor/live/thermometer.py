@@ -30,6 +30,8 @@ from .serial_ports import (
     ThermometerPort,
     close_quietly,
     reconnect_after_pause,
+    report_back,
+    report_lost,
     report_worker_bug,
 )
 
@@ -185,12 +187,7 @@ class ThermometerWorker:
             except (InstrumentTimeout, ConnectionLost) as err:
                 lost_at = time.monotonic()
                 self.close()
-                self._emit(EventKind.INSTRUMENT_LOST,
-                           {"instrument": INSTRUMENT, "message": str(err),
-                            "at_seq": self._current_seq()},
-                           RaisedAlert("instrument-lost", "warning",
-                                       f"thermometer lost ({err}); acquisition goes on, "
-                                       "reconnecting"))
+                report_lost(self._emit, self._current_seq(), INSTRUMENT, err, "")
                 continue
             except InstrumentError as err:
                 if not self._garbled:
@@ -215,8 +212,6 @@ class ThermometerWorker:
             close_quietly(port)
             return False
         self.port, self.identity = port, identity
-        self._emit(EventKind.INSTRUMENT_BACK, {"instrument": INSTRUMENT, "attempts": attempt,
-                                               "after_s": round(after_s, 3),
-                                               "identity": identity}, None)
+        report_back(self._emit, INSTRUMENT, attempt, after_s, identity)
         return True
 
