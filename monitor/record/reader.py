@@ -403,13 +403,8 @@ class SessionReader:
                           CHANNEL_COLUMNS, values)
             data = r.blob("codes")
             dt, n = self._layout(r, len(data))
-            recorded = r.integer("codes_crc32", minimum=0)
-            computed = zlib.crc32(data)
-            if computed != recorded:
-                raise TraceChecksumError(
-                    str(self.path), "trace_channels", f"seq {values[0]}", "codes",
-                    f"the codes do not match their checksum (CRC-32 recorded {recorded:#010x}, "
-                    f"computed {computed:#010x}): the file was damaged after it was written")
+            self._check_crc(data, r.integer("codes_crc32", minimum=0), "trace_channels",
+                            f"seq {values[0]}")
             scaling = {name: r.real(name) for name in ("volts_per_code", "offset_v", "dt_s",
                                                         "t0_s")}
             for name, value in scaling.items():
@@ -430,6 +425,15 @@ class SessionReader:
                 clipped_high=r.integer("clipped_high", minimum=0), **scaling)
         return out
 
+    def _check_crc(self, data: bytes, recorded: int, table: str, row: str) -> None:
+        """Raise :class:`TraceChecksumError` when ``data`` is not what its CRC-32 says."""
+        computed = zlib.crc32(data)
+        if computed != recorded:
+            raise TraceChecksumError(
+                str(self.path), table, row, "codes",
+                f"the codes do not match their checksum (CRC-32 recorded {recorded:#010x}, "
+                f"computed {computed:#010x}): the file was damaged after it was written")
+
     def _stored(self, trow, rrow, bench: TraceBench | None = None,
                 monitor: ChannelTrace | None = None) -> StoredTrace:
         t = self._row("traces", f"seq {trow[0]}", self._trace_cols, trow)
@@ -438,12 +442,7 @@ class SessionReader:
         recorded = None
         if self._checksums:
             recorded = t.integer("codes_crc32", minimum=0)
-            computed = zlib.crc32(data)
-            if computed != recorded:
-                raise TraceChecksumError(
-                    str(self.path), "traces", f"seq {trow[0]}", "codes",
-                    f"the codes do not match their checksum (CRC-32 recorded {recorded:#010x}, "
-                    f"computed {computed:#010x}): the file was damaged after it was written")
+            self._check_crc(data, recorded, "traces", f"seq {trow[0]}")
         codes = np.frombuffer(data, dtype=dt, count=n)
         raw = RawTrace(codes=codes, volts_per_code=t.real("volts_per_code"),
                        offset_v=t.real("offset_v"), dt_s=t.real("dt_s"), t0_s=t.real("t0_s"),
