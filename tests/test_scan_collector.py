@@ -96,10 +96,9 @@ def test_a_point_whose_traces_keep_being_refused_fails_and_is_never_mapped():
 def test_waiting_for_a_point_wakes_when_the_processing_thread_completes_it():
     c = ScanCollector(Plan(points=(Point(0, {"x": 0.0}, traces=1),)))
     c.open_point(0, {"x": 0.0}, from_seq=0, needed=1, resumed=False)
-    stop = threading.Event()
-    assert not c.wait_point(stop, 0.01)
+    assert not c.wait_point(0.01)
     threading.Timer(0.05, c.on_trace, (0, flat(1.0), {}, AT_0)).start()
-    assert c.wait_point(stop, 5.0)
+    assert c.wait_point(5.0)
 
 
 def test_combine_results_leaves_out_missing_values_per_parameter():

@@ -203,7 +203,7 @@ class ScanCollector:
             self.phase = "acquiring"
             self._version += 1
 
-    def wait_point(self, stop: threading.Event, timeout_s: float = 0.2) -> bool:
+    def wait_point(self, timeout_s: float = 0.2) -> bool:
         """Wait up to ``timeout_s`` for the open point to complete; True when it has."""
         with self._lock:
             if self._open is None or self._open.done:
@@ -274,11 +274,15 @@ class ScanCollector:
             return "stage moving"
         if not positions_mm:
             return "no stage position"
-        for axis, want in target_mm.items():
-            got = positions_mm.get(axis)
-            if got is None or abs(got - want) > self.tolerance_mm:
-                return "off target"
+        if not self.at(positions_mm, target_mm):
+            return "off target"
         return ""
+
+    def at(self, positions_mm: dict[str, float], target_mm: dict[str, float]) -> bool:
+        """Every axis of ``target_mm`` read within :attr:`tolerance_mm` of it (an axis
+        not read is not there)."""
+        return all(abs(positions_mm.get(axis, math.inf) - want) <= self.tolerance_mm
+                   for axis, want in target_mm.items())
 
     @staticmethod
     def _add_waveform(op: _OpenPoint, volts: np.ndarray, dt_s: float,
@@ -619,16 +623,15 @@ class ScanRunner:
                          resumed=self._resumed)
             opened = time.monotonic()
             while not self._ended():
-                if c.wait_point(self._stop, 0.1):
+                if c.wait_point(0.1):
                     self.timings.append(PointTiming(point.index, asked, at, opened,
                                                     time.monotonic()))
                     c.refresh_beam()
                     return True
                 lost = not self._stage.connected
                 reading = self._stage.latest()
-                off = reading is not None and (reading.moving or any(
-                    abs(reading.positions_mm.get(a, math.inf) - v) > c.tolerance_mm
-                    for a, v in target.items()))
+                off = reading is not None and (reading.moving
+                                               or not c.at(reading.positions_mm, target))
                 drive_off = self._needs_drive and self._drive_on() is False
                 if lost or off or drive_off:
                     why = ("stage lost (reconnecting)" if lost else
@@ -671,7 +674,7 @@ class ScanRunner:
                          needed=int(point.traces), resumed=self._resumed)
             opened = time.monotonic()
             while not self._ended():
-                if c.wait_point(self._stop, 0.1):
+                if c.wait_point(0.1):
                     self.timings.append(PointTiming(point.index, asked, arrived, opened,
                                                     time.monotonic()))
                     del left[point.index]
@@ -686,12 +689,8 @@ class ScanRunner:
         reading = self._stage.latest()
         if reading is None or reading.moving:
             return None
-        tol = self.collector.tolerance_mm
-        for p in points:
-            if all(abs(reading.positions_mm.get(a, math.inf) - v) <= tol
-                   for a, v in p.position_mm.items()):
-                return p
-        return None
+        return next((p for p in points
+                     if self.collector.at(reading.positions_mm, p.position_mm)), None)
 
     def _not_arrived_why(self, target: dict[str, float]) -> str:
         reading = self._stage.latest()
@@ -722,8 +721,7 @@ class ScanRunner:
                 return False
             reading = self._stage.latest()
             if reading is not None and reading.time_s > asked and not reading.moving:
-                if all(abs(reading.positions_mm.get(a, math.inf) - v)
-                       <= self.collector.tolerance_mm for a, v in target.items()):
+                if self.collector.at(reading.positions_mm, target):
                     return True
                 # at rest off the target: a stall, or a move the stage did not take;
                 # given STILL_OFF_TARGET_S (the move may not have started yet), not arrived
