@@ -46,6 +46,9 @@ DEFAULT_TOLERANCE_MM = 0.005
 
 
 MAX_SCANNED_AXES = 3
+#: The largest grid :func:`grid_points` builds, cells: scattered points in three
+#: dimensions would ask for their count cubed.
+MAX_CELLS = 4_000_000
 
 
 class ScanShape(enum.StrEnum):
@@ -147,8 +150,8 @@ def grid_points(coords_mm: Mapping[str, ArrayLike], values: ArrayLike, *,
     ScanDataError
         No axis, arrays of different lengths, a point with a value but a coordinate that
         is not finite, readings of one grid coordinate spread over more than
-        ``tolerance_mm``, more than three scanned axes, a tolerance that is not a
-        positive number.
+        ``tolerance_mm``, more than three scanned axes, a grid of more than
+        :data:`MAX_CELLS` cells, a tolerance that is not a positive number.
     """
     tol = _positive(tolerance_mm, "tolerance_mm")
     if not coords_mm:
@@ -181,6 +184,11 @@ def grid_points(coords_mm: Mapping[str, ArrayLike], values: ArrayLike, *,
     if labels:
         cell_index[placed] = np.stack(labels, axis=1)
     shape = tuple(c.size for c in coords)
+    cells = math.prod(shape)
+    if cells > MAX_CELLS:
+        raise ScanDataError(f"the points span a grid of {' x '.join(map(str, shape))} = "
+                            f"{cells} cells, more than {MAX_CELLS}: not a grid (a list of "
+                            "scattered points?)")
     gridded, counts = _fill(cell_index, placed, shape, vals, names, columns)
     return ScanGrid(axes=tuple(axes), coordinates_mm=tuple(coords), values=gridded,
                     counts=counts, fixed_mm=fixed, cell_index=cell_index, placed=placed)

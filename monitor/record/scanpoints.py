@@ -17,6 +17,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..acoustics.converter import RESULT_FIELDS
+from ..acoustics.scangrid import grid_points
+from ..errors import ScanDataError
 from .schema import PointStatus
 
 #: The results combined per point: every real-valued result field.
@@ -149,41 +151,33 @@ class PlanGrid:
 
 
 #: Target coordinates within this of each other are one grid line, mm (a plan's points
-#: are exact; this only absorbs the rounding of a decimal step).
+#: are exact, rounded to 1 nm; this only absorbs the rounding of a decimal step).
 GRID_TOLERANCE_MM = 1e-6
-#: The largest grid (cells) :func:`plan_grid` builds.
-MAX_GRID_CELLS = 4_000_000
 
 
 def plan_grid(targets: list[dict[str, float]]) -> PlanGrid | None:
-    """The grid of a scan's targets (axis -> mm per point, in plan order).
+    """The grid of a scan's targets (axis -> mm per point, in plan order), gridded by
+    :func:`tankside.monitor.acoustics.scangrid.grid_points`, the fast axis (the one that
+    changes between the first two points) first.
 
-    None when there is no point, no axis varies, or the grid would be larger than
-    :data:`MAX_GRID_CELLS` (a list of scattered points in three dimensions, say).
+    None when there is no point, no axis varies, the points do not all name the same
+    axes, or they lie on no grid of at most
+    :data:`~tankside.monitor.acoustics.scangrid.MAX_CELLS` cells (a list of scattered
+    points in three dimensions, say).
     """
     if not targets:
         return None
     names = list(targets[0])
-    varying = [a for a in names
-               if any(abs(t.get(a, 0.0) - targets[0].get(a, 0.0)) > GRID_TOLERANCE_MM
-                      for t in targets)]
-    if not varying:
+    if any(set(t) != set(names) for t in targets):
         return None
-    # the fast axis first: the one that changes between the first two points
-    fast = [a for a in varying if len(targets) > 1
+    fast = [a for a in names if len(targets) > 1
             and abs(targets[1][a] - targets[0][a]) > GRID_TOLERANCE_MM]
-    axes = tuple(fast + sorted(a for a in varying if a not in fast))
-    coords = []
-    index_cols = []
-    for axis in axes:
-        values = np.array([t[axis] for t in targets], dtype=float)
-        order = np.sort(values)
-        keep = np.concatenate(([True], np.diff(order) > GRID_TOLERANCE_MM))
-        lines = order[keep]
-        coords.append(lines)
-        idx = np.clip(np.searchsorted(lines, values - GRID_TOLERANCE_MM), 0, lines.size - 1)
-        index_cols.append(idx)
-    if int(np.prod([c.size for c in coords])) > MAX_GRID_CELLS:
+    ordered = fast + sorted(a for a in names if a not in fast)
+    try:
+        grid = grid_points({a: [t[a] for t in targets] for a in ordered},
+                           np.zeros(len(targets)), tolerance_mm=GRID_TOLERANCE_MM)
+    except ScanDataError:
         return None
-    fixed = {a: float(targets[0][a]) for a in names if a not in axes}
-    return PlanGrid(axes, tuple(coords), np.stack(index_cols, axis=1), fixed)
+    if not grid.axes:
+        return None
+    return PlanGrid(grid.axes, grid.coordinates_mm, grid.cell_index, dict(grid.fixed_mm))
