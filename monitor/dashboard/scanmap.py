@@ -271,16 +271,18 @@ class ScanMap(LinePanel):
             return f"{scale.hi:.0f}", f"{scale.lo:.0f}"
         return number(scale.hi, 0), "0" if scale.lo == 0 else number(scale.lo, 0)
 
-    def _line(self, rows: int, cols: int) -> list[Strip]:
+    def _gridded(self):
+        """The view, the shown parameter and failed points on the grid (a point planned
+        twice: the later one), the scale, and the maximum's and current point's index."""
         view = self.view
         assert view is not None
-        v = self.per_point()
-        shown, scale = self._shown(v)
-        # one value per grid position (a point planned twice: the later one)
+        shown, scale = self._shown(self.per_point())
         cells = gridded(view, shown)
         failed = gridded(view, view.failed.astype(float)) > 0
-        top = self.maximum_index()
-        cur = view.current
+        return view, cells, failed, scale, self.maximum_index(), view.current
+
+    def _line(self, rows: int, cols: int) -> list[Strip]:
+        view, cells, failed, scale, top, cur = self._gridded()
         strips, columns = line_plot(
             rows, cols, cells, failed, scale, view.grid_coords_mm[0], view.grid_axes[0],
             current=None if cur is None else int(view.grid_index[cur, 0]),
@@ -290,14 +292,7 @@ class ScanMap(LinePanel):
         return strips
 
     def _heat(self, rows: int, cols: int) -> list[Strip]:
-        view = self.view
-        assert view is not None
-        v = self.per_point()
-        shown, scale = self._shown(v)
-        cells = gridded(view, shown)
-        failed = gridded(view, view.failed.astype(float)) > 0
-        top = self.maximum_index()
-        cur = view.current
+        view, cells, failed, scale, top, cur = self._gridded()
         current = None if cur is None else tuple(int(k) for k in view.grid_index[cur])
         maximum = None if top is None else tuple(int(k) for k in view.grid_index[top])
         level = self.slice_level()

@@ -17,6 +17,7 @@ from ..acoustics.beam import beam_figures
 from ..acoustics.converter import Converter
 from ..errors import ConfigError, SessionFileError
 from ..record.reader import SessionReader
+from ..record.scanpoints import GRID_TOLERANCE_MM
 from ..record.schema import LAYOUT_VERSION, META_PROTECTION_WARNINGS, META_SCAN_PLAN
 from ..record.store import SessionStore, session_metadata
 from . import instruments
@@ -203,10 +204,6 @@ def beam_figures_for(plan: Any) -> Callable[[ScanView], dict]:
     (:func:`tankside.monitor.acoustics.beam.beam_figures`)."""
     beam_axis = str(getattr(plan, "beam_axis", "z"))
     distance = getattr(plan, "source_distance_mm", None)
-    steps = [abs(b - a) for p, q in zip(plan.points, plan.points[1:], strict=False)
-             for a, b in ((p.position_mm.get(ax), q.position_mm.get(ax))
-                          for ax in p.position_mm) if a is not None and b is not None and b != a]
-    tolerance = 0.1 * min(steps) if steps else 0.005
 
     def figures(view: ScanView) -> dict:
         coords = {axis: view.targets_mm[:, i] for i, axis in enumerate(view.target_axes)}
@@ -218,6 +215,7 @@ def beam_figures_for(plan: Any) -> Callable[[ScanView], dict]:
             axial = {"pii_j_per_m2": view.values["pulse_intensity_integral_j_per_m2"],
                      "p_r_pa": p_r, "f_awf_hz": view.values["acoustic_working_frequency_hz"],
                      "source_distance_mm": float(distance), "beam_axis": beam_axis}
-        return beam_figures(coords, p_r, tolerance_mm=tolerance, **axial).as_dict()
+        # the plan's targets are exact: gridded as the map grids them
+        return beam_figures(coords, p_r, tolerance_mm=GRID_TOLERANCE_MM, **axial).as_dict()
 
     return figures
