@@ -80,7 +80,7 @@ def test_a_line_scan_completes_every_point_once_at_the_stages_positions(sim, tmp
     assert "scan complete" in session.stop_reason
     # at the end the digitiser was closed by the session, not lost (the bench panel says so)
     (dig,) = [i for i in session.snapshot().instruments if i.name == "digitiser"]
-    assert dig.closed and not dig.connected
+    assert dig.ended and not dig.connected
     points, trace_points, events, results, integrity = _points(tmp_path / "s.db")
     assert integrity == "ok"
     assert [p.index for p in points] == list(range(5))

@@ -50,9 +50,9 @@ class BenchStatus(LinePanel):
 
         wide = cols >= 50
         for inst in snap.instruments:
-            lost = not inst.connected and not inst.closed
+            lost = not inst.connected and not inst.ended
             line = [("● " if inst.connected else "○ ", GOOD if inst.connected else
-                     KEY if inst.closed else BAD), (f"{inst.name[:3]} ", KEY)]
+                     KEY if inst.ended else BAD), (f"{inst.name[:3]} ", KEY)]
             if lost:
                 line.append(("lost ", BAD))
             elif not inst.connected:

@@ -118,7 +118,7 @@ class AcquisitionLoop:
         # Set only when nothing downstream reads the queue any more (a fatal error there).
         self.abandon = threading.Event()
         self.connected = False
-        self.closed = False
+        self.ended = False
         self.reconnecting = False
         self.last_trigger_mono = time.monotonic()
         self.blocked_s = 0.0          # total time spent waiting on a full queue
@@ -189,7 +189,7 @@ class AcquisitionLoop:
         self.connected = False
         # closed by the session (its end, or a start that failed), not lost, unless a
         # lost digitiser could not be reconnected (``fatal``)
-        self.closed = self.fatal is None
+        self.ended = self.fatal is None
 
     def event(self, kind: EventKind, detail: dict, alert: RaisedAlert | None = None,
               seq: int | None = None) -> None:

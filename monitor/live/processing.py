@@ -493,7 +493,7 @@ class TraceProcessor:
                                         resource=self._resources.get("digitiser", ""),
                                         identity=self._acq.digitiser.identity,
                                         connected=self._acq.connected,
-                                        closed=self._acq.closed))
+                                        ended=self._acq.ended))
         if self._generator is not None:
             views.append(InstrumentView(name="generator",
                                         resource=self._resources.get("generator", ""),

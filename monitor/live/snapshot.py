@@ -69,7 +69,7 @@ class InstrumentView:
     identity: str
     connected: bool
     detail: str = ""       # e.g. "output on, 120 mVpp"
-    closed: bool = False   # closed by the session at its end, not lost
+    ended: bool = False    # closed by the session at its end, not lost (as BenchView)
 
 
 @dataclass
