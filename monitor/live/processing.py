@@ -246,10 +246,10 @@ class TraceProcessor:
         bench, water, position = self._bench_at(raw)
         # (without a thermometer the converter is called as it always was)
         water_kw = {} if water is None else {"water": water}
+        # one code's worth of volts: the noise floor of a quantised quiet record
+        resolution_v = abs(float(raw.volts_per_code))
         try:
-            # one code's worth of volts: the noise floor of a quantised quiet record
-            result = self._converter.process(volts, raw.dt_s,
-                                             resolution_v=abs(float(raw.volts_per_code)),
+            result = self._converter.process(volts, raw.dt_s, resolution_v=resolution_v,
                                              **water_kw)
             flat = result.flat()
             self.converted += 1
@@ -302,7 +302,7 @@ class TraceProcessor:
             self._figures_time_s = float(raw.time_s)
         point, completed = (None, None) if self._scan is None else self._scan.on_trace(
             raw.seq, flat, flags, None if bench is None else bench.positions_mm,
-            volts=volts, dt_s=float(raw.dt_s), resolution_v=abs(float(raw.volts_per_code)))
+            volts=volts, dt_s=float(raw.dt_s), resolution_v=resolution_v)
         self._record(TraceItem(raw, flat, flags, error, bench, point))
         if completed is not None:       # after the trace that completed it
             self._record(PointItem(completed))
