@@ -8,7 +8,7 @@ from pathlib import Path
 
 from ..errors import ConfigError
 from .options import number
-from .watch import _abs, add_live_options, overrides_from_args, run_live
+from .watch import LIVE_FAILURE_CODES, _abs, add_live_options, overrides_from_args, run_live
 
 EPILOG = """\
 exit codes:
@@ -17,9 +17,7 @@ exit codes:
      the drive are stopped; resume it with --resume once the cause is understood)
   2  bad bench file, plan or setting (a point outside the soft limits is named), or an
      instrument that cannot be reached at the start
-  3  an instrument lost during the session that could not be reconnected
-  4  the session file could not be written (disk full, permissions); committed data intact
-
+""" + LIVE_FAILURE_CODES + """
 The scan waits with the drive off: tankside never switches the generator output on by
 itself (use the dashboard's d key, or --drive-on). Traces are recorded throughout; those
 acquired while the stage moves or settles belong to no point. A scan interrupted in any

@@ -22,14 +22,18 @@ from .options import (
 )
 from .running import run_to_end
 
+# exit codes 3 and 4 of a live session, the same for watch and scan
+LIVE_FAILURE_CODES = """\
+  3  an instrument lost during the session that could not be reconnected
+  4  the session file could not be written (disk full, permissions); committed data intact
+"""
+
 EPILOG = """\
 exit codes:
   0  stopped as asked (duration, trace count, Ctrl-C, SIGTERM, q in the dashboard)
   1  stopped by an alert rule whose actions include "stop"
   2  bad bench file or setting, or an instrument that cannot be reached at the start
-  3  an instrument lost during the session that could not be reconnected
-  4  the session file could not be written (disk full, permissions); committed data intact
-
+""" + LIVE_FAILURE_CODES + """
 The session file records why and how the session ended; a file without that record
 was not stopped cleanly (killed or crashed), and every committed trace in it is readable.
 """
