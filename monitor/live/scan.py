@@ -182,7 +182,6 @@ class ScanCollector:
         self._last_done_mono: float | None = None
         for rec in completed:
             self._take(rec, copy=False)     # nothing handed out yet
-        self.completed_before = len(self.completed)
         if completed:
             self.refresh_beam()
 
