@@ -9,7 +9,6 @@ settings and terminators. Every problem in a profile is a
 
 from __future__ import annotations
 
-import math
 import re
 import tomllib
 from dataclasses import dataclass
@@ -17,6 +16,7 @@ from pathlib import Path
 
 from .errors import ProfileError
 from .line import PARITIES, LineSession, SerialTransport, TcpLineTransport
+from .profile import check_keys, fail, number
 
 __all__ = ["LineTransportSettings", "read_profile_toml", "parse_profile_toml",
            "parse_transport", "pattern", "open_line_session", "fail", "check_keys", "number",
@@ -35,25 +35,6 @@ class LineTransportSettings:
     write_terminator: str = "\n"
     read_terminator: str = "\n"
     timeout_s: float = 1.0
-
-
-def fail(source: str, key: str, problem: str) -> ProfileError:
-    return ProfileError(f"{source}: {key}: {problem}")
-
-
-def check_keys(source: str, table: str, got: dict, allowed) -> None:
-    for key in got:
-        if key not in allowed:
-            raise fail(source, f"[{table}] {key}" if table else key,
-                       f"unknown key; expected one of {', '.join(sorted(allowed))}")
-
-
-def number(source: str, key: str, value, *, positive: bool = False) -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
-        raise fail(source, key, f"expected a finite number, got {value!r}")
-    if positive and not value > 0:
-        raise fail(source, key, f"expected a positive number, got {value!r}")
-    return float(value)
 
 
 def table(source: str, doc: dict, name: str, required: bool = True) -> dict:

@@ -17,6 +17,7 @@ the bench file still never reaches the instrument. The one key that holds a list
 
 from __future__ import annotations
 
+import math
 import string
 import tomllib
 from dataclasses import dataclass, field
@@ -192,15 +193,19 @@ def command_text_problem(text: str) -> str | None:
     return None
 
 
-def _fail(source: str, key: str, problem: str) -> ProfileError:
+# The checks every profile loader shares (this module's, and drivers/line_profile.py's
+# for stages and thermometers); each error names the profile file and the key.
+
+def fail(source: str, key: str, problem: str) -> ProfileError:
     return ProfileError(f"{source}: {key}: {problem}")
 
 
-def _check_keys(source: str, table: str, got: dict, allowed) -> None:
+def check_keys(source: str, table: str, got: dict, allowed) -> None:
+    """Refuse a key of ``[table]`` (the top level when ``table`` is "") not in ``allowed``."""
     for key in got:
         if key not in allowed:
-            raise _fail(source, f"[{table}] {key}",
-                        f"unknown key; expected one of {', '.join(sorted(allowed))}")
+            raise fail(source, f"[{table}] {key}" if table else key,
+                       f"unknown key; expected one of {', '.join(sorted(allowed))}")
 
 
 def check_template(source: str, key: str, template, allowed: tuple) -> None:
@@ -208,41 +213,41 @@ def check_template(source: str, key: str, template, allowed: tuple) -> None:
     placeholder outside ``allowed``, or cannot be filled (ProfileError naming ``key``)."""
     where = f"[commands] {key}"
     if not isinstance(template, str) or not template.strip():
-        raise _fail(source, where, "expected a non-empty string")
+        raise fail(source, where, "expected a non-empty string")
     problem = command_text_problem(template)
     if problem is not None:
-        raise _fail(source, where, f"template {template!r} {problem}")
+        raise fail(source, where, f"template {template!r} {problem}")
     try:
         names = [name for _, name, _, _ in string.Formatter().parse(template) if name is not None]
     except ValueError as err:
-        raise _fail(source, where, f"bad template {template!r}: {err}") from err
+        raise fail(source, where, f"bad template {template!r}: {err}") from err
     for name in names:
         if name not in allowed:
             allowed_text = ", ".join("{" + a + "}" for a in allowed) or "none"
-            raise _fail(source, where, f"unknown placeholder {{{name}}}; allowed: {allowed_text}")
+            raise fail(source, where, f"unknown placeholder {{{name}}}; allowed: {allowed_text}")
     try:
         template.format(**_SAMPLE_VALUES)
     except (ValueError, KeyError, IndexError) as err:
-        raise _fail(source, where, f"template {template!r} cannot be filled: {err}") from err
+        raise fail(source, where, f"template {template!r} cannot be filled: {err}") from err
 
 
-def _number(source: str, key: str, value, *, positive: bool = False) -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float):
-        raise _fail(source, key, f"expected a number, got {value!r}")
+def number(source: str, key: str, value, *, positive: bool = False) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        raise fail(source, key, f"expected a finite number, got {value!r}")
     if positive and not value > 0:
-        raise _fail(source, key, f"expected a positive number, got {value!r}")
+        raise fail(source, key, f"expected a positive number, got {value!r}")
     return float(value)
 
 
 def _choice(source: str, key: str, value, choices) -> str:
     if value not in choices:
-        raise _fail(source, key, f"expected one of {', '.join(choices)}, got {value!r}")
+        raise fail(source, key, f"expected one of {', '.join(choices)}, got {value!r}")
     return value
 
 
 def _strings(source: str, key: str, value) -> tuple:
     if not isinstance(value, list) or not value or not all(isinstance(v, str) for v in value):
-        raise _fail(source, key, f"expected a non-empty list of strings, got {value!r}")
+        raise fail(source, key, f"expected a non-empty list of strings, got {value!r}")
     return tuple(value)
 
 
@@ -254,49 +259,49 @@ def parse_profile(text: str, source: str = "<text>") -> Profile:
         raise ProfileError(f"{source}: not valid TOML: {err}") from err
     inst = doc.get("instrument")
     if not isinstance(inst, dict):
-        raise _fail(source, "[instrument]", "missing table")
-    _check_keys(source, "instrument", inst, ("kind", "description"))
+        raise fail(source, "[instrument]", "missing table")
+    check_keys(source, "instrument", inst, ("kind", "description"))
     kind = _choice(source, "[instrument] kind", inst.get("kind"), KINDS)
     description = inst.get("description", "")
     if not isinstance(description, str):
-        raise _fail(source, "[instrument] description", "expected a string")
-    _check_keys(source, "top level", doc, _TABLES[kind])
+        raise fail(source, "[instrument] description", "expected a string")
+    check_keys(source, "top level", doc, _TABLES[kind])
     for table in doc:
         if not isinstance(doc[table], dict):
-            raise _fail(source, table, "expected a table")
+            raise fail(source, table, "expected a table")
 
     out: dict = {"source": source, "kind": kind, "description": description}
     transport = doc.get("transport", {})
-    _check_keys(source, "transport", transport, _TRANSPORT_KEYS)
+    check_keys(source, "transport", transport, _TRANSPORT_KEYS)
     for key in ("read_termination", "write_termination"):
         if key in transport:
             value = transport[key]
             if not isinstance(value, str) or not value.isascii():
-                raise _fail(source, f"[transport] {key}",
+                raise fail(source, f"[transport] {key}",
                             f"expected an ASCII string, got {value!r}")
             out[key] = value
     if "timeout_s" in transport:
-        out["timeout_s"] = _number(source, "[transport] timeout_s", transport["timeout_s"],
+        out["timeout_s"] = number(source, "[transport] timeout_s", transport["timeout_s"],
                                    positive=True)
 
     allowed, required = ((_DIGITISER_COMMANDS, _DIGITISER_REQUIRED) if kind == "digitiser"
                          else (_GENERATOR_COMMANDS, _GENERATOR_REQUIRED))
     commands = doc.get("commands")
     if not isinstance(commands, dict):
-        raise _fail(source, "[commands]", "missing table")
+        raise fail(source, "[commands]", "missing table")
     commands = dict(commands)
     out["setup"] = _parse_setup(source, commands.pop("setup", []))
-    _check_keys(source, "commands", commands, (*allowed, "setup"))
+    check_keys(source, "commands", commands, (*allowed, "setup"))
     for key in required:
         if key not in commands:
-            raise _fail(source, f"[commands] {key}", "missing (required)")
+            raise fail(source, f"[commands] {key}", "missing (required)")
     for key, template in commands.items():
         check_template(source, key, template, allowed[key])
     out["commands"] = commands
 
     if kind == "digitiser":
         if "acquisition_done" not in commands and "wait_complete" not in commands:
-            raise _fail(source, "[commands] acquisition_done",
+            raise fail(source, "[commands] acquisition_done",
                         "missing: define acquisition_done or wait_complete")
         out.update(_parse_data(source, doc))
         out.update(_parse_ranges(source, doc))
@@ -309,34 +314,34 @@ def _parse_setup(source: str, lines) -> tuple:
     """``[commands] setup``: a list of whole command lines, each checked as command text."""
     where = "[commands] setup"
     if not isinstance(lines, list):
-        raise _fail(source, where, f"expected a list of command lines, got {lines!r}")
+        raise fail(source, where, f"expected a list of command lines, got {lines!r}")
     for n, line in enumerate(lines, start=1):
         if not isinstance(line, str) or not line.strip():
-            raise _fail(source, f"{where} line {n}", f"expected a non-empty string, got {line!r}")
+            raise fail(source, f"{where} line {n}", f"expected a non-empty string, got {line!r}")
         problem = command_text_problem(line)
         if problem is not None:
-            raise _fail(source, f"{where} line {n}", f"{line!r} {problem}")
+            raise fail(source, f"{where} line {n}", f"{line!r} {problem}")
     return tuple(lines)
 
 
 def _parse_data(source: str, doc: dict) -> dict:
     data = doc.get("data")
     if not isinstance(data, dict):
-        raise _fail(source, "[data]", "missing table")
-    _check_keys(source, "data", data, ("format", "byte_order", "code_min", "code_max"))
+        raise fail(source, "[data]", "missing table")
+    check_keys(source, "data", data, ("format", "byte_order", "code_min", "code_max"))
     for key in ("format", "code_min", "code_max"):
         if key not in data:
-            raise _fail(source, f"[data] {key}", "missing (required)")
+            raise fail(source, f"[data] {key}", "missing (required)")
     fmt = _choice(source, "[data] format", data["format"], DATA_FORMATS)
     order = _choice(source, "[data] byte_order", data.get("byte_order", "little"), BYTE_ORDERS)
-    lo = _number(source, "[data] code_min", data["code_min"])
-    hi = _number(source, "[data] code_max", data["code_max"])
+    lo = number(source, "[data] code_min", data["code_min"])
+    hi = number(source, "[data] code_max", data["code_max"])
     if not lo < hi:
-        raise _fail(source, "[data] code_max", f"must exceed code_min ({lo:g}), got {hi:g}")
+        raise fail(source, "[data] code_max", f"must exceed code_min ({lo:g}), got {hi:g}")
     if fmt != "float32":
         info = np.iinfo(fmt)
         if lo < info.min or hi > info.max or lo != int(lo) or hi != int(hi):
-            raise _fail(source, "[data] code_min",
+            raise fail(source, "[data] code_min",
                         f"rails {lo:g}..{hi:g} are not integers within {fmt} "
                         f"({info.min}..{info.max})")
     return {"data_format": fmt, "byte_order": order, "code_min": lo, "code_max": hi}
@@ -345,42 +350,42 @@ def _parse_data(source: str, doc: dict) -> dict:
 def _parse_ranges(source: str, doc: dict) -> dict:
     ranges = doc.get("ranges")
     if not isinstance(ranges, dict):
-        raise _fail(source, "[ranges]", "missing table")
-    _check_keys(source, "ranges", ranges, ("values_v", "kind", "divisions"))
+        raise fail(source, "[ranges]", "missing table")
+    check_keys(source, "ranges", ranges, ("values_v", "kind", "divisions"))
     kind = _choice(source, "[ranges] kind", ranges.get("kind", "span"), RANGE_KINDS)
     divisions = 1
     if kind == "per_division":
         given = ranges.get("divisions")
         if isinstance(given, bool) or not isinstance(given, int) or given < 1:
-            raise _fail(source, "[ranges] divisions",
+            raise fail(source, "[ranges] divisions",
                         f"kind = \"per_division\" needs a whole number of divisions >= 1 "
                         f"across the span, got {given!r}")
         divisions = given
     elif "divisions" in ranges:
-        raise _fail(source, "[ranges] divisions",
+        raise fail(source, "[ranges] divisions",
                     f"only used with kind = \"per_division\" (kind is {kind!r})")
     values = ranges.get("values_v")
     if not isinstance(values, list) or not values:
-        raise _fail(source, "[ranges] values_v", "expected a non-empty list of spans in V")
-    spans = tuple(_number(source, "[ranges] values_v", v, positive=True) for v in values)
+        raise fail(source, "[ranges] values_v", "expected a non-empty list of spans in V")
+    spans = tuple(number(source, "[ranges] values_v", v, positive=True) for v in values)
     if any(b <= a for a, b in zip(spans, spans[1:], strict=False)):
-        raise _fail(source, "[ranges] values_v", f"must be strictly ascending, got {list(spans)}")
+        raise fail(source, "[ranges] values_v", f"must be strictly ascending, got {list(spans)}")
     return {"ranges_v": spans, "range_kind": kind, "range_divisions": divisions}
 
 
 def _parse_values(source: str, doc: dict) -> dict:
     values = doc.get("values", {})
     keys = ("output_on", "output_off", "output_on_replies", "output_off_replies")
-    _check_keys(source, "values", values, keys)
+    check_keys(source, "values", values, keys)
     out = {"output_on": "ON", "output_off": "OFF", "output_on_replies": ("1", "ON"),
            "output_off_replies": ("0", "OFF")}
     for key in ("output_on", "output_off"):
         if key in values:
             if not isinstance(values[key], str) or not values[key]:
-                raise _fail(source, f"[values] {key}", "expected a non-empty string")
+                raise fail(source, f"[values] {key}", "expected a non-empty string")
             problem = command_text_problem(values[key])
             if problem is not None:
-                raise _fail(source, f"[values] {key}", f"{values[key]!r} {problem}")
+                raise fail(source, f"[values] {key}", f"{values[key]!r} {problem}")
             out[key] = values[key]
     for key in ("output_on_replies", "output_off_replies"):
         if key in values:
@@ -388,7 +393,7 @@ def _parse_values(source: str, doc: dict) -> dict:
     overlap = {v.upper() for v in out["output_on_replies"]} & {
         v.upper() for v in out["output_off_replies"]}
     if overlap:
-        raise _fail(source, "[values] output_off_replies",
+        raise fail(source, "[values] output_off_replies",
                     f"words both on and off: {sorted(overlap)}")
     return out
 

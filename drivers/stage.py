@@ -33,9 +33,6 @@ from .errors import (
 from .line import LineSession
 from .line_profile import (
     LineTransportSettings,
-    check_keys,
-    fail,
-    number,
     open_line_session,
     parse_profile_toml,
     parse_transport,
@@ -43,7 +40,7 @@ from .line_profile import (
     read_profile_toml,
     table,
 )
-from .profile import check_template, command_text_problem
+from .profile import check_keys, check_template, command_text_problem, fail, number
 
 __all__ = ["StageProfile", "StageAxis", "Stage", "load_stage_profile", "parse_stage_profile",
            "open_stage"]

@@ -22,9 +22,6 @@ from .errors import InstrumentTimeout, ProtocolError
 from .line import LineSession
 from .line_profile import (
     LineTransportSettings,
-    check_keys,
-    fail,
-    number,
     open_line_session,
     parse_profile_toml,
     parse_transport,
@@ -32,7 +29,7 @@ from .line_profile import (
     read_profile_toml,
     table,
 )
-from .profile import command_text_problem
+from .profile import check_keys, command_text_problem, fail, number
 
 __all__ = ["ThermometerProfile", "Thermometer", "load_thermometer_profile",
            "parse_thermometer_profile", "open_thermometer", "UNITS", "to_celsius"]
